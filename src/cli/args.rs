@@ -1,0 +1,243 @@
+//! Flag groups shared by several commands, and their conversion to typed inputs.
+
+use cistern::dosing::{Regimen, Route};
+use cistern::engine::Params;
+use cistern::io::output::{CAUTION, Format, Sink};
+use cistern::units::{Kind, parse_value};
+use cistern::{Error, InputError};
+use clap::Args;
+use std::io::IsTerminal;
+
+/// Where and how to print.
+#[derive(Args, Debug, Clone)]
+pub struct OutputArgs {
+    /// Output format [default: table on a terminal, csv when piped or from the -o extension]
+    #[arg(long, value_enum)]
+    pub format: Option<Format>,
+    /// Write the output to FILE (atomically; never over an input file); `-` is stdout
+    #[arg(short = 'o', long = "output", value_name = "FILE")]
+    pub output: Option<String>,
+    /// Print no notes on stderr (errors and the caution are still printed)
+    #[arg(short, long)]
+    pub quiet: bool,
+}
+
+impl OutputArgs {
+    /// The chosen or inferred format.
+    pub fn format(&self) -> Format {
+        self.format.unwrap_or_else(|| Format::infer(self.output.as_deref(), std::io::stdout().is_terminal()))
+    }
+
+    /// Open the output, refusing to write over an input.
+    pub fn sink(&self, inputs: &[&str]) -> Result<Sink, Error> {
+        Sink::open(self.output.as_deref(), inputs)
+    }
+
+    /// A note for the user on stderr, unless `--quiet`.
+    pub fn note(&self, text: &str) {
+        if !self.quiet {
+            eprintln!("note: {text}");
+        }
+    }
+
+    /// The caution for CSV output, which must stay pure data: it goes to stderr.
+    pub fn caution_for_csv(&self, format: Format) {
+        if format == Format::Csv {
+            eprintln!("caution: {CAUTION}");
+        }
+    }
+}
+
+/// Individual kinetic parameters.
+#[derive(Args, Debug, Clone)]
+pub struct ParamArgs {
+    /// Clearance, e.g. 4.2 (L/h), 4.2l/h, 70ml/min
+    #[arg(long, value_name = "CL")]
+    pub cl: Option<String>,
+    /// Volume of distribution, e.g. 48 (L), 48l, 48000ml
+    #[arg(long, value_name = "V")]
+    pub v: Option<String>,
+    /// Elimination rate constant instead of --cl, e.g. 0.0875 (1/h), 0.0875/h
+    #[arg(long, value_name = "K", conflicts_with = "cl")]
+    pub k: Option<String>,
+    /// Absorption rate constant for oral doses, e.g. 1.2 (1/h)
+    #[arg(long, value_name = "KA")]
+    pub ka: Option<String>,
+    /// Oral bioavailability, 0 < F <= 1
+    #[arg(long, value_name = "F", default_value = "1")]
+    pub f: String,
+    /// Oral absorption lag time, e.g. 0.5h or 30min
+    #[arg(long, value_name = "TIME", default_value = "0")]
+    pub tlag: String,
+}
+
+/// Parse a flag's value with units, naming the flag in the error.
+pub fn flag_value(flag: &str, kind: Kind, text: &str) -> Result<f64, InputError> {
+    parse_value(kind, text).map_err(|m| InputError::new(flag, m))
+}
+
+/// Parse a plain number flag.
+pub fn flag_number(flag: &str, text: &str) -> Result<f64, InputError> {
+    match text.trim().parse::<f64>() {
+        Ok(v) if v.is_finite() => Ok(v),
+        _ => Err(InputError::new(flag, format!("expected a number, found '{text}'"))),
+    }
+}
+
+/// Collect the errors of several independent parses, so all are reported at once.
+pub struct Problems(Vec<InputError>);
+
+impl Problems {
+    pub fn new() -> Self {
+        Problems(Vec::new())
+    }
+
+    /// Keep the value, or record the error and return `None`.
+    pub fn take<T>(&mut self, r: Result<T, InputError>) -> Option<T> {
+        r.map_err(|e| self.0.push(e)).ok()
+    }
+
+    /// Record an error.
+    pub fn push(&mut self, e: InputError) {
+        self.0.push(e);
+    }
+
+    /// `Ok` when nothing went wrong.
+    pub fn finish(self) -> Result<(), Error> {
+        if self.0.is_empty() { Ok(()) } else { Err(Error::Input(self.0)) }
+    }
+}
+
+impl ParamArgs {
+    /// The parameters, with every problem reported.
+    pub fn params(&self, problems: &mut Problems) -> Option<Params> {
+        let v = match &self.v {
+            Some(t) => problems.take(flag_value("--v", Kind::Volume, t)),
+            None => {
+                problems.push(InputError::new("--v", "the volume of distribution is required, e.g. --v 48l"));
+                None
+            }
+        };
+        let cl = match (&self.cl, &self.k) {
+            (Some(t), _) => problems.take(flag_value("--cl", Kind::Clearance, t)),
+            (None, Some(t)) => {
+                problems.take(flag_value("--k", Kind::RateConstant, t)).zip(v).map(|(k, v)| k * v)
+            }
+            (None, None) => {
+                problems.push(InputError::new(
+                    "--cl",
+                    "give the clearance (--cl 4.2l/h) or the rate constant (--k 0.09/h)",
+                ));
+                None
+            }
+        };
+        let ka = match &self.ka {
+            Some(t) => problems.take(flag_value("--ka", Kind::RateConstant, t)).map(Some),
+            None => Some(None),
+        };
+        let f = problems.take(flag_number("--f", &self.f));
+        let tlag = problems.take(flag_value("--tlag", Kind::Time, &self.tlag));
+        let (cl, v, ka, f, tlag) = (cl?, v?, ka?, f?, tlag?);
+        Some(Params { cl_l_h: cl, v_l: v, ka_per_h: ka, f, tlag_h: tlag })
+    }
+}
+
+/// A repeated regimen given by flags.
+#[derive(Args, Debug, Clone)]
+pub struct RegimenArgs {
+    /// Amount of each dose, e.g. 1g, 750mg, 750
+    #[arg(long, value_name = "AMOUNT")]
+    pub dose: Option<String>,
+    /// Dosing interval, e.g. 12h, 720min, 1d
+    #[arg(long, value_name = "TIME")]
+    pub every: Option<String>,
+    /// Number of doses
+    #[arg(long, value_name = "N")]
+    pub count: Option<u32>,
+    /// Route: bolus, infusion or oral
+    #[arg(long, value_name = "ROUTE", default_value = "infusion")]
+    pub route: String,
+    /// Infusion duration, e.g. 1h, 90min (infusions only)
+    #[arg(long, value_name = "TIME")]
+    pub duration: Option<String>,
+    /// Time of the first dose, e.g. 0h
+    #[arg(long, value_name = "TIME", default_value = "0")]
+    pub start: String,
+}
+
+impl RegimenArgs {
+    /// True when any regimen flag other than the defaults was given.
+    pub fn given(&self) -> bool {
+        self.dose.is_some() || self.every.is_some() || self.count.is_some() || self.duration.is_some()
+    }
+
+    /// The regimen, with every problem reported. `count` defaults to `default_count`.
+    pub fn regimen(&self, problems: &mut Problems, default_count: Option<u32>) -> Option<Regimen> {
+        let amount = match &self.dose {
+            Some(t) => problems.take(flag_value("--dose", Kind::Amount, t)),
+            None => {
+                problems.push(InputError::new("--dose", "the dose amount is required, e.g. --dose 1g"));
+                None
+            }
+        };
+        let every = match &self.every {
+            Some(t) => problems.take(flag_value("--every", Kind::Time, t)),
+            None if self.count == Some(1) => Some(24.0),
+            None => {
+                problems
+                    .push(InputError::new("--every", "the dosing interval is required, e.g. --every 12h"));
+                None
+            }
+        };
+        let route = Route::parse(&self.route);
+        if route.is_none() {
+            problems.push(InputError::new(
+                "--route",
+                format!("expected bolus, infusion or oral, found '{}'", self.route),
+            ));
+        }
+        let duration = match (&self.duration, route) {
+            (Some(t), _) => problems.take(flag_value("--duration", Kind::Time, t)),
+            (None, Some(Route::Infusion)) => {
+                problems.push(InputError::new(
+                    "--duration",
+                    "an infusion needs its duration, e.g. --duration 1h (or choose --route bolus/oral)",
+                ));
+                None
+            }
+            (None, _) => Some(0.0),
+        };
+        let count = match self.count.or(default_count) {
+            Some(c) => Some(c),
+            None => {
+                problems.push(InputError::new("--count", "the number of doses is required, e.g. --count 6"));
+                None
+            }
+        };
+        let start = problems.take(flag_value("--start", Kind::Time, &self.start));
+        let regimen = Regimen {
+            amount_mg: amount?,
+            every_h: every?,
+            count: count?,
+            route: route?,
+            duration_h: duration?,
+            start_h: start?,
+        };
+        match regimen.validate() {
+            Ok(()) => Some(regimen),
+            Err(m) => {
+                let flag = if m.contains("duration") {
+                    "--duration"
+                } else if m.contains("interval") {
+                    "--every"
+                } else if m.contains("count") {
+                    "--count"
+                } else {
+                    "--dose"
+                };
+                problems.push(InputError::new(flag, m));
+                None
+            }
+        }
+    }
+}

@@ -1,0 +1,156 @@
+//! `cistern exposure`: steady-state metrics of a repeated regimen.
+
+use super::args::{OutputArgs, ParamArgs, Problems, RegimenArgs};
+use cistern::Error;
+use cistern::dosing::Route;
+use cistern::engine::steady::{RepeatedDose, SteadyCurve, SteadyState};
+use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use clap::Args;
+use serde::Serialize;
+
+/// Steady-state peak, trough, AUC, average level, accumulation and loading dose of a regimen.
+#[derive(Args, Debug)]
+#[command(after_help = "\
+Examples:
+  # 1 g over 1 h every 12 h with CL 4.2 L/h and V 48 L
+  cistern exposure --dose 1g --every 12h --route infusion --duration 1h --cl 4.2 --v 48
+
+  # oral, with the rate constant instead of clearance, as JSON
+  cistern exposure --dose 500mg --every 8h --route oral --ka 1.1 --f 0.8 --k 0.0875/h --v 48l --format json")]
+pub struct ExposureArgs {
+    #[command(flatten)]
+    regimen: RegimenArgs,
+    #[command(flatten)]
+    params: ParamArgs,
+    #[command(flatten)]
+    output: OutputArgs,
+}
+
+/// The parameters block of the JSON output.
+#[derive(Serialize)]
+struct ParametersJson {
+    cl_l_h: f64,
+    v_l: f64,
+    k_per_h: f64,
+    half_life_h: f64,
+    time_constant_h: f64,
+    steady_state_gain_h_l: f64,
+    ka_per_h: Option<f64>,
+    f: f64,
+    tlag_h: f64,
+}
+
+#[derive(Serialize)]
+struct RegimenJson {
+    amount_mg: f64,
+    every_h: f64,
+    route: Route,
+    duration_h: f64,
+}
+
+#[derive(Serialize)]
+struct ExposureJson<'a> {
+    parameters: ParametersJson,
+    regimen: RegimenJson,
+    steady_state: SteadyState,
+    caution: &'a str,
+}
+
+/// Run the command.
+pub fn run(args: ExposureArgs) -> Result<(), Error> {
+    let mut problems = Problems::new();
+    let params = args.params.params(&mut problems);
+    let regimen = args.regimen.regimen(&mut problems, Some(1));
+    problems.finish()?;
+    let (Some(params), Some(regimen)) = (params, regimen) else {
+        return Err(Error::Usage("the arguments could not be read".into()));
+    };
+    let dose = RepeatedDose {
+        amount_mg: regimen.amount_mg,
+        route: regimen.route,
+        duration_h: regimen.duration_h,
+        every_h: regimen.every_h,
+    };
+    let ss = SteadyCurve::new(&params, dose).map_err(Error::Usage)?.metrics();
+    let k = params.k_per_h();
+    let doc = ExposureJson {
+        parameters: ParametersJson {
+            cl_l_h: params.cl_l_h,
+            v_l: params.v_l,
+            k_per_h: k,
+            half_life_h: params.half_life_h(),
+            time_constant_h: 1.0 / k,
+            steady_state_gain_h_l: 1.0 / params.cl_l_h,
+            ka_per_h: params.ka_per_h,
+            f: params.f,
+            tlag_h: params.tlag_h,
+        },
+        regimen: RegimenJson {
+            amount_mg: dose.amount_mg,
+            every_h: dose.every_h,
+            route: dose.route,
+            duration_h: dose.duration_h,
+        },
+        steady_state: ss,
+        caution: CAUTION,
+    };
+    let format = args.output.format();
+    let mut sink = args.output.sink(&[])?;
+    let out = sink.writer();
+    match format {
+        Format::Json => {
+            serde_json::to_writer_pretty(&mut *out, &doc).map_err(|e| io_failure(e.into()))?;
+            writeln!(out).map_err(io_failure)?;
+        }
+        Format::Csv => {
+            let rows = rows(&doc);
+            let names: Vec<&str> = rows.iter().map(|r| r.0).collect();
+            let values: Vec<String> = rows.iter().map(|r| full(r.1)).collect();
+            writeln!(out, "{}\n{}", names.join(","), values.join(",")).map_err(io_failure)?;
+        }
+        Format::Table => {
+            let table: Vec<Vec<String>> = rows(&doc)
+                .into_iter()
+                .map(|(name, value, label)| vec![label.to_string(), readable(value, 5), name.to_string()])
+                .collect();
+            write!(out, "{}", render_table(&["quantity", "value", "key"], &table)).map_err(io_failure)?;
+            writeln!(out, "\n{CAUTION}").map_err(io_failure)?;
+        }
+    }
+    args.output.caution_for_csv(format);
+    sink.finish()
+}
+
+/// Every number of the output as (key, value, label), in a fixed order.
+fn rows(doc: &ExposureJson) -> Vec<(&'static str, f64, &'static str)> {
+    let p = &doc.parameters;
+    let s = &doc.steady_state;
+    let mut rows = vec![
+        ("cl_l_h", p.cl_l_h, "clearance (L/h)"),
+        ("v_l", p.v_l, "volume (L)"),
+        ("k_per_h", p.k_per_h, "elimination rate constant (1/h)"),
+        ("half_life_h", p.half_life_h, "half-life (h)"),
+        ("time_constant_h", p.time_constant_h, "time constant V/CL (h)"),
+        ("steady_state_gain_h_l", p.steady_state_gain_h_l, "steady-state gain 1/CL (mg/L per mg/h)"),
+    ];
+    if let Some(ka) = p.ka_per_h {
+        rows.push(("ka_per_h", ka, "absorption rate constant (1/h)"));
+    }
+    rows.extend([
+        ("amount_mg", doc.regimen.amount_mg, "dose (mg)"),
+        ("every_h", doc.regimen.every_h, "interval (h)"),
+        ("duration_h", doc.regimen.duration_h, "infusion duration (h)"),
+        ("peak_mg_l", s.peak_mg_l, "steady-state peak (mg/L)"),
+        ("peak_time_h", s.peak_time_h, "peak time after dose (h)"),
+        ("trough_mg_l", s.trough_mg_l, "steady-state trough (mg/L)"),
+        ("auc_tau_mg_h_l", s.auc_tau_mg_h_l, "AUC over one interval (mg·h/L)"),
+        ("auc24_mg_h_l", s.auc24_mg_h_l, "AUC over 24 h (mg·h/L)"),
+        ("cavg_mg_l", s.cavg_mg_l, "average concentration (mg/L)"),
+        ("accumulation_ratio", s.accumulation_ratio, "accumulation ratio"),
+        ("fluctuation_pct", s.fluctuation_pct, "peak-trough fluctuation (% of average)"),
+        ("time_to_90pct_h", s.time_to_90pct_h, "time to 90 % of steady state (h)"),
+        ("time_to_95pct_h", s.time_to_95pct_h, "time to 95 % of steady state (h)"),
+        ("loading_dose_mg", s.loading_dose_mg, "loading dose (mg)"),
+    ]);
+    rows
+}

@@ -1,0 +1,60 @@
+//! Command-line definitions and dispatch. One file per command; shared flag groups in `args`.
+
+mod args;
+mod check;
+mod exposure;
+mod simulate;
+
+use cistern::Error;
+use clap::{Parser, Subcommand};
+use std::process::ExitCode;
+
+/// Dosing planner for drugs with one-compartment, first-order (linear) kinetics.
+///
+/// Values on the command line take a unit suffix (1g, 12h, 90min, 65ml/min, 0.5/h); a bare
+/// number is in base units (mg, h, L, L/h, mg/L, 1/h). Output is a table on a terminal and CSV
+/// when piped; choose with --format. Not clinical advice: dosing decisions belong to licensed
+/// clinicians following local protocols.
+#[derive(Parser, Debug)]
+#[command(name = "cistern", version, propagate_version = true, max_term_width = 100)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    Simulate(simulate::SimulateArgs),
+    Exposure(exposure::ExposureArgs),
+    Check(check::CheckArgs),
+}
+
+/// Parse the command line, run the command, and turn the outcome into an exit code.
+pub fn run() -> ExitCode {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            // Help and version go to stdout with code 0; usage errors to stderr with code 2.
+            let _ = e.print();
+            return ExitCode::from(if e.use_stderr() { 2 } else { 0 });
+        }
+    };
+    let outcome = match cli.command {
+        Command::Simulate(a) => simulate::run(a),
+        Command::Exposure(a) => exposure::run(a),
+        Command::Check(a) => check::run(a),
+    };
+    match outcome {
+        Ok(()) | Err(Error::OutputClosed) => ExitCode::SUCCESS,
+        Err(Error::Input(problems)) => {
+            for p in &problems {
+                eprintln!("error: {p}");
+            }
+            ExitCode::from(2)
+        }
+        Err(e) => {
+            eprintln!("error: {e}");
+            ExitCode::from(e.exit_code())
+        }
+    }
+}

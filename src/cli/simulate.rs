@@ -1,0 +1,235 @@
+//! `cistern simulate`: concentrations over a dose history at requested times, and the exact AUC.
+
+use super::args::{OutputArgs, ParamArgs, Problems, RegimenArgs, flag_value};
+use cistern::engine;
+use cistern::io::doses::{DoseFile, parse_doses};
+use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use cistern::io::table::Table;
+use cistern::units::Kind;
+use cistern::{Error, InputError};
+use clap::Args;
+use serde::Serialize;
+
+/// The most time points one grid may hold.
+const MAX_POINTS: f64 = 1e8;
+
+/// Concentrations over a dose history, with the exact AUC over the simulated span.
+#[derive(Args, Debug)]
+#[command(after_help = "\
+Examples:
+  # 1 g infused over 1 h every 12 h, 6 doses; CL 4.2 L/h, V 48 L; every 30 min for 3 days
+  cistern simulate --dose 1g --route infusion --duration 1h --every 12h --count 6 \\
+      --cl 4.2 --v 48 --times 0:72h:30min
+
+  # a recorded dose history (CSV) at chosen times, as JSON
+  cistern simulate --doses demo-regimens/doses.csv --cl 70ml/min --v 48l --at 1,6,11.5 --format json
+
+  # oral doses: absorption rate, bioavailability and lag time
+  cistern simulate --dose 500mg --route oral --every 8h --count 9 --ka 1.1 --f 0.8 --tlag 20min \\
+      --cl 4.2 --v 48 --times 0:72:0.25")]
+pub struct SimulateArgs {
+    /// Doses CSV (columns time_<unit>, amount_<unit>, route, duration_<unit>; optional subject,
+    /// every_<unit> and count); instead of the regimen flags
+    #[arg(long, value_name = "FILE")]
+    doses: Option<String>,
+    #[command(flatten)]
+    regimen: RegimenArgs,
+    #[command(flatten)]
+    params: ParamArgs,
+    /// Time grid START:END:STEP, e.g. 0:48h:15min (START + i·STEP up to END)
+    #[arg(long, value_name = "GRID", conflicts_with = "at")]
+    times: Option<String>,
+    /// Explicit times, comma-separated, e.g. 0.5,1,2h,90min
+    #[arg(long, value_name = "LIST", value_delimiter = ',')]
+    at: Vec<String>,
+    #[command(flatten)]
+    output: OutputArgs,
+}
+
+#[derive(Serialize)]
+struct SubjectCurve<'a> {
+    subject: Option<&'a str>,
+    time_h: &'a [f64],
+    conc_mg_l: &'a [f64],
+    auc_from_h: f64,
+    auc_to_h: f64,
+    auc_mg_h_l: f64,
+}
+
+#[derive(Serialize)]
+struct SimulateJson<'a> {
+    subjects: Vec<SubjectCurve<'a>>,
+    caution: &'a str,
+}
+
+/// Parse `START:END:STEP` into the grid START + i·STEP, i = 0, 1, … up to END within rounding.
+pub fn parse_grid(text: &str) -> Result<Vec<f64>, InputError> {
+    let flag = "--times";
+    let parts: Vec<&str> = text.split(':').collect();
+    if parts.len() != 3 {
+        return Err(InputError::new(
+            flag,
+            format!("expected START:END:STEP, e.g. 0:48h:30min, found '{text}'"),
+        ));
+    }
+    let start = flag_value(flag, Kind::Time, parts[0])?;
+    let end = flag_value(flag, Kind::Time, parts[1])?;
+    let step = flag_value(flag, Kind::Time, parts[2])?;
+    if step <= 0.0 {
+        return Err(InputError::new(flag, format!("the STEP must be positive, found '{}'", parts[2])));
+    }
+    if end < start {
+        return Err(InputError::new(flag, format!("END ({end} h) is before START ({start} h)")));
+    }
+    // Include END when it lies on the grid up to rounding.
+    let intervals = ((end - start) / step * (1.0 + 1e-12) + 1e-9).floor();
+    if intervals + 1.0 > MAX_POINTS {
+        return Err(InputError::new(
+            flag,
+            format!("the grid has more than {MAX_POINTS:e} points; use a larger STEP"),
+        ));
+    }
+    Ok((0..=intervals as u64).map(|i| start + i as f64 * step).collect())
+}
+
+fn times_of(args: &SimulateArgs, problems: &mut Problems) -> Option<Vec<f64>> {
+    match (&args.times, args.at.is_empty()) {
+        (Some(grid), _) => problems.take(parse_grid(grid)),
+        (None, false) => {
+            let mut out = Vec::with_capacity(args.at.len());
+            for t in &args.at {
+                out.push(problems.take(flag_value("--at", Kind::Time, t))?);
+            }
+            Some(out)
+        }
+        (None, true) => {
+            problems.push(InputError::new("--times", "give the times: --times 0:48h:30min or --at 1,2,6"));
+            None
+        }
+    }
+}
+
+fn histories(args: &SimulateArgs, problems: &mut Problems) -> Option<DoseFile> {
+    match (&args.doses, args.regimen.given()) {
+        (Some(_), true) => {
+            problems
+                .push(InputError::new("--doses", "give either a doses file or the regimen flags, not both"));
+            None
+        }
+        (Some(path), false) => {
+            let table = Table::read(path).map_err(|e| e.into_iter().for_each(|e| problems.push(e))).ok()?;
+            let file = parse_doses(&table).map_err(|e| e.into_iter().for_each(|e| problems.push(e))).ok()?;
+            Some(file)
+        }
+        (None, _) => {
+            let regimen = args.regimen.regimen(problems, None)?;
+            Some(DoseFile { subjects: vec![(None, regimen.doses())], ignored_columns: Vec::new() })
+        }
+    }
+}
+
+/// Run the command.
+pub fn run(args: SimulateArgs) -> Result<(), Error> {
+    let mut problems = Problems::new();
+    let params = args.params.params(&mut problems);
+    let times = times_of(&args, &mut problems);
+    let subjects = histories(&args, &mut problems);
+    problems.finish()?;
+    let (Some(params), Some(times), Some(DoseFile { subjects, ignored_columns: ignored })) =
+        (params, times, subjects)
+    else {
+        return Err(Error::Usage("the arguments could not be read".into()));
+    };
+    for (who, doses) in &subjects {
+        params.validate(doses).map_err(|m| match who {
+            Some(s) => Error::Usage(format!("subject {s}: {m}")),
+            None => Error::Usage(m),
+        })?;
+    }
+    if !ignored.is_empty() {
+        args.output.note(&format!("ignored columns in the doses file: {}", ignored.join(", ")));
+    }
+    let (t_lo, t_hi) =
+        times.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &t| (lo.min(t), hi.max(t)));
+    let curves: Vec<(Vec<f64>, f64)> = subjects
+        .iter()
+        .map(|(_, doses)| {
+            (engine::concentrations(&params, doses, &times), engine::auc(&params, doses, t_lo, t_hi))
+        })
+        .collect();
+
+    let format = args.output.format();
+    let inputs: Vec<&str> = args.doses.iter().map(String::as_str).collect();
+    let mut sink = args.output.sink(&inputs)?;
+    let out = sink.writer();
+    let with_subject = subjects.iter().any(|(s, _)| s.is_some());
+    match format {
+        Format::Json => {
+            let doc = SimulateJson {
+                subjects: subjects
+                    .iter()
+                    .zip(&curves)
+                    .map(|((who, _), (conc, auc))| SubjectCurve {
+                        subject: who.as_deref(),
+                        time_h: &times,
+                        conc_mg_l: conc,
+                        auc_from_h: t_lo,
+                        auc_to_h: t_hi,
+                        auc_mg_h_l: *auc,
+                    })
+                    .collect(),
+                caution: CAUTION,
+            };
+            serde_json::to_writer_pretty(&mut *out, &doc).map_err(|e| io_failure(e.into()))?;
+            writeln!(out).map_err(io_failure)?;
+        }
+        Format::Csv => {
+            let header = if with_subject { "subject,time_h,conc_mg_l" } else { "time_h,conc_mg_l" };
+            writeln!(out, "{header}").map_err(io_failure)?;
+            for ((who, _), (conc, _)) in subjects.iter().zip(&curves) {
+                let prefix = match who {
+                    Some(s) if with_subject => csv_field(s) + ",",
+                    _ => String::new(),
+                };
+                for (t, c) in times.iter().zip(conc) {
+                    writeln!(out, "{prefix}{},{}", full(*t), full(*c)).map_err(io_failure)?;
+                }
+            }
+            for ((who, _), (_, auc)) in subjects.iter().zip(&curves) {
+                let name = who.as_deref().map(|s| format!("subject {s}: ")).unwrap_or_default();
+                args.output.note(&format!("{name}AUC from {t_lo} h to {t_hi} h = {} mg·h/L", full(*auc)));
+            }
+        }
+        Format::Table => {
+            let mut headers = vec!["time_h", "conc_mg_l"];
+            if with_subject {
+                headers.insert(0, "subject");
+            }
+            let mut rows = Vec::new();
+            for ((who, _), (conc, _)) in subjects.iter().zip(&curves) {
+                for (t, c) in times.iter().zip(conc) {
+                    let mut row = vec![readable(*t, 6), readable(*c, 5)];
+                    if with_subject {
+                        row.insert(0, who.clone().unwrap_or_default());
+                    }
+                    rows.push(row);
+                }
+            }
+            write!(out, "{}", render_table(&headers, &rows)).map_err(io_failure)?;
+            writeln!(out).map_err(io_failure)?;
+            for ((who, _), (_, auc)) in subjects.iter().zip(&curves) {
+                let name = who.as_deref().map(|s| format!("subject {s}: ")).unwrap_or_default();
+                writeln!(out, "{name}AUC {t_lo}–{t_hi} h = {} mg·h/L (exact integral)", readable(*auc, 5))
+                    .map_err(io_failure)?;
+            }
+            writeln!(out, "\n{CAUTION}").map_err(io_failure)?;
+        }
+    }
+    args.output.caution_for_csv(format);
+    sink.finish()
+}
+
+/// Quote a CSV field when it needs it.
+fn csv_field(s: &str) -> String {
+    if s.contains([',', '"', '\n', '\r']) { format!("\"{}\"", s.replace('"', "\"\"")) } else { s.to_string() }
+}

@@ -1,0 +1,123 @@
+//! Dose events and regimens.
+//!
+//! A dose history is a list of [`Dose`]s in any order; a [`Regimen`] is the repeated dose a
+//! prescriber writes ("1 g over 1 h every 12 h, 6 doses") and expands into a history.
+
+use serde::{Deserialize, Serialize};
+use std::fmt;
+
+/// How a dose enters the body.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Hash)]
+#[serde(rename_all = "lowercase")]
+pub enum Route {
+    /// Instantaneous intravenous input.
+    Bolus,
+    /// Zero-order (constant-rate) intravenous input over a stated duration.
+    Infusion,
+    /// First-order absorption from a depot, with bioavailability and lag time.
+    Oral,
+}
+
+impl Route {
+    /// Parse the spelling used in files and flags.
+    pub fn parse(text: &str) -> Option<Route> {
+        match text.trim().to_ascii_lowercase().as_str() {
+            "bolus" => Some(Route::Bolus),
+            "infusion" => Some(Route::Infusion),
+            "oral" => Some(Route::Oral),
+            _ => None,
+        }
+    }
+}
+
+impl fmt::Display for Route {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(match self {
+            Route::Bolus => "bolus",
+            Route::Infusion => "infusion",
+            Route::Oral => "oral",
+        })
+    }
+}
+
+/// One administered dose, in base units.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Dose {
+    /// Time the dose was given (h).
+    pub time_h: f64,
+    /// Amount given (mg). For oral doses, before bioavailability.
+    pub amount_mg: f64,
+    /// Route of administration.
+    pub route: Route,
+    /// Infusion duration (h); zero for bolus and oral doses.
+    pub duration_h: f64,
+}
+
+impl Dose {
+    /// An infusion's constant input rate (mg/h).
+    pub fn rate_mg_h(&self) -> f64 {
+        self.amount_mg / self.duration_h
+    }
+}
+
+/// A repeated dose: `count` doses of `amount_mg` every `every_h` from `start_h`.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Regimen {
+    /// Amount of each dose (mg).
+    pub amount_mg: f64,
+    /// Dosing interval (h).
+    pub every_h: f64,
+    /// Number of doses.
+    pub count: u32,
+    /// Route of each dose.
+    pub route: Route,
+    /// Infusion duration (h); zero for bolus and oral.
+    pub duration_h: f64,
+    /// Time of the first dose (h).
+    pub start_h: f64,
+}
+
+impl Regimen {
+    /// Check the regimen's values, returning what is wrong.
+    pub fn validate(&self) -> Result<(), String> {
+        validate_dose(self.amount_mg, self.route, self.duration_h)?;
+        if !(self.every_h.is_finite() && self.every_h > 0.0) {
+            return Err(format!("the dosing interval must be positive, found {} h", self.every_h));
+        }
+        if self.count == 0 {
+            return Err("the dose count must be at least 1".into());
+        }
+        if !self.start_h.is_finite() {
+            return Err("the start time must be a finite number".into());
+        }
+        Ok(())
+    }
+
+    /// The dose history this regimen describes.
+    pub fn doses(&self) -> Vec<Dose> {
+        (0..self.count)
+            .map(|i| Dose {
+                time_h: self.start_h + f64::from(i) * self.every_h,
+                amount_mg: self.amount_mg,
+                route: self.route,
+                duration_h: self.duration_h,
+            })
+            .collect()
+    }
+}
+
+/// Check one dose's amount, route and duration, returning what is wrong.
+pub fn validate_dose(amount_mg: f64, route: Route, duration_h: f64) -> Result<(), String> {
+    if !(amount_mg.is_finite() && amount_mg >= 0.0) {
+        return Err(format!("the amount must be a non-negative number, found {amount_mg} mg"));
+    }
+    match route {
+        Route::Infusion if !(duration_h.is_finite() && duration_h > 0.0) => {
+            Err(format!("an infusion needs a positive duration, found {duration_h} h"))
+        }
+        Route::Bolus | Route::Oral if duration_h != 0.0 => {
+            Err(format!("a duration is only meaningful for an infusion, not for a {route} dose"))
+        }
+        _ => Ok(()),
+    }
+}

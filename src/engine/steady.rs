@@ -1,0 +1,215 @@
+//! Steady state of a repeated regimen, in closed form.
+//!
+//! Over one dosing interval τ the state maps affinely, x(τ⁻) = Φ(τ)·x(0⁻) + u(τ), where
+//! u(τ) is one dose's response from no drug and Φ is the drug-free propagator
+//! (A ← A·e^(−kτ) + D·ka·G(τ), D ← D·e^(−ka τ)). Steady state is the fixed point; Φ is
+//! triangular, so
+//!
+//! ```text
+//! D_ss = D_u / (1 − e^(−ka τ)),   A_ss = (A_u + ka·G(τ)·D_ss) / (1 − e^(−k τ))
+//! ```
+//!
+//! is the state just before each dose. Peak, trough and AUC then follow from the exact
+//! propagator over one interval. A lag time only shifts the periodic curve, so it is computed
+//! without the lag and read off at the shifted phase.
+
+use super::kernel::{State, depot_to_central};
+use super::{Events, Kinetics, Params, Walker};
+use crate::dosing::{Dose, Route};
+use serde::Serialize;
+
+/// The dose repeated at steady state.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct RepeatedDose {
+    /// Amount of each dose (mg).
+    pub amount_mg: f64,
+    /// Route.
+    pub route: Route,
+    /// Infusion duration (h); zero otherwise.
+    pub duration_h: f64,
+    /// Dosing interval τ (h).
+    pub every_h: f64,
+}
+
+/// Steady-state metrics of a repeated regimen.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct SteadyState {
+    /// Highest concentration in an interval (mg/L): end of infusion, the bolus instant, or the
+    /// exact oral maximum.
+    pub peak_mg_l: f64,
+    /// Time of the peak after the dose (h).
+    pub peak_time_h: f64,
+    /// Concentration just before the next dose (mg/L).
+    pub trough_mg_l: f64,
+    /// AUC over one interval (mg·h/L).
+    pub auc_tau_mg_h_l: f64,
+    /// AUC over 24 h at steady state, AUC_τ·24/τ (mg·h/L).
+    pub auc24_mg_h_l: f64,
+    /// Average concentration AUC_τ/τ (mg/L).
+    pub cavg_mg_l: f64,
+    /// Accumulation ratio 1/(1 − e^(−kτ)).
+    pub accumulation_ratio: f64,
+    /// Peak–trough fluctuation 100·(peak − trough)/Cavg (%).
+    pub fluctuation_pct: f64,
+    /// Time for the regimen to reach 90 % of steady state from no drug (h).
+    pub time_to_90pct_h: f64,
+    /// Time to 95 % of steady state (h).
+    pub time_to_95pct_h: f64,
+    /// The first dose that starts the regimen at its steady-state level: maintenance dose ×
+    /// accumulation ratio (mg).
+    pub loading_dose_mg: f64,
+}
+
+/// The periodic steady-state curve of a regimen, for metrics and for reading off any phase.
+#[derive(Debug, Clone)]
+pub struct SteadyCurve {
+    kin: Kinetics<f64>,
+    dose: RepeatedDose,
+    events: Events,
+    before_dose: State<f64>,
+}
+
+impl SteadyCurve {
+    /// Solve for the steady state. Returns what is wrong when the regimen has none.
+    pub fn new(params: &Params, dose: RepeatedDose) -> Result<Self, String> {
+        let one =
+            Dose { time_h: 0.0, amount_mg: dose.amount_mg, route: dose.route, duration_h: dose.duration_h };
+        params.validate(&[one])?;
+        crate::dosing::validate_dose(dose.amount_mg, dose.route, dose.duration_h)?;
+        let tau = dose.every_h;
+        if !(tau.is_finite() && tau > 0.0) {
+            return Err(format!("the dosing interval must be positive, found {tau} h"));
+        }
+        if dose.route == Route::Infusion && dose.duration_h > tau {
+            return Err(format!(
+                "the infusion ({} h) is longer than the dosing interval ({tau} h); \
+                 simulate the overlapping doses instead",
+                dose.duration_h
+            ));
+        }
+        // Lag-free frame: the dose enters at phase 0.
+        let mut kin = Kinetics::from(params);
+        kin.tlag_h = 0.0;
+        let events = Events::new(&[one], 0.0);
+        let mut single = Walker::new(kin, &events, 0.0);
+        single.run_to(tau);
+        let u = single.state();
+        let depot = if dose.route == Route::Oral { u.depot / -(-kin.ka * tau).exp_m1() } else { 0.0 };
+        let carried = if depot > 0.0 { kin.ka * depot_to_central(kin.k, kin.ka, tau) * depot } else { 0.0 };
+        let central = (u.central + carried) / -(-kin.k * tau).exp_m1();
+        Ok(SteadyCurve { kin, dose, events, before_dose: State { central, depot } })
+    }
+
+    fn walker(&self) -> Walker<'_, f64> {
+        Walker::from_state(self.kin, &self.events, 0.0, self.before_dose)
+    }
+
+    /// Concentration at `phase` hours after the drug enters (lag-free frame), 0 ≤ phase < τ.
+    fn at_entry_phase(&self, phase: f64) -> f64 {
+        let mut w = self.walker();
+        w.run_to(phase);
+        w.concentration()
+    }
+
+    /// Steady-state concentration `phase` hours after a dose is given (0 ≤ phase < τ).
+    pub fn at(&self, phase: f64) -> f64 {
+        let tau = self.dose.every_h;
+        let lag = if self.dose.route == Route::Oral { self.kin.tlag_h } else { 0.0 };
+        self.at_entry_phase((phase - lag).rem_euclid(tau))
+    }
+
+    /// The state just before each dose, in the lag-free frame.
+    pub fn state_before_dose(&self) -> State<f64> {
+        self.before_dose
+    }
+
+    /// Peak concentration and its time after the drug enters (lag-free frame).
+    fn peak(&self) -> (f64, f64) {
+        let tau = self.dose.every_h;
+        match self.dose.route {
+            Route::Bolus => (self.at_entry_phase(0.0), 0.0),
+            Route::Infusion => (self.at_entry_phase(self.dose.duration_h), self.dose.duration_h),
+            Route::Oral => {
+                // dC/dt = 0 ⇔ ka·D(s) = k·A(s); with y = (k·A − ka·D)/(ka²·D) just after the
+                // dose, s* = −y·ln(1 + (ka − k)·y)/((ka − k)·y)  (→ −y as ka → k).
+                let (k, ka) = (self.kin.k, self.kin.ka);
+                let a = self.before_dose.central;
+                let d = self.before_dose.depot + self.kin.f * self.dose.amount_mg;
+                let mut best = (self.at_entry_phase(0.0), 0.0);
+                if d > 0.0 {
+                    let y = (k * a - ka * d) / (ka * ka * d);
+                    let z = (ka - k) * y;
+                    if z > -1.0 {
+                        let log_ratio = if z.abs() < 1e-8 { 1.0 - z / 2.0 } else { z.ln_1p() / z };
+                        let s = -y * log_ratio;
+                        if s > 0.0 && s < tau {
+                            let c = self.at_entry_phase(s);
+                            if c > best.0 {
+                                best = (c, s);
+                            }
+                        }
+                    }
+                }
+                best
+            }
+        }
+    }
+
+    /// All steady-state metrics.
+    pub fn metrics(&self) -> SteadyState {
+        let tau = self.dose.every_h;
+        let lag = if self.dose.route == Route::Oral { self.kin.tlag_h } else { 0.0 };
+        let (peak, peak_entry) = self.peak();
+        let trough = self.at(tau);
+        let mut w = self.walker();
+        w.run_to(tau);
+        let auc_tau = w.auc();
+        let cavg = auc_tau / tau;
+        let k = self.kin.k;
+        let accumulation_ratio = 1.0 / -(-k * tau).exp_m1();
+        SteadyState {
+            peak_mg_l: peak,
+            peak_time_h: peak_entry + lag,
+            trough_mg_l: trough,
+            auc_tau_mg_h_l: auc_tau,
+            auc24_mg_h_l: auc_tau * 24.0 / tau,
+            cavg_mg_l: cavg,
+            accumulation_ratio,
+            fluctuation_pct: 100.0 * (peak - trough) / cavg,
+            time_to_90pct_h: self.time_to_fraction(0.90),
+            time_to_95pct_h: self.time_to_fraction(0.95),
+            loading_dose_mg: self.dose.amount_mg * accumulation_ratio,
+        }
+    }
+
+    /// Time for a constant input to reach `fraction` of its plateau from no drug:
+    /// −ln(1 − x)/k for intravenous input; for oral input the absorption delays it and the
+    /// time solves 1 − (ka·e^(−kt) − k·e^(−ka t))/(ka − k) = x (found by bisection).
+    pub fn time_to_fraction(&self, fraction: f64) -> f64 {
+        let k = self.kin.k;
+        let elimination_only = -(-fraction).ln_1p() / k;
+        if self.dose.route != Route::Oral {
+            return elimination_only;
+        }
+        let ka = self.kin.ka;
+        let remaining = |t: f64| (-k * t).exp() + k * depot_to_central(k, ka, t);
+        let target = 1.0 - fraction;
+        let (mut lo, mut hi) = (elimination_only, 2.0 * elimination_only);
+        while remaining(hi) > target {
+            lo = hi;
+            hi *= 2.0;
+        }
+        for _ in 0..200 {
+            let mid = 0.5 * (lo + hi);
+            if remaining(mid) > target {
+                lo = mid;
+            } else {
+                hi = mid;
+            }
+            if hi - lo <= f64::EPSILON * hi {
+                break;
+            }
+        }
+        0.5 * (lo + hi) + self.kin.tlag_h
+    }
+}

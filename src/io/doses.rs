@@ -1,0 +1,219 @@
+//! The doses CSV: `time_<unit>`, `amount_<unit>`, `route`, `duration_<unit>` (infusions),
+//! optional `subject`, optional `every_<unit>` + `count` to repeat a row.
+
+use super::table::{Column, Table};
+use crate::dosing::{Dose, Route, validate_dose};
+use crate::error::InputError;
+use crate::units::Kind;
+use std::collections::HashMap;
+
+/// The most doses one row may expand to; a larger `count` is almost surely a typing error.
+pub const MAX_REPEAT: u64 = 1_000_000;
+
+/// Dose histories read from one file, one per subject in order of first appearance.
+#[derive(Debug, Clone)]
+pub struct DoseFile {
+    /// `(subject, doses)`; the subject is `None` when the file has no `subject` column.
+    pub subjects: Vec<(Option<String>, Vec<Dose>)>,
+    /// Columns that were ignored, for a note on stderr.
+    pub ignored_columns: Vec<String>,
+}
+
+/// Parse a doses table, reporting every problem found.
+pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
+    let src = table.source.as_str();
+    let mut errors = Vec::new();
+    let mut unit_col = |q: &str, k: Kind| match table.unit_column(q, k) {
+        Ok(c) => c,
+        Err(e) => {
+            errors.push(e);
+            None
+        }
+    };
+    let time = unit_col("time", Kind::Time);
+    let amount = unit_col("amount", Kind::Amount);
+    let duration = unit_col("duration", Kind::Time);
+    let every = unit_col("every", Kind::Time);
+    let route = table.column("route");
+    let subject = table.column("subject");
+    let count = table.column("count");
+    let header_line = table.header_line;
+    let missing = |what: &str, example: &str| {
+        InputError::new(src, format!("missing the {what} column (for example '{example}')"))
+            .at_line(header_line)
+    };
+    if time.is_none() && !errors.iter().any(|e| e.column.as_deref().is_some_and(|c| c.starts_with("time"))) {
+        errors.push(missing("dose time", "time_h"));
+    }
+    if amount.is_none()
+        && !errors.iter().any(|e| e.column.as_deref().is_some_and(|c| c.starts_with("amount")))
+    {
+        errors.push(missing("dose amount", "amount_mg"));
+    }
+    if route.is_none() {
+        errors.push(missing("route", "route"));
+    }
+    if every.is_some() != count.is_some() {
+        errors.push(
+            InputError::new(src, "'every_<unit>' and 'count' go together: give both or neither")
+                .at_line(header_line),
+        );
+    }
+    let (Some(time), Some(amount), Some(route)) = (time, amount, route) else {
+        return Err(errors);
+    };
+    if !errors.is_empty() {
+        return Err(errors);
+    }
+    let used: Vec<&Column> = [
+        Some(&time),
+        Some(&amount),
+        Some(&route),
+        duration.as_ref(),
+        every.as_ref(),
+        subject.as_ref(),
+        count.as_ref(),
+    ]
+    .into_iter()
+    .flatten()
+    .collect();
+    let ignored_columns = table.unused_columns(&used);
+
+    let mut subjects: Vec<(Option<String>, Vec<Dose>)> = Vec::new();
+    let mut slot_of: HashMap<Option<String>, usize> = HashMap::new();
+    for row in &table.rows {
+        let before = errors.len();
+        let mut take = |r: Result<f64, InputError>| r.map_err(|e| errors.push(e)).ok();
+        let t = take(row.number(src, &time));
+        let a = take(row.number(src, &amount));
+        let d = match &duration {
+            Some(c) => take(row.optional_number(src, c).map(|v| v.unwrap_or(0.0))),
+            None => Some(0.0),
+        };
+        let r = Route::parse(row.text(&route));
+        if r.is_none() {
+            errors.push(row.error(
+                src,
+                Some(&route),
+                format!("expected a route (bolus, infusion or oral), found '{}'", row.text(&route)),
+            ));
+        }
+        let repeat = match (&every, &count) {
+            (Some(e), Some(c)) => repeat_of(row, src, e, c).map_err(|e| errors.push(e)).ok(),
+            _ => Some(None),
+        };
+        let (Some(t), Some(a), Some(d), Some(r), Some(repeat)) = (t, a, d, r, repeat) else {
+            continue;
+        };
+        if let Err(m) = validate_dose(a, r, d) {
+            let col = if m.contains("amount") { &amount } else { duration.as_ref().unwrap_or(&route) };
+            errors.push(row.error(src, Some(col), m));
+        }
+        if errors.len() > before {
+            continue;
+        }
+        let who = subject.as_ref().map(|c| row.text(c).to_string());
+        if who.as_ref().is_some_and(String::is_empty) {
+            errors.push(row.error(
+                src,
+                subject.as_ref(),
+                "expected a subject identifier, found an empty field",
+            ));
+            continue;
+        }
+        let slot = *slot_of.entry(who.clone()).or_insert_with(|| {
+            subjects.push((who, Vec::new()));
+            subjects.len() - 1
+        });
+        let (step, n) = repeat.unwrap_or((0.0, 1));
+        subjects[slot].1.extend((0..n).map(|i| Dose {
+            time_h: t + i as f64 * step,
+            amount_mg: a,
+            route: r,
+            duration_h: d,
+        }));
+    }
+    if errors.is_empty() {
+        for (_, doses) in &mut subjects {
+            doses.sort_by(|x, y| x.time_h.total_cmp(&y.time_h));
+        }
+        Ok(DoseFile { subjects, ignored_columns })
+    } else {
+        Err(errors)
+    }
+}
+
+/// The `(interval, count)` of a repeated row, `None` when both fields are empty.
+fn repeat_of(
+    row: &super::table::Row,
+    src: &str,
+    every: &Column,
+    count: &Column,
+) -> Result<Option<(f64, u64)>, InputError> {
+    let e = row.optional_number(src, every)?;
+    let c_text = row.text(count);
+    let c = if c_text.is_empty() {
+        None
+    } else {
+        match c_text.parse::<u64>() {
+            Ok(n) if (1..=MAX_REPEAT).contains(&n) => Some(n),
+            _ => {
+                return Err(row.error(
+                    src,
+                    Some(count),
+                    format!("expected a whole number of doses from 1 to {MAX_REPEAT}, found '{c_text}'"),
+                ));
+            }
+        }
+    };
+    match (e, c) {
+        (None, None) => Ok(None),
+        (Some(e), Some(c)) if e > 0.0 => Ok(Some((e, c))),
+        (Some(_), Some(_)) => Err(row.error(src, Some(every), "expected a positive dosing interval")),
+        (None, Some(1)) => Ok(None),
+        (None, Some(_)) => Err(row.error(src, Some(every), "a count above 1 needs a dosing interval")),
+        (Some(_), None) => Err(row.error(src, Some(count), "a dosing interval needs a count")),
+    }
+}
+
+#[cfg(test)]
+#[allow(clippy::float_cmp)] // these values are exact in binary floating point
+mod tests {
+    use super::*;
+
+    fn parse(text: &str) -> Result<DoseFile, Vec<InputError>> {
+        parse_doses(&Table::parse("d.csv", text.as_bytes())?)
+    }
+
+    #[test]
+    fn units_subjects_and_repeats() {
+        let f = parse(
+            "subject,time_min,amount_g,route,duration_min,every_h,count,site\n\
+             b,60,1,infusion,30,12,3,left arm\n\
+             a,0,0.5,bolus,,,,\n",
+        )
+        .unwrap();
+        assert_eq!(f.ignored_columns, ["site"]);
+        assert_eq!(f.subjects[0].0.as_deref(), Some("b"));
+        let b = &f.subjects[0].1;
+        assert_eq!(b.len(), 3);
+        assert_eq!((b[2].time_h, b[2].amount_mg, b[2].duration_h), (25.0, 1000.0, 0.5));
+        assert_eq!(f.subjects[1].1[0].amount_mg, 500.0);
+    }
+
+    #[test]
+    fn all_row_problems_are_reported() {
+        let e = parse(
+            "time_h,amount_mg,route,duration_h\n0,-5,bolus,\nx,100,oral,\n1,100,iv,\n2,100,infusion,\n",
+        )
+        .unwrap_err();
+        let lines: Vec<_> = e.iter().map(|e| e.line).collect();
+        assert_eq!(lines, [Some(2), Some(3), Some(4), Some(5)], "{e:?}");
+    }
+
+    #[test]
+    fn a_known_quantity_with_an_unknown_unit_is_refused() {
+        let e = parse("time_h,amount_kg,route\n0,1,bolus\n").unwrap_err();
+        assert_eq!(e[0].column.as_deref(), Some("amount_kg"));
+    }
+}

@@ -1,0 +1,5 @@
+//! Readers and writers: CSV tables with located errors, dose files, output formats.
+
+pub mod doses;
+pub mod output;
+pub mod table;

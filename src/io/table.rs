@@ -1,0 +1,266 @@
+//! Reading CSV files into rows that remember their line numbers.
+//!
+//! Accepted: a UTF-8 byte-order mark, CRLF or LF line ends, quoted fields, `#` comment lines,
+//! surrounding spaces. Refused, with the line: a file with no header, a duplicate column,
+//! a row with the wrong number of fields, text that is not UTF-8.
+
+use crate::error::InputError;
+use crate::units::{Kind, parse_name};
+
+/// One data row with the 1-based line it started on.
+#[derive(Debug, Clone)]
+pub struct Row {
+    /// 1-based line number in the file.
+    pub line: u64,
+    /// The fields, trimmed.
+    pub fields: Vec<String>,
+}
+
+/// A parsed CSV file.
+#[derive(Debug, Clone)]
+pub struct Table {
+    /// Where the data came from (a path), for messages.
+    pub source: String,
+    /// Column names, trimmed.
+    pub headers: Vec<String>,
+    /// 1-based line of the header.
+    pub header_line: u64,
+    /// Data rows in file order.
+    pub rows: Vec<Row>,
+}
+
+/// A column we know, with its position and unit factor.
+#[derive(Debug, Clone)]
+pub struct Column {
+    /// Index in the row.
+    pub index: usize,
+    /// The header as written (`amount_g`).
+    pub name: String,
+    /// Factor to base units (1 for columns without a unit).
+    pub factor: f64,
+}
+
+impl Table {
+    /// Parse CSV bytes. Every problem found is returned, not only the first.
+    pub fn parse(source: &str, bytes: &[u8]) -> Result<Table, Vec<InputError>> {
+        let bytes = bytes.strip_prefix(b"\xef\xbb\xbf").unwrap_or(bytes);
+        let mut reader = csv::ReaderBuilder::new()
+            .comment(Some(b'#'))
+            .trim(csv::Trim::All)
+            .flexible(true)
+            .has_headers(true)
+            .from_reader(bytes);
+        // The reader's positions point where it started looking, before any blank or comment
+        // lines it skipped (and its line count skips comments), so the line of a record is
+        // found from its byte offset, past those skipped lines.
+        let newlines: Vec<usize> =
+            bytes.iter().enumerate().filter(|(_, b)| **b == b'\n').map(|(i, _)| i).collect();
+        let line_at = |p: &csv::Position| {
+            let mut i = p.byte() as usize;
+            while i < bytes.len() {
+                let at_line_start = i == 0 || bytes[i - 1] == b'\n';
+                if bytes[i] == b'\r' || bytes[i] == b'\n' {
+                    i += 1;
+                } else if at_line_start && bytes[i] == b'#' {
+                    i += bytes[i..].iter().position(|&b| b == b'\n').map_or(bytes.len() - i, |n| n + 1);
+                } else {
+                    break;
+                }
+            }
+            newlines.partition_point(|&n| n < i) as u64 + 1
+        };
+        let located = |pos: Option<&csv::Position>, msg: String| {
+            let e = InputError::new(source, msg);
+            match pos {
+                Some(p) => e.at_line(line_at(p)),
+                None => e,
+            }
+        };
+        let (headers, header_line): (Vec<String>, u64) = match reader.headers() {
+            Ok(h) => (h.iter().map(str::to_string).collect(), h.position().map_or(1, line_at)),
+            Err(e) => return Err(vec![located(e.position(), csv_message(&e))]),
+        };
+        if headers.iter().all(String::is_empty) {
+            return Err(vec![InputError::new(
+                source,
+                "the file is empty: expected a header line naming the columns",
+            )]);
+        }
+        let mut errors = Vec::new();
+        for (i, h) in headers.iter().enumerate() {
+            if h.is_empty() {
+                errors.push(
+                    InputError::new(source, format!("column {} has no name", i + 1)).at_line(header_line),
+                );
+            } else if headers[..i].contains(h) {
+                errors.push(
+                    InputError::new(source, format!("duplicate column '{h}'"))
+                        .at_line(1)
+                        .in_column(h.clone()),
+                );
+            }
+        }
+        let mut rows = Vec::new();
+        for record in reader.records() {
+            match record {
+                Ok(r) => {
+                    let line = r.position().map_or(header_line, line_at);
+                    if r.len() == 1 && r[0].is_empty() {
+                        continue; // a blank line
+                    }
+                    if r.len() != headers.len() {
+                        errors.push(
+                            InputError::new(
+                                source,
+                                format!(
+                                    "expected {} fields as in the header, found {}",
+                                    headers.len(),
+                                    r.len()
+                                ),
+                            )
+                            .at_line(line),
+                        );
+                        continue;
+                    }
+                    rows.push(Row { line, fields: r.iter().map(str::to_string).collect() });
+                }
+                Err(e) => errors.push(located(e.position(), csv_message(&e))),
+            }
+        }
+        if errors.is_empty() && rows.is_empty() {
+            errors
+                .push(InputError::new(source, "the file has a header but no data rows").at_line(header_line));
+        }
+        if errors.is_empty() {
+            Ok(Table { source: source.to_string(), headers, header_line, rows })
+        } else {
+            Err(errors)
+        }
+    }
+
+    /// Read and parse a CSV file.
+    pub fn read(path: &str) -> Result<Table, Vec<InputError>> {
+        let bytes = std::fs::read(path)
+            .map_err(|e| vec![InputError::new(path, format!("cannot read the file: {e}"))])?;
+        Table::parse(path, &bytes)
+    }
+
+    /// Find a plain column (no unit) by exact name.
+    pub fn column(&self, name: &str) -> Option<Column> {
+        self.headers.iter().position(|h| h == name).map(|index| Column {
+            index,
+            name: name.to_string(),
+            factor: 1.0,
+        })
+    }
+
+    /// Find the `<quantity>_<unit>` column for `quantity`, checking its unit.
+    ///
+    /// Errors: the quantity appears twice with different units, or with an unknown unit.
+    pub fn unit_column(&self, quantity: &str, kind: Kind) -> Result<Option<Column>, InputError> {
+        let mut found: Option<Column> = None;
+        for (index, h) in self.headers.iter().enumerate() {
+            match parse_name(h, &[(quantity, kind)]) {
+                Ok(Some(n)) => {
+                    if let Some(prev) = &found {
+                        return Err(InputError::new(
+                            &self.source,
+                            format!("columns '{}' and '{h}' both give the {quantity}; keep one", prev.name),
+                        )
+                        .at_line(self.header_line)
+                        .in_column(h.clone()));
+                    }
+                    found = Some(Column { index, name: h.clone(), factor: n.factor });
+                }
+                Ok(None) => {}
+                Err(m) => {
+                    return Err(InputError::new(&self.source, m)
+                        .at_line(self.header_line)
+                        .in_column(h.clone()));
+                }
+            }
+        }
+        Ok(found)
+    }
+
+    /// Columns that no reader claimed, for a note on stderr.
+    pub fn unused_columns(&self, used: &[&Column]) -> Vec<String> {
+        self.headers
+            .iter()
+            .enumerate()
+            .filter(|(i, _)| !used.iter().any(|c| c.index == *i))
+            .map(|(_, h)| h.clone())
+            .collect()
+    }
+}
+
+impl Row {
+    /// The trimmed text of a column ("" when empty).
+    pub fn text<'a>(&'a self, column: &Column) -> &'a str {
+        &self.fields[column.index]
+    }
+
+    /// A finite number in the column, converted to base units.
+    pub fn number(&self, source: &str, column: &Column) -> Result<f64, InputError> {
+        let text = self.text(column);
+        let error = |what: &str| {
+            InputError::new(source, format!("expected a number, found {what}"))
+                .at_line(self.line)
+                .in_column(column.name.clone())
+        };
+        if text.is_empty() {
+            return Err(error("an empty field"));
+        }
+        match text.parse::<f64>() {
+            Ok(v) if v.is_finite() => Ok(v * column.factor),
+            _ => Err(error(&format!("'{text}'"))),
+        }
+    }
+
+    /// An optional number: `None` for an empty field.
+    pub fn optional_number(&self, source: &str, column: &Column) -> Result<Option<f64>, InputError> {
+        if self.text(column).is_empty() { Ok(None) } else { self.number(source, column).map(Some) }
+    }
+
+    /// A located error about this row.
+    pub fn error(&self, source: &str, column: Option<&Column>, message: impl Into<String>) -> InputError {
+        let e = InputError::new(source, message).at_line(self.line);
+        match column {
+            Some(c) => e.in_column(c.name.clone()),
+            None => e,
+        }
+    }
+}
+
+fn csv_message(e: &csv::Error) -> String {
+    match e.kind() {
+        csv::ErrorKind::Utf8 { .. } => "the text is not valid UTF-8".to_string(),
+        csv::ErrorKind::Io(io) => format!("cannot read: {io}"),
+        _ => format!("malformed CSV: {e}"),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn bom_crlf_quotes_and_comments_are_accepted() {
+        let text = "\u{feff}# a comment\r\ntime_h,amount_mg\r\n\"0\", 100\r\n# another\r\n12,100\r\n";
+        let t = Table::parse("x.csv", text.as_bytes()).unwrap();
+        assert_eq!(t.headers, ["time_h", "amount_mg"]);
+        assert_eq!(t.rows.len(), 2);
+        assert_eq!(t.rows[0].fields, ["0", "100"]);
+        assert_eq!(t.rows[0].line, 3);
+        assert_eq!(t.rows[1].line, 5);
+    }
+
+    #[test]
+    fn every_problem_is_reported_with_its_line() {
+        let text = "a,b,a\n1,2,3\n1,2\n4,5,6,7\n";
+        let errors = Table::parse("x.csv", text.as_bytes()).unwrap_err();
+        assert_eq!(errors.len(), 3, "{errors:?}");
+        assert_eq!(errors[1].line, Some(3));
+        assert_eq!(errors[2].line, Some(4));
+    }
+}

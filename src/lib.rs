@@ -1,0 +1,16 @@
+//! cistern: a dosing planner for drugs with one-compartment, first-order (linear) kinetics.
+//!
+//! The library does all the work; the `cistern` binary parses arguments and prints.
+//! Data flows one way: [`io`] → typed inputs ([`dosing`], [`engine::Params`]) → [`engine`]
+//! → typed results → [`io::output`]. See docs/methods.md for every equation and its source.
+
+#![deny(clippy::float_cmp)]
+#![warn(missing_docs)]
+
+pub mod dosing;
+pub mod engine;
+pub mod error;
+pub mod io;
+pub mod units;
+
+pub use error::{Error, InputError, Result};
