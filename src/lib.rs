@@ -7,10 +7,13 @@
 #![deny(clippy::float_cmp)]
 #![warn(missing_docs)]
 
+pub mod covariates;
 pub mod dosing;
 pub mod engine;
 pub mod error;
+pub mod fit;
 pub mod io;
+pub mod model;
 pub mod units;
 
 pub use error::{Error, InputError, Result};

@@ -3,6 +3,7 @@
 mod args;
 mod check;
 mod exposure;
+mod fit;
 mod simulate;
 
 use cistern::Error;
@@ -26,6 +27,7 @@ struct Cli {
 enum Command {
     Simulate(simulate::SimulateArgs),
     Exposure(exposure::ExposureArgs),
+    Fit(fit::FitArgs),
     Check(check::CheckArgs),
 }
 
@@ -42,6 +44,7 @@ pub fn run() -> ExitCode {
     let outcome = match cli.command {
         Command::Simulate(a) => simulate::run(a),
         Command::Exposure(a) => exposure::run(a),
+        Command::Fit(a) => fit::run(a),
         Command::Check(a) => check::run(a),
     };
     match outcome {

@@ -271,14 +271,25 @@ pub fn concentrations_with<R: Real>(kin: Kinetics<R>, doses: &[Dose], times: &[f
     if !times.is_sorted_by(|a, b| a <= b) {
         order.sort_by(|&a, &b| times[a].total_cmp(&times[b]));
     }
-    let start = events.first_time().unwrap_or(0.0).min(times.iter().copied().fold(f64::INFINITY, f64::min));
-    let mut walker = Walker::new(kin, &events, start);
+    let sorted: Vec<f64> = order.iter().map(|&i| times[i]).collect();
+    let mut values = vec![R::cst(0.0); times.len()];
+    predict(kin, &events, &sorted, &mut values);
     let mut out = vec![R::cst(0.0); times.len()];
-    for i in order {
-        walker.run_to(times[i]);
-        out[i] = walker.concentration();
+    for (i, v) in order.into_iter().zip(values) {
+        out[i] = v;
     }
     out
+}
+
+/// Concentrations at ascending `times` into `out`, for an event list built once and reused
+/// (the fitter evaluates the same history many times).
+pub fn predict<R: Real>(kin: Kinetics<R>, events: &Events, times: &[f64], out: &mut [R]) {
+    let start = events.first_time().unwrap_or(f64::INFINITY).min(times.first().copied().unwrap_or(0.0));
+    let mut walker = Walker::new(kin, events, start);
+    for (t, slot) in times.iter().zip(out) {
+        walker.run_to(*t);
+        *slot = walker.concentration();
+    }
 }
 
 /// Exact AUC (mg·h/L) of the concentration curve from `t0` to `t1` (t0 ≤ t1).

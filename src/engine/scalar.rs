@@ -33,6 +33,8 @@ pub trait Real:
     fn ln(self) -> Self;
     /// √x.
     fn sqrt(self) -> Self;
+    /// A function of this number given its value and slope at `self.val()` (the chain rule).
+    fn through(self, value: f64, slope: f64) -> Self;
 }
 
 impl Real for f64 {
@@ -56,6 +58,9 @@ impl Real for f64 {
     }
     fn sqrt(self) -> Self {
         f64::sqrt(self)
+    }
+    fn through(self, value: f64, _slope: f64) -> Self {
+        value
     }
 }
 
@@ -164,6 +169,9 @@ impl<const N: usize> Real for Dual<N> {
     fn sqrt(self) -> Self {
         let s = self.v.sqrt();
         self.chain(s, 0.5 / s)
+    }
+    fn through(self, value: f64, slope: f64) -> Self {
+        self.chain(value, slope)
     }
 }
 

@@ -1,5 +1,7 @@
 //! Readers and writers: CSV tables with located errors, dose files, output formats.
 
 pub mod doses;
+pub mod levels;
 pub mod output;
 pub mod table;
+pub mod tomlfile;

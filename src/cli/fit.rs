@@ -1,0 +1,358 @@
+//! `cistern fit`: estimate clearance and volume (and ka for oral drugs) from sampled levels.
+
+use super::args::{OutputArgs, Problems, flag_number, flag_value};
+use cistern::covariates::{Covariates, Sex, parse_covariates};
+use cistern::fit::objective::Weighting;
+use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, SubjectData, fit_all};
+use cistern::io::doses::parse_doses;
+use cistern::io::levels::parse_levels;
+use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use cistern::io::table::Table;
+use cistern::model::PopulationModel;
+use cistern::units::Kind;
+use cistern::{Error, InputError};
+use clap::Args;
+use serde::Serialize;
+use std::collections::HashMap;
+
+/// Estimate each subject's clearance and volume, with 95 % intervals, from sparse levels.
+#[derive(Args, Debug)]
+#[command(after_help = "\
+Examples:
+  # Bayesian (MAP) fit of every subject against the population model, posterior intervals
+  cistern fit --model demo-regimens/model.toml --doses demo-regimens/doses.csv \\
+      --levels demo-regimens/levels.csv --covariates demo-regimens/covariates.csv
+
+  # the fast Laplace intervals, as JSON
+  cistern fit --model demo-regimens/model.toml --doses demo-regimens/doses.csv \\
+      --levels demo-regimens/levels.csv --covariates demo-regimens/covariates.csv \\
+      --intervals laplace --format json
+
+  # weighted least squares without a prior, or the two-level method
+  cistern fit --method wls --weighting 1/y^2 --doses doses.csv --levels levels.csv
+  cistern fit --method two-level --doses doses.csv --levels levels.csv
+
+Levels below the quantification limit are written <LLOQ (e.g. <0.5) and enter the MAP
+objective by the M3 likelihood. A parameter given on the command line (--ka) is held fixed.")]
+pub struct FitArgs {
+    /// Population model (TOML); required for --method map
+    #[arg(long, value_name = "FILE")]
+    model: Option<String>,
+    /// Doses CSV
+    #[arg(long, value_name = "FILE")]
+    doses: String,
+    /// Levels CSV (time_<unit>, conc_<unit>, optional subject and lloq_<unit>)
+    #[arg(long, value_name = "FILE")]
+    levels: String,
+    /// Covariates CSV (subject plus columns such as weight_kg, age_y, sex, scr_mg_dl, crcl_ml_min)
+    #[arg(long, value_name = "FILE")]
+    covariates: Option<String>,
+    /// A covariate for every subject, NAME=VALUE (e.g. weight_kg=70, sex=F); repeatable
+    #[arg(long = "covariate", value_name = "NAME=VALUE")]
+    covariate: Vec<String>,
+    /// Estimation method [default: map with --model, wls without]
+    #[arg(long, value_enum)]
+    method: Option<Method>,
+    /// Interval type
+    #[arg(long, value_enum, default_value = "posterior")]
+    intervals: Intervals,
+    /// Posterior draws per subject (importance sampling)
+    #[arg(long, default_value_t = 2000, value_parser = clap::value_parser!(u32).range(100..=1_000_000))]
+    draws: u32,
+    /// Seed for the posterior draws
+    #[arg(long, default_value_t = 1)]
+    seed: u64,
+    /// Least-squares weighting (wls)
+    #[arg(long, value_enum, default_value = "none")]
+    weighting: Weighting,
+    /// Hold ka fixed at this value (1/h), e.g. 1.2 or 1.2/h
+    #[arg(long, value_name = "KA")]
+    ka: Option<String>,
+    /// Oral bioavailability when the model gives none
+    #[arg(long, value_name = "F", default_value = "1")]
+    f: String,
+    /// Oral lag time when the model gives none, e.g. 30min
+    #[arg(long, value_name = "TIME", default_value = "0")]
+    tlag: String,
+    #[command(flatten)]
+    output: OutputArgs,
+}
+
+#[derive(Serialize)]
+struct FitJson<'a> {
+    subjects: &'a [FitResult],
+    caution: &'a str,
+}
+
+fn take_all<T>(problems: &mut Problems, r: Result<T, Vec<InputError>>) -> Option<T> {
+    r.map_err(|errors| errors.into_iter().for_each(|e| problems.push(e))).ok()
+}
+
+/// `NAME=VALUE` covariates from the command line.
+fn flag_covariates(items: &[String], problems: &mut Problems) -> Covariates {
+    let mut cov = Covariates::default();
+    for item in items {
+        let Some((name, value)) = item.split_once('=') else {
+            problems.push(InputError::new("--covariate", format!("expected NAME=VALUE, found '{item}'")));
+            continue;
+        };
+        let (name, value) = (name.trim(), value.trim());
+        if name == "sex" {
+            match value.to_ascii_uppercase().as_str() {
+                "M" | "MALE" => cov.sex = Some(Sex::Male),
+                "F" | "FEMALE" => cov.sex = Some(Sex::Female),
+                _ => problems
+                    .push(InputError::new("--covariate", format!("sex must be M or F, found '{value}'"))),
+            }
+        } else if let Some(v) = problems.take(flag_number("--covariate", value)) {
+            cov.set(name, v);
+        }
+    }
+    cov
+}
+
+/// Match doses, levels and covariates by subject, and derive the covariates the model needs.
+fn assemble(
+    args: &FitArgs,
+    model: Option<&PopulationModel>,
+    problems: &mut Problems,
+) -> Option<(Vec<SubjectData>, Vec<String>)> {
+    let doses = take_all(problems, Table::read(&args.doses).and_then(|t| parse_doses(&t)));
+    let levels = take_all(problems, Table::read(&args.levels).and_then(|t| parse_levels(&t)));
+    let covariates = match &args.covariates {
+        Some(path) => take_all(problems, Table::read(path).and_then(|t| parse_covariates(&t))),
+        None => Some(Vec::new()),
+    };
+    let common = flag_covariates(&args.covariate, problems);
+    let (doses, levels, covariates) = (doses?, levels?, covariates?);
+    let mut notes = levels.notes.clone();
+    if !doses.ignored_columns.is_empty() {
+        notes.push(format!("{}: ignored columns: {}", args.doses, doses.ignored_columns.join(", ")));
+    }
+    let dose_ids = doses.subjects.iter().any(|(s, _)| s.is_some());
+    let level_ids = levels.subjects.iter().any(|(s, _)| s.is_some());
+    if dose_ids != level_ids {
+        problems.push(InputError::new(
+            &args.levels,
+            "the doses and levels files must both have a subject column, or neither",
+        ));
+        return None;
+    }
+    let dose_of: HashMap<&Option<String>, &Vec<_>> = doses.subjects.iter().map(|(s, d)| (s, d)).collect();
+    let cov_of: HashMap<&str, &Covariates> = covariates.iter().map(|(s, c)| (s.as_str(), c)).collect();
+    let needed = model.map(|m| m.covariates_needed()).unwrap_or_default();
+    let mut subjects = Vec::new();
+    for (id, lv) in &levels.subjects {
+        let name = id.clone().unwrap_or_else(|| "(single subject)".into());
+        let Some(d) = dose_of.get(id) else {
+            problems.push(InputError::new(
+                &args.levels,
+                format!("subject {name} has levels but no doses in {}", args.doses),
+            ));
+            continue;
+        };
+        let mut cov = id.as_deref().and_then(|s| cov_of.get(s)).map(|c| (*c).clone()).unwrap_or_default();
+        for (k, v) in common.iter() {
+            cov.set(k, v);
+        }
+        if common.sex.is_some() {
+            cov.sex = common.sex;
+        }
+        if let Err(m) = cov.derive(&needed) {
+            let source = args.covariates.clone().unwrap_or_else(|| "--covariate".into());
+            problems.push(InputError::new(source, format!("subject {name}: {m}")));
+            continue;
+        }
+        subjects.push(SubjectData { id: id.clone(), doses: d.to_vec(), levels: lv.clone(), covariates: cov });
+    }
+    let skipped: Vec<String> = doses
+        .subjects
+        .iter()
+        .filter(|(s, _)| !levels.subjects.iter().any(|(l, _)| l == s))
+        .map(|(s, _)| s.clone().unwrap_or_default())
+        .collect();
+    if !skipped.is_empty() {
+        notes.push(format!("subjects with doses but no levels are not fitted: {}", skipped.join(", ")));
+    }
+    Some((subjects, notes))
+}
+
+/// Run the command.
+pub fn run(args: FitArgs) -> Result<(), Error> {
+    let mut problems = Problems::new();
+    let model = match &args.model {
+        Some(path) => take_all(&mut problems, PopulationModel::read(path)),
+        None => None,
+    };
+    let ka = args.ka.as_ref().and_then(|t| problems.take(flag_value("--ka", Kind::RateConstant, t)));
+    let f = problems.take(flag_number("--f", &args.f));
+    let tlag = problems.take(flag_value("--tlag", Kind::Time, &args.tlag));
+    let assembled = assemble(&args, model.as_ref(), &mut problems);
+    problems.finish()?;
+    let (Some((subjects, notes)), Some(f), Some(tlag)) = (assembled, f, tlag) else {
+        return Err(Error::Usage("the arguments could not be read".into()));
+    };
+    let method = args.method.unwrap_or(if model.is_some() { Method::Map } else { Method::Wls });
+    if method == Method::Map && model.is_none() {
+        return Err(Error::Usage("--method map needs a population model: give --model FILE".into()));
+    }
+    if !(f > 0.0 && f <= 1.0) {
+        return Err(InputError::new("--f", format!("bioavailability must be in (0, 1], found {f}")).into());
+    }
+    for n in &notes {
+        args.output.note(n);
+    }
+    let options = FitOptions {
+        method,
+        intervals: args.intervals,
+        draws: args.draws as usize,
+        seed: args.seed,
+        weighting: args.weighting,
+        ka_per_h: ka,
+        f,
+        tlag_h: tlag,
+        keep_draws: 0,
+    };
+    let outcomes = fit_all(&subjects, model.as_ref(), &options);
+    let mut fits = Vec::with_capacity(outcomes.len());
+    let mut failures = Vec::new();
+    for (s, o) in subjects.iter().zip(outcomes) {
+        match o {
+            Ok(r) => fits.push(r),
+            Err(m) => failures.push(match &s.id {
+                Some(id) => format!("subject {id}: {m}"),
+                None => m,
+            }),
+        }
+    }
+    if !failures.is_empty() {
+        return Err(Error::Usage(failures.join("\n")));
+    }
+    let inputs: Vec<&str> = [
+        Some(args.doses.as_str()),
+        Some(args.levels.as_str()),
+        args.model.as_deref(),
+        args.covariates.as_deref(),
+    ]
+    .into_iter()
+    .flatten()
+    .collect();
+    let format = args.output.format();
+    let mut sink = args.output.sink(&inputs)?;
+    let out = sink.writer();
+    match format {
+        Format::Json => {
+            serde_json::to_writer_pretty(&mut *out, &FitJson { subjects: &fits, caution: CAUTION })
+                .map_err(|e| io_failure(e.into()))?;
+            writeln!(out).map_err(io_failure)?;
+        }
+        Format::Csv => write_csv(out, &fits).map_err(io_failure)?,
+        Format::Table => {
+            write!(out, "{}", table(&fits)).map_err(io_failure)?;
+            writeln!(out, "\n{CAUTION}").map_err(io_failure)?;
+        }
+    }
+    args.output.caution_for_csv(format);
+    sink.finish()
+}
+
+fn estimate_cells(e: Option<&Estimate>) -> [String; 4] {
+    let opt = |x: Option<f64>| x.map(full).unwrap_or_default();
+    match e {
+        Some(e) => [full(e.value), opt(e.se), opt(e.ci95.map(|c| c[0])), opt(e.ci95.map(|c| c[1]))],
+        None => Default::default(),
+    }
+}
+
+fn write_csv(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std::io::Result<()> {
+    let names = ["cl_l_h", "v_l", "k_per_h", "half_life_h", "ka_per_h"];
+    let mut header = vec!["subject".to_string(), "method".into(), "converged".into(), "objective".into()];
+    for n in names {
+        header.extend([n.to_string(), format!("{n}_se"), format!("{n}_ci95_lo"), format!("{n}_ci95_hi")]);
+    }
+    header.push("warnings".into());
+    let mut w = csv::Writer::from_writer(out);
+    w.write_record(&header)?;
+    for r in fits {
+        let e = &r.estimates;
+        let mut row = vec![
+            r.subject.clone().unwrap_or_default(),
+            serde_json::to_value(r.method)
+                .ok()
+                .and_then(|v| v.as_str().map(str::to_string))
+                .unwrap_or_default(),
+            r.converged.to_string(),
+            full(r.objective),
+        ];
+        for est in
+            [Some(&e.cl_l_h), Some(&e.v_l), Some(&e.k_per_h), Some(&e.half_life_h), e.ka_per_h.as_ref()]
+        {
+            row.extend(estimate_cells(est));
+        }
+        row.push(r.warnings.join("; "));
+        w.write_record(&row)?;
+    }
+    w.flush()
+}
+
+fn table(fits: &[FitResult]) -> String {
+    let mut text = String::new();
+    for r in fits {
+        let name = r.subject.as_deref().unwrap_or("subject");
+        let method = serde_json::to_value(r.method)
+            .ok()
+            .and_then(|v| v.as_str().map(str::to_string))
+            .unwrap_or_default();
+        text += &format!(
+            "{name} — method {method}, {}, objective {}\n",
+            if r.converged { "converged" } else { "NOT converged" },
+            readable(r.objective, 6)
+        );
+        let e = &r.estimates;
+        let mut rows = Vec::new();
+        let prior = r.prior;
+        for (label, est, typical) in [
+            ("CL (L/h)", Some(&e.cl_l_h), prior.map(|p| p.cl_l_h)),
+            ("V (L)", Some(&e.v_l), prior.map(|p| p.v_l)),
+            ("k (1/h)", Some(&e.k_per_h), None),
+            ("half-life (h)", Some(&e.half_life_h), None),
+            ("ka (1/h)", e.ka_per_h.as_ref(), prior.and_then(|p| p.ka_per_h)),
+        ] {
+            let Some(est) = est else { continue };
+            let ci = est
+                .ci95
+                .map(|c| format!("{} – {}", readable(c[0], 4), readable(c[1], 4)))
+                .unwrap_or_else(|| "—".into());
+            rows.push(vec![
+                label.to_string(),
+                readable(est.value, 4),
+                est.se.map(|s| readable(s, 3)).unwrap_or_else(|| "—".into()),
+                ci,
+                typical.map(|t| readable(t, 4)).unwrap_or_default(),
+            ]);
+        }
+        text += &render_table(&["parameter", "estimate", "se", "95% interval", "typical"], &rows);
+        let lv: Vec<Vec<String>> = r
+            .levels
+            .iter()
+            .map(|l| {
+                vec![
+                    readable(l.time_h, 5),
+                    match (l.observed_mg_l, l.lloq_mg_l) {
+                        (Some(y), _) => readable(y, 4),
+                        (None, Some(q)) => format!("<{}", readable(q, 3)),
+                        (None, None) => "BLQ".into(),
+                    },
+                    readable(l.predicted_mg_l, 4),
+                    l.weighted_residual.map(|w| readable(w, 3)).unwrap_or_default(),
+                ]
+            })
+            .collect();
+        text += &render_table(&["time_h", "observed_mg_l", "predicted_mg_l", "weighted_residual"], &lv);
+        for w in &r.warnings {
+            text += &format!("warning: {w}\n");
+        }
+        text.push('\n');
+    }
+    text
+}

@@ -1,0 +1,678 @@
+//! Estimating a subject's clearance and volume (and ka for oral drugs) from sampled levels.
+//!
+//! Methods: `map` (Bayesian, against a population prior, with the M3 likelihood for levels
+//! below the quantification limit), `wls` (weighted least squares, no prior) and `two-level`
+//! (the classic steady-state intermittent-infusion method). Intervals: `posterior` (adaptive
+//! importance sampling of the exact posterior), `laplace` (the Hessian at the mode) or `none`.
+//! Subjects are fitted in parallel and deterministically: each has its own seed.
+
+// Index loops read as the matrix formulas they implement.
+#![allow(clippy::needless_range_loop)]
+
+pub mod linalg;
+pub mod objective;
+pub mod optimise;
+pub mod posterior;
+pub mod two_level;
+
+use crate::covariates::Covariates;
+use crate::dosing::{Dose, Route};
+use crate::engine::Params;
+use crate::io::levels::Level;
+use crate::model::PopulationModel;
+use linalg::{MAX, Mat, spd_inverse};
+use objective::{Likelihood, Prior, Problem, Weighting};
+use rayon::prelude::*;
+use serde::Serialize;
+use statrs::distribution::{ContinuousCDF, StudentsT};
+
+/// Estimation method.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Method {
+    /// Maximum a posteriori against the population model.
+    Map,
+    /// Weighted least squares, no prior.
+    Wls,
+    /// Two post-infusion levels in one interval at steady state.
+    TwoLevel,
+}
+
+/// How uncertainty is reported.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum, Serialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Intervals {
+    /// From draws of the actual posterior (map) — calibrated.
+    Posterior,
+    /// From the curvature at the optimum (fast; under-covers in sparse designs).
+    Laplace,
+    /// Point estimates only.
+    None,
+}
+
+/// Options shared by all subjects of one run.
+#[derive(Debug, Clone)]
+pub struct FitOptions {
+    /// Estimation method.
+    pub method: Method,
+    /// Interval type.
+    pub intervals: Intervals,
+    /// Importance-sampling draws per subject.
+    pub draws: usize,
+    /// Seed of all random draws.
+    pub seed: u64,
+    /// Least-squares weighting.
+    pub weighting: Weighting,
+    /// ka held fixed (1/h), from the command line.
+    pub ka_per_h: Option<f64>,
+    /// Bioavailability and lag time when no model gives them.
+    pub f: f64,
+    /// Lag time (h) when no model gives it.
+    pub tlag_h: f64,
+    /// Unweighted posterior draws to keep per subject (for planning); 0 keeps none.
+    pub keep_draws: usize,
+}
+
+impl Default for FitOptions {
+    fn default() -> Self {
+        FitOptions {
+            method: Method::Map,
+            intervals: Intervals::Posterior,
+            draws: 2000,
+            seed: 1,
+            weighting: Weighting::None,
+            ka_per_h: None,
+            f: 1.0,
+            tlag_h: 0.0,
+            keep_draws: 0,
+        }
+    }
+}
+
+/// One subject's data.
+#[derive(Debug, Clone)]
+pub struct SubjectData {
+    /// Identifier (`None` for a single unnamed subject).
+    pub id: Option<String>,
+    /// Dose history, sorted by time.
+    pub doses: Vec<Dose>,
+    /// Levels, sorted by time.
+    pub levels: Vec<Level>,
+    /// Covariates (with derived ones filled in).
+    pub covariates: Covariates,
+}
+
+/// An estimate with its uncertainty.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Estimate {
+    /// Point estimate (the posterior mode for map).
+    pub value: f64,
+    /// Standard error (posterior standard deviation for map with posterior intervals).
+    pub se: Option<f64>,
+    /// 95 % interval.
+    pub ci95: Option<[f64; 2]>,
+}
+
+/// The estimated parameters.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Estimates {
+    /// Clearance (L/h).
+    pub cl_l_h: Estimate,
+    /// Volume (L).
+    pub v_l: Estimate,
+    /// Elimination rate constant (1/h).
+    pub k_per_h: Estimate,
+    /// Half-life (h).
+    pub half_life_h: Estimate,
+    /// Absorption rate constant (1/h), when estimated.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub ka_per_h: Option<Estimate>,
+}
+
+/// One level with its fit.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct LevelFit {
+    /// Sampling time (h).
+    pub time_h: f64,
+    /// Measured value (mg/L); `None` below the limit.
+    pub observed_mg_l: Option<f64>,
+    /// Quantification limit (mg/L).
+    pub lloq_mg_l: Option<f64>,
+    /// Below the quantification limit.
+    pub blq: bool,
+    /// Individual prediction (mg/L).
+    pub predicted_mg_l: f64,
+    /// Observed − predicted (mg/L).
+    pub residual_mg_l: Option<f64>,
+    /// Residual over its standard deviation (map) or times √weight (wls).
+    pub weighted_residual: Option<f64>,
+}
+
+/// The population typical values for this subject (covariate-adjusted).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct PriorSummary {
+    /// Typical clearance (L/h).
+    pub cl_l_h: f64,
+    /// Typical volume (L).
+    pub v_l: f64,
+    /// Typical ka (1/h).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub ka_per_h: Option<f64>,
+}
+
+/// The fit of one subject.
+#[derive(Debug, Clone, Serialize)]
+pub struct FitResult {
+    /// Subject identifier.
+    pub subject: Option<String>,
+    /// Method used.
+    pub method: Method,
+    /// Interval type used.
+    pub intervals: Intervals,
+    /// Whether the optimiser converged (gradient ≈ 0, positive-definite Hessian).
+    pub converged: bool,
+    /// Optimiser iterations.
+    pub iterations: u64,
+    /// Objective at the optimum (−2 log posterior up to a constant for map; weighted SSR for wls).
+    pub objective: f64,
+    /// The estimates.
+    pub estimates: Estimates,
+    /// Typical values of the prior (map).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub prior: Option<PriorSummary>,
+    /// Effective sample size of the posterior draws.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub effective_draws: Option<f64>,
+    /// The two-level method's extrapolated peak and trough.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub two_level: Option<two_level::TwoLevel>,
+    /// Each level with its prediction and residuals.
+    pub levels: Vec<LevelFit>,
+    /// Things the user should know.
+    pub warnings: Vec<String>,
+    /// Unweighted posterior draws of the individual parameters (when asked for).
+    #[serde(skip)]
+    pub draws: Vec<Params>,
+    /// The fixed parameters used (F, lag), for continuing predictions.
+    #[serde(skip)]
+    pub point: Params,
+}
+
+/// A well-mixed 64-bit hash, to derive independent per-subject seeds (SplitMix64).
+pub fn mix_seed(seed: u64, index: u64) -> u64 {
+    let mut z = seed.wrapping_add(index.wrapping_add(1).wrapping_mul(0x9E37_79B9_7F4A_7C15));
+    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+    z ^ (z >> 31)
+}
+
+/// Fit every subject in parallel; results are in input order and independent of thread count.
+pub fn fit_all(
+    subjects: &[SubjectData],
+    model: Option<&PopulationModel>,
+    options: &FitOptions,
+) -> Vec<Result<FitResult, String>> {
+    subjects
+        .par_iter()
+        .enumerate()
+        .map(|(i, s)| fit_subject(s, model, options, mix_seed(options.seed, i as u64)))
+        .collect()
+}
+
+/// How ka, F and the lag time are handled for one subject.
+struct Absorption {
+    estimate_ka: bool,
+    fixed_ka: Option<f64>,
+    f: f64,
+    tlag_h: f64,
+}
+
+impl Absorption {
+    fn fixed(&self, n: usize) -> objective::Fixed {
+        objective::Fixed { n, ka_per_h: self.fixed_ka, f: self.f, tlag_h: self.tlag_h }
+    }
+}
+
+fn absorption(
+    subject: &SubjectData,
+    model: Option<&PopulationModel>,
+    options: &FitOptions,
+) -> Result<Absorption, String> {
+    let oral = subject.doses.iter().any(|d| d.route == Route::Oral);
+    let model_abs = model.and_then(|m| m.absorption.as_ref());
+    let (f, tlag_h) = model_abs.map_or((options.f, options.tlag_h), |a| (a.f, a.tlag_h));
+    let fixed_ka = match (options.ka_per_h, model_abs) {
+        (Some(ka), _) => Some(ka),
+        (None, Some(a)) if !a.ka.varies() || options.method == Method::Wls && !oral => Some(a.ka.typical),
+        _ => None,
+    };
+    let estimate_ka = oral && fixed_ka.is_none();
+    if estimate_ka && options.method == Method::Map && model_abs.is_none() {
+        return Err(
+            "oral doses: the model has no [absorption] table to give ka a prior; add one or fix ka with --ka"
+                .into(),
+        );
+    }
+    Ok(Absorption { estimate_ka, fixed_ka: fixed_ka.or(model_abs.map(|a| a.ka.typical)), f, tlag_h })
+}
+
+/// Fit one subject with its own `seed`.
+pub fn fit_subject(
+    subject: &SubjectData,
+    model: Option<&PopulationModel>,
+    options: &FitOptions,
+    seed: u64,
+) -> Result<FitResult, String> {
+    let abs = absorption(subject, model, options)?;
+    match options.method {
+        Method::TwoLevel => fit_two_level(subject, &abs),
+        Method::Map => {
+            let model = model.ok_or("the map method needs a population model: give --model")?;
+            fit_map(subject, model, options, &abs, seed)
+        }
+        Method::Wls => fit_wls(subject, model, options, &abs),
+    }
+}
+
+fn base_params(abs: &Absorption, theta: &[f64]) -> Params {
+    Params {
+        cl_l_h: theta[0].exp(),
+        v_l: theta[1].exp(),
+        ka_per_h: if abs.estimate_ka { Some(theta[2].exp()) } else { abs.fixed_ka },
+        f: abs.f,
+        tlag_h: abs.tlag_h,
+    }
+}
+
+/// Point estimates and intervals from a covariance of θ (log-normal intervals, `z` quantile).
+fn from_covariance(theta: &[f64], cov: Option<&Mat>, n: usize, z: f64) -> Estimates {
+    let est = |log_value: f64, var: Option<f64>| {
+        let value = log_value.exp();
+        match var.filter(|v| v.is_finite() && *v >= 0.0) {
+            Some(v) => {
+                let sd = v.sqrt();
+                Estimate {
+                    value,
+                    se: Some(value * sd),
+                    ci95: Some([(log_value - z * sd).exp(), (log_value + z * sd).exp()]),
+                }
+            }
+            None => Estimate { value, se: None, ci95: None },
+        }
+    };
+    let c = |i: usize, j: usize| cov.map(|m| m[i][j]);
+    let ln_k = theta[0] - theta[1];
+    let var_k = cov.map(|m| m[0][0] + m[1][1] - 2.0 * m[0][1]);
+    Estimates {
+        cl_l_h: est(theta[0], c(0, 0)),
+        v_l: est(theta[1], c(1, 1)),
+        k_per_h: est(ln_k, var_k),
+        half_life_h: est(std::f64::consts::LN_2.ln() - ln_k, var_k),
+        ka_per_h: (n == 3).then(|| est(theta[2], c(2, 2))),
+    }
+}
+
+/// Estimates from weighted posterior draws: mode as value, posterior SD and 2.5–97.5 % quantiles.
+fn from_draws(theta: &[f64], draws: &posterior::WeightedDraws, n: usize) -> Estimates {
+    let est = |value: f64, f: &dyn Fn(&[f64; MAX]) -> f64| Estimate {
+        value,
+        se: Some(draws.mean_sd(f).1),
+        ci95: Some([draws.quantile(0.025, f), draws.quantile(0.975, f)]),
+    };
+    let ln2 = std::f64::consts::LN_2;
+    Estimates {
+        cl_l_h: est(theta[0].exp(), &|t| t[0].exp()),
+        v_l: est(theta[1].exp(), &|t| t[1].exp()),
+        k_per_h: est((theta[0] - theta[1]).exp(), &|t| (t[0] - t[1]).exp()),
+        half_life_h: est(ln2 / (theta[0] - theta[1]).exp(), &|t| ln2 / (t[0] - t[1]).exp()),
+        ka_per_h: (n == 3).then(|| est(theta[2].exp(), &|t| t[2].exp())),
+    }
+}
+
+fn level_fits(
+    problem: &Problem,
+    theta: &[f64],
+    weight_of: impl Fn(&Level, f64) -> Option<f64>,
+) -> Vec<LevelFit> {
+    let predicted = problem.predictions(theta);
+    problem
+        .levels()
+        .iter()
+        .zip(predicted)
+        .map(|(l, f)| {
+            let residual = l.conc_mg_l.map(|y| y - f);
+            LevelFit {
+                time_h: l.time_h,
+                observed_mg_l: l.conc_mg_l,
+                lloq_mg_l: l.lloq_mg_l,
+                blq: l.is_blq(),
+                predicted_mg_l: f,
+                residual_mg_l: residual,
+                weighted_residual: residual.and_then(|r| weight_of(l, f).map(|w| r * w)),
+            }
+        })
+        .collect()
+}
+
+fn plausibility(model: Option<&PopulationModel>, e: &Estimates, warnings: &mut Vec<String>) {
+    let Some(m) = model else { return };
+    let checks = [
+        ("clearance", e.cl_l_h.value, m.clearance.plausible, "L/h"),
+        ("volume", e.v_l.value, m.volume.plausible, "L"),
+    ];
+    for (name, value, range, unit) in checks {
+        if let Some((lo, hi)) = range
+            && !(lo..=hi).contains(&value)
+        {
+            warnings.push(format!("the {name} estimate {value:.4} {unit} is outside the model's plausible range {lo}–{hi} {unit}"));
+        }
+    }
+}
+
+fn check_levels(subject: &SubjectData) -> Result<(), String> {
+    let first = subject.doses.first().map(|d| d.time_h).ok_or("the subject has no doses")?;
+    if let Some(l) = subject.levels.iter().find(|l| l.time_h < first) {
+        return Err(format!(
+            "a level at {} h (line {}) comes before the first dose at {first} h",
+            l.time_h, l.line
+        ));
+    }
+    if subject.levels.is_empty() {
+        return Err("the subject has no levels".into());
+    }
+    Ok(())
+}
+
+fn convergence_warnings(opt: &optimise::Optimum, other_optimum: bool, warnings: &mut Vec<String>) {
+    if !opt.converged {
+        warnings.push(format!(
+            "the optimiser did not converge ({}; largest gradient component {:.2e})",
+            opt.reason, opt.gradient_norm
+        ));
+    }
+    if other_optimum {
+        warnings.push("another start found a different local optimum; the best is reported".into());
+    }
+}
+
+fn fit_map(
+    subject: &SubjectData,
+    model: &PopulationModel,
+    options: &FitOptions,
+    abs: &Absorption,
+    seed: u64,
+) -> Result<FitResult, String> {
+    check_levels(subject)?;
+    let cov = &subject.covariates;
+    let cl_typ = model.clearance.typical_for(cov)?;
+    let v_typ = model.volume.typical_for(cov)?;
+    let ka_prior = model.absorption.as_ref().map(|a| a.ka.clone());
+    let n = if abs.estimate_ka { 3 } else { 2 };
+    let mut omega: Mat = [[0.0; MAX]; MAX];
+    let (w_cl, w_v) = (model.clearance.omega2, model.volume.omega2);
+    omega[0][0] = w_cl;
+    omega[1][1] = w_v;
+    omega[0][1] = model.correlation_cl_v * (w_cl * w_v).sqrt();
+    omega[1][0] = omega[0][1];
+    let mut mean = [cl_typ.ln(), v_typ.ln(), 0.0];
+    if n == 3 {
+        let ka = ka_prior.as_ref().ok_or("the model has no [absorption] table")?;
+        omega[2][2] = ka.omega2;
+        mean[2] = ka.typical.ln();
+    }
+    let precision = spd_inverse(&omega, n)
+        .ok_or("the model's variances and correlation do not form a valid covariance")?;
+    let problem = Problem::new(
+        &subject.doses,
+        &subject.levels,
+        abs.fixed(n),
+        Likelihood::Bayes(model.residual),
+        Some(Prior { mean, precision }),
+    );
+    let sd: Vec<f64> = (0..n).map(|i| omega[i][i].sqrt()).collect();
+    let mut starts = vec![mean; 3];
+    for (s, sign) in starts.iter_mut().skip(1).zip([1.0, -1.0]) {
+        s[0] += sign * 0.5 * sd[0];
+        s[1] -= sign * 0.5 * sd[1];
+    }
+    let (opt, other) = optimise::minimise_from(&problem, &starts);
+    let theta = opt.theta.clone();
+    let mut warnings = Vec::new();
+    convergence_warnings(&opt, other, &mut warnings);
+    let laplace = spd_inverse(&opt.hessian, n).map(|mut c| {
+        for row in c.iter_mut() {
+            for x in row.iter_mut() {
+                *x *= 2.0;
+            }
+        }
+        c
+    });
+    let mut effective_draws = None;
+    let mut kept = Vec::new();
+    let estimates = match options.intervals {
+        Intervals::None => from_covariance(&theta, None, n, 0.0),
+        Intervals::Laplace => from_covariance(&theta, laplace.as_ref(), n, 1.959963984540054),
+        Intervals::Posterior => {
+            match posterior::sample(&problem, &theta, &opt.hessian, options.draws, seed) {
+                Some(draws) => {
+                    effective_draws = Some(draws.ess);
+                    if draws.ess < 0.1 * options.draws as f64 {
+                        warnings.push(format!(
+                            "only {:.0} effective posterior draws of {}; intervals are rough (raise --draws)",
+                            draws.ess, options.draws
+                        ));
+                    }
+                    if options.keep_draws > 0 {
+                        let u0 = (mix_seed(seed, u64::MAX) >> 11) as f64 / (1u64 << 53) as f64;
+                        kept = draws
+                            .resample(options.keep_draws, u0)
+                            .iter()
+                            .map(|t| base_params(abs, &t[..]))
+                            .collect();
+                    }
+                    from_draws(&theta, &draws, n)
+                }
+                None => {
+                    warnings.push(
+                        "the posterior could not be sampled (curvature not positive definite); no intervals"
+                            .into(),
+                    );
+                    from_covariance(&theta, None, n, 0.0)
+                }
+            }
+        }
+    };
+    // The prior's pull and the data's information.
+    let names = ["clearance", "volume", "ka"];
+    for i in 0..n {
+        let z = (theta[i] - mean[i]) / sd[i];
+        if z.abs() > 3.0 {
+            warnings
+                .push(format!("the {} estimate is {z:.1} SD from the population typical value", names[i]));
+        }
+    }
+    if let Some(c) = &laplace
+        && c[1][1].sqrt() > 0.9 * sd[1]
+    {
+        warnings.push(
+            "the levels carry little information on volume: its estimate stays close to the prior".into(),
+        );
+    }
+    let residual = model.residual;
+    let levels = level_fits(&problem, &theta, |_, f| Some(1.0 / residual.variance(f).sqrt()));
+    for l in &levels {
+        if l.weighted_residual.is_some_and(|w| w.abs() > 4.0) {
+            warnings.push(format!(
+                "the level at {} h is {:.1} SD from its prediction: check it (outlier?)",
+                l.time_h,
+                l.weighted_residual.unwrap_or(0.0)
+            ));
+        }
+    }
+    plausibility(Some(model), &estimates, &mut warnings);
+    Ok(FitResult {
+        subject: subject.id.clone(),
+        method: Method::Map,
+        intervals: options.intervals,
+        converged: opt.converged,
+        iterations: opt.iterations,
+        objective: opt.cost,
+        estimates,
+        prior: Some(PriorSummary { cl_l_h: cl_typ, v_l: v_typ, ka_per_h: ka_prior.map(|k| k.typical) }),
+        effective_draws,
+        two_level: None,
+        levels,
+        warnings,
+        draws: kept,
+        point: base_params(abs, &theta),
+    })
+}
+
+fn fit_wls(
+    subject: &SubjectData,
+    model: Option<&PopulationModel>,
+    options: &FitOptions,
+    abs: &Absorption,
+) -> Result<FitResult, String> {
+    check_levels(subject)?;
+    let n = if abs.estimate_ka { 3 } else { 2 };
+    let problem = Problem::new(
+        &subject.doses,
+        &subject.levels,
+        abs.fixed(n),
+        Likelihood::LeastSquares(options.weighting),
+        None,
+    );
+    let m = problem.levels().len();
+    let mut warnings = Vec::new();
+    if m < n {
+        return Err(format!(
+            "weighted least squares needs at least {n} quantified levels to estimate {n} parameters, found {m}"
+        ));
+    }
+    if problem.levels().iter().any(|l| l.conc_mg_l.is_some_and(|y| y <= 0.0))
+        && options.weighting != Weighting::None
+    {
+        return Err("1/y weighting needs every level above zero".into());
+    }
+    if m < subject.levels.len() {
+        warnings.push("levels below the quantification limit are left out of least squares".into());
+    }
+    // Coarse log-grid for starting points: no prior to start from.
+    let mut grid = Vec::new();
+    let ka_grid: &[f64] = if n == 3 { &[0.1, 0.3, 1.0, 3.0, 10.0] } else { &[1.0] };
+    for i in 0..25 {
+        for j in 0..25 {
+            for &ka in ka_grid {
+                let t = [
+                    (-3.0 + 6.0 * i as f64 / 24.0) * std::f64::consts::LN_10,
+                    (-1.0 + 5.0 * j as f64 / 24.0) * std::f64::consts::LN_10,
+                    ka.ln(),
+                ];
+                let c = problem.cost(&t[..n]);
+                if c.is_finite() {
+                    grid.push((c, t));
+                }
+            }
+        }
+    }
+    grid.sort_by(|a, b| a.0.total_cmp(&b.0));
+    let starts: Vec<[f64; MAX]> = grid.iter().take(3).map(|g| g.1).collect();
+    if starts.is_empty() {
+        return Err("no starting point gives finite predictions".into());
+    }
+    let (opt, other) = optimise::minimise_from(&problem, &starts);
+    convergence_warnings(&opt, other, &mut warnings);
+    let theta = opt.theta.clone();
+    // Jacobian of the predictions with respect to θ, for standard errors and identifiability.
+    let duals: Vec<objective::D3> = (0..n).map(|i| objective::D3::var(theta[i], i)).collect();
+    let f = problem.predictions(&duals);
+    let mut jtwj: Mat = [[0.0; MAX]; MAX];
+    for (l, fi) in problem.levels().iter().zip(&f) {
+        let w = objective::weight(options.weighting, l.conc_mg_l.unwrap_or(0.0));
+        for a in 0..n {
+            for b in 0..n {
+                jtwj[a][b] += w * fi.d[a] * fi.d[b];
+            }
+        }
+    }
+    let information = spd_inverse(&jtwj, n);
+    let diag_ratio = {
+        let d: Vec<f64> = (0..n).map(|i| jtwj[i][i]).collect();
+        let det = linalg::cholesky(&jtwj, n).map(|l| linalg::log_det(&l, n).exp()).unwrap_or(0.0);
+        det / d.iter().product::<f64>()
+    };
+    if information.is_none() || diag_ratio < 1e-8 {
+        warnings.push("the design cannot identify both clearance and volume: the levels fit many combinations equally well".into());
+    }
+    let dof = m - n;
+    let estimates = if dof == 0 {
+        warnings.push("as many levels as parameters: the curve passes through the levels and no standard errors can be given".into());
+        from_covariance(&theta, None, n, 0.0)
+    } else if options.intervals == Intervals::None {
+        from_covariance(&theta, None, n, 0.0)
+    } else {
+        let s2 = opt.cost / dof as f64;
+        let cov = information.map(|mut c| {
+            for row in c.iter_mut() {
+                for x in row.iter_mut() {
+                    *x *= s2;
+                }
+            }
+            c
+        });
+        let t =
+            StudentsT::new(0.0, 1.0, dof as f64).map(|d| d.inverse_cdf(0.975)).unwrap_or(1.959963984540054);
+        from_covariance(&theta, cov.as_ref(), n, t)
+    };
+    let weighting = options.weighting;
+    let levels =
+        level_fits(&problem, &theta, |l, _| l.conc_mg_l.map(|y| objective::weight(weighting, y).sqrt()));
+    plausibility(model, &estimates, &mut warnings);
+    Ok(FitResult {
+        subject: subject.id.clone(),
+        method: Method::Wls,
+        intervals: if dof == 0 { Intervals::None } else { options.intervals },
+        converged: opt.converged,
+        iterations: opt.iterations,
+        objective: opt.cost,
+        estimates,
+        prior: None,
+        effective_draws: None,
+        two_level: None,
+        levels,
+        warnings,
+        draws: Vec::new(),
+        point: base_params(abs, &theta),
+    })
+}
+
+fn fit_two_level(subject: &SubjectData, abs: &Absorption) -> Result<FitResult, String> {
+    check_levels(subject)?;
+    let (tl, warnings) = two_level::from_history(&subject.doses, &subject.levels)?;
+    let theta = [tl.cl_l_h.ln(), tl.v_l.ln()];
+    let problem = Problem::new(
+        &subject.doses,
+        &subject.levels,
+        abs.fixed(2),
+        Likelihood::LeastSquares(Weighting::None),
+        None,
+    );
+    let levels = level_fits(&problem, &theta, |_, _| None);
+    Ok(FitResult {
+        subject: subject.id.clone(),
+        method: Method::TwoLevel,
+        intervals: Intervals::None,
+        converged: true,
+        iterations: 0,
+        objective: problem.cost(&theta),
+        estimates: from_covariance(&theta, None, 2, 0.0),
+        prior: None,
+        effective_draws: None,
+        two_level: Some(tl),
+        levels,
+        warnings,
+        draws: Vec::new(),
+        point: base_params(abs, &theta),
+    })
+}

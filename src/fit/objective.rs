@@ -1,0 +1,266 @@
+//! Objective functions over log-parameters θ = (ln CL, ln V[, ln ka]).
+//!
+//! MAP (Sheiner LB, Beal SL. J Pharmacokinet Biopharm 1982;10:553; citation recalled from
+//! memory), the −2 log posterior up to a constant:
+//!
+//! ```text
+//! Σ_quantified [ln(2π σᵢ²) + (yᵢ − fᵢ)²/σᵢ²]  +  Σ_BLQ −2 ln Φ((LLOQᵢ − fᵢ)/σᵢ)  +  ηᵀ Ω⁻¹ η
+//! σᵢ² = a² + (b·fᵢ)²,   η = θ − ln θ_typ(covariates)
+//! ```
+//!
+//! The below-limit term is the M3 method (Beal SL. J Pharmacokinet Pharmacodyn 2001;28:481).
+//! Weighted least squares: Σ wᵢ (yᵢ − fᵢ)² with wᵢ = 1, 1/yᵢ or 1/yᵢ². Predictions and their
+//! exact gradients come from the engine run on [`Dual`] numbers.
+
+use super::linalg::{MAX, Mat};
+use crate::dosing::Dose;
+use crate::engine::scalar::{Dual, Real};
+use crate::engine::{Events, Kinetics, predict};
+use crate::io::levels::Level;
+use crate::model::Residual;
+use std::f64::consts::{PI, SQRT_2};
+
+/// A number carrying the gradient with respect to the (at most three) log-parameters.
+pub type D3 = Dual<MAX>;
+
+/// ln Φ(x), accurate far into the lower tail.
+pub fn ln_norm_cdf(x: f64) -> f64 {
+    if x > -30.0 {
+        (0.5 * statrs::function::erf::erfc(-x / SQRT_2)).ln()
+    } else {
+        // Asymptotic series of the Mills ratio (Abramowitz & Stegun 26.2.12).
+        let z2 = 1.0 / (x * x);
+        -0.5 * x * x - (-x).ln() - 0.5 * (2.0 * PI).ln()
+            + (1.0 - z2 + 3.0 * z2 * z2 - 15.0 * z2 * z2 * z2).ln()
+    }
+}
+
+/// d/dx ln Φ(x) = φ(x)/Φ(x).
+fn ln_norm_cdf_slope(x: f64) -> f64 {
+    if x > -30.0 {
+        (-0.5 * x * x - 0.5 * (2.0 * PI).ln() - ln_norm_cdf(x)).exp()
+    } else {
+        let z2 = 1.0 / (x * x);
+        -x / (1.0 - z2 + 3.0 * z2 * z2 - 15.0 * z2 * z2 * z2)
+    }
+}
+
+/// −2 ln L of one quantified level: ln(2π σ²) + ((y − f)/σ)².
+pub fn quantified_term<R: Real>(y: f64, f: R, var: R) -> R {
+    let r = R::cst(y) - f;
+    (var * (2.0 * PI)).ln() + r * r / var
+}
+
+/// −2 ln L of one level below the limit (M3): −2 ln Φ((LLOQ − f)/σ).
+pub fn blq_term<R: Real>(lloq: f64, f: R, var: R) -> R {
+    let z = (R::cst(lloq) - f) / var.sqrt();
+    let zv = z.val();
+    z.through(ln_norm_cdf(zv), ln_norm_cdf_slope(zv)) * -2.0
+}
+
+/// How residuals are weighted in least squares.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum, serde::Serialize)]
+pub enum Weighting {
+    /// Equal weights.
+    #[value(name = "none")]
+    None,
+    /// wᵢ = 1/yᵢ.
+    #[value(name = "1/y")]
+    InvY,
+    /// wᵢ = 1/yᵢ².
+    #[value(name = "1/y^2")]
+    InvY2,
+}
+
+/// The data part of an objective.
+#[derive(Debug, Clone)]
+pub enum Likelihood {
+    /// Residual-error likelihood with M3 for levels below the limit.
+    Bayes(Residual),
+    /// Weighted sum of squares over quantified levels.
+    LeastSquares(Weighting),
+}
+
+/// A Gaussian prior on θ.
+#[derive(Debug, Clone)]
+pub struct Prior {
+    /// Prior mean of θ: ln of the covariate-adjusted typical values.
+    pub mean: [f64; MAX],
+    /// Ω⁻¹.
+    pub precision: Mat,
+}
+
+/// The parameters that are not estimated, and how many are.
+#[derive(Debug, Clone, Copy)]
+pub struct Fixed {
+    /// Number of estimated parameters: 2 (ln CL, ln V) or 3 (with ln ka).
+    pub n: usize,
+    /// ka when it is held fixed (1/h).
+    pub ka_per_h: Option<f64>,
+    /// Bioavailability.
+    pub f: f64,
+    /// Lag time (h).
+    pub tlag_h: f64,
+}
+
+/// Everything one subject's objective needs, prepared once.
+#[derive(Debug, Clone)]
+pub struct Problem {
+    events: Events,
+    times: Vec<f64>,
+    levels: Vec<Level>,
+    /// Number of estimated parameters (2, or 3 with ka).
+    pub n: usize,
+    fixed: Fixed,
+    /// The data part.
+    pub likelihood: Likelihood,
+    /// The prior (MAP only).
+    pub prior: Option<Prior>,
+}
+
+impl Problem {
+    /// Prepare a subject's objective. `levels` must be sorted by time.
+    pub fn new(
+        doses: &[Dose],
+        levels: &[Level],
+        fixed: Fixed,
+        likelihood: Likelihood,
+        prior: Option<Prior>,
+    ) -> Problem {
+        let levels: Vec<Level> = match likelihood {
+            Likelihood::LeastSquares(_) => levels.iter().filter(|l| !l.is_blq()).copied().collect(),
+            Likelihood::Bayes(_) => levels.to_vec(),
+        };
+        Problem {
+            events: Events::new(doses, fixed.tlag_h),
+            times: levels.iter().map(|l| l.time_h).collect(),
+            levels,
+            n: fixed.n,
+            fixed,
+            likelihood,
+            prior,
+        }
+    }
+
+    /// The levels the objective uses.
+    pub fn levels(&self) -> &[Level] {
+        &self.levels
+    }
+
+    fn kinetics<R: Real>(&self, theta: &[R]) -> Kinetics<R> {
+        let cl = theta[0].exp();
+        let v = theta[1].exp();
+        let ka = if self.n == 3 { theta[2].exp() } else { R::cst(self.fixed.ka_per_h.unwrap_or(f64::NAN)) };
+        Kinetics { k: cl / v, v, ka, f: R::cst(self.fixed.f), tlag_h: self.fixed.tlag_h }
+    }
+
+    /// Predicted concentrations at the levels' times.
+    pub fn predictions<R: Real>(&self, theta: &[R]) -> Vec<R> {
+        let mut out = vec![R::cst(0.0); self.times.len()];
+        predict(self.kinetics(theta), &self.events, &self.times, &mut out);
+        out
+    }
+
+    /// The objective at θ, in any number type.
+    pub fn value<R: Real>(&self, theta: &[R]) -> R {
+        let f = self.predictions(theta);
+        let mut total = R::cst(0.0);
+        for (level, fi) in self.levels.iter().zip(f) {
+            total += match &self.likelihood {
+                Likelihood::Bayes(res) => {
+                    let var = R::cst(res.additive_mg_l.powi(2)) + fi * fi * res.proportional_cv.powi(2);
+                    match (level.conc_mg_l, level.lloq_mg_l) {
+                        (Some(y), _) => quantified_term(y, fi, var),
+                        (None, Some(lloq)) => blq_term(lloq, fi, var),
+                        (None, None) => R::cst(0.0),
+                    }
+                }
+                Likelihood::LeastSquares(w) => {
+                    let y = level.conc_mg_l.unwrap_or(0.0);
+                    let r = R::cst(y) - fi;
+                    r * r * weight(*w, y)
+                }
+            };
+        }
+        if let Some(prior) = &self.prior {
+            for i in 0..self.n {
+                for j in 0..self.n {
+                    let p = prior.precision[i][j];
+                    if p != 0.0 {
+                        total += (theta[i] + -prior.mean[i]) * (theta[j] + -prior.mean[j]) * p;
+                    }
+                }
+            }
+        }
+        total
+    }
+
+    /// Objective value (f64).
+    pub fn cost(&self, theta: &[f64]) -> f64 {
+        self.value(theta)
+    }
+
+    /// Objective value and exact gradient.
+    pub fn cost_and_gradient(&self, theta: &[f64]) -> (f64, [f64; MAX]) {
+        let duals: Vec<D3> = (0..self.n).map(|i| D3::var(theta[i], i)).collect();
+        let v = self.value(&duals);
+        (v.v, v.d)
+    }
+
+    /// Hessian by central differences of the exact gradient (step 1e-4 in log-parameters).
+    pub fn hessian(&self, theta: &[f64]) -> Mat {
+        let h = 1e-4;
+        let mut m = [[0.0; MAX]; MAX];
+        for j in 0..self.n {
+            let mut up = theta.to_vec();
+            let mut down = theta.to_vec();
+            up[j] += h;
+            down[j] -= h;
+            let (_, gu) = self.cost_and_gradient(&up);
+            let (_, gd) = self.cost_and_gradient(&down);
+            for i in 0..self.n {
+                m[i][j] = (gu[i] - gd[i]) / (2.0 * h);
+            }
+        }
+        for i in 0..self.n {
+            for j in 0..i {
+                let s = 0.5 * (m[i][j] + m[j][i]);
+                m[i][j] = s;
+                m[j][i] = s;
+            }
+        }
+        m
+    }
+}
+
+/// The least-squares weight of a level with value `y`.
+pub fn weight(w: Weighting, y: f64) -> f64 {
+    match w {
+        Weighting::None => 1.0,
+        Weighting::InvY => 1.0 / y,
+        Weighting::InvY2 => 1.0 / (y * y),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn m3_and_quantified_terms_match_the_published_check_values() {
+        // ../shared/reference-cases.md case 11, Beal 2001 (derived values): f = 0.5, LLOQ = 0.3,
+        // σ = 0.1 → −2 ln Φ(−2) = 7.56637; y = 1.2, f = 1, σ = 0.1 → 1.23271.
+        let blq = blq_term(0.3, 0.5, 0.01);
+        assert!((blq - 7.56637).abs() / 7.56637 < 1e-5, "{blq}");
+        let q = quantified_term(1.2, 1.0, 0.01);
+        assert!((q - 1.23271).abs() / 1.23271 < 1e-5, "{q}");
+    }
+
+    #[test]
+    fn the_lower_tail_is_continuous_at_the_switch() {
+        let (a, b) = (ln_norm_cdf(-30.0 + 1e-9), ln_norm_cdf(-30.0 - 1e-9));
+        assert!((a - b).abs() / a.abs() < 1e-9, "{a} {b}");
+        let (a, b) = (ln_norm_cdf_slope(-30.0 + 1e-9), ln_norm_cdf_slope(-30.0 - 1e-9));
+        assert!((a - b).abs() / a < 1e-6, "{a} {b}");
+    }
+}

@@ -1,0 +1,50 @@
+//! Reading TOML files (population models, case files) with located errors.
+
+use crate::error::InputError;
+use serde::de::DeserializeOwned;
+use std::ops::Range;
+
+/// A TOML document's text, kept to turn byte spans into line numbers.
+#[derive(Debug, Clone)]
+pub struct TomlText {
+    /// Where the text came from (a path), for messages.
+    pub source: String,
+    text: String,
+}
+
+impl TomlText {
+    /// Read a file.
+    pub fn read(path: &str) -> Result<TomlText, InputError> {
+        let text = std::fs::read_to_string(path)
+            .map_err(|e| InputError::new(path, format!("cannot read the file as UTF-8 text: {e}")))?;
+        Ok(TomlText { source: path.to_string(), text })
+    }
+
+    /// Wrap text already in memory.
+    pub fn new(source: &str, text: &str) -> TomlText {
+        TomlText { source: source.to_string(), text: text.to_string() }
+    }
+
+    /// The 1-based line holding byte `offset`.
+    pub fn line_of(&self, offset: usize) -> u64 {
+        let end = offset.min(self.text.len());
+        self.text.as_bytes()[..end].iter().filter(|&&b| b == b'\n').count() as u64 + 1
+    }
+
+    /// A located error at `span`.
+    pub fn error_at(&self, span: Range<usize>, key: &str, message: impl Into<String>) -> InputError {
+        InputError::new(&self.source, message).at_line(self.line_of(span.start)).in_column(key)
+    }
+
+    /// Deserialize, turning syntax errors, unknown keys and wrong types into a located error.
+    pub fn parse<T: DeserializeOwned>(&self) -> Result<T, InputError> {
+        toml::from_str(&self.text).map_err(|e| {
+            let message = e.message().trim().replace('\n', "; ");
+            let err = InputError::new(&self.source, message);
+            match e.span() {
+                Some(span) => err.at_line(self.line_of(span.start)),
+                None => err,
+            }
+        })
+    }
+}
