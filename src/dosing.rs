@@ -112,11 +112,13 @@ pub fn validate_dose(amount_mg: f64, route: Route, duration_h: f64) -> Result<()
         return Err(format!("the amount must be a non-negative number, found {amount_mg} mg"));
     }
     match route {
-        Route::Infusion if !(duration_h.is_finite() && duration_h > 0.0) => {
-            Err(format!("an infusion needs a positive duration, found {duration_h} h"))
-        }
+        Route::Infusion if !(duration_h.is_finite() && duration_h > 0.0) => Err(if duration_h == 0.0 {
+            "an infusion needs its duration (a positive time)".to_string()
+        } else {
+            format!("an infusion needs a positive duration, found {duration_h} h")
+        }),
         Route::Bolus | Route::Oral if duration_h != 0.0 => {
-            Err(format!("a duration is only meaningful for an infusion, not for a {route} dose"))
+            Err(format!("a duration is only meaningful for an infusion, not for {route} doses"))
         }
         _ => Ok(()),
     }

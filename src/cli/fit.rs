@@ -129,14 +129,21 @@ fn assemble(
     if !doses.ignored_columns.is_empty() {
         notes.push(format!("{}: ignored columns: {}", args.doses, doses.ignored_columns.join(", ")));
     }
+    let mut levels = levels;
     let dose_ids = doses.subjects.iter().any(|(s, _)| s.is_some());
     let level_ids = levels.subjects.iter().any(|(s, _)| s.is_some());
     if dose_ids != level_ids {
-        problems.push(InputError::new(
-            &args.levels,
-            "the doses and levels files must both have a subject column, or neither",
-        ));
-        return None;
+        // One subject named on one side only: pair them; otherwise it is ambiguous.
+        match (&doses.subjects[..], &mut levels.subjects[..]) {
+            ([(id, _)], [(level_id, _)]) => *level_id = id.clone(),
+            _ => {
+                problems.push(InputError::new(
+                    &args.levels,
+                    "the doses and levels files must both have a subject column, or neither",
+                ));
+                return None;
+            }
+        }
     }
     let dose_of: HashMap<&Option<String>, &Vec<_>> = doses.subjects.iter().map(|(s, d)| (s, d)).collect();
     let cov_of: HashMap<&str, &Covariates> = covariates.iter().map(|(s, c)| (s.as_str(), c)).collect();

@@ -121,9 +121,18 @@ impl Events {
                 Route::Bolus => list.push((d.time_h, Input::Bolus(d.amount_mg))),
                 Route::Oral => list.push((d.time_h + tlag_h, Input::Depot(d.amount_mg))),
                 Route::Infusion => {
-                    let rate = d.rate_mg_h();
-                    list.push((d.time_h, Input::RateOn(rate)));
-                    list.push((d.time_h + d.duration_h, Input::RateOff(rate)));
+                    // The rate spreads the amount over the span between the two event times
+                    // as rounded, so the whole amount is given however short the infusion;
+                    // one too short to move the clock at all is a bolus.
+                    let end = d.time_h + d.duration_h;
+                    let span = end - d.time_h;
+                    if span > 0.0 {
+                        let rate = d.amount_mg / span;
+                        list.push((d.time_h, Input::RateOn(rate)));
+                        list.push((end, Input::RateOff(rate)));
+                    } else {
+                        list.push((d.time_h, Input::Bolus(d.amount_mg)));
+                    }
                 }
             }
         }
@@ -154,6 +163,7 @@ pub struct Walker<'a, R> {
     rate_comp: f64,
     running: usize,
     integral: R,
+    integrate: bool,
 }
 
 impl<'a, R: Real> Walker<'a, R> {
@@ -175,6 +185,7 @@ impl<'a, R: Real> Walker<'a, R> {
             rate_comp: 0.0,
             running: 0,
             integral: R::cst(0.0),
+            integrate: true,
         }
     }
 
@@ -196,7 +207,7 @@ impl<'a, R: Real> Walker<'a, R> {
         let dt = to - self.time;
         if dt > 0.0 {
             let rates = Rates { k: self.kin.k, ka: self.kin.ka };
-            let (s, i) = step(self.state, rates, self.rate(), dt);
+            let (s, i) = step(self.state, rates, self.rate(), dt, self.integrate);
             self.state = s;
             self.integral += i;
             self.time = to;
@@ -246,6 +257,12 @@ impl<'a, R: Real> Walker<'a, R> {
         self.integral / self.kin.v
     }
 
+    /// Skip the AUC integral (predictions only: about a third less work per step).
+    pub fn without_auc(mut self) -> Self {
+        self.integrate = false;
+        self
+    }
+
     /// Start integrating afresh from the current time.
     pub fn restart_auc(&mut self) {
         self.integral = R::cst(0.0);
@@ -285,7 +302,7 @@ pub fn concentrations_with<R: Real>(kin: Kinetics<R>, doses: &[Dose], times: &[f
 /// (the fitter evaluates the same history many times).
 pub fn predict<R: Real>(kin: Kinetics<R>, events: &Events, times: &[f64], out: &mut [R]) {
     let start = events.first_time().unwrap_or(f64::INFINITY).min(times.first().copied().unwrap_or(0.0));
-    let mut walker = Walker::new(kin, events, start);
+    let mut walker = Walker::new(kin, events, start).without_auc();
     for (t, slot) in times.iter().zip(out) {
         walker.run_to(*t);
         *slot = walker.concentration();

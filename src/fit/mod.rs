@@ -430,12 +430,24 @@ fn fit_map(
         Some(Prior { mean, precision }),
     );
     let sd: Vec<f64> = (0..n).map(|i| omega[i][i].sqrt()).collect();
-    let mut starts = vec![mean; 3];
-    for (s, sign) in starts.iter_mut().skip(1).zip([1.0, -1.0]) {
-        s[0] += sign * 0.5 * sd[0];
-        s[1] -= sign * 0.5 * sd[1];
+    // Start at the prior mean. With ka estimated the posterior can have a second, flip-flop
+    // mode (absorption and elimination rates exchanged), so start there too; shifted starts
+    // are the fallback when nothing converges.
+    let mut starts = vec![mean];
+    if n == 3 {
+        let (k, ka) = (mean[0] - mean[1], mean[2]);
+        starts.push([ka + mean[1], mean[1], k]);
     }
-    let (opt, other) = optimise::minimise_from(&problem, &starts);
+    let fallback: Vec<[f64; MAX]> = [1.0, -1.0]
+        .iter()
+        .map(|sign| {
+            let mut s = mean;
+            s[0] += sign * 0.5 * sd[0];
+            s[1] -= sign * 0.5 * sd[1];
+            s
+        })
+        .collect();
+    let (opt, other) = optimise::minimise_from(&problem, &starts, &fallback);
     let theta = opt.theta.clone();
     let mut warnings = Vec::new();
     convergence_warnings(&opt, other, &mut warnings);
@@ -581,7 +593,7 @@ fn fit_wls(
     if starts.is_empty() {
         return Err("no starting point gives finite predictions".into());
     }
-    let (opt, other) = optimise::minimise_from(&problem, &starts);
+    let (opt, other) = optimise::minimise_from(&problem, &starts, &[]);
     convergence_warnings(&opt, other, &mut warnings);
     let theta = opt.theta.clone();
     // Jacobian of the predictions with respect to θ, for standard errors and identifiability.
@@ -604,6 +616,13 @@ fn fit_wls(
     };
     if information.is_none() || diag_ratio < 1e-8 {
         warnings.push("the design cannot identify both clearance and volume: the levels fit many combinations equally well".into());
+    }
+    let (cl, v) = (theta[0].exp(), theta[1].exp());
+    if !(1e-4..=1e4).contains(&cl) || !(1e-3..=1e6).contains(&v) {
+        warnings.push(format!(
+            "the estimates ran off to implausible values (CL {cl:.3e} L/h, V {v:.3e} L): \
+             the levels do not follow a one-compartment course for this dose history"
+        ));
     }
     let dof = m - n;
     let estimates = if dof == 0 {

@@ -2,7 +2,7 @@
 //! Nelder–Mead when BFGS fails, then a few safeguarded Newton steps on the central-difference
 //! Hessian so the optimum is tight (the reference comparisons ask for 1e-5 relative).
 
-use super::linalg::{MAX, Mat, cholesky, cholesky_solve};
+use super::linalg::{MAX, Mat, cholesky, cholesky_solve, spd_inverse};
 use super::objective::Problem;
 use argmin::core::{CostFunction, Error as ArgminError, Executor, Gradient, State};
 use argmin::solver::linesearch::MoreThuenteLineSearch;
@@ -53,12 +53,16 @@ impl Gradient for Adapter<'_> {
 
 fn bfgs(problem: &Problem, start: &[f64]) -> Result<(Vec<f64>, u64, String), ArgminError> {
     let n = problem.n;
-    let identity: Vec<Vec<f64>> =
-        (0..n).map(|i| (0..n).map(|j| if i == j { 1.0 } else { 0.0 }).collect()).collect();
+    // Start from the inverse curvature at the start when it is positive definite (few
+    // iterations then), else from the identity.
+    let inverse = spd_inverse(&problem.hessian(start), n);
+    let initial: Vec<Vec<f64>> = (0..n)
+        .map(|i| (0..n).map(|j| inverse.map_or(if i == j { 1.0 } else { 0.0 }, |m| m[i][j])).collect())
+        .collect();
     let solver =
         BFGS::new(MoreThuenteLineSearch::new()).with_tolerance_grad(1e-9)?.with_tolerance_cost(1e-15)?;
     let result = Executor::new(Adapter(problem), solver)
-        .configure(|s| s.param(start.to_vec()).inv_hessian(identity).max_iters(200))
+        .configure(|s| s.param(start.to_vec()).inv_hessian(initial).max_iters(200))
         .run()?;
     let state = result.state();
     let best = state.get_best_param().cloned().unwrap_or_else(|| start.to_vec());
@@ -96,46 +100,46 @@ pub fn minimise(problem: &Problem, start: &[f64]) -> Optimum {
             nelder_mead(problem, start).unwrap_or_else(|e| (start.to_vec(), 0, format!("solver error: {e}")))
         }
     };
-    if max_abs(&problem.cost_and_gradient(&theta).1[..n]) > 1e-2 {
+    let (mut cost, mut gradient) = problem.cost_and_gradient(&theta);
+    if max_abs(&gradient[..n]) > 1e-2 {
         // BFGS stopped far from a stationary point: try the derivative-free solver from there.
         if let Ok((t, i, r)) = nelder_mead(problem, &theta)
-            && problem.cost(&t) <= problem.cost(&theta)
+            && problem.cost(&t) <= cost
         {
             theta = t;
             iterations += i;
             reason = r;
+            (cost, gradient) = problem.cost_and_gradient(&theta);
         }
     }
-    // Safeguarded Newton polish.
-    let mut cost = problem.cost(&theta);
-    for _ in 0..8 {
-        let (_, g) = problem.cost_and_gradient(&theta);
-        if max_abs(&g[..n]) < 1e-10 {
-            break;
-        }
-        let Some(l) = cholesky(&problem.hessian(&theta), n) else { break };
-        let step = cholesky_solve(&l, n, &g[..n]);
-        let mut scale = 1.0;
-        let mut improved = false;
-        for _ in 0..20 {
-            let trial: Vec<f64> = (0..n).map(|i| theta[i] - scale * step[i]).collect();
-            let c = problem.cost(&trial);
-            if c <= cost {
-                theta = trial;
-                cost = c;
-                improved = true;
+    // Safeguarded Newton polish with the Hessian at the solver's optimum (near the optimum the
+    // curvature hardly changes, so one Hessian serves every step and the Laplace covariance).
+    let mut hessian = problem.hessian(&theta);
+    if let Some(l) = cholesky(&hessian, n) {
+        let mut moved = false;
+        for _ in 0..4 {
+            if max_abs(&gradient[..n]) < 1e-10 {
                 break;
             }
-            scale *= 0.5;
+            let step = cholesky_solve(&l, n, &gradient[..n]);
+            let Some((trial, c)) = (0..20).map(|h| 0.5f64.powi(h)).find_map(|scale| {
+                let trial: Vec<f64> = (0..n).map(|i| theta[i] - scale * step[i]).collect();
+                let c = problem.cost(&trial);
+                (c <= cost).then_some((trial, c))
+            }) else {
+                break;
+            };
+            moved |= (0..n).any(|i| (trial[i] - theta[i]).abs() > 1e-6);
+            theta = trial;
+            cost = c;
+            gradient = problem.cost_and_gradient(&theta).1;
+            iterations += 1;
         }
-        iterations += 1;
-        if !improved {
-            break;
+        if moved {
+            hessian = problem.hessian(&theta);
         }
     }
-    let (_, g) = problem.cost_and_gradient(&theta);
-    let gradient_norm = max_abs(&g[..n]);
-    let hessian = problem.hessian(&theta);
+    let gradient_norm = max_abs(&gradient[..n]);
     let positive = cholesky(&hessian, n).is_some();
     Optimum {
         converged: gradient_norm < GRADIENT_TOLERANCE && positive && cost.is_finite(),
@@ -148,11 +152,15 @@ pub fn minimise(problem: &Problem, start: &[f64]) -> Optimum {
     }
 }
 
-/// Minimise from several starts and keep the best; also says whether another start found a
-/// different optimum (a sign of a multimodal objective).
-pub fn minimise_from(problem: &Problem, starts: &[[f64; MAX]]) -> (Optimum, bool) {
+/// Minimise from each of `starts` and keep the best; the `fallback` starts are tried too when
+/// none of `starts` converges. Also says whether another start found a different optimum (a
+/// sign of a multimodal objective).
+pub fn minimise_from(problem: &Problem, starts: &[[f64; MAX]], fallback: &[[f64; MAX]]) -> (Optimum, bool) {
     let n = problem.n;
     let mut results: Vec<Optimum> = starts.iter().map(|s| minimise(problem, &s[..n])).collect();
+    if !results.iter().any(|r| r.converged) {
+        results.extend(fallback.iter().map(|s| minimise(problem, &s[..n])));
+    }
     results.sort_by(|a, b| {
         (!a.converged, a.cost).partial_cmp(&(!b.converged, b.cost)).unwrap_or(std::cmp::Ordering::Equal)
     });

@@ -1,7 +1,7 @@
 //! Sampling the individual posterior by adaptive importance sampling.
 //!
 //! The proposal starts as a multivariate Student t (ν = 5) centred at the MAP with the Laplace
-//! covariance 2·H⁻¹ (the objective is −2 log posterior), then is refitted twice to the weighted
+//! covariance 2·H⁻¹ (the objective is −2 log posterior), then is refitted once to the weighted
 //! mean and covariance of its own draws (population Monte Carlo: Cappé O et al. J Comput Graph
 //! Stat 2004;13:907; citation recalled from memory). Self-normalised weights
 //! w ∝ exp(−½·objective(θ)) / q(θ) make the weighted draws a consistent sample of the exact
@@ -119,7 +119,7 @@ pub fn sample(
     let mut rng = StdRng::seed_from_u64(seed);
     let normal = Normal::new(0.0, 1.0).ok()?;
     let chi = ChiSquared::new(NU).ok()?;
-    let rounds = [draws.div_ceil(4).max(200), draws.div_ceil(2).max(200), draws.max(1)];
+    let rounds = [draws.div_ceil(4).max(200), draws.max(1)];
     let mut last = None;
     for (round, &m) in rounds.iter().enumerate() {
         let proposal = Proposal::new(mean, &cov, n)?;
