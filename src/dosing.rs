@@ -3,6 +3,7 @@
 //! A dose history is a list of [`Dose`]s in any order; a [`Regimen`] is the repeated dose a
 //! prescriber writes ("1 g over 1 h every 12 h, 6 doses") and expands into a history.
 
+use crate::error::Invalid;
 use serde::{Deserialize, Serialize};
 use std::fmt;
 
@@ -79,16 +80,19 @@ pub struct Regimen {
 
 impl Regimen {
     /// Check the regimen's values, returning what is wrong.
-    pub fn validate(&self) -> Result<(), String> {
+    pub fn validate(&self) -> Result<(), Invalid> {
         validate_dose(self.amount_mg, self.route, self.duration_h)?;
         if !(self.every_h.is_finite() && self.every_h > 0.0) {
-            return Err(format!("the dosing interval must be positive, found {} h", self.every_h));
+            return Err(Invalid::new(
+                "every_h",
+                format!("the dosing interval must be positive, found {} h", self.every_h),
+            ));
         }
         if self.count == 0 {
-            return Err("the dose count must be at least 1".into());
+            return Err(Invalid::new("count", "the dose count must be at least 1"));
         }
         if !self.start_h.is_finite() {
-            return Err("the start time must be a finite number".into());
+            return Err(Invalid::new("start_h", "the start time must be a finite number"));
         }
         Ok(())
     }
@@ -107,19 +111,26 @@ impl Regimen {
 }
 
 /// Check one dose's amount, route and duration, returning what is wrong.
-pub fn validate_dose(amount_mg: f64, route: Route, duration_h: f64) -> Result<(), String> {
+pub fn validate_dose(amount_mg: f64, route: Route, duration_h: f64) -> Result<(), Invalid> {
     if !(amount_mg.is_finite() && amount_mg >= 0.0) {
-        return Err(format!("the amount must be a non-negative number, found {amount_mg} mg"));
+        return Err(Invalid::new(
+            "amount_mg",
+            format!("the amount must be a non-negative number, found {amount_mg} mg"),
+        ));
     }
     match route {
-        Route::Infusion if !(duration_h.is_finite() && duration_h > 0.0) => Err(if duration_h == 0.0 {
-            "an infusion needs its duration (a positive time)".to_string()
-        } else {
-            format!("an infusion needs a positive duration, found {duration_h} h")
-        }),
-        Route::Bolus | Route::Oral if duration_h != 0.0 => {
-            Err(format!("a duration is only meaningful for an infusion, not for {route} doses"))
-        }
+        Route::Infusion if !(duration_h.is_finite() && duration_h > 0.0) => Err(Invalid::new(
+            "duration_h",
+            if duration_h == 0.0 {
+                "an infusion needs its duration (a positive time)".to_string()
+            } else {
+                format!("an infusion needs a positive duration, found {duration_h} h")
+            },
+        )),
+        Route::Bolus | Route::Oral if duration_h != 0.0 => Err(Invalid::new(
+            "duration_h",
+            format!("a duration is only meaningful for an infusion, not for {route} doses"),
+        )),
         _ => Ok(()),
     }
 }

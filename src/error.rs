@@ -49,6 +49,29 @@ impl fmt::Display for InputError {
     }
 }
 
+/// A value outside its allowed range: which field (by its `<quantity>_<unit>` name, e.g.
+/// `cl_l_h`, `duration_h`) and what is wrong, so each caller can name its own flag or column.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Invalid {
+    /// The field's name.
+    pub field: &'static str,
+    /// What is wrong.
+    pub message: String,
+}
+
+impl Invalid {
+    /// A problem with `field`.
+    pub fn new(field: &'static str, message: impl Into<String>) -> Self {
+        Invalid { field, message: message.into() }
+    }
+}
+
+impl fmt::Display for Invalid {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(&self.message)
+    }
+}
+
 /// The error any library entry point returns.
 #[derive(Debug, Clone, PartialEq)]
 pub enum Error {

@@ -16,4 +16,4 @@ pub mod io;
 pub mod model;
 pub mod units;
 
-pub use error::{Error, InputError, Result};
+pub use error::{Error, InputError, Invalid, Result};

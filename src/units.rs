@@ -114,7 +114,8 @@ pub fn parse_value(kind: Kind, text: &str) -> Result<f64, String> {
         return Ok(value);
     }
     match kind.factor(unit) {
-        Some(f) => Ok(value * f),
+        Some(f) if (value * f).is_finite() => Ok(value * f),
+        Some(_) => Err(format!("'{text}' is out of range once converted to {}", kind.base_unit())),
         None => Err(format!(
             "unknown {kind} unit '{}' in '{text}'; accepted units: {}",
             unit.trim(),

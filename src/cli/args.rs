@@ -1,4 +1,7 @@
 //! Flag groups shared by several commands, and their conversion to typed inputs.
+//!
+//! Value flags accept a leading `-` (`allow_hyphen_values`), so `--start -12h` works and a
+//! negative `--every -5h` reaches our own check, whose message names the flag.
 
 use cistern::dosing::{Regimen, Route};
 use cistern::engine::Params;
@@ -52,23 +55,45 @@ impl OutputArgs {
 #[derive(Args, Debug, Clone)]
 pub struct ParamArgs {
     /// Clearance, e.g. 4.2 (L/h), 4.2l/h, 70ml/min
-    #[arg(long, value_name = "CL")]
+    #[arg(long, value_name = "CL", allow_hyphen_values = true)]
     pub cl: Option<String>,
     /// Volume of distribution, e.g. 48 (L), 48l, 48000ml
-    #[arg(long, value_name = "V")]
+    #[arg(long, value_name = "V", allow_hyphen_values = true)]
     pub v: Option<String>,
     /// Elimination rate constant instead of --cl, e.g. 0.0875 (1/h), 0.0875/h
-    #[arg(long, value_name = "K", conflicts_with = "cl")]
+    #[arg(long, value_name = "K", conflicts_with = "cl", allow_hyphen_values = true)]
     pub k: Option<String>,
     /// Absorption rate constant for oral doses, e.g. 1.2 (1/h)
-    #[arg(long, value_name = "KA")]
+    #[arg(long, value_name = "KA", allow_hyphen_values = true)]
     pub ka: Option<String>,
     /// Oral bioavailability, 0 < F <= 1
-    #[arg(long, value_name = "F", default_value = "1")]
+    #[arg(long, value_name = "F", default_value = "1", allow_hyphen_values = true)]
     pub f: String,
     /// Oral absorption lag time, e.g. 0.5h or 30min
-    #[arg(long, value_name = "TIME", default_value = "0")]
+    #[arg(long, value_name = "TIME", default_value = "0", allow_hyphen_values = true)]
     pub tlag: String,
+}
+
+/// The flag that sets a field of the library's inputs.
+pub fn flag_for(field: &str) -> &'static str {
+    match field {
+        "cl_l_h" => "--cl",
+        "v_l" => "--v",
+        "ka_per_h" => "--ka",
+        "f" => "--f",
+        "tlag_h" => "--tlag",
+        "amount_mg" => "--dose",
+        "every_h" => "--every",
+        "count" => "--count",
+        "duration_h" => "--duration",
+        "start_h" => "--start",
+        _ => "--route",
+    }
+}
+
+/// A range problem reported against the flag that set the field.
+pub fn invalid_flag(invalid: cistern::Invalid) -> InputError {
+    InputError::new(flag_for(invalid.field), invalid.message)
 }
 
 /// Parse a flag's value with units, naming the flag in the error.
@@ -138,7 +163,17 @@ impl ParamArgs {
         let f = problems.take(flag_number("--f", &self.f));
         let tlag = problems.take(flag_value("--tlag", Kind::Time, &self.tlag));
         let (cl, v, ka, f, tlag) = (cl?, v?, ka?, f?, tlag?);
-        Some(Params { cl_l_h: cl, v_l: v, ka_per_h: ka, f, tlag_h: tlag })
+        let params = Params { cl_l_h: cl, v_l: v, ka_per_h: ka, f, tlag_h: tlag };
+        // The engine owns the range checks; name the flag its complaint is about.
+        if let Err(invalid) = params.validate(&[]) {
+            let flag = match invalid.field {
+                "cl_l_h" if self.cl.is_none() => "--k",
+                field => flag_for(field),
+            };
+            problems.push(InputError::new(flag, invalid.message));
+            return None;
+        }
+        Some(params)
     }
 }
 
@@ -146,22 +181,22 @@ impl ParamArgs {
 #[derive(Args, Debug, Clone)]
 pub struct RegimenArgs {
     /// Amount of each dose, e.g. 1g, 750mg, 750
-    #[arg(long, value_name = "AMOUNT")]
+    #[arg(long, value_name = "AMOUNT", allow_hyphen_values = true)]
     pub dose: Option<String>,
     /// Dosing interval, e.g. 12h, 720min, 1d
-    #[arg(long, value_name = "TIME")]
+    #[arg(long, value_name = "TIME", allow_hyphen_values = true)]
     pub every: Option<String>,
     /// Number of doses
-    #[arg(long, value_name = "N")]
+    #[arg(long, value_name = "N", allow_hyphen_values = true)]
     pub count: Option<u32>,
     /// Route: bolus, infusion or oral
     #[arg(long, value_name = "ROUTE", default_value = "infusion")]
     pub route: String,
     /// Infusion duration, e.g. 1h, 90min (infusions only)
-    #[arg(long, value_name = "TIME")]
+    #[arg(long, value_name = "TIME", allow_hyphen_values = true)]
     pub duration: Option<String>,
     /// Time of the first dose, e.g. 0h
-    #[arg(long, value_name = "TIME", default_value = "0")]
+    #[arg(long, value_name = "TIME", default_value = "0", allow_hyphen_values = true)]
     pub start: String,
 }
 
@@ -225,17 +260,8 @@ impl RegimenArgs {
         };
         match regimen.validate() {
             Ok(()) => Some(regimen),
-            Err(m) => {
-                let flag = if m.contains("duration") {
-                    "--duration"
-                } else if m.contains("interval") {
-                    "--every"
-                } else if m.contains("count") {
-                    "--count"
-                } else {
-                    "--dose"
-                };
-                problems.push(InputError::new(flag, m));
+            Err(invalid) => {
+                problems.push(invalid_flag(invalid));
                 None
             }
         }

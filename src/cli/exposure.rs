@@ -1,6 +1,6 @@
 //! `cistern exposure`: steady-state metrics of a repeated regimen.
 
-use super::args::{OutputArgs, ParamArgs, Problems, RegimenArgs};
+use super::args::{OutputArgs, ParamArgs, Problems, RegimenArgs, invalid_flag};
 use cistern::Error;
 use cistern::dosing::Route;
 use cistern::engine::steady::{RepeatedDose, SteadyCurve, SteadyState};
@@ -71,7 +71,8 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
         duration_h: regimen.duration_h,
         every_h: regimen.every_h,
     };
-    let ss = SteadyCurve::new(&params, dose).map_err(Error::Usage)?.metrics();
+    // Each flag's value was checked above; what is left is how they combine.
+    let ss = SteadyCurve::new(&params, dose).map_err(invalid_flag)?.metrics();
     let k = params.k_per_h();
     let doc = ExposureJson {
         parameters: ParametersJson {

@@ -1,6 +1,6 @@
 //! `cistern simulate`: concentrations over a dose history at requested times, and the exact AUC.
 
-use super::args::{OutputArgs, ParamArgs, Problems, RegimenArgs, flag_value};
+use super::args::{OutputArgs, ParamArgs, Problems, RegimenArgs, flag_value, invalid_flag};
 use cistern::engine;
 use cistern::io::doses::{DoseFile, parse_doses};
 use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
@@ -37,10 +37,10 @@ pub struct SimulateArgs {
     #[command(flatten)]
     params: ParamArgs,
     /// Time grid START:END:STEP, e.g. 0:48h:15min (START + i·STEP up to END)
-    #[arg(long, value_name = "GRID", conflicts_with = "at")]
+    #[arg(long, value_name = "GRID", conflicts_with = "at", allow_hyphen_values = true)]
     times: Option<String>,
     /// Explicit times, comma-separated, e.g. 0.5,1,2h,90min
-    #[arg(long, value_name = "LIST", value_delimiter = ',')]
+    #[arg(long, value_name = "LIST", value_delimiter = ',', allow_hyphen_values = true)]
     at: Vec<String>,
     #[command(flatten)]
     output: OutputArgs,
@@ -141,9 +141,12 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
         return Err(Error::Usage("the arguments could not be read".into()));
     };
     for (who, doses) in &subjects {
-        params.validate(doses).map_err(|m| match who {
-            Some(s) => Error::Usage(format!("subject {s}: {m}")),
-            None => Error::Usage(m),
+        params.validate(doses).map_err(|invalid| {
+            let mut e = invalid_flag(invalid);
+            if let Some(s) = who {
+                e.message = format!("subject {s}: {}", e.message);
+            }
+            Error::from(e)
         })?;
     }
     if !ignored.is_empty() {

@@ -14,6 +14,7 @@ pub mod scalar;
 pub mod steady;
 
 use crate::dosing::{Dose, Route};
+use crate::error::Invalid;
 use kernel::{Rates, State, step};
 use scalar::Real;
 use serde::{Deserialize, Serialize};
@@ -50,27 +51,33 @@ impl Params {
     }
 
     /// Check the values, and that oral doses have what they need. Returns what is wrong.
-    pub fn validate(&self, doses: &[Dose]) -> Result<(), String> {
+    pub fn validate(&self, doses: &[Dose]) -> Result<(), Invalid> {
         let positive = |x: f64| x.is_finite() && x > 0.0;
         if !positive(self.cl_l_h) {
-            return Err(format!("clearance must be positive, found {} L/h", self.cl_l_h));
+            return Err(Invalid::new(
+                "cl_l_h",
+                format!("clearance must be positive, found {} L/h", self.cl_l_h),
+            ));
         }
         if !positive(self.v_l) {
-            return Err(format!("volume must be positive, found {} L", self.v_l));
+            return Err(Invalid::new("v_l", format!("volume must be positive, found {} L", self.v_l)));
         }
         if let Some(ka) = self.ka_per_h
             && !positive(ka)
         {
-            return Err(format!("ka must be positive, found {ka} 1/h"));
+            return Err(Invalid::new("ka_per_h", format!("ka must be positive, found {ka} 1/h")));
         }
         if !(self.f.is_finite() && self.f > 0.0 && self.f <= 1.0) {
-            return Err(format!("bioavailability F must be in (0, 1], found {}", self.f));
+            return Err(Invalid::new("f", format!("bioavailability F must be in (0, 1], found {}", self.f)));
         }
         if !(self.tlag_h.is_finite() && self.tlag_h >= 0.0) {
-            return Err(format!("the lag time must be non-negative, found {} h", self.tlag_h));
+            return Err(Invalid::new(
+                "tlag_h",
+                format!("the lag time must be non-negative, found {} h", self.tlag_h),
+            ));
         }
         if self.ka_per_h.is_none() && doses.iter().any(|d| d.route == Route::Oral) {
-            return Err("oral doses need an absorption rate constant: give --ka".into());
+            return Err(Invalid::new("ka_per_h", "oral doses need an absorption rate constant (ka)"));
         }
         Ok(())
     }

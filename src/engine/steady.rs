@@ -16,6 +16,7 @@
 use super::kernel::{State, depot_to_central};
 use super::{Events, Kinetics, Params, Walker};
 use crate::dosing::{Dose, Route};
+use crate::error::Invalid;
 use serde::Serialize;
 
 /// The dose repeated at steady state.
@@ -71,25 +72,31 @@ pub struct SteadyCurve {
 
 impl SteadyCurve {
     /// Solve for the steady state. Returns what is wrong when the regimen has none.
-    pub fn new(params: &Params, dose: RepeatedDose) -> Result<Self, String> {
+    pub fn new(params: &Params, dose: RepeatedDose) -> Result<Self, Invalid> {
         let one =
             Dose { time_h: 0.0, amount_mg: dose.amount_mg, route: dose.route, duration_h: dose.duration_h };
         params.validate(&[one])?;
         crate::dosing::validate_dose(dose.amount_mg, dose.route, dose.duration_h)?;
         let tau = dose.every_h;
         if !(tau.is_finite() && tau > 0.0) {
-            return Err(format!("the dosing interval must be positive, found {tau} h"));
-        }
-        if dose.route == Route::Infusion && dose.duration_h > tau {
-            return Err(format!(
-                "the infusion ({} h) is longer than the dosing interval ({tau} h); \
-                 simulate the overlapping doses instead",
-                dose.duration_h
+            return Err(Invalid::new(
+                "every_h",
+                format!("the dosing interval must be positive, found {tau} h"),
             ));
         }
-        // Lag-free frame: the dose enters at phase 0.
-        let mut kin = Kinetics::from(params);
-        kin.tlag_h = 0.0;
+        if dose.route == Route::Infusion && dose.duration_h > tau {
+            return Err(Invalid::new(
+                "duration_h",
+                format!(
+                    "the infusion ({} h) is longer than the dosing interval ({tau} h); \
+                     simulate the overlapping doses instead",
+                    dose.duration_h
+                ),
+            ));
+        }
+        // Lag-free frame: the dose enters at phase 0 (the events ignore the lag; `kin` keeps it
+        // for reading the curve off at the phase after the dose is given).
+        let kin = Kinetics::from(params);
         let events = Events::new(&[one], 0.0);
         let mut single = Walker::new(kin, &events, 0.0);
         single.run_to(tau);
@@ -160,7 +167,9 @@ impl SteadyCurve {
         let tau = self.dose.every_h;
         let lag = if self.dose.route == Route::Oral { self.kin.tlag_h } else { 0.0 };
         let (peak, peak_entry) = self.peak();
-        let trough = self.at(tau);
+        // Just before the next dose: entry phase τ − (lag mod τ), in (0, τ], so that a bolus
+        // given at phase 0 (counted by `at(0)`, values being right-continuous) is not.
+        let trough = self.at_entry_phase(tau - lag.rem_euclid(tau));
         let mut w = self.walker();
         w.run_to(tau);
         let auc_tau = w.auc();

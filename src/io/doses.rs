@@ -105,9 +105,10 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
         let (Some(t), Some(a), Some(d), Some(r), Some(repeat)) = (t, a, d, r, repeat) else {
             continue;
         };
-        if let Err(m) = validate_dose(a, r, d) {
-            let col = if m.contains("amount") { &amount } else { duration.as_ref().unwrap_or(&route) };
-            errors.push(row.error(src, Some(col), m));
+        if let Err(invalid) = validate_dose(a, r, d) {
+            let col =
+                if invalid.field == "amount_mg" { &amount } else { duration.as_ref().unwrap_or(&route) };
+            errors.push(row.error(src, Some(col), invalid.message));
         }
         if errors.len() > before {
             continue;

@@ -1,6 +1,6 @@
 //! Reading CSV files into rows that remember their line numbers.
 //!
-//! Accepted: a UTF-8 byte-order mark, CRLF or LF line ends, quoted fields, `#` comment lines,
+//! Accepted: a UTF-8 byte-order mark, LF, CRLF or lone-CR line ends, quoted fields, `#` comment lines,
 //! surrounding spaces. Refused, with the line: a file with no header, a duplicate column,
 //! a row with the wrong number of fields, text that is not UTF-8.
 
@@ -44,6 +44,17 @@ impl Table {
     /// Parse CSV bytes. Every problem found is returned, not only the first.
     pub fn parse(source: &str, bytes: &[u8]) -> Result<Table, Vec<InputError>> {
         let bytes = bytes.strip_prefix(b"\xef\xbb\xbf").unwrap_or(bytes);
+        // Line ends may also be a lone CR (old spreadsheet exports). The reader ends a comment
+        // only at LF, so such a file would silently lose every row after a comment: read each
+        // lone CR as LF (byte for byte, so positions and line numbers stay right).
+        let lone_cr = |i: usize| bytes[i] == b'\r' && bytes.get(i + 1) != Some(&b'\n');
+        let unified: Vec<u8>;
+        let bytes = if (0..bytes.len()).any(lone_cr) {
+            unified = (0..bytes.len()).map(|i| if lone_cr(i) { b'\n' } else { bytes[i] }).collect();
+            &unified[..]
+        } else {
+            bytes
+        };
         let mut reader = csv::ReaderBuilder::new()
             .comment(Some(b'#'))
             .trim(csv::Trim::All)
@@ -95,7 +106,7 @@ impl Table {
             } else if headers[..i].contains(h) {
                 errors.push(
                     InputError::new(source, format!("duplicate column '{h}'"))
-                        .at_line(1)
+                        .at_line(header_line)
                         .in_column(h.clone()),
                 );
             }
@@ -212,7 +223,8 @@ impl Row {
             return Err(error("an empty field"));
         }
         match text.parse::<f64>() {
-            Ok(v) if v.is_finite() => Ok(v * column.factor),
+            Ok(v) if (v * column.factor).is_finite() => Ok(v * column.factor),
+            Ok(v) if v.is_finite() => Err(error(&format!("'{text}', out of range once converted"))),
             _ => Err(error(&format!("'{text}'"))),
         }
     }
