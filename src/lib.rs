@@ -14,6 +14,7 @@ pub mod error;
 pub mod fit;
 pub mod io;
 pub mod model;
+pub mod plan;
 pub mod units;
 
 pub use error::{Error, InputError, Invalid, Result};

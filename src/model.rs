@@ -99,7 +99,7 @@ pub struct Absorption {
 }
 
 /// Residual error: σ² = additive² + (proportional · f)².
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct Residual {
     /// Additive standard deviation (mg/L).
     pub additive_mg_l: f64,

@@ -62,6 +62,9 @@ pub struct FitArgs {
     /// Seed for the posterior draws
     #[arg(long, default_value_t = 1)]
     seed: u64,
+    /// Keep N equal-weight posterior draws per subject in the JSON output (for `cistern plan --fit`)
+    #[arg(long, value_name = "N", default_value_t = 0, value_parser = clap::value_parser!(u32).range(0..=100_000))]
+    keep_draws: u32,
     /// Least-squares weighting (wls)
     #[arg(long, value_enum, default_value = "none")]
     weighting: Weighting,
@@ -152,12 +155,28 @@ fn assemble(
     for (id, lv) in &levels.subjects {
         let name = id.clone().unwrap_or_else(|| "(single subject)".into());
         let Some(d) = dose_of.get(id) else {
-            problems.push(InputError::new(
-                &args.levels,
-                format!("subject {name} has levels but no doses in {}", args.doses),
-            ));
+            let first_row = lv.iter().map(|l| l.line).min().unwrap_or(0);
+            problems.push(
+                InputError::new(
+                    &args.levels,
+                    format!("subject {name} has levels but no doses in {}", args.doses),
+                )
+                .at_line(first_row),
+            );
             continue;
         };
+        // Checked here too, so the message can name the levels file (the library cannot).
+        let first_dose = d.iter().map(|x| x.time_h).fold(f64::INFINITY, f64::min);
+        for l in lv.iter().filter(|l| l.time_h < first_dose) {
+            let who = id.as_ref().map_or_else(String::new, |s| format!("subject {s}: "));
+            problems.push(
+                InputError::new(
+                    &args.levels,
+                    format!("{who}a level at {} h comes before the first dose at {first_dose} h", l.time_h),
+                )
+                .at_line(l.line),
+            );
+        }
         let mut cov = id.as_deref().and_then(|s| cov_of.get(s)).map(|c| (*c).clone()).unwrap_or_default();
         for (k, v) in common.iter() {
             cov.set(k, v);
@@ -218,7 +237,7 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
         ka_per_h: ka,
         f,
         tlag_h: tlag,
-        keep_draws: 0,
+        keep_draws: args.keep_draws as usize,
     };
     let outcomes = fit_all(&subjects, model.as_ref(), &options);
     let mut fits = Vec::with_capacity(outcomes.len());

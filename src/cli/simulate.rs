@@ -22,7 +22,8 @@ Examples:
       --cl 4.2 --v 48 --times 0:72h:30min
 
   # a recorded dose history (CSV) at chosen times, as JSON
-  cistern simulate --doses demo-regimens/doses.csv --cl 70ml/min --v 48l --at 1,6,11.5 --format json
+  cistern simulate --doses demo-regimens/doses.csv --cl 70ml/min --v 48l --ka 1.1 --f 0.8 --at 1,6,11.5 \\
+      --format json
 
   # oral doses: absorption rate, bioavailability and lag time
   cistern simulate --dose 500mg --route oral --every 8h --count 9 --ka 1.1 --f 0.8 --tlag 20min \\

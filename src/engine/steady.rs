@@ -162,6 +162,49 @@ impl SteadyCurve {
         }
     }
 
+    /// The share (0–1) of each dosing interval at steady state during which the concentration
+    /// is at least `threshold` mg/L (time above a threshold).
+    ///
+    /// In the lag-free frame the curve rises to its peak and then falls, so the time above is
+    /// one stretch between a rising and a falling crossing. Intravenous crossings are in closed
+    /// form (C = C∞ + (C0 − C∞)·e^(−ks) while infusing, C = Cpeak·e^(−k(s − T)) after);
+    /// oral crossings are found by bisection.
+    pub fn share_above(&self, threshold: f64) -> f64 {
+        let tau = self.dose.every_h;
+        let (peak, peak_at) = self.peak();
+        if peak < threshold {
+            return 0.0;
+        }
+        let k = self.kin.k;
+        let start = self.before_dose.central / self.kin.v;
+        let end = self.at_entry_phase(tau - tau * f64::EPSILON);
+        let bisect = |mut lo: f64, mut hi: f64, rising: bool| {
+            for _ in 0..60 {
+                let mid = 0.5 * (lo + hi);
+                if (self.at_entry_phase(mid) >= threshold) == rising {
+                    hi = mid;
+                } else {
+                    lo = mid;
+                }
+            }
+            0.5 * (lo + hi)
+        };
+        let rise = match self.dose.route {
+            _ if self.at_entry_phase(0.0) >= threshold => 0.0,
+            Route::Infusion => {
+                let plateau = self.dose.amount_mg / self.dose.duration_h / (k * self.kin.v);
+                ((start - plateau) / (threshold - plateau)).ln() / k
+            }
+            _ => bisect(0.0, peak_at, true),
+        };
+        let fall = match self.dose.route {
+            _ if end >= threshold => tau,
+            Route::Oral => bisect(peak_at, tau, false),
+            _ => peak_at + (peak / threshold).ln() / k,
+        };
+        ((fall - rise) / tau).clamp(0.0, 1.0)
+    }
+
     /// All steady-state metrics.
     pub fn metrics(&self) -> SteadyState {
         let tau = self.dose.every_h;

@@ -19,7 +19,7 @@ use crate::covariates::Covariates;
 use crate::dosing::{Dose, Route};
 use crate::engine::Params;
 use crate::io::levels::Level;
-use crate::model::PopulationModel;
+use crate::model::{PopulationModel, Residual};
 use linalg::{MAX, Mat, spd_inverse};
 use objective::{Likelihood, Prior, Problem, Weighting};
 use rayon::prelude::*;
@@ -190,12 +190,15 @@ pub struct FitResult {
     pub levels: Vec<LevelFit>,
     /// Things the user should know.
     pub warnings: Vec<String>,
+    /// The point estimate as a full parameter set (with the fixed ka, F and lag), for
+    /// continuing predictions.
+    pub parameters: Params,
+    /// The residual error model the fit used (map), for planning further levels.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub residual: Option<Residual>,
     /// Unweighted posterior draws of the individual parameters (when asked for).
-    #[serde(skip)]
+    #[serde(skip_serializing_if = "Vec::is_empty")]
     pub draws: Vec<Params>,
-    /// The fixed parameters used (F, lag), for continuing predictions.
-    #[serde(skip)]
-    pub point: Params,
 }
 
 /// A well-mixed 64-bit hash, to derive independent per-subject seeds (SplitMix64).
@@ -536,7 +539,8 @@ fn fit_map(
         levels,
         warnings,
         draws: kept,
-        point: base_params(abs, &theta),
+        parameters: base_params(abs, &theta),
+        residual: Some(model.residual),
     })
 }
 
@@ -662,7 +666,8 @@ fn fit_wls(
         levels,
         warnings,
         draws: Vec::new(),
-        point: base_params(abs, &theta),
+        parameters: base_params(abs, &theta),
+        residual: None,
     })
 }
 
@@ -692,6 +697,7 @@ fn fit_two_level(subject: &SubjectData, abs: &Absorption) -> Result<FitResult, S
         levels,
         warnings,
         draws: Vec::new(),
-        point: base_params(abs, &theta),
+        parameters: base_params(abs, &theta),
+        residual: None,
     })
 }

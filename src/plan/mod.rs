@@ -1,0 +1,163 @@
+//! Regimen planning: targets and limits, candidate regimens, the exposure of a candidate for
+//! one set of individual parameters, and (in [`recommend`]) probabilities over posterior draws.
+//!
+//! Steady-state metrics come in closed form from [`SteadyCurve`]; AUC over a stated day of
+//! therapy continues the real dose history with the candidate regimen from its start time.
+
+pub mod advisor;
+pub mod candidates;
+pub mod recommend;
+
+pub mod targets;
+
+use crate::dosing::Dose;
+use crate::engine::steady::{RepeatedDose, SteadyCurve, SteadyState};
+use crate::engine::{self, Params};
+use crate::error::Invalid;
+use candidates::Candidate;
+use targets::{Limits, Metric, Target};
+
+/// Where a candidate regimen starts: after the doses already given.
+#[derive(Debug, Clone, Copy)]
+pub struct Course<'a> {
+    /// Doses already given (sorted by time).
+    pub history: &'a [Dose],
+    /// Time of the candidate's first dose (h).
+    pub start_h: f64,
+    /// Start of therapy, from which "day N" is counted (h).
+    pub therapy_start_h: f64,
+}
+
+impl<'a> Course<'a> {
+    /// A fresh start at time 0 with no history (virtual subjects).
+    pub fn fresh() -> Course<'static> {
+        Course { history: &[], start_h: 0.0, therapy_start_h: 0.0 }
+    }
+
+    /// The history continued by `candidate` (with an optional loading dose first) up to `until_h`.
+    pub fn continued(&self, candidate: &Candidate, loading_mg: Option<f64>, until_h: f64) -> Vec<Dose> {
+        let mut doses = self.history.to_vec();
+        let mut t = self.start_h;
+        let mut first = true;
+        while t < until_h {
+            let amount = if first { loading_mg.unwrap_or(candidate.amount_mg) } else { candidate.amount_mg };
+            doses.push(Dose {
+                time_h: t,
+                amount_mg: amount,
+                route: candidate.route,
+                duration_h: candidate.duration_h,
+            });
+            first = false;
+            t += candidate.every_h;
+        }
+        doses
+    }
+}
+
+/// The end of the last "day N" any target asks about, from the start of therapy (h).
+pub fn last_day_end(targets: &[Target], course: &Course) -> Option<f64> {
+    targets
+        .iter()
+        .filter_map(|t| match t.metric {
+            Metric::AucDay { day } => Some(course.therapy_start_h + 24.0 * f64::from(day)),
+            _ => None,
+        })
+        .reduce(f64::max)
+}
+
+/// One candidate's exposure for one set of parameters.
+#[derive(Debug, Clone)]
+pub struct Evaluation {
+    /// Steady-state metrics.
+    pub steady: SteadyState,
+    /// The value of each target's metric, in target order.
+    pub values: Vec<f64>,
+    /// Every target met.
+    pub meets: bool,
+    /// Steady-state peak above the limit.
+    pub over_peak: bool,
+    /// Steady-state trough above the limit.
+    pub over_trough: bool,
+}
+
+/// Evaluate `candidate` for `params`. `course_doses` is [`Course::continued`] for the candidate
+/// (built once per candidate), needed only when a target is an AUC over a day of therapy.
+pub fn evaluate(
+    params: &Params,
+    candidate: &Candidate,
+    targets: &[Target],
+    limits: &Limits,
+    course: &Course,
+    course_doses: Option<&[Dose]>,
+) -> Result<Evaluation, Invalid> {
+    let curve = SteadyCurve::new(
+        params,
+        RepeatedDose {
+            amount_mg: candidate.amount_mg,
+            route: candidate.route,
+            duration_h: candidate.duration_h,
+            every_h: candidate.every_h,
+        },
+    )?;
+    let steady = curve.metrics();
+    let values: Vec<f64> = targets
+        .iter()
+        .map(|t| match t.metric {
+            Metric::Auc24 => steady.auc24_mg_h_l,
+            Metric::Trough => steady.trough_mg_l,
+            Metric::Peak => steady.peak_mg_l,
+            Metric::Cavg => steady.cavg_mg_l,
+            Metric::Above { lo_mg_l, hi_mg_l } => {
+                let above_hi = if hi_mg_l.is_finite() { curve.share_above(hi_mg_l) } else { 0.0 };
+                100.0 * (curve.share_above(lo_mg_l) - above_hi).max(0.0)
+            }
+            Metric::AucDay { day } => {
+                let from = course.therapy_start_h + 24.0 * f64::from(day - 1);
+                let doses = course_doses.unwrap_or(course.history);
+                engine::auc(params, doses, from, from + 24.0)
+            }
+        })
+        .collect();
+    let meets = targets.iter().zip(&values).all(|(t, v)| t.met(*v));
+    Ok(Evaluation {
+        over_peak: limits.max_peak_mg_l.is_some_and(|m| steady.peak_mg_l > m),
+        over_trough: limits.max_trough_mg_l.is_some_and(|m| steady.trough_mg_l > m),
+        steady,
+        values,
+        meets,
+    })
+}
+
+/// Dose limits a candidate breaks by itself (whatever the patient's kinetics), as reasons.
+pub fn dose_limits_broken(candidate: &Candidate, loading_mg: Option<f64>, limits: &Limits) -> Vec<String> {
+    let mut broken = Vec::new();
+    let largest = candidate.amount_mg.max(loading_mg.unwrap_or(0.0));
+    if let Some(m) = limits.max_dose_mg
+        && largest > m
+    {
+        broken.push(format!("single dose {largest} mg is above the limit of {m} mg"));
+    }
+    if let Some(m) = limits.max_daily_mg
+        && candidate.daily_mg() > m * (1.0 + 1e-12)
+    {
+        broken.push(format!("daily dose {:.0} mg is above the limit of {m} mg", candidate.daily_mg()));
+    }
+    if let Some(m) = limits.max_rate_mg_h
+        && candidate.route == crate::dosing::Route::Infusion
+    {
+        let rate = largest / candidate.duration_h;
+        if rate > m * (1.0 + 1e-12) {
+            broken.push(format!(
+                "infusion rate {:.2} mg/min is above the limit of {:.2} mg/min",
+                rate / 60.0,
+                m / 60.0
+            ));
+        }
+    }
+    if let Some(m) = limits.min_every_h
+        && candidate.every_h < m
+    {
+        broken.push(format!("interval {} h is shorter than the minimum of {m} h", candidate.every_h));
+    }
+    broken
+}
