@@ -386,15 +386,22 @@ fn check_levels(subject: &SubjectData) -> Result<(), String> {
     Ok(())
 }
 
-fn convergence_warnings(opt: &optimise::Optimum, other_optimum: bool, warnings: &mut Vec<String>) {
+fn convergence_warnings(opt: &optimise::Optimum, others: optimise::Others, warnings: &mut Vec<String>) {
     if !opt.converged {
         warnings.push(format!(
             "the optimiser did not converge ({}; largest gradient component {:.2e})",
             opt.reason, opt.gradient_norm
         ));
     }
-    if other_optimum {
-        warnings.push("another start found a different local optimum; the best is reported".into());
+    match others {
+        optimise::Others::None => {}
+        optimise::Others::WorseOptimum => {
+            warnings.push("another start found a different, worse local optimum; the best is reported".into())
+        }
+        optimise::Others::EqualOptimum => warnings.push(
+            "another, different set of parameters fits equally well: the levels cannot tell them apart"
+                .into(),
+        ),
     }
 }
 
@@ -593,7 +600,16 @@ fn fit_wls(
         }
     }
     grid.sort_by(|a, b| a.0.total_cmp(&b.0));
-    let starts: Vec<[f64; MAX]> = grid.iter().take(3).map(|g| g.1).collect();
+    // The best grid points at least one unit of ln apart, so the starts explore separate basins.
+    let mut starts: Vec<[f64; MAX]> = Vec::new();
+    for (_, t) in &grid {
+        if starts.len() == 3 {
+            break;
+        }
+        if starts.iter().all(|s| (0..n).map(|i| (s[i] - t[i]).abs()).fold(0.0, f64::max) >= 1.0) {
+            starts.push(*t);
+        }
+    }
     if starts.is_empty() {
         return Err("no starting point gives finite predictions".into());
     }

@@ -152,10 +152,21 @@ pub fn minimise(problem: &Problem, start: &[f64]) -> Optimum {
     }
 }
 
+/// What the other starts found besides the best optimum.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Others {
+    /// Nothing else: every converged start reached the same point.
+    None,
+    /// A worse local optimum elsewhere.
+    WorseOptimum,
+    /// Another parameter set that fits equally well: the data do not decide between them.
+    EqualOptimum,
+}
+
 /// Minimise from each of `starts` and keep the best; the `fallback` starts are tried too when
-/// none of `starts` converges. Also says whether another start found a different optimum (a
-/// sign of a multimodal objective).
-pub fn minimise_from(problem: &Problem, starts: &[[f64; MAX]], fallback: &[[f64; MAX]]) -> (Optimum, bool) {
+/// none of `starts` converges. Also says what the other starts found elsewhere (a sign of a
+/// multimodal objective).
+pub fn minimise_from(problem: &Problem, starts: &[[f64; MAX]], fallback: &[[f64; MAX]]) -> (Optimum, Others) {
     let n = problem.n;
     let mut results: Vec<Optimum> = starts.iter().map(|s| minimise(problem, &s[..n])).collect();
     if !results.iter().any(|r| r.converged) {
@@ -165,8 +176,12 @@ pub fn minimise_from(problem: &Problem, starts: &[[f64; MAX]], fallback: &[[f64;
         (!a.converged, a.cost).partial_cmp(&(!b.converged, b.cost)).unwrap_or(std::cmp::Ordering::Equal)
     });
     let best = results.remove(0);
-    let other_optimum = results.iter().any(|r| {
-        r.converged && r.cost - best.cost > 1e-3 && (0..n).any(|i| (r.theta[i] - best.theta[i]).abs() > 1e-3)
-    });
-    (best, other_optimum)
+    let elsewhere = |r: &&Optimum| r.converged && (0..n).any(|i| (r.theta[i] - best.theta[i]).abs() > 1e-3);
+    let equal = |r: &Optimum| r.cost - best.cost <= 1e-6 * best.cost.abs().max(1.0);
+    let others = match results.iter().filter(elsewhere).map(equal).reduce(|a, b| a || b) {
+        None => Others::None,
+        Some(true) => Others::EqualOptimum,
+        Some(false) => Others::WorseOptimum,
+    };
+    (best, others)
 }

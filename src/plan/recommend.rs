@@ -76,6 +76,8 @@ pub struct Assessment {
     pub p_over_trough: Option<f64>,
     /// Predictions over the draws.
     pub predicted: Predicted,
+    /// Each target's metric over the draws, in target order.
+    pub target_values: Vec<Band>,
     /// Hours from the regimen's start until every steady-state target is first met over a
     /// whole interval, for the point estimate; `None` if never within the horizon.
     pub time_to_target_h: Option<f64>,
@@ -145,8 +147,12 @@ fn assess(input: &PlanInput, c: &Candidate) -> Result<Assessment, Invalid> {
     let course_doses = until.map(|u| course.continued(c, None, u));
     let (mut peak, mut trough, mut auc) = (Vec::new(), Vec::new(), Vec::new());
     let (mut met, mut over_peak, mut over_trough) = (0usize, 0usize, 0usize);
+    let mut values: Vec<Vec<f64>> = vec![Vec::with_capacity(input.draws.len()); input.targets.len()];
     for p in input.draws {
         let e = evaluate(p, c, input.targets, &input.limits, course, course_doses.as_deref())?;
+        for (column, v) in values.iter_mut().zip(&e.values) {
+            column.push(*v);
+        }
         peak.push(e.steady.peak_mg_l);
         trough.push(e.steady.trough_mg_l);
         auc.push(e.steady.auc24_mg_h_l);
@@ -186,6 +192,7 @@ fn assess(input: &PlanInput, c: &Candidate) -> Result<Assessment, Invalid> {
             trough_mg_l: Band::of(&mut trough),
             auc24_mg_h_l: Band::of(&mut auc),
         },
+        target_values: values.iter_mut().map(|v| Band::of(v)).collect(),
         time_to_target_h: time_to_target(&input.point, &input.course, c, None, input.targets),
         limits_broken,
     })
