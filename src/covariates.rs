@@ -61,14 +61,22 @@ impl Covariates {
             if self.get(name).is_some() {
                 continue;
             }
-            let need =
-                |what: &[&str]| format!("'{name}' is not given and needs {} to derive", what.join(", "));
+            let missing = |what: &[(&str, bool)]| {
+                let absent: Vec<&str> = what.iter().filter(|(_, have)| !have).map(|(n, _)| *n).collect();
+                format!("'{name}' is not given, and deriving it needs {} too", absent.join(", "))
+            };
+            let has = |n: &str| self.get(n).is_some();
             match name {
                 "crcl_ml_min" => {
                     let (Some(age), Some(weight), Some(scr), Some(sex)) =
                         (self.get("age_y"), self.get("weight_kg"), self.get("scr_mg_dl"), self.sex)
                     else {
-                        return Err(need(&["age_y", "weight_kg", "sex", "scr_mg_dl (or scr_umol_l)"]));
+                        return Err(missing(&[
+                            ("age_y", has("age_y")),
+                            ("weight_kg", has("weight_kg")),
+                            ("sex", self.sex.is_some()),
+                            ("scr_mg_dl (or scr_umol_l)", has("scr_mg_dl")),
+                        ]));
                     };
                     self.set(name, cockcroft_gault(age, weight, scr, sex));
                     self.derivations
@@ -76,17 +84,24 @@ impl Covariates {
                 }
                 "bsa_m2" => {
                     let (Some(w), Some(h)) = (self.get("weight_kg"), self.get("height_cm")) else {
-                        return Err(need(&["weight_kg", "height_cm"]));
+                        return Err(missing(&[
+                            ("weight_kg", has("weight_kg")),
+                            ("height_cm", has("height_cm")),
+                        ]));
                     };
                     self.set(name, bsa_du_bois(w, h));
                     self.derivations.push("bsa_m2 by Du Bois & Du Bois (1916)".to_string());
                 }
                 "ibw_kg" => {
                     let (Some(h), Some(sex)) = (self.get("height_cm"), self.sex) else {
-                        return Err(need(&["height_cm", "sex"]));
+                        return Err(missing(&[("height_cm", has("height_cm")), ("sex", self.sex.is_some())]));
                     };
                     self.set(name, ideal_body_weight(h, sex));
-                    self.derivations.push("ibw_kg by Devine (1974)".to_string());
+                    self.derivations.push(if h < 152.4 {
+                        "ibw_kg by Devine (1974), extrapolated below 5 ft (152.4 cm), where the formula was not meant to apply".to_string()
+                    } else {
+                        "ibw_kg by Devine (1974)".to_string()
+                    });
                 }
                 _ => return Err(format!("the covariate '{name}' is not given")),
             }

@@ -7,6 +7,7 @@
 #![deny(clippy::float_cmp)]
 #![warn(missing_docs)]
 
+pub mod case;
 pub mod covariates;
 pub mod dosing;
 pub mod engine;
@@ -15,6 +16,9 @@ pub mod fit;
 pub mod io;
 pub mod model;
 pub mod plan;
+pub mod report;
+pub mod sweep;
 pub mod units;
+pub mod verify;
 
 pub use error::{Error, InputError, Invalid, Result};

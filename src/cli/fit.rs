@@ -1,19 +1,14 @@
 //! `cistern fit`: estimate clearance and volume (and ka for oral drugs) from sampled levels.
 
 use super::args::{OutputArgs, Problems, flag_number, flag_value};
-use cistern::covariates::{Covariates, Sex, parse_covariates};
+use super::study::{Study, StudyArgs};
 use cistern::fit::objective::Weighting;
-use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, SubjectData, fit_all};
-use cistern::io::doses::parse_doses;
-use cistern::io::levels::parse_levels;
+use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, fit_all};
 use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
-use cistern::io::table::Table;
-use cistern::model::PopulationModel;
 use cistern::units::Kind;
 use cistern::{Error, InputError};
 use clap::Args;
 use serde::Serialize;
-use std::collections::HashMap;
 
 /// Estimate each subject's clearance and volume, with 95 % intervals, from sparse levels.
 #[derive(Args, Debug)]
@@ -35,33 +30,20 @@ Examples:
 Levels below the quantification limit are written <LLOQ (e.g. <0.5) and enter the MAP
 objective by the M3 likelihood. A parameter given on the command line (--ka) is held fixed.")]
 pub struct FitArgs {
-    /// Population model (TOML); required for --method map
-    #[arg(long, value_name = "FILE")]
-    model: Option<String>,
-    /// Doses CSV
-    #[arg(long, value_name = "FILE")]
-    doses: String,
-    /// Levels CSV (time_<unit>, conc_<unit>, optional subject and lloq_<unit>)
-    #[arg(long, value_name = "FILE")]
-    levels: String,
-    /// Covariates CSV (subject plus columns such as weight_kg, age_y, sex, scr_mg_dl, crcl_ml_min)
-    #[arg(long, value_name = "FILE")]
-    covariates: Option<String>,
-    /// A covariate for every subject, NAME=VALUE (e.g. weight_kg=70, sex=F); repeatable
-    #[arg(long = "covariate", value_name = "NAME=VALUE")]
-    covariate: Vec<String>,
+    #[command(flatten)]
+    study: StudyArgs,
     /// Estimation method [default: map with --model, wls without]
     #[arg(long, value_enum)]
     method: Option<Method>,
     /// Interval type
     #[arg(long, value_enum, default_value = "posterior")]
     intervals: Intervals,
-    /// Posterior draws per subject (importance sampling)
-    #[arg(long, default_value_t = 2000, value_parser = clap::value_parser!(u32).range(100..=1_000_000))]
-    draws: u32,
-    /// Seed for the posterior draws
-    #[arg(long, default_value_t = 1)]
-    seed: u64,
+    /// Posterior draws per subject (importance sampling) [default: the case's, else 2000]
+    #[arg(long, value_parser = clap::value_parser!(u32).range(100..=1_000_000))]
+    draws: Option<u32>,
+    /// Seed for the posterior draws [default: the case's, else 1]
+    #[arg(long)]
+    seed: Option<u64>,
     /// Keep N equal-weight posterior draws per subject in the JSON output (for `cistern plan --fit`)
     #[arg(long, value_name = "N", default_value_t = 0, value_parser = clap::value_parser!(u32).range(0..=100_000))]
     keep_draws: u32,
@@ -87,135 +69,16 @@ struct FitJson<'a> {
     caution: &'a str,
 }
 
-fn take_all<T>(problems: &mut Problems, r: Result<T, Vec<InputError>>) -> Option<T> {
-    r.map_err(|errors| errors.into_iter().for_each(|e| problems.push(e))).ok()
-}
-
-/// `NAME=VALUE` covariates from the command line.
-fn flag_covariates(items: &[String], problems: &mut Problems) -> Covariates {
-    let mut cov = Covariates::default();
-    for item in items {
-        let Some((name, value)) = item.split_once('=') else {
-            problems.push(InputError::new("--covariate", format!("expected NAME=VALUE, found '{item}'")));
-            continue;
-        };
-        let (name, value) = (name.trim(), value.trim());
-        if name == "sex" {
-            match value.to_ascii_uppercase().as_str() {
-                "M" | "MALE" => cov.sex = Some(Sex::Male),
-                "F" | "FEMALE" => cov.sex = Some(Sex::Female),
-                _ => problems
-                    .push(InputError::new("--covariate", format!("sex must be M or F, found '{value}'"))),
-            }
-        } else if let Some(v) = problems.take(flag_number("--covariate", value)) {
-            cov.set(name, v);
-        }
-    }
-    cov
-}
-
-/// Match doses, levels and covariates by subject, and derive the covariates the model needs.
-fn assemble(
-    args: &FitArgs,
-    model: Option<&PopulationModel>,
-    problems: &mut Problems,
-) -> Option<(Vec<SubjectData>, Vec<String>)> {
-    let doses = take_all(problems, Table::read(&args.doses).and_then(|t| parse_doses(&t)));
-    let levels = take_all(problems, Table::read(&args.levels).and_then(|t| parse_levels(&t)));
-    let covariates = match &args.covariates {
-        Some(path) => take_all(problems, Table::read(path).and_then(|t| parse_covariates(&t))),
-        None => Some(Vec::new()),
-    };
-    let common = flag_covariates(&args.covariate, problems);
-    let (doses, levels, covariates) = (doses?, levels?, covariates?);
-    let mut notes = levels.notes.clone();
-    if !doses.ignored_columns.is_empty() {
-        notes.push(format!("{}: ignored columns: {}", args.doses, doses.ignored_columns.join(", ")));
-    }
-    let mut levels = levels;
-    let dose_ids = doses.subjects.iter().any(|(s, _)| s.is_some());
-    let level_ids = levels.subjects.iter().any(|(s, _)| s.is_some());
-    if dose_ids != level_ids {
-        // One subject named on one side only: pair them; otherwise it is ambiguous.
-        match (&doses.subjects[..], &mut levels.subjects[..]) {
-            ([(id, _)], [(level_id, _)]) => *level_id = id.clone(),
-            _ => {
-                problems.push(InputError::new(
-                    &args.levels,
-                    "the doses and levels files must both have a subject column, or neither",
-                ));
-                return None;
-            }
-        }
-    }
-    let dose_of: HashMap<&Option<String>, &Vec<_>> = doses.subjects.iter().map(|(s, d)| (s, d)).collect();
-    let cov_of: HashMap<&str, &Covariates> = covariates.iter().map(|(s, c)| (s.as_str(), c)).collect();
-    let needed = model.map(|m| m.covariates_needed()).unwrap_or_default();
-    let mut subjects = Vec::new();
-    for (id, lv) in &levels.subjects {
-        let name = id.clone().unwrap_or_else(|| "(single subject)".into());
-        let Some(d) = dose_of.get(id) else {
-            let first_row = lv.iter().map(|l| l.line).min().unwrap_or(0);
-            problems.push(
-                InputError::new(
-                    &args.levels,
-                    format!("subject {name} has levels but no doses in {}", args.doses),
-                )
-                .at_line(first_row),
-            );
-            continue;
-        };
-        // Checked here too, so the message can name the levels file (the library cannot).
-        let first_dose = d.iter().map(|x| x.time_h).fold(f64::INFINITY, f64::min);
-        for l in lv.iter().filter(|l| l.time_h < first_dose) {
-            let who = id.as_ref().map_or_else(String::new, |s| format!("subject {s}: "));
-            problems.push(
-                InputError::new(
-                    &args.levels,
-                    format!("{who}a level at {} h comes before the first dose at {first_dose} h", l.time_h),
-                )
-                .at_line(l.line),
-            );
-        }
-        let mut cov = id.as_deref().and_then(|s| cov_of.get(s)).map(|c| (*c).clone()).unwrap_or_default();
-        for (k, v) in common.iter() {
-            cov.set(k, v);
-        }
-        if common.sex.is_some() {
-            cov.sex = common.sex;
-        }
-        if let Err(m) = cov.derive(&needed) {
-            let source = args.covariates.clone().unwrap_or_else(|| "--covariate".into());
-            problems.push(InputError::new(source, format!("subject {name}: {m}")));
-            continue;
-        }
-        subjects.push(SubjectData { id: id.clone(), doses: d.to_vec(), levels: lv.clone(), covariates: cov });
-    }
-    let skipped: Vec<String> = doses
-        .subjects
-        .iter()
-        .filter(|(s, _)| !levels.subjects.iter().any(|(l, _)| l == s))
-        .map(|(s, _)| s.clone().unwrap_or_default())
-        .collect();
-    if !skipped.is_empty() {
-        notes.push(format!("subjects with doses but no levels are not fitted: {}", skipped.join(", ")));
-    }
-    Some((subjects, notes))
-}
-
 /// Run the command.
 pub fn run(args: FitArgs) -> Result<(), Error> {
     let mut problems = Problems::new();
-    let model = match &args.model {
-        Some(path) => take_all(&mut problems, PopulationModel::read(path)),
-        None => None,
-    };
     let ka = args.ka.as_ref().and_then(|t| problems.take(flag_value("--ka", Kind::RateConstant, t)));
     let f = problems.take(flag_number("--f", &args.f));
     let tlag = problems.take(flag_value("--tlag", Kind::Time, &args.tlag));
-    let assembled = assemble(&args, model.as_ref(), &mut problems);
+    let (study_args, case) = args.study.with_case(&mut problems);
+    let study = study_args.load(&mut problems);
     problems.finish()?;
-    let (Some((subjects, notes)), Some(f), Some(tlag)) = (assembled, f, tlag) else {
+    let (Some(Study { model, subjects, notes }), Some(f), Some(tlag)) = (study, f, tlag) else {
         return Err(Error::Usage("the arguments could not be read".into()));
     };
     let method = args.method.unwrap_or(if model.is_some() { Method::Map } else { Method::Wls });
@@ -228,11 +91,15 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     for n in &notes {
         args.output.note(n);
     }
+    if model.as_ref().is_some_and(|m| m.absorption.is_some()) && (args.f != "1" || args.tlag != "0") {
+        args.output
+            .note("the model's [absorption] table gives F and the lag time: --f and --tlag are not used");
+    }
     let options = FitOptions {
         method,
         intervals: args.intervals,
-        draws: args.draws as usize,
-        seed: args.seed,
+        draws: args.draws.or(case.as_ref().and_then(|c| c.draws)).unwrap_or(2000) as usize,
+        seed: args.seed.or(case.as_ref().and_then(|c| c.seed)).unwrap_or(1),
         weighting: args.weighting,
         ka_per_h: ka,
         f,
@@ -254,15 +121,7 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     if !failures.is_empty() {
         return Err(Error::Usage(failures.join("\n")));
     }
-    let inputs: Vec<&str> = [
-        Some(args.doses.as_str()),
-        Some(args.levels.as_str()),
-        args.model.as_deref(),
-        args.covariates.as_deref(),
-    ]
-    .into_iter()
-    .flatten()
-    .collect();
+    let inputs = study_args.paths();
     let format = args.output.format();
     let mut sink = args.output.sink(&inputs)?;
     let out = sink.writer();
@@ -375,6 +234,9 @@ fn table(fits: &[FitResult]) -> String {
             })
             .collect();
         text += &render_table(&["time_h", "observed_mg_l", "predicted_mg_l", "weighted_residual"], &lv);
+        for d in &r.derived_covariates {
+            text += &format!("derived: {d}\n");
+        }
         for w in &r.warnings {
             text += &format!("warning: {w}\n");
         }

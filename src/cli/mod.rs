@@ -4,7 +4,14 @@ mod args;
 mod check;
 mod exposure;
 mod fit;
+mod merge;
+mod plan;
+mod regimen_grid;
+mod report;
 mod simulate;
+mod study;
+mod sweep;
+mod verify;
 
 use cistern::Error;
 use clap::{Parser, Subcommand};
@@ -28,7 +35,12 @@ enum Command {
     Simulate(simulate::SimulateArgs),
     Exposure(exposure::ExposureArgs),
     Fit(fit::FitArgs),
+    Plan(plan::PlanArgs),
+    Report(report::ReportArgs),
     Check(check::CheckArgs),
+    Sweep(sweep::SweepArgs),
+    Merge(merge::MergeArgs),
+    Verify(verify::VerifyArgs),
 }
 
 /// Parse the command line, run the command, and turn the outcome into an exit code.
@@ -45,7 +57,12 @@ pub fn run() -> ExitCode {
         Command::Simulate(a) => simulate::run(a),
         Command::Exposure(a) => exposure::run(a),
         Command::Fit(a) => fit::run(a),
+        Command::Plan(a) => plan::run(a),
+        Command::Report(a) => report::run(a),
         Command::Check(a) => check::run(a),
+        Command::Sweep(a) => sweep::run(a),
+        Command::Merge(a) => merge::run(a),
+        Command::Verify(a) => verify::run(a),
     };
     match outcome {
         Ok(()) | Err(Error::OutputClosed) => ExitCode::SUCCESS,

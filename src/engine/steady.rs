@@ -244,6 +244,8 @@ impl SteadyCurve {
             return elimination_only;
         }
         let ka = self.kin.ka;
+        // r(t) = e^(−kt) + k·G(t) falls from 1 to 0 with slope r'(t) = −k·ka·G(t): Newton steps,
+        // kept inside a bracket that bisection shrinks whenever a step would leave it.
         let remaining = |t: f64| (-k * t).exp() + k * depot_to_central(k, ka, t);
         let target = 1.0 - fraction;
         let (mut lo, mut hi) = (elimination_only, 2.0 * elimination_only);
@@ -251,17 +253,47 @@ impl SteadyCurve {
             lo = hi;
             hi *= 2.0;
         }
-        for _ in 0..200 {
-            let mid = 0.5 * (lo + hi);
-            if remaining(mid) > target {
-                lo = mid;
+        let mut t = 0.5 * (lo + hi);
+        for _ in 0..100 {
+            let excess = remaining(t) - target;
+            if excess > 0.0 {
+                lo = t
             } else {
-                hi = mid;
+                hi = t
             }
-            if hi - lo <= f64::EPSILON * hi {
+            let newton = t + excess / (k * ka * depot_to_central(k, ka, t));
+            let next = if newton > lo && newton < hi { newton } else { 0.5 * (lo + hi) };
+            if (next - t).abs() <= 4.0 * f64::EPSILON * t {
+                t = next;
                 break;
             }
+            t = next;
         }
-        0.5 * (lo + hi) + self.kin.tlag_h
+        t + self.kin.tlag_h
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn oral_time_to_fraction_solves_its_equation() {
+        // 1 − (ka·e^(−kt) − k·e^(−ka t))/(ka − k) = x at the returned time (less the lag).
+        for &(ka, lag) in &[(1.1, 0.0), (0.09, 0.5), (0.0875, 0.0), (12.0, 2.0)] {
+            let p = Params { cl_l_h: 4.2, v_l: 48.0, ka_per_h: Some(ka), f: 0.8, tlag_h: lag };
+            let dose = RepeatedDose { amount_mg: 500.0, route: Route::Oral, duration_h: 0.0, every_h: 8.0 };
+            let curve = SteadyCurve::new(&p, dose).unwrap();
+            let k = p.k_per_h();
+            for x in [0.5, 0.9, 0.95, 0.999] {
+                let t = curve.time_to_fraction(x) - lag;
+                let reached = if (ka - k).abs() < 1e-12 {
+                    1.0 - (1.0 + k * t) * (-k * t).exp()
+                } else {
+                    1.0 - (ka * (-k * t).exp() - k * (-ka * t).exp()) / (ka - k)
+                };
+                assert!((reached - x).abs() < 1e-10, "ka {ka}, x {x}: reached {reached}");
+            }
+        }
     }
 }

@@ -48,6 +48,9 @@ pub enum Intervals {
     Laplace,
     /// Point estimates only.
     None,
+    /// From the least-squares curvature and residual variance (what wls reports; not a choice).
+    #[value(skip)]
+    LeastSquares,
 }
 
 /// Options shared by all subjects of one run.
@@ -177,6 +180,10 @@ pub struct FitResult {
     pub objective: f64,
     /// The estimates.
     pub estimates: Estimates,
+    /// How covariates the model needs were derived (e.g. creatinine clearance by
+    /// Cockcroft–Gault with total body weight).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub derived_covariates: Vec<String>,
     /// Typical values of the prior (map).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub prior: Option<PriorSummary>,
@@ -359,9 +366,11 @@ fn level_fits(
 
 fn plausibility(model: Option<&PopulationModel>, e: &Estimates, warnings: &mut Vec<String>) {
     let Some(m) = model else { return };
+    let ka = e.ka_per_h.zip(m.absorption.as_ref().and_then(|a| a.ka.plausible));
     let checks = [
         ("clearance", e.cl_l_h.value, m.clearance.plausible, "L/h"),
         ("volume", e.v_l.value, m.volume.plausible, "L"),
+        ("ka", ka.map_or(f64::NAN, |(k, _)| k.value), ka.map(|(_, r)| r), "1/h"),
     ];
     for (name, value, range, unit) in checks {
         if let Some((lo, hi)) = range
@@ -471,8 +480,13 @@ fn fit_map(
     });
     let mut effective_draws = None;
     let mut kept = Vec::new();
-    let estimates = match options.intervals {
-        Intervals::None => from_covariance(&theta, None, n, 0.0),
+    // The least-squares label has no meaning for map: its curvature interval is Laplace's.
+    let intervals = match options.intervals {
+        Intervals::LeastSquares => Intervals::Laplace,
+        other => other,
+    };
+    let estimates = match intervals {
+        Intervals::None | Intervals::LeastSquares => from_covariance(&theta, None, n, 0.0),
         Intervals::Laplace => from_covariance(&theta, laplace.as_ref(), n, 1.959963984540054),
         Intervals::Posterior => {
             match posterior::sample(&problem, &theta, &opt.hessian, options.draws, seed) {
@@ -535,11 +549,12 @@ fn fit_map(
     Ok(FitResult {
         subject: subject.id.clone(),
         method: Method::Map,
-        intervals: options.intervals,
+        intervals,
         converged: opt.converged,
         iterations: opt.iterations,
         objective: opt.cost,
         estimates,
+        derived_covariates: subject.covariates.derivations.clone(),
         prior: Some(PriorSummary { cl_l_h: cl_typ, v_l: v_typ, ka_per_h: ka_prior.map(|k| k.typical) }),
         effective_draws,
         two_level: None,
@@ -671,11 +686,16 @@ fn fit_wls(
     Ok(FitResult {
         subject: subject.id.clone(),
         method: Method::Wls,
-        intervals: if dof == 0 { Intervals::None } else { options.intervals },
+        intervals: if dof == 0 || options.intervals == Intervals::None {
+            Intervals::None
+        } else {
+            Intervals::LeastSquares
+        },
         converged: opt.converged,
         iterations: opt.iterations,
         objective: opt.cost,
         estimates,
+        derived_covariates: subject.covariates.derivations.clone(),
         prior: None,
         effective_draws: None,
         two_level: None,
@@ -707,6 +727,7 @@ fn fit_two_level(subject: &SubjectData, abs: &Absorption) -> Result<FitResult, S
         iterations: 0,
         objective: problem.cost(&theta),
         estimates: from_covariance(&theta, None, 2, 0.0),
+        derived_covariates: subject.covariates.derivations.clone(),
         prior: None,
         effective_draws: None,
         two_level: Some(tl),

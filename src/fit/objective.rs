@@ -1,6 +1,6 @@
 //! Objective functions over log-parameters θ = (ln CL, ln V[, ln ka]).
 //!
-//! MAP (Sheiner LB, Beal SL. J Pharmacokinet Biopharm 1982;10:553; citation recalled from
+//! MAP (Sheiner LB, Beal SL. J Pharm Sci 1982;71:1344–1348; citation recalled from
 //! memory), the −2 log posterior up to a constant:
 //!
 //! ```text

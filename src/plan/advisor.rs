@@ -18,6 +18,7 @@ use crate::model::Residual;
 use rand::SeedableRng;
 use rand::distr::Distribution;
 use rand::rngs::StdRng;
+use rayon::prelude::*;
 use serde::Serialize;
 use statrs::distribution::Normal;
 
@@ -101,22 +102,23 @@ pub fn advise(q: &Question) -> Advice {
     // Predictions of every draw at every candidate time: one pass of the engine per draw.
     let predictions: Vec<Vec<f64>> = draws.iter().map(|p| engine::concentrations(p, doses, times)).collect();
     let normal = Normal::new(0.0, 1.0).expect("standard normal");
-    let mut rng = StdRng::seed_from_u64(seed);
-    let mut values: Vec<SampleValue> = times
-        .iter()
-        .enumerate()
-        .map(|(j, &t)| {
+    let mut values: Vec<SampleValue> = (0..times.len())
+        .into_par_iter()
+        .map(|j| {
+            let t = times[j];
+            // Each time has its own random stream, so the result does not depend on threads.
+            let mut rng = StdRng::seed_from_u64(crate::fit::mix_seed(seed, j as u64));
+            let f: Vec<f64> = predictions.iter().map(|row| row[j]).collect();
+            let inv_var: Vec<f64> = f.iter().map(|&x| 1.0 / residual.variance(x)).collect();
+            let ln_var: Vec<f64> = inv_var.iter().map(|iv| -iv.ln()).collect();
             let (mut var_sum, mut width_sum) = (0.0, 0.0);
             let mut weights = vec![0.0; n];
             for _ in 0..simulations {
                 let s = (rand::RngExt::random::<u64>(&mut rng) % n as u64) as usize;
-                let f_s = predictions[s][j];
-                let y = f_s + residual.variance(f_s).sqrt() * normal.sample(&mut rng);
+                let y = f[s] + (1.0 / inv_var[s]).sqrt() * normal.sample(&mut rng);
                 let mut top = f64::NEG_INFINITY;
                 for i in 0..n {
-                    let f = predictions[i][j];
-                    let v = residual.variance(f);
-                    weights[i] = -0.5 * ((y - f).powi(2) / v + v.ln());
+                    weights[i] = -0.5 * ((y - f[i]).powi(2) * inv_var[i] + ln_var[i]);
                     top = top.max(weights[i]);
                 }
                 let mut total = 0.0;
@@ -133,7 +135,7 @@ pub fn advise(q: &Question) -> Advice {
             let width = width_sum / k;
             SampleValue {
                 time_h: t,
-                after_dose_h: doses.iter().rev().find(|d| d.time_h <= t).map_or(f64::NAN, |d| t - d.time_h),
+                after_dose_h: t - doses.iter().map(|d| d.time_h).filter(|&d| d <= t).fold(f64::NAN, f64::max),
                 expected_sd: (var_sum / k).sqrt(),
                 expected_ci90_width: width,
                 shrinkage_pct: 100.0 * (1.0 - width / width0),

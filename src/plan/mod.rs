@@ -7,6 +7,7 @@
 pub mod advisor;
 pub mod candidates;
 pub mod recommend;
+pub mod session;
 
 pub mod targets;
 

@@ -322,7 +322,7 @@ fn loading_dose(input: &PlanInput, a: &Assessment) -> Option<f64> {
     if let Some(rate) = input.limits.max_rate_mg_h
         && a.route == Route::Infusion
     {
-        ld = ld.min(rate * a.duration_h);
+        ld = ld.min((rate * a.duration_h / step + 1e-9).floor() * step);
     }
     (ld > a.amount_mg * (1.0 + 1e-9)).then_some(ld)
 }

@@ -1,0 +1,154 @@
+//! `cistern verify`: the installation check.
+
+use super::args::OutputArgs;
+use cistern::Error;
+use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use cistern::verify::{BOURNE_NOTES, Outcome, Tolerance, run_all};
+use clap::Args;
+use serde::Serialize;
+
+/// Run the built-in check cases (published worked examples) through this copy's own code.
+#[derive(Args, Debug)]
+#[command(after_help = "\
+Examples:
+  cistern verify
+  cistern verify --format json -o verify.json
+
+Each case names its source, whether the expected value is printed there, derived from its
+published formula or data, or common practice, and the tolerance it allows. Exit code 0 when
+every case passes, 1 when any fails.")]
+pub struct VerifyArgs {
+    #[command(flatten)]
+    output: OutputArgs,
+}
+
+#[derive(Serialize)]
+struct VerifyJson<'a> {
+    version: &'a str,
+    passed: usize,
+    failed: usize,
+    cases: &'a [Outcome],
+    bourne_notes: &'a str,
+    caution: &'a str,
+}
+
+fn result_label(o: &Outcome) -> &'static str {
+    if o.passed { "pass" } else { "FAIL" }
+}
+
+fn tolerance_parts(t: Tolerance) -> (&'static str, f64) {
+    match t {
+        Tolerance::Absolute(x) => ("absolute", x),
+        Tolerance::Relative(x) => ("relative", x),
+    }
+}
+
+/// Pad a text column so that the table, which right-aligns, shows it left-aligned.
+fn left_align(column: usize, headers: &mut [String], rows: &mut [Vec<String>]) {
+    let cells = || std::iter::once(&headers[column]).chain(rows.iter().map(|r| &r[column]));
+    let width = cells().map(|c| c.chars().count()).max().unwrap_or(0);
+    headers[column] = format!("{:<width$}", headers[column]);
+    for r in rows.iter_mut() {
+        r[column] = format!("{:<width$}", r[column]);
+    }
+}
+
+/// Run the command.
+pub fn run(args: VerifyArgs) -> Result<(), Error> {
+    let outcomes = run_all();
+    let passed = outcomes.iter().filter(|o| o.passed).count();
+    let failed = outcomes.len() - passed;
+    let version = env!("CARGO_PKG_VERSION");
+    let format = args.output.format();
+    let mut sink = args.output.sink(&[])?;
+    let out = sink.writer();
+    match format {
+        Format::Json => {
+            let doc = VerifyJson {
+                version,
+                passed,
+                failed,
+                cases: &outcomes,
+                bourne_notes: BOURNE_NOTES,
+                caution: CAUTION,
+            };
+            serde_json::to_writer_pretty(&mut *out, &doc).map_err(|e| io_failure(e.into()))?;
+            writeln!(out).map_err(io_failure)?;
+        }
+        Format::Csv => {
+            let mut w = csv::Writer::from_writer(&mut *out);
+            let header = [
+                "case",
+                "unit",
+                "source",
+                "kind",
+                "expected",
+                "computed",
+                "tolerance",
+                "tolerance_type",
+                "passed",
+                "error",
+            ];
+            w.write_record(header).map_err(|e| io_failure(e.into()))?;
+            for o in &outcomes {
+                let (kind, tol) = tolerance_parts(o.tolerance);
+                w.write_record([
+                    o.name,
+                    o.unit,
+                    o.source,
+                    o.kind.label(),
+                    &full(o.expected),
+                    &o.computed.map(full).unwrap_or_default(),
+                    &full(tol),
+                    kind,
+                    if o.passed { "true" } else { "false" },
+                    o.error.as_deref().unwrap_or(""),
+                ])
+                .map_err(|e| io_failure(e.into()))?;
+            }
+            w.flush().map_err(io_failure)?;
+        }
+        Format::Table => {
+            let mut rows: Vec<Vec<String>> = outcomes
+                .iter()
+                .map(|o| {
+                    vec![
+                        result_label(o).to_string(),
+                        o.name.to_string(),
+                        full(o.expected),
+                        o.computed.map_or_else(|| "error".to_string(), |c| readable(c, 7)),
+                        o.tolerance.label(),
+                        o.unit.to_string(),
+                        o.kind.label().to_string(),
+                        o.source.to_string(),
+                    ]
+                })
+                .collect();
+            let mut headers =
+                ["result", "case", "expected", "computed", "tolerance", "unit", "kind", "source"]
+                    .map(String::from);
+            for column in [1, 5, 6, 7] {
+                left_align(column, &mut headers, &mut rows);
+            }
+            let headers = headers.each_ref().map(String::as_str);
+            writeln!(out, "cistern {version}: installation check, {} cases", outcomes.len())
+                .map_err(io_failure)?;
+            write!(out, "{}", render_table(&headers, &rows)).map_err(io_failure)?;
+            for o in outcomes.iter().filter(|o| o.error.is_some()) {
+                writeln!(out, "{}: {}", o.name, o.error.as_deref().unwrap_or_default())
+                    .map_err(io_failure)?;
+            }
+            writeln!(
+                out,
+                "\n{passed} passed, {failed} failed.\n\"Bourne notes\" = {BOURNE_NOTES}.\n{CAUTION}"
+            )
+            .map_err(io_failure)?;
+        }
+    }
+    args.output.caution_for_csv(format);
+    sink.finish()?;
+    if failed > 0 {
+        return Err(Error::Failure(format!("{failed} of {} check cases failed", outcomes.len())));
+    }
+    Ok(())
+}

@@ -1,0 +1,9 @@
+//! The regimen report: a document model drawn as PDF pages, and its plots as SVG.
+
+pub mod content;
+pub mod layout;
+pub mod pdf;
+pub mod plot;
+pub mod provenance;
+pub mod svg;
+pub mod text;

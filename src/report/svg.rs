@@ -1,0 +1,127 @@
+//! The report's plot as a standalone SVG (for papers): the same panels as in the PDF, laid out
+//! by [`plot`], stacked vertically. Units are points. Each text carries its Helvetica width
+//! (`textLength`), so a viewer that substitutes a wider font still keeps the layout.
+
+use super::layout::{PlotSpec, Rgb};
+use super::plot::{self, Anchor, Shape};
+use super::text::{self, Face};
+use std::fmt::Write;
+
+/// Panel size in points (about 16.9 × 9.5 cm, a full-width figure).
+const PANEL_W: f64 = 480.0;
+const PANEL_H: f64 = 270.0;
+
+fn esc(s: &str) -> String {
+    s.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;").replace('"', "&quot;")
+}
+
+fn rgb((r, g, b): Rgb) -> String {
+    let c = |v: f32| (v.clamp(0.0, 1.0) * 255.0).round() as u8;
+    format!("#{:02x}{:02x}{:02x}", c(r), c(g), c(b))
+}
+
+/// Coordinates with two decimals: enough at point scale, and stable text.
+fn num(v: f64) -> String {
+    let s = format!("{v:.2}");
+    let s = s.trim_end_matches('0').trim_end_matches('.');
+    if s == "-0" { "0".into() } else { s.into() }
+}
+
+fn path_data(runs: &[Vec<(f64, f64)>], close: bool) -> String {
+    let mut d = String::new();
+    for run in runs {
+        for (i, (x, y)) in run.iter().enumerate() {
+            let _ = write!(d, "{}{} {}", if i == 0 { "M" } else { "L" }, num(*x), num(*y));
+        }
+        if close {
+            d.push('Z');
+        }
+    }
+    d
+}
+
+/// Renders the panels as one SVG document.
+pub fn render_svg(panels: &[PlotSpec]) -> String {
+    let height = PANEL_H * panels.len() as f64;
+    let mut out = String::new();
+    let _ = writeln!(
+        out,
+        r#"<svg xmlns="http://www.w3.org/2000/svg" width="{w}pt" height="{h}pt" viewBox="0 0 {w} {h}" font-family="Helvetica, Arial, sans-serif">"#,
+        w = num(PANEL_W),
+        h = num(height)
+    );
+    let _ = writeln!(
+        out,
+        r#"<rect x="0" y="0" width="{}" height="{}" fill="white"/>"#,
+        num(PANEL_W),
+        num(height)
+    );
+    for (i, spec) in panels.iter().enumerate() {
+        let scene = plot::plot_scene(spec, PANEL_W, PANEL_H);
+        let _ = writeln!(out, r#"<g transform="translate(0 {})">"#, num(i as f64 * PANEL_H));
+        for shape in &scene.shapes {
+            match shape {
+                Shape::Line { class, runs, color, width, dash } => {
+                    let dash = dash
+                        .map(|(on, off)| format!(r#" stroke-dasharray="{} {}""#, num(on), num(off)))
+                        .unwrap_or_default();
+                    let _ = writeln!(
+                        out,
+                        r#"<path class="{class}" d="{}" fill="none" stroke="{}" stroke-width="{}" stroke-linejoin="round"{dash}/>"#,
+                        path_data(runs, false),
+                        rgb(*color),
+                        num(*width)
+                    );
+                }
+                Shape::Fill { points, color } => {
+                    let _ = writeln!(
+                        out,
+                        r#"<path d="{}" fill="{}"/>"#,
+                        path_data(std::slice::from_ref(points), true),
+                        rgb(*color)
+                    );
+                }
+                Shape::Dot { center, radius, color, hollow } => {
+                    let (fill, stroke) = if *hollow {
+                        ("white".to_string(), format!(r#" stroke="{}" stroke-width="1""#, rgb(*color)))
+                    } else {
+                        (rgb(*color), String::new())
+                    };
+                    let _ = writeln!(
+                        out,
+                        r#"<circle cx="{}" cy="{}" r="{}" fill="{fill}"{stroke}/>"#,
+                        num(center.0),
+                        num(center.1),
+                        num(*radius)
+                    );
+                }
+                Shape::Text { at, text: label, size, face, anchor, vertical, color } => {
+                    let anchor = match anchor {
+                        Anchor::Start => "start",
+                        Anchor::Middle => "middle",
+                        Anchor::End => "end",
+                    };
+                    let weight = if *face == Face::Bold { r#" font-weight="bold""# } else { "" };
+                    let rotate = if *vertical {
+                        format!(r#" transform="rotate(-90 {} {})""#, num(at.0), num(at.1))
+                    } else {
+                        String::new()
+                    };
+                    let _ = writeln!(
+                        out,
+                        r#"<text x="{}" y="{}" font-size="{}" text-anchor="{anchor}" fill="{}"{weight}{rotate} textLength="{}" lengthAdjust="spacingAndGlyphs">{}</text>"#,
+                        num(at.0),
+                        num(at.1),
+                        num(*size),
+                        rgb(*color),
+                        num(text::width(label, *face, *size)),
+                        esc(label)
+                    );
+                }
+            }
+        }
+        out.push_str("</g>\n");
+    }
+    out.push_str("</svg>\n");
+    out
+}

@@ -1,0 +1,441 @@
+//! The mergeable state of a sweep: what was swept (the setup) and integer counts per regimen.
+//!
+//! A shard writes its state as JSON; `merge` checks that the states share one setup and cover
+//! every slice of the subjects exactly once, and adds their counts. Counts and sketches are
+//! integers, so the merged state is identical to the state of one unsharded run, and so is the
+//! summary made from it. Floating-point values in the state are written as their shortest
+//! round-trip text and read back with Rust's correctly rounded parser, so they survive the
+//! trip exactly.
+
+use super::Outcome;
+use super::sketch::{RELATIVE_ERROR, Sketch};
+use crate::dosing::Route;
+use crate::plan::candidates::Candidate;
+use crate::plan::dose_limits_broken;
+use crate::plan::targets::{Limits, Target};
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+use std::ops::Range;
+
+/// The `format` field of a state file.
+pub const STATE_FORMAT: &str = "cistern sweep state";
+/// The layout version of a state file.
+pub const STATE_VERSION: u32 = 1;
+
+/// f64 as its shortest round-trip text.
+mod exact {
+    use serde::{Deserialize, Deserializer, Serializer, de::Error};
+
+    pub fn serialize<S: Serializer>(x: &f64, s: S) -> Result<S::Ok, S::Error> {
+        s.serialize_str(&crate::io::output::full(*x))
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
+        let text = String::deserialize(d)?;
+        text.parse().map_err(|_| D::Error::custom(format!("expected a number, found '{text}'")))
+    }
+}
+
+/// `Option<f64>` as its shortest round-trip text, or null.
+mod exact_opt {
+    use serde::{Deserialize, Deserializer, Serializer, de::Error};
+
+    pub fn serialize<S: Serializer>(x: &Option<f64>, s: S) -> Result<S::Ok, S::Error> {
+        match x {
+            Some(x) => s.serialize_some(&crate::io::output::full(*x)),
+            None => s.serialize_none(),
+        }
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Option<f64>, D::Error> {
+        Option::<String>::deserialize(d)?
+            .map(|t| t.parse().map_err(|_| D::Error::custom(format!("expected a number, found '{t}'"))))
+            .transpose()
+    }
+}
+
+/// FNV-1a, 64 bits: a stable fingerprint of bytes (not a cryptographic hash).
+pub fn fnv1a64(bytes: &[u8]) -> u64 {
+    bytes.iter().fold(0xcbf2_9ce4_8422_2325, |h, &b| (h ^ u64::from(b)).wrapping_mul(0x0100_0000_01b3))
+}
+
+/// One candidate regimen as swept.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Regimen {
+    /// Amount of each dose (mg).
+    #[serde(with = "exact")]
+    pub amount_mg: f64,
+    /// Dosing interval (h).
+    #[serde(with = "exact")]
+    pub every_h: f64,
+    /// Infusion duration (h); zero otherwise.
+    #[serde(with = "exact")]
+    pub duration_h: f64,
+    /// Route.
+    pub route: Route,
+    /// The dose limits the regimen breaks by itself, as reasons.
+    pub dose_limits_broken: Vec<String>,
+}
+
+/// The safety limits of a sweep, as [`Limits`] with every value kept exactly.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct LimitSet {
+    /// Largest single dose (mg).
+    #[serde(with = "exact_opt")]
+    pub max_dose_mg: Option<f64>,
+    /// Largest total over 24 h (mg).
+    #[serde(with = "exact_opt")]
+    pub max_daily_mg: Option<f64>,
+    /// Fastest infusion (mg/h).
+    #[serde(with = "exact_opt")]
+    pub max_rate_mg_h: Option<f64>,
+    /// Highest acceptable steady-state peak (mg/L).
+    #[serde(with = "exact_opt")]
+    pub max_peak_mg_l: Option<f64>,
+    /// Highest acceptable steady-state trough (mg/L).
+    #[serde(with = "exact_opt")]
+    pub max_trough_mg_l: Option<f64>,
+    /// Shortest dosing interval (h).
+    #[serde(with = "exact_opt")]
+    pub min_every_h: Option<f64>,
+    /// Largest acceptable probability of exceeding an exposure limit.
+    #[serde(with = "exact")]
+    pub max_risk: f64,
+}
+
+/// Everything that determines a sweep's results. Shards merge only when their setups are equal.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Setup {
+    /// The program version that computed the counts.
+    pub cistern_version: String,
+    /// The population: its source files' fingerprints and how covariates were drawn. Text,
+    /// whole numbers and null only (no floats), so that it reads back exactly.
+    pub population: serde_json::Value,
+    /// The seed of every subject's draws.
+    pub seed: u64,
+    /// Subjects in the whole sweep (all shards).
+    pub subjects: u64,
+    /// The targets, as stated.
+    pub targets: Vec<String>,
+    /// The safety limits.
+    pub limits: LimitSet,
+    /// The candidate regimens, in order.
+    pub regimens: Vec<Regimen>,
+    /// Relative error of the percentiles.
+    #[serde(with = "exact")]
+    pub percentile_relative_error: f64,
+}
+
+impl Setup {
+    /// The setup of a sweep; `population` describes the population's source.
+    pub fn new(
+        population: serde_json::Value,
+        seed: u64,
+        subjects: u64,
+        candidates: &[Candidate],
+        targets: &[Target],
+        limits: &Limits,
+    ) -> Setup {
+        Setup {
+            cistern_version: env!("CARGO_PKG_VERSION").to_string(),
+            population,
+            seed,
+            subjects,
+            targets: targets.iter().map(Target::to_string).collect(),
+            limits: LimitSet {
+                max_dose_mg: limits.max_dose_mg,
+                max_daily_mg: limits.max_daily_mg,
+                max_rate_mg_h: limits.max_rate_mg_h,
+                max_peak_mg_l: limits.max_peak_mg_l,
+                max_trough_mg_l: limits.max_trough_mg_l,
+                min_every_h: limits.min_every_h,
+                max_risk: limits.max_risk,
+            },
+            regimens: candidates
+                .iter()
+                .map(|c| Regimen {
+                    amount_mg: c.amount_mg,
+                    every_h: c.every_h,
+                    duration_h: c.duration_h,
+                    route: c.route,
+                    dose_limits_broken: dose_limits_broken(c, None, limits),
+                })
+                .collect(),
+            percentile_relative_error: RELATIVE_ERROR,
+        }
+    }
+
+    /// A short fingerprint of the setup, to tell sweeps apart at a glance.
+    pub fn fingerprint(&self) -> String {
+        format!("{:016x}", fnv1a64(serde_json::to_string(self).unwrap_or_default().as_bytes()))
+    }
+
+    /// The names of the top-level fields in which two setups differ.
+    fn differences(&self, other: &Setup) -> Vec<String> {
+        let as_map = |s: &Setup| -> BTreeMap<String, serde_json::Value> {
+            serde_json::from_value(serde_json::to_value(s).unwrap_or_default()).unwrap_or_default()
+        };
+        let (a, b) = (as_map(self), as_map(other));
+        a.keys().filter(|k| a.get(*k) != b.get(*k)).cloned().collect()
+    }
+}
+
+/// Counts for one regimen over some subjects.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Tally {
+    /// Subjects counted.
+    pub subjects: u64,
+    /// Subjects meeting every target.
+    pub meets: u64,
+    /// Subjects above the peak limit (`None` without a limit).
+    pub over_peak: Option<u64>,
+    /// Subjects above the trough limit (`None` without a limit).
+    pub over_trough: Option<u64>,
+    /// Steady-state troughs (mg/L).
+    pub trough_mg_l: Sketch,
+    /// Steady-state peaks (mg/L).
+    pub peak_mg_l: Sketch,
+    /// Steady-state AUC over 24 h (mg·h/L).
+    pub auc24_mg_h_l: Sketch,
+}
+
+impl Tally {
+    /// An empty tally, counting the exposure limits that are set.
+    pub fn new(limits: &Limits) -> Tally {
+        Tally {
+            over_peak: limits.max_peak_mg_l.map(|_| 0),
+            over_trough: limits.max_trough_mg_l.map(|_| 0),
+            ..Tally::default()
+        }
+    }
+
+    pub(super) fn add(&mut self, o: &Outcome) {
+        self.subjects += 1;
+        self.meets += u64::from(o.meets);
+        if let Some(n) = &mut self.over_peak {
+            *n += u64::from(o.over_peak);
+        }
+        if let Some(n) = &mut self.over_trough {
+            *n += u64::from(o.over_trough);
+        }
+        self.trough_mg_l.add(o.trough_mg_l);
+        self.peak_mg_l.add(o.peak_mg_l);
+        self.auc24_mg_h_l.add(o.auc24_mg_h_l);
+    }
+
+    fn merge(&mut self, other: &Tally) {
+        self.subjects += other.subjects;
+        self.meets += other.meets;
+        self.over_peak = self.over_peak.zip(other.over_peak).map(|(a, b)| a + b);
+        self.over_trough = self.over_trough.zip(other.over_trough).map(|(a, b)| a + b);
+        self.trough_mg_l.merge(&other.trough_mg_l);
+        self.peak_mg_l.merge(&other.peak_mg_l);
+        self.auc24_mg_h_l.merge(&other.auc24_mg_h_l);
+    }
+}
+
+/// The I-th of N contiguous slices of the subjects.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Shard {
+    /// I, from 1.
+    pub index: u64,
+    /// N.
+    pub count: u64,
+}
+
+impl Shard {
+    /// The whole sweep as one shard.
+    pub const WHOLE: Shard = Shard { index: 1, count: 1 };
+
+    /// Parse `I/N` with 1 ≤ I ≤ N.
+    pub fn parse(text: &str) -> Result<Shard, String> {
+        let parsed =
+            text.split_once('/').and_then(|(i, n)| Some((i.trim().parse().ok()?, n.trim().parse().ok()?)));
+        let Some((index, count)) = parsed else {
+            return Err(format!(
+                "expected I/N with whole numbers, e.g. 3/8 (the 3rd of 8 shards), found '{text}'"
+            ));
+        };
+        if count == 0 {
+            return Err(format!("the number of shards N must be at least 1, found '{text}'"));
+        }
+        if !(1..=count).contains(&index) {
+            return Err(format!("the shard I must be between 1 and N = {count}, found '{text}'"));
+        }
+        Ok(Shard { index, count })
+    }
+
+    /// This shard's subjects (0-based, half-open) out of `total`: the slices
+    /// ⌊(I−1)·total/N⌋ .. ⌊I·total/N⌋ are disjoint and cover every subject.
+    pub fn span(&self, total: u64) -> Range<u64> {
+        let edge = |i: u64| (u128::from(i) * u128::from(total) / u128::from(self.count)) as u64;
+        edge(self.index - 1)..edge(self.index)
+    }
+}
+
+/// A sweep's state over one shard of its subjects (the whole sweep for [`Shard::WHOLE`]).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SweepState {
+    /// Always [`STATE_FORMAT`].
+    pub format: String,
+    /// Always [`STATE_VERSION`].
+    pub version: u32,
+    /// [`Setup::fingerprint`].
+    pub fingerprint: String,
+    /// What was swept.
+    pub setup: Setup,
+    /// Which slice of the subjects.
+    pub shard: Shard,
+    /// The slice's subjects, 0-based and half-open: [from, to).
+    pub subjects_from: u64,
+    /// End of the slice (exclusive).
+    pub subjects_to: u64,
+    /// Counts per regimen, in the setup's order.
+    pub tallies: Vec<Tally>,
+}
+
+impl SweepState {
+    /// The state of `shard` of the sweep `setup`, with its counts.
+    pub fn new(setup: Setup, shard: Shard, tallies: Vec<Tally>) -> SweepState {
+        let span = shard.span(setup.subjects);
+        SweepState {
+            format: STATE_FORMAT.to_string(),
+            version: STATE_VERSION,
+            fingerprint: setup.fingerprint(),
+            setup,
+            shard,
+            subjects_from: span.start,
+            subjects_to: span.end,
+            tallies,
+        }
+    }
+
+    /// Read a state from JSON text.
+    pub fn parse(text: &str) -> Result<SweepState, String> {
+        let probe: serde_json::Value =
+            serde_json::from_str(text).map_err(|e| format!("not a sweep state (JSON): {e}"))?;
+        if probe.get("format").and_then(|f| f.as_str()) != Some(STATE_FORMAT) {
+            return Err(format!("not a sweep state: expected \"format\": \"{STATE_FORMAT}\""));
+        }
+        if probe.get("version").and_then(|v| v.as_u64()) != Some(u64::from(STATE_VERSION)) {
+            return Err(format!(
+                "a sweep state of another version; this program reads version {STATE_VERSION}"
+            ));
+        }
+        let state: SweepState =
+            serde_json::from_value(probe).map_err(|e| format!("a damaged sweep state: {e}"))?;
+        let consistent = state.fingerprint == state.setup.fingerprint()
+            && state.tallies.len() == state.setup.regimens.len()
+            && state.shard.index >= 1
+            && state.shard.index <= state.shard.count
+            && state.shard.span(state.setup.subjects) == (state.subjects_from..state.subjects_to)
+            && state.tallies.iter().all(|t| t.subjects == state.subjects_to - state.subjects_from);
+        if !consistent {
+            return Err("a damaged sweep state: its counts, slice and setup do not agree".into());
+        }
+        Ok(state)
+    }
+}
+
+/// Merges shard states one at a time (so memory holds one state, not all), refusing states of
+/// different setups and shards given twice; [`Merger::finish`] refuses missing shards.
+#[derive(Debug, Default)]
+pub struct Merger {
+    merged: Option<(String, SweepState)>,
+    seen: BTreeMap<u64, String>,
+}
+
+impl Merger {
+    /// Add the state read from `name`.
+    pub fn add(&mut self, name: &str, state: SweepState) -> Result<(), String> {
+        let Some((first_name, merged)) = &mut self.merged else {
+            self.seen.insert(state.shard.index, name.to_string());
+            self.merged = Some((name.to_string(), state));
+            return Ok(());
+        };
+        if state.fingerprint != merged.fingerprint || state.setup != merged.setup {
+            return Err(format!(
+                "{name} is a shard of another sweep than {first_name} (they differ in: {}); merge \
+                 only the shards of one sweep",
+                state.setup.differences(&merged.setup).join(", ")
+            ));
+        }
+        let count = merged.shard.count;
+        if state.shard.count != count {
+            return Err(format!(
+                "{name} is shard {}/{} but {first_name} is shard {}/{count}: the shards must split \
+                 the sweep the same way",
+                state.shard.index, state.shard.count, merged.shard.index
+            ));
+        }
+        if let Some(other) = self.seen.insert(state.shard.index, name.to_string()) {
+            return Err(format!("shard {}/{count} is given twice: {other} and {name}", state.shard.index));
+        }
+        merged.tallies.iter_mut().zip(&state.tallies).for_each(|(t, o)| t.merge(o));
+        Ok(())
+    }
+
+    /// The state of the whole sweep, once every shard is in.
+    pub fn finish(self) -> Result<SweepState, String> {
+        let Some((_, merged)) = self.merged else {
+            return Err("no shard states to merge".into());
+        };
+        let count = merged.shard.count;
+        let missing: Vec<String> =
+            (1..=count).filter(|i| !self.seen.contains_key(i)).map(|i| format!("{i}/{count}")).collect();
+        if !missing.is_empty() {
+            return Err(format!(
+                "shards missing: {} (each of the {count} shards is needed once)",
+                missing.join(", ")
+            ));
+        }
+        Ok(SweepState::new(merged.setup, Shard::WHOLE, merged.tallies))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::plan::candidates::{Durations, grid};
+    use crate::plan::targets::parse_target;
+
+    #[test]
+    fn shard_slices_are_disjoint_and_cover_every_subject() {
+        for total in [0, 1, 7, 1001, 1 << 40] {
+            for count in [1, 2, 3, 8, 13] {
+                let mut next = 0;
+                for index in 1..=count {
+                    let span = Shard { index, count }.span(total);
+                    assert_eq!(span.start, next, "{index}/{count} of {total}");
+                    next = span.end;
+                }
+                assert_eq!(next, total);
+            }
+        }
+        assert_eq!(Shard::parse(" 3/8 ").unwrap(), Shard { index: 3, count: 8 });
+        for bad in ["5/4", "0/4", "1/0", "a/b", "3", "-1/4", "1/4/2"] {
+            assert!(Shard::parse(bad).is_err(), "{bad}");
+        }
+    }
+
+    #[test]
+    fn a_state_reads_back_exactly_even_with_awkward_numbers() {
+        // Values whose shortest decimal text has 17 digits.
+        let third = 100.0 / 3.0;
+        let candidates =
+            grid(&[third, 2.0 * third], &[0.1 + 0.2], Route::Bolus, &Durations::Fixed(vec![])).unwrap();
+        let limits = Limits { max_peak_mg_l: Some(third), max_risk: 0.07, ..Limits::default() };
+        let targets = [parse_target("auc24=0.30000000000000004..").unwrap()];
+        let setup = Setup::new(serde_json::json!({"model": "00ff"}), 7, 10, &candidates, &targets, &limits);
+        let mut tally = Tally::new(&limits);
+        tally.subjects = 10;
+        tally.trough_mg_l.add(third);
+        let state = SweepState::new(setup, Shard { index: 1, count: 1 }, vec![tally.clone(), tally]);
+        let text = serde_json::to_string(&state).unwrap();
+        let back = SweepState::parse(&text).unwrap();
+        assert_eq!(back, state);
+        assert_eq!(serde_json::to_string(&back).unwrap(), text);
+        let damaged = text.replace("\"seed\":7", "\"seed\":8");
+        assert!(SweepState::parse(&damaged).unwrap_err().contains("damaged"));
+    }
+}
