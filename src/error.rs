@@ -39,10 +39,12 @@ impl InputError {
 impl fmt::Display for InputError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         write!(f, "{}", self.source)?;
+        // A TOML file's locations are keys; a CSV file's are columns.
+        let what = if self.source.ends_with(".toml") { "key" } else { "column" };
         match (&self.line, &self.column) {
-            (Some(l), Some(c)) => write!(f, ": line {l}, column {c}")?,
+            (Some(l), Some(c)) => write!(f, ": line {l}, {what} {c}")?,
             (Some(l), None) => write!(f, ": line {l}")?,
-            (None, Some(c)) => write!(f, ": column {c}")?,
+            (None, Some(c)) => write!(f, ": {what} {c}")?,
             (None, None) => {}
         }
         write!(f, ": {}", self.message)

@@ -5,13 +5,15 @@
 //! Without poppler the poppler checks are skipped with a message, unless
 //! `CISTERN_REQUIRE_POPPLER=1`, which makes them mandatory (CI sets it).
 
+mod common;
+
 use cistern::io::output::CAUTION;
 use cistern::report::layout::{
     Band, BarChart, Block, Document, HLine, Marker, PlotSpec, Series, Stroke, Table,
 };
 use cistern::report::pdf::render_pdf;
 use cistern::report::svg::render_svg;
-use std::path::Path;
+use common::{count_pixels, decode_png, find, page_texts, poppler_available, render_pages, squeeze, words};
 use std::process::Command;
 
 const FOOTER: &str = "cistern 0.1.0 · created 2025-03-01T14:05:09Z";
@@ -148,17 +150,6 @@ fn document() -> Document {
     }
 }
 
-/// Whitespace removed, so that text wrapped over lines still matches.
-fn squeeze(s: &str) -> String {
-    s.chars().filter(|c| !c.is_whitespace()).collect()
-}
-
-fn page_texts(pdf: &[u8]) -> Vec<String> {
-    let doc = lopdf::Document::load_mem(pdf).expect("lopdf parses the PDF");
-    let n = doc.get_pages().len() as u32;
-    (1..=n).map(|p| doc.extract_text(&[p]).expect("text of a page")).collect()
-}
-
 #[test]
 fn pdf_structure_and_text() {
     let doc = document();
@@ -236,94 +227,6 @@ fn rejects_malformed_content() {
     assert!(render_pdf(&doc).unwrap_err().contains("creation time"));
 }
 
-/// Whether the poppler tools are here; without them the caller skips, unless they are
-/// required.
-fn poppler_available() -> bool {
-    let found = ["pdfinfo", "pdftoppm", "pdftotext"]
-        .iter()
-        .all(|tool| Command::new(tool).arg("-v").output().is_ok_and(|o| o.status.success()));
-    if !found {
-        assert!(
-            std::env::var("CISTERN_REQUIRE_POPPLER").as_deref() != Ok("1"),
-            "CISTERN_REQUIRE_POPPLER=1 but pdfinfo, pdftoppm or pdftotext (poppler-utils) is missing"
-        );
-        eprintln!("skipped: the poppler checks need pdfinfo, pdftoppm and pdftotext (Debian: poppler-utils)");
-    }
-    found
-}
-
-/// A word's box on a page, in points from the top-left: (xmin, ymin, xmax, ymax, word).
-type Word = (f64, f64, f64, f64, String);
-
-fn words(pdf: &Path, page: usize) -> Vec<Word> {
-    let p = page.to_string();
-    let out =
-        Command::new("pdftotext").args(["-bbox", "-f", &p, "-l", &p]).arg(pdf).arg("-").output().unwrap();
-    assert!(out.status.success());
-    let html = String::from_utf8_lossy(&out.stdout).into_owned();
-    let attr = |tag: &str, name: &str| -> f64 {
-        let at = tag.find(&format!("{name}=\"")).unwrap() + name.len() + 2;
-        tag[at..].split('"').next().unwrap().parse().unwrap()
-    };
-    html.split("<word ")
-        .skip(1)
-        .map(|chunk| {
-            let (tag, rest) = chunk.split_once('>').unwrap();
-            let word = rest.split("</word>").next().unwrap().to_string();
-            (attr(tag, "xMin"), attr(tag, "yMin"), attr(tag, "xMax"), attr(tag, "yMax"), word)
-        })
-        .collect()
-}
-
-/// The box of the first line whose words are `phrase`.
-fn find(words: &[Word], phrase: &str) -> Option<(f64, f64, f64, f64)> {
-    let want: Vec<&str> = phrase.split_whitespace().collect();
-    words.windows(want.len()).find(|w| w.iter().zip(&want).all(|(a, b)| a.4 == *b)).map(|w| {
-        (
-            w[0].0,
-            w.iter().map(|x| x.1).fold(f64::MAX, f64::min),
-            w[w.len() - 1].2,
-            w.iter().map(|x| x.3).fold(0.0, f64::max),
-        )
-    })
-}
-
-struct Image {
-    width: usize,
-    height: usize,
-    rgb: Vec<u8>,
-}
-
-fn decode_png(path: &Path) -> Image {
-    let decoder = png::Decoder::new(std::fs::File::open(path).unwrap());
-    let mut reader = decoder.read_info().unwrap();
-    let mut buf = vec![0; reader.output_buffer_size()];
-    let info = reader.next_frame(&mut buf).unwrap();
-    assert_eq!((info.color_type, info.bit_depth), (png::ColorType::Rgb, png::BitDepth::Eight));
-    buf.truncate(info.buffer_size());
-    Image { width: info.width as usize, height: info.height as usize, rgb: buf }
-}
-
-/// Pixels in a rectangle (in points, at `dpi`) that are coloured (not white, grey or black)
-/// and that are not white.
-fn count_pixels(img: &Image, (x0, y0, x1, y1): (f64, f64, f64, f64), dpi: f64) -> (usize, usize) {
-    let px = |v: f64| (v * dpi / 72.0).round() as usize;
-    let (mut coloured, mut inked) = (0, 0);
-    for y in px(y0)..px(y1).min(img.height) {
-        for x in px(x0)..px(x1).min(img.width) {
-            let i = 3 * (y * img.width + x);
-            let (r, g, b) = (img.rgb[i], img.rgb[i + 1], img.rgb[i + 2]);
-            if r.max(g).max(b) - r.min(g).min(b) > 24 {
-                coloured += 1;
-            }
-            if r.min(g).min(b) < 235 {
-                inked += 1;
-            }
-        }
-    }
-    (coloured, inked)
-}
-
 #[test]
 fn poppler_opens_the_pdf_and_plots_are_drawn() {
     if !poppler_available() {
@@ -342,16 +245,7 @@ fn poppler_opens_the_pdf_and_plots_are_drawn() {
     let created = info.lines().find(|l| l.starts_with("CreationDate:")).unwrap_or_default();
     assert!(created.contains("2025"), "creation date not set: {created}");
 
-    let prefix = dir.path().join("page");
-    let status =
-        Command::new("pdftoppm").args(["-r", "50", "-png"]).arg(&path).arg(&prefix).status().unwrap();
-    assert!(status.success());
-    let mut pngs: Vec<_> = std::fs::read_dir(dir.path())
-        .unwrap()
-        .map(|e| e.unwrap().path())
-        .filter(|p| p.extension().is_some_and(|e| e == "png"))
-        .collect();
-    pngs.sort();
+    let pngs = render_pages(&path, dir.path(), 50);
     assert_eq!(pngs.len(), m);
 
     // Both plot panels on page 2: between a panel's title and its x-axis label lies the data
@@ -400,7 +294,7 @@ fn poppler_opens_the_pdf_and_plots_are_drawn() {
 #[test]
 fn svg_is_well_formed_with_labels_and_one_path_per_series() {
     let panels = [panel(false), panel(true)];
-    let svg = render_svg(&panels);
+    let svg = render_svg(&panels, "Not clinical advice: a test caution.");
     // Balanced tags: every opened element is closed, in order.
     let mut stack: Vec<String> = Vec::new();
     for chunk in svg.split('<').skip(1) {

@@ -71,11 +71,11 @@ struct FitJson<'a> {
 
 /// Run the command.
 pub fn run(args: FitArgs) -> Result<(), Error> {
+    let (study_args, case) = args.study.with_case()?;
     let mut problems = Problems::new();
     let ka = args.ka.as_ref().and_then(|t| problems.take(flag_value("--ka", Kind::RateConstant, t)));
     let f = problems.take(flag_number("--f", &args.f));
     let tlag = problems.take(flag_value("--tlag", Kind::Time, &args.tlag));
-    let (study_args, case) = args.study.with_case(&mut problems);
     let study = study_args.load(&mut problems);
     problems.finish()?;
     let (Some(Study { model, subjects, notes }), Some(f), Some(tlag)) = (study, f, tlag) else {

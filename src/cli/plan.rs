@@ -173,8 +173,9 @@ fn posterior(args: &PlanArgs, r: &Resolved, problems: &mut Problems) -> Result<O
     }
     let Some(study) = r.study.load(problems) else { return Ok(None) };
     let Some(model) = &study.model else {
-        problems.push(InputError::new(
+        problems.push(r.study.missing(
             "--model",
+            "inputs.model",
             "planning needs the population model (or a saved fit with --fit)",
         ));
         return Ok(None);
@@ -211,18 +212,14 @@ fn posterior(args: &PlanArgs, r: &Resolved, problems: &mut Problems) -> Result<O
 /// Run the command.
 pub fn run(args: PlanArgs) -> Result<(), Error> {
     let mut problems = Problems::new();
-    let (study, case) = args.study.with_case(&mut problems);
+    let (study, case) = args.study.with_case()?;
     let resolved = Resolved {
         study,
         subject: args.subject.clone().or_else(|| case.as_ref().and_then(|c| c.subject.clone())),
         seed: args.seed.or(case.as_ref().and_then(|c| c.seed)).unwrap_or(1),
         draws: args.draws.or(case.as_ref().and_then(|c| c.draws)).unwrap_or(2000),
     };
-    let grid_args = match &case {
-        Some(c) => args.grid.or_case(&c.grid),
-        None => args.grid.clone(),
-    };
-    let grid = match grid_args.grid() {
+    let grid = match args.grid.grid_or_case(case.as_ref()) {
         Ok(g) => Some(g),
         Err(Error::Input(errors)) => {
             errors.into_iter().for_each(|e| problems.push(e));

@@ -2,7 +2,7 @@
 //! commands that compare regimens (`sweep`, `plan`).
 
 use super::args::{Problems, flag_number, flag_value};
-use cistern::case::GridText;
+use cistern::case::{Case, GridText};
 use cistern::dosing::Route;
 use cistern::plan::candidates::{Candidate, Durations, grid, parse_amounts, positive_list};
 use cistern::plan::targets::{Limits, Target, parse_target};
@@ -15,7 +15,7 @@ const DERIVED_MIN_H: f64 = 1.0;
 const DERIVED_STEP_H: f64 = 0.5;
 
 /// Targets, limits and the candidate grid.
-#[derive(Args, Debug, Clone)]
+#[derive(Args, Debug, Clone, Default)]
 pub struct GridArgs {
     /// A target METRIC=LO..HI (either bound may be left out), repeatable: auc24, auc_day<N>,
     /// trough, peak, cavg, or above=C..@P% (at least P % of the interval above C), e.g.
@@ -158,9 +158,74 @@ impl GridArgs {
     }
 }
 
+/// The case-file key behind a grid flag (or behind `limits`, the limits taken together).
+fn case_key(flag: &str) -> Option<&'static str> {
+    Some(match flag {
+        "--target" => "plan.targets",
+        "--amounts" => "plan.amounts",
+        "--every" => "plan.every",
+        "--route" => "plan.route",
+        "--durations" => "plan.durations",
+        "--max-dose" => "limits.max_dose",
+        "--max-daily" => "limits.max_daily",
+        "--max-rate" => "limits.max_rate",
+        "--max-peak" => "limits.max_peak",
+        "--max-trough" => "limits.max_trough",
+        "--min-every" => "limits.min_every",
+        "--max-risk" => "limits.max_risk",
+        "limits" => "limits",
+        _ => return None,
+    })
+}
+
 impl GridArgs {
+    /// The candidates, targets and limits of these flags with the case (if any) filling in
+    /// those left out. A problem with a value that came from the case names the case file
+    /// and its key, not a flag that was never given.
+    pub fn grid_or_case(&self, case: Option<&Case>) -> Result<(Vec<Candidate>, Vec<Target>, Limits), Error> {
+        let Some(case) = case else { return self.grid() };
+        self.or_case(&case.grid).grid().map_err(|e| match e {
+            Error::Input(errors) => Error::Input(
+                errors
+                    .into_iter()
+                    .map(|mut e| {
+                        if let Some(key) = case_key(&e.source).filter(|_| !self.given(&e.source)) {
+                            e.source = case.path.to_string_lossy().into_owned();
+                            e.column = Some(key.to_string());
+                        }
+                        e
+                    })
+                    .collect(),
+            ),
+            other => other,
+        })
+    }
+
+    /// Whether the value a problem is reported against (a flag, or `limits`) was given on
+    /// the command line.
+    fn given(&self, source: &str) -> bool {
+        let limits = [
+            ("--max-dose", &self.max_dose),
+            ("--max-daily", &self.max_daily),
+            ("--max-rate", &self.max_rate),
+            ("--max-peak", &self.max_peak),
+            ("--max-trough", &self.max_trough),
+            ("--min-every", &self.min_every),
+            ("--max-risk", &self.max_risk),
+        ];
+        match source {
+            "--target" => !self.targets.is_empty(),
+            "--amounts" => self.amounts.is_some(),
+            "--every" => self.every.is_some(),
+            "--route" => self.route.is_some(),
+            "--durations" => self.durations.is_some(),
+            "limits" => limits.iter().any(|(_, v)| v.is_some()),
+            flag => limits.iter().find(|(f, _)| *f == flag).is_none_or(|(_, v)| v.is_some()),
+        }
+    }
+
     /// The grid, targets and limits of a case file, as the flags they stand for.
-    pub fn from_case(g: &GridText) -> GridArgs {
+    fn from_case(g: &GridText) -> GridArgs {
         GridArgs {
             targets: g.targets.clone(),
             amounts: g.amounts.clone(),
@@ -178,7 +243,7 @@ impl GridArgs {
     }
 
     /// These flags, with the case filling in those left out.
-    pub fn or_case(&self, g: &GridText) -> GridArgs {
+    fn or_case(&self, g: &GridText) -> GridArgs {
         let case = GridArgs::from_case(g);
         GridArgs {
             targets: if self.targets.is_empty() { case.targets } else { self.targets.clone() },

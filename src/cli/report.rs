@@ -153,7 +153,8 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
                 .in_column("inputs.levels"),
         );
     }
-    let loaded = study.load(&mut problems);
+    // Without levels there is nothing to load (and that is already reported).
+    let loaded = if case.levels.is_some() { study.load(&mut problems) } else { None };
     let start = args
         .start
         .as_ref()
@@ -184,7 +185,8 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
     };
     let seed = args.seed.or(case.seed).unwrap_or(1);
     let draws = args.draws.or(case.draws).unwrap_or(2000) as usize;
-    let (candidates, targets, limits) = GridArgs::from_case(&case.grid).grid()?;
+    // The report has no grid flags: all of it comes from the case.
+    let (candidates, targets, limits) = GridArgs::default().grid_or_case(Some(&case))?;
     let options = FitOptions {
         method: Method::Map,
         intervals: Intervals::Posterior,
@@ -267,7 +269,7 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
     pdf_sink.writer().write_all(&bytes).map_err(cistern::io::output::io_failure)?;
     if let Some(mut sink) = svg_sink {
         sink.writer()
-            .write_all(svg::render_svg(&concentration_plots(&analysis)).as_bytes())
+            .write_all(svg::render_svg(&concentration_plots(&analysis), CAUTION).as_bytes())
             .map_err(cistern::io::output::io_failure)?;
         sink.finish()?;
     }

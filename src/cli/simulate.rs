@@ -1,10 +1,14 @@
 //! `cistern simulate`: concentrations over a dose history at requested times, and the exact AUC.
 
 use super::args::{OutputArgs, ParamArgs, Problems, RegimenArgs, flag_value, invalid_flag};
+use cistern::dosing::Dose;
 use cistern::engine;
 use cistern::io::doses::{DoseFile, parse_doses};
+use cistern::io::output::Sink;
 use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
 use cistern::io::table::Table;
+use cistern::report::layout::{PlotSpec, Series, Stroke};
+use cistern::report::svg;
 use cistern::units::Kind;
 use cistern::{Error, InputError};
 use clap::Args;
@@ -43,6 +47,9 @@ pub struct SimulateArgs {
     /// Explicit times, comma-separated, e.g. 0.5,1,2h,90min
     #[arg(long, value_name = "LIST", value_delimiter = ',', allow_hyphen_values = true)]
     at: Vec<String>,
+    /// Also write the concentration curves as an SVG plot (linear and logarithmic panels)
+    #[arg(long, value_name = "FILE.svg")]
+    svg: Option<String>,
     #[command(flatten)]
     output: OutputArgs,
 }
@@ -165,6 +172,11 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
     let format = args.output.format();
     let inputs: Vec<&str> = args.doses.iter().map(String::as_str).collect();
     let mut sink = args.output.sink(&inputs)?;
+    // The plot's file is opened before anything is written, so a bad path fails first.
+    let svg_sink = match &args.svg {
+        Some(path) => Some(Sink::open(Some(path), &inputs)?),
+        None => None,
+    };
     let out = sink.writer();
     let with_subject = subjects.iter().any(|(s, _)| s.is_some());
     match format {
@@ -230,7 +242,64 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
         }
     }
     args.output.caution_for_csv(format);
+    if let Some(mut plot) = svg_sink {
+        let panels = curve_plots(&subjects, &times, &curves);
+        plot.writer().write_all(svg::render_svg(&panels, CAUTION).as_bytes()).map_err(io_failure)?;
+        plot.finish()?;
+    }
     sink.finish()
+}
+
+/// The simulated curves as plot panels, linear and logarithmic, one line per subject.
+fn curve_plots(
+    subjects: &[(Option<String>, Vec<Dose>)],
+    times: &[f64],
+    curves: &[(Vec<f64>, f64)],
+) -> Vec<PlotSpec> {
+    const COLORS: [(f32, f32, f32); 6] = [
+        (0.12, 0.35, 0.65),
+        (0.80, 0.40, 0.10),
+        (0.20, 0.55, 0.25),
+        (0.55, 0.25, 0.60),
+        (0.65, 0.15, 0.15),
+        (0.3, 0.3, 0.3),
+    ];
+    let series: Vec<Series> = subjects
+        .iter()
+        .zip(curves)
+        .enumerate()
+        .map(|(i, ((who, _), (conc, _)))| Series {
+            label: who.clone().unwrap_or_else(|| "concentration".into()),
+            xs: times.to_vec(),
+            ys: conc.clone(),
+            stroke: Stroke::Solid,
+            color: COLORS[i % COLORS.len()],
+        })
+        .collect();
+    let mut doses: Vec<f64> = subjects.iter().flat_map(|(_, d)| d.iter().map(|d| d.time_h)).collect();
+    doses.sort_by(f64::total_cmp);
+    doses.dedup();
+    [false, true]
+        .into_iter()
+        .map(|log_y| PlotSpec {
+            title: if log_y {
+                "Concentration, logarithmic scale".into()
+            } else {
+                "Concentration, linear scale".into()
+            },
+            x_label: "time (h)".into(),
+            y_label: "concentration (mg/L)".into(),
+            log_y,
+            bands: Vec::new(),
+            target: None,
+            series: series.clone(),
+            hlines: Vec::new(),
+            markers: Vec::new(),
+            markers_label: String::new(),
+            doses: doses.clone(),
+            start_x: None,
+        })
+        .collect()
 }
 
 /// Quote a CSV field when it needs it.

@@ -2,7 +2,6 @@
 //! matched by subject. Shared by `fit` and `plan`.
 
 use super::args::{Problems, flag_number};
-use cistern::InputError;
 use cistern::case::Case;
 use cistern::covariates::{Covariates, Sex, parse_covariates};
 use cistern::fit::SubjectData;
@@ -10,6 +9,7 @@ use cistern::io::doses::parse_doses;
 use cistern::io::levels::parse_levels;
 use cistern::io::table::Table;
 use cistern::model::PopulationModel;
+use cistern::{Error, InputError};
 use clap::Args;
 use std::collections::HashMap;
 
@@ -62,10 +62,11 @@ impl StudyArgs {
     }
 
     /// These arguments with the files of the case file (if any) filled in where no flag gave
-    /// one, and the case itself.
-    pub fn with_case(&self, problems: &mut Problems) -> (StudyArgs, Option<Case>) {
-        let Some(path) = &self.case else { return (self.clone(), None) };
-        let Some(case) = take_all(problems, Case::read(path)) else { return (self.clone(), None) };
+    /// one, and the case itself. A case that cannot be read ends the run with its problems:
+    /// without it, whatever it would have supplied would be reported missing.
+    pub fn with_case(&self) -> Result<(StudyArgs, Option<Case>), Error> {
+        let Some(path) = &self.case else { return Ok((self.clone(), None)) };
+        let case = Case::read(path).map_err(Error::Input)?;
         let text = |p: &Option<std::path::PathBuf>| p.as_ref().map(|p| p.to_string_lossy().into_owned());
         let merged = StudyArgs {
             case: self.case.clone(),
@@ -75,7 +76,19 @@ impl StudyArgs {
             covariates: self.covariates.clone().or_else(|| text(&case.covariates)),
             covariate: self.covariate.clone(),
         };
-        (merged, Some(case))
+        Ok((merged, Some(case)))
+    }
+
+    /// An input the run needs and nobody gave: with a case, named as the case's key (its
+    /// files stand in for the flags), else as the flag.
+    pub fn missing(&self, flag: &str, key: &str, message: &str) -> InputError {
+        match &self.case {
+            Some(case) => {
+                InputError::new(case, format!("{message}; the case names none: add {key}, or give {flag}"))
+                    .in_column(key)
+            }
+            None => InputError::new(flag, message),
+        }
     }
 
     /// Read the model and the subjects' data, recording every problem.
@@ -88,8 +101,11 @@ impl StudyArgs {
             return None;
         }
         if self.levels.is_none() {
-            problems
-                .push(InputError::new("--levels", "the levels file is required, e.g. --levels levels.csv"));
+            problems.push(self.missing(
+                "--levels",
+                "inputs.levels",
+                "the levels file is required, e.g. --levels levels.csv",
+            ));
         }
         let model = self.model.as_ref().and_then(|path| take_all(problems, PopulationModel::read(path)));
         let (subjects, notes) = assemble(self, model.as_ref(), problems)?;

@@ -96,7 +96,8 @@ pub struct SweepArgs {
 }
 
 impl SweepArgs {
-    /// These flags with the case file filling in those left out.
+    /// These flags with the case file filling in those left out (the grid aside: see
+    /// [`GridArgs::grid_or_case`]).
     fn with_case(self, case: &Case) -> SweepArgs {
         let text = |p: &Option<std::path::PathBuf>| p.as_ref().map(|p| p.to_string_lossy().into_owned());
         let pool = case.sweep.as_ref().and_then(|s| text(&s.covariates));
@@ -105,7 +106,6 @@ impl SweepArgs {
             covariates: self.covariates.clone().or(if self.draws.is_empty() { pool } else { None }),
             subjects: self.subjects.or(case.sweep.as_ref().map(|s| s.subjects)),
             seed: self.seed.or(case.seed),
-            grid: self.grid.or_case(&case.grid),
             ..self
         }
     }
@@ -146,7 +146,19 @@ fn population(
         let n = rows.len() as u64;
         return Ok(Some((Population::from_params(rows), n, described)));
     }
-    let Some(path) = &args.model else { return Ok(None) };
+    let Some(path) = &args.model else {
+        // The flags require --model or --params; only a case can leave both out.
+        if let Some(case) = &args.case {
+            problems.push(
+                InputError::new(
+                    case,
+                    "a sweep draws its subjects from a population model: add inputs.model, or give --model",
+                )
+                .in_column("inputs.model"),
+            );
+        }
+        return Ok(None);
+    };
     let model = take_all(problems, PopulationModel::read(path));
     let subjects = match args.subjects {
         Some(0) => {
@@ -200,16 +212,15 @@ fn population(
 
 /// Run the command.
 pub fn run(args: SweepArgs) -> Result<(), Error> {
-    let args = match &args.case {
-        Some(path) => {
-            let case = Case::read(path).map_err(Error::Input)?;
-            args.with_case(&case)
-        }
+    let case = args.case.as_deref().map(Case::read).transpose().map_err(Error::Input)?;
+    let grid = args.grid.grid_or_case(case.as_ref());
+    let args = match &case {
+        Some(case) => args.with_case(case),
         None => args,
     };
     let seed = args.seed.unwrap_or(1);
     let mut problems = Problems::new();
-    let grid = match args.grid.grid() {
+    let grid = match grid {
         Ok(g) => Some(g),
         Err(Error::Input(errors)) => {
             errors.into_iter().for_each(|e| problems.push(e));

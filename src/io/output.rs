@@ -47,7 +47,9 @@ pub fn readable(x: f64, digits: usize) -> String {
     if x == 0.0 {
         return "0".into();
     }
-    let magnitude = x.abs().log10().floor() as i32;
+    // The magnitude after rounding to `digits` significant digits (99.96 rounds to 100).
+    let rounded: f64 = format!("{:.*e}", digits.saturating_sub(1), x).parse().unwrap_or(x);
+    let magnitude = rounded.abs().log10().floor() as i32;
     if !(-4..=9).contains(&magnitude) {
         return format!("{:.*e}", digits.saturating_sub(1), x);
     }
@@ -175,5 +177,7 @@ mod tests {
         assert_eq!(readable(0.0123456, 3), "0.0123");
         assert_eq!(readable(1234.56, 3), "1235");
         assert_eq!(readable(2.5e-7, 3), "2.50e-7");
+        assert_eq!(readable(99.96, 3), "100");
+        assert_eq!(readable(0.099996, 3), "0.100");
     }
 }

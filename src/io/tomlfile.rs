@@ -38,11 +38,21 @@ impl TomlText {
 
     /// Deserialize, turning syntax errors, unknown keys and wrong types into a located error.
     pub fn parse<T: DeserializeOwned>(&self) -> Result<T, InputError> {
-        toml::from_str(&self.text).map_err(|e| {
+        toml::from_str(&self.text).map_err(|mut e| {
             let message = e.message().trim().replace('\n', "; ");
-            let err = InputError::new(&self.source, message);
-            match e.span() {
-                Some(span) => err.at_line(self.line_of(span.start)),
+            let mut err = InputError::new(&self.source, message);
+            if let Some(span) = e.span() {
+                err = err.at_line(self.line_of(span.start));
+            }
+            // The key a wrong value or an unknown field sits under: toml shows it (as
+            // "in `a.b`") only when the error carries no input text.
+            e.set_input(None);
+            let key = e
+                .to_string()
+                .lines()
+                .find_map(|l| Some(l.strip_prefix("in `")?.strip_suffix('`')?.to_string()));
+            match key {
+                Some(key) => err.in_column(key),
                 None => err,
             }
         })

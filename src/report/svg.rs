@@ -40,9 +40,16 @@ fn path_data(runs: &[Vec<(f64, f64)>], close: bool) -> String {
     d
 }
 
-/// Renders the panels as one SVG document.
-pub fn render_svg(panels: &[PlotSpec]) -> String {
-    let height = PANEL_H * panels.len() as f64;
+/// Size and line height of the caution under the panels.
+const CAUTION_SIZE: f64 = 7.0;
+const CAUTION_LINE: f64 = 9.0;
+
+/// Renders the panels as one SVG document, with `caution` in small print under them (the
+/// figure may travel without the report around it).
+pub fn render_svg(panels: &[PlotSpec], caution: &str) -> String {
+    let caution_lines = text::wrap(caution, Face::Regular, CAUTION_SIZE, PANEL_W - 8.0);
+    let panels_h = PANEL_H * panels.len() as f64;
+    let height = panels_h + CAUTION_LINE * caution_lines.len() as f64 + 6.0;
     let mut out = String::new();
     let _ = writeln!(
         out,
@@ -121,6 +128,16 @@ pub fn render_svg(panels: &[PlotSpec]) -> String {
             }
         }
         out.push_str("</g>\n");
+    }
+    for (i, line) in caution_lines.iter().enumerate() {
+        let _ = writeln!(
+            out,
+            r#"<text x="4" y="{}" font-size="{}" fill="{}">{}</text>"#,
+            num(panels_h + 4.0 + CAUTION_LINE * (i as f64 + 0.8)),
+            num(CAUTION_SIZE),
+            rgb((0.45, 0.1, 0.1)),
+            esc(line)
+        );
     }
     out.push_str("</svg>\n");
     out

@@ -1,0 +1,297 @@
+//! `cistern report` on the demo case (`demo-regimens/p01.toml`, an invented scenario), run as a
+//! real process in a copy of `demo-regimens/`, and the PDF checked with tools that share no code
+//! with the writer: lopdf (page count and text), poppler's `pdfinfo` (opens without errors),
+//! `pdftotext -bbox` and `pdftoppm` (the pages and the plots are drawn, not blank).
+//!
+//! The report's numbers are compared with the JSON of `cistern plan --case` and
+//! `cistern sweep --case` for the same case and seed, as printed text: each expected string is
+//! formatted here from the JSON numbers by the report's stated rule (3 significant digits for
+//! exposures, one decimal for percentages), so a report that rounds, swaps or mislabels a
+//! number does not pass.
+//!
+//! Without poppler the poppler checks are skipped with a message, unless
+//! `CISTERN_REQUIRE_POPPLER=1`, which makes them mandatory (CI sets it).
+
+mod common;
+
+use common::{
+    Ran, cistern_at, count_pixels, decode_png, demo_copy, find, find_all, page_texts, poppler_available,
+    render_pages, squeeze, words,
+};
+use serde_json::Value;
+use sha2::{Digest, Sha256};
+use std::path::Path;
+use std::process::Command;
+
+/// The fixed creation time: 1740837909 s after the epoch is 2025-03-01T14:05:09Z (an exact
+/// calendar identity; `date -u -d @1740837909` prints the same).
+const EPOCH: &str = "1740837909";
+const CREATED: &str = "2025-03-01T14:05:09Z";
+/// A4 width in points (210 mm).
+const PAGE_W: f64 = 595.276;
+
+fn run(dir: &Path, args: &[&str]) -> Ran {
+    let ran = cistern_at(dir, args, EPOCH);
+    assert_eq!(ran.code, 0, "cistern {args:?} failed:\n{}", ran.stderr);
+    ran
+}
+
+/// The demo's report, written in a fresh copy of the demo directory.
+fn report(extra: &[&str]) -> (tempfile::TempDir, Vec<u8>) {
+    let dir = demo_copy();
+    let mut args = vec!["report", "p01.toml", "-o", "out.pdf"];
+    args.extend_from_slice(extra);
+    run(dir.path(), &args);
+    let pdf = std::fs::read(dir.path().join("out.pdf")).expect("the report was written");
+    (dir, pdf)
+}
+
+fn json(dir: &Path, args: &[&str]) -> Value {
+    serde_json::from_str(&run(dir, args).stdout).expect("JSON on stdout")
+}
+
+fn num(v: &Value) -> f64 {
+    v.as_f64().unwrap_or_else(|| panic!("not a number: {v}"))
+}
+
+/// `x` with `digits` significant digits in fixed notation, never dropping digits of the integer
+/// part (1234.56 to 3 digits is 1235): the report's stated format for measured quantities.
+/// The decimals come from the exponent of the rounded scientific form.
+fn sig(x: f64, digits: usize) -> String {
+    let sci = format!("{:.*e}", digits - 1, x);
+    let exponent: i32 = sci.rsplit('e').next().unwrap().parse().unwrap();
+    let decimals = (digits as i32 - 1 - exponent).max(0) as usize;
+    format!("{x:.decimals$}")
+}
+
+/// A probability as a percentage with one decimal.
+fn pct(p: f64) -> String {
+    format!("{:.1}", 100.0 * p)
+}
+
+/// Median with the 90 % interval, as the recommendation block prints a band.
+fn band(b: &Value) -> String {
+    format!("{} ({} – {})", sig(num(&b["median"]), 3), sig(num(&b["p05"]), 3), sig(num(&b["p95"]), 3))
+}
+
+/// A regimen as written on a prescription (amounts and times are exact in the JSON).
+fn regimen(c: &Value) -> String {
+    let over = match num(&c["duration_h"]) {
+        d if d > 0.0 => format!(" over {d} h"),
+        _ => String::new(),
+    };
+    format!(
+        "{} mg {}{over} every {} h",
+        num(&c["amount_mg"]),
+        c["route"].as_str().unwrap(),
+        num(&c["every_h"])
+    )
+}
+
+#[test]
+fn every_page_carries_the_caution_and_the_footer() {
+    let (_dir, pdf) = report(&[]);
+    let pages = page_texts(&pdf);
+    let m = pages.len();
+    assert!(m >= 3, "only {m} pages");
+    let footer = squeeze(&format!("cistern {} · created {CREATED}", env!("CARGO_PKG_VERSION")));
+    for (i, text) in pages.iter().enumerate() {
+        let flat = squeeze(text);
+        for phrase in
+            ["CAUTION", "Not clinical advice", "licensed clinicians", "local protocols", "product labelling"]
+        {
+            assert!(flat.contains(&squeeze(phrase)), "page {}: no '{phrase}' in {text:?}", i + 1);
+        }
+        assert!(flat.contains(&squeeze(&format!("page {} of {m}", i + 1))), "page {}: no page number", i + 1);
+        assert!(flat.contains(&footer), "page {}: no footer with version and creation time", i + 1);
+    }
+}
+
+#[test]
+fn the_report_prints_the_numbers_of_plan_and_sweep() {
+    let (dir, pdf) = report(&[]);
+    let text = squeeze(&page_texts(&pdf).concat());
+    let has = |what: &str, s: &str| assert!(text.contains(&squeeze(s)), "{what}: '{s}' not in the report");
+    let plan = json(dir.path(), &["plan", "--case", "p01.toml", "--format", "json"]);
+
+    // The recommendation block: each label followed by its value.
+    let rec = &plan["recommended"];
+    assert!(rec.is_object(), "the demo case recommends a regimen: {plan}");
+    let p = &rec["predicted"];
+    has("regimen", &format!("Regimen {}", regimen(rec)));
+    has("start", &format!("First dose at {} h", sig(num(&rec["start_h"]), 5)));
+    has("PTA", &format!("Probability of target attainment {} %", pct(num(&rec["pta"]))));
+    has("peak", &format!("Predicted peak, mg/L (90 %) {}", band(&p["peak_mg_l"])));
+    has("trough", &format!("Predicted trough, mg/L (90 %) {}", band(&p["trough_mg_l"])));
+    has("AUC24", &format!("Predicted AUC24, mg·h/L (90 %) {}", band(&p["auc24_mg_h_l"])));
+    has("peak risk", &format!("Chance the peak exceeds its limit {} %", pct(num(&rec["p_over_peak"]))));
+    has("trough risk", &format!("Chance the trough exceeds its limit {} %", pct(num(&rec["p_over_trough"]))));
+    match rec["loading_dose_mg"].as_f64() {
+        Some(ld) => has("loading dose", &format!("Loading dose {ld} mg as the first dose")),
+        None => assert!(!text.contains("Loadingdose"), "a loading dose printed where the plan has none"),
+    }
+
+    // The alternatives table, row by row in the plan's order: rank, regimen, PTA and medians.
+    let candidates = plan["candidates"].as_array().unwrap();
+    assert!(candidates.len() >= 12, "{} candidates", candidates.len());
+    for (i, c) in candidates.iter().take(12).enumerate() {
+        let p = &c["predicted"];
+        let row = format!(
+            "{} {} {} {} {} {}",
+            i + 1,
+            regimen(c),
+            pct(num(&c["pta"])),
+            sig(num(&p["peak_mg_l"]["median"]), 3),
+            sig(num(&p["trough_mg_l"]["median"]), 3),
+            sig(num(&p["auc24_mg_h_l"]["median"]), 3)
+        );
+        has(&format!("alternative {}", i + 1), &row);
+        for why in c["limits_broken"].as_array().unwrap() {
+            has(&format!("alternative {}: broken limit", i + 1), why.as_str().unwrap());
+        }
+    }
+
+    // The next-level advice: the exposure, its current width and the best sampling time.
+    let advice = &plan["next_level"];
+    has(
+        "advice",
+        &format!(
+            "the 90 % interval of {} (now {} wide)",
+            advice["exposure"].as_str().unwrap(),
+            sig(num(&advice["current_ci90_width"]), 3)
+        ),
+    );
+    let best = &advice["times"][0];
+    has(
+        "best sampling time",
+        &format!(
+            "{} {} {} {:.0} %",
+            sig(num(&best["time_h"]), 5),
+            sig(num(&best["after_dose_h"]), 3),
+            sig(num(&best["expected_ci90_width"]), 3),
+            num(&best["shrinkage_pct"])
+        ),
+    );
+
+    // The sweep page lists the case's sweep (same model, pool, subjects and seed), ranked by
+    // PTA and then daily dose: the top rows with their percentiles.
+    let sweep = json(dir.path(), &["sweep", "--case", "p01.toml", "--format", "json"]);
+    has("sweep size", &format!("Virtual population: {} subjects", num(&sweep["subjects"])));
+    let mut rows: Vec<&Value> = sweep["regimens"].as_array().unwrap().iter().collect();
+    rows.sort_by(|a, b| {
+        num(&b["pta"]).total_cmp(&num(&a["pta"])).then(num(&a["daily_mg"]).total_cmp(&num(&b["daily_mg"])))
+    });
+    for r in rows.iter().take(5) {
+        let broken = !r["dose_limits_broken"].as_array().unwrap().is_empty()
+            || !r["exposure_limits_broken"].as_array().unwrap().is_empty();
+        let q = |m: &str, p: &str| sig(num(&r[m][p]), 3);
+        has(
+            "sweep row",
+            &format!(
+                "{} mg over {} h every {} h{} {} {} {} {} {} {} {} {}",
+                num(&r["amount_mg"]),
+                num(&r["duration_h"]),
+                num(&r["every_h"]),
+                if broken { " *" } else { "" },
+                pct(num(&r["pta"])),
+                q("trough_mg_l", "p05"),
+                q("trough_mg_l", "p50"),
+                q("trough_mg_l", "p95"),
+                q("peak_mg_l", "p50"),
+                q("auc24_mg_h_l", "p05"),
+                q("auc24_mg_h_l", "p50"),
+                q("auc24_mg_h_l", "p95")
+            ),
+        );
+    }
+
+    // The reproducibility block: each input file with its SHA-256 (computed here by the
+    // `sha2` crate), and the seed of the case.
+    for name in ["p01.toml", "model.toml", "doses.csv", "levels.csv", "covariates.csv", "population.csv"] {
+        let digest: String = Sha256::digest(std::fs::read(dir.path().join(name)).unwrap())
+            .iter()
+            .map(|b| format!("{b:02x}"))
+            .collect();
+        has("digest", &format!("{name} {digest}"));
+    }
+    has("seed", "Seed 7");
+}
+
+#[test]
+fn the_same_case_and_clock_give_the_same_bytes() {
+    let (dir, first) = report(&[]);
+    std::fs::remove_file(dir.path().join("out.pdf")).unwrap();
+    run(dir.path(), &["report", "p01.toml", "-o", "out.pdf"]);
+    let second = std::fs::read(dir.path().join("out.pdf")).unwrap();
+    assert!(first == second, "two runs with SOURCE_DATE_EPOCH={EPOCH} differ");
+    // The clock is what SOURCE_DATE_EPOCH says: one day later (86400 s) is the next date.
+    let later = cistern_at(dir.path(), &["report", "p01.toml", "-o", "later.pdf"], "1740924309");
+    assert_eq!(later.code, 0, "{}", later.stderr);
+    let later = page_texts(&std::fs::read(dir.path().join("later.pdf")).unwrap());
+    assert!(later.iter().all(|t| t.contains("created 2025-03-02T14:05:09Z")), "{:?}", later[0]);
+}
+
+#[test]
+fn svg_export_has_the_axis_labels() {
+    let (dir, _) = report(&["--svg", "curve.svg"]);
+    let svg = std::fs::read_to_string(dir.path().join("curve.svg")).expect("the SVG was written");
+    assert!(svg.starts_with("<svg ") && svg.trim_end().ends_with("</svg>"), "not an SVG document");
+    // Both panels (linear and logarithmic) label both axes; each has its own title.
+    for (label, times) in [
+        ("time (h)", 2),
+        ("concentration (mg/L)", 2),
+        ("Concentration, linear scale", 1),
+        ("Concentration, logarithmic scale", 1),
+    ] {
+        assert_eq!(svg.matches(&format!(">{label}</text>")).count(), times, "{label}");
+    }
+}
+
+#[test]
+fn poppler_opens_the_report_and_its_pages_and_plots_are_drawn() {
+    if !poppler_available() {
+        return;
+    }
+    let (dir, pdf) = report(&[]);
+    let path = dir.path().join("out.pdf");
+    let m = page_texts(&pdf).len();
+    let info = Command::new("pdfinfo").arg(&path).output().unwrap();
+    assert!(info.status.success(), "pdfinfo: {}", String::from_utf8_lossy(&info.stderr));
+    let info = String::from_utf8_lossy(&info.stdout).into_owned();
+    assert!(info.lines().any(|l| l.split_whitespace().eq(["Pages:".to_string(), m.to_string()])), "{info}");
+
+    const DPI: f64 = 50.0;
+    let pngs = render_pages(&path, dir.path(), DPI as u32);
+    assert_eq!(pngs.len(), m);
+    // Every page has ink between its caution banner and its footer.
+    for (i, png) in pngs.iter().enumerate() {
+        let w = words(&path, i + 1);
+        let banner = find(&w, "product labelling.").unwrap_or_else(|| panic!("page {}: no banner", i + 1));
+        let footer = find(&w, &format!("page {} of {m}", i + 1)).unwrap();
+        let body = (0.0, banner.3 + 12.0, PAGE_W, footer.1 - 8.0);
+        let (_, inked) = count_pixels(&decode_png(png), body, DPI);
+        let total = ((body.2 - body.0) * (body.3 - body.1) * (DPI / 72.0).powi(2)) as usize;
+        assert!(inked > total / 200, "page {}: {inked} inked pixels of {total} in the body", i + 1);
+    }
+    // The two concentration panels: between a panel's title and its x-axis label lies the
+    // data area, where the band, the curve, the target stripe and the levels are coloured.
+    let mut panels = 0;
+    for page in 1..=m {
+        let w = words(&path, page);
+        for title in ["Concentration, linear scale", "Concentration, logarithmic scale"] {
+            let Some(t) = find(&w, title) else { continue };
+            panels += 1;
+            let axis = find_all(&w, "time (h)")
+                .into_iter()
+                .find(|a| a.1 > t.3)
+                .expect("an x-axis label below the title");
+            assert!(axis.1 > t.3 + 100.0, "{title}: panel from {} to {}", t.3, axis.1);
+            let area = (t.0, t.3, PAGE_W - t.0, axis.1 - 12.0);
+            let (coloured, inked) = count_pixels(&decode_png(&pngs[page - 1]), area, DPI);
+            let total = ((area.2 - area.0) * (area.3 - area.1) * (DPI / 72.0).powi(2)) as usize;
+            assert!(coloured > total / 20, "{title}: {coloured} coloured pixels of {total}");
+            assert!(inked > total / 10, "{title}: {inked} inked pixels of {total}");
+        }
+    }
+    assert_eq!(panels, 2, "both concentration panels are in the report");
+}
