@@ -106,8 +106,10 @@ pub fn advise(q: &Question) -> Advice {
         .into_par_iter()
         .map(|j| {
             let t = times[j];
-            // Each time has its own random stream, so the result does not depend on threads.
-            let mut rng = StdRng::seed_from_u64(crate::fit::mix_seed(seed, j as u64));
+            // Every time replays the same random stream (common random numbers): the result does
+            // not depend on threads, and the times are compared on the same simulated draws
+            // and residuals, so their ranking is not lost in simulation noise.
+            let mut rng = StdRng::seed_from_u64(seed);
             let f: Vec<f64> = predictions.iter().map(|row| row[j]).collect();
             let inv_var: Vec<f64> = f.iter().map(|&x| 1.0 / residual.variance(x)).collect();
             let ln_var: Vec<f64> = inv_var.iter().map(|iv| -iv.ln()).collect();
