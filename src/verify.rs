@@ -171,7 +171,9 @@ pub fn cases() -> Vec<Case> {
             source: BOURNE_6,
             kind: Derived,
             expected: 14.093,
-            tolerance: Absolute(0.1),
+            // The reference allows ±0.1 (its printed values use another half-life); the derived
+            // value is given to three decimals, so it is held to half a unit in the last.
+            tolerance: Absolute(0.0005),
             compute: || Ok(case4_level(0.5)),
         },
         Case {
@@ -180,7 +182,9 @@ pub fn cases() -> Vec<Case> {
             source: BOURNE_6,
             kind: Derived,
             expected: 7.140,
-            tolerance: Absolute(0.1),
+            // The reference allows ±0.1 (its printed values use another half-life); the derived
+            // value is given to three decimals, so it is held to half a unit in the last.
+            tolerance: Absolute(0.0005),
             compute: || Ok(case4_level(4.5)),
         },
         Case {

@@ -414,6 +414,45 @@ fn convergence_warnings(opt: &optimise::Optimum, others: optimise::Others, warni
     }
 }
 
+/// With ka estimated, the exchange of absorption and elimination rates (flip-flop: k ↔ ka with
+/// V·k/ka for V, CL unchanged) can fit as well. Among equally good optima the one with ka > k
+/// is reported (common practice, no source), with a warning; a clearly better one always wins.
+fn prefer_absorption_faster(
+    problem: &Problem,
+    opt: optimise::Optimum,
+    others: optimise::Others,
+    warnings: &mut Vec<String>,
+) -> (optimise::Optimum, optimise::Others) {
+    if problem.n != 3 {
+        return (opt, others);
+    }
+    let t = &opt.theta;
+    let (ln_k, ln_ka) = (t[0] - t[1], t[2]);
+    let mirror = [t[0], t[1] + ln_k - ln_ka, ln_k];
+    let other = optimise::minimise(problem, &mirror);
+    let same_fit = other.converged && (other.cost - opt.cost).abs() <= 1e-6 * opt.cost.abs().max(1.0);
+    let distinct = (other.theta[2] - t[2]).abs() > 1e-3;
+    if !(same_fit && distinct) {
+        return (opt, others);
+    }
+    warnings.push(
+        "absorption and elimination rates can be exchanged with the same fit (flip-flop); the solution \
+         with ka > k is reported"
+            .into(),
+    );
+    let faster = |o: &optimise::Optimum| o.theta[2] > o.theta[0] - o.theta[1];
+    let chosen = if faster(&opt) {
+        opt
+    } else if faster(&other) {
+        other
+    } else {
+        opt
+    };
+    // The ambiguity is reported above; it is not another optimum to warn about again.
+    let others = if others == optimise::Others::EqualOptimum { optimise::Others::None } else { others };
+    (chosen, others)
+}
+
 fn fit_map(
     subject: &SubjectData,
     model: &PopulationModel,
@@ -449,6 +488,7 @@ fn fit_map(
         Some(Prior { mean, precision }),
     );
     let sd: Vec<f64> = (0..n).map(|i| omega[i][i].sqrt()).collect();
+    let mut warnings = Vec::new();
     // Start at the prior mean. With ka estimated the posterior can have a second, flip-flop
     // mode (absorption and elimination rates exchanged), so start there too; shifted starts
     // are the fallback when nothing converges.
@@ -467,8 +507,8 @@ fn fit_map(
         })
         .collect();
     let (opt, other) = optimise::minimise_from(&problem, &starts, &fallback);
+    let (opt, other) = prefer_absorption_faster(&problem, opt, other, &mut warnings);
     let theta = opt.theta.clone();
-    let mut warnings = Vec::new();
     convergence_warnings(&opt, other, &mut warnings);
     let laplace = spd_inverse(&opt.hessian, n).map(|mut c| {
         for row in c.iter_mut() {
@@ -629,6 +669,7 @@ fn fit_wls(
         return Err("no starting point gives finite predictions".into());
     }
     let (opt, other) = optimise::minimise_from(&problem, &starts, &[]);
+    let (opt, other) = prefer_absorption_faster(&problem, opt, other, &mut warnings);
     convergence_warnings(&opt, other, &mut warnings);
     let theta = opt.theta.clone();
     // Jacobian of the predictions with respect to θ, for standard errors and identifiability.

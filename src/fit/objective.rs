@@ -202,9 +202,46 @@ impl Problem {
 
     /// Objective value and exact gradient.
     pub fn cost_and_gradient(&self, theta: &[f64]) -> (f64, [f64; MAX]) {
+        // Carry only as many derivatives as there are parameters: a third of the work less for
+        // intravenous fits.
+        if self.n == 2 {
+            let duals: Vec<Dual<2>> = (0..2).map(|i| Dual::var(theta[i], i)).collect();
+            let v = self.value(&duals);
+            (v.v, [v.d[0], v.d[1], 0.0])
+        } else {
+            let duals: Vec<D3> = (0..self.n).map(|i| D3::var(theta[i], i)).collect();
+            let v = self.value(&duals);
+            (v.v, v.d)
+        }
+    }
+
+    /// The Gauss–Newton approximation of the Hessian, 2·Σ wᵢ ∇fᵢ ∇fᵢᵀ + 2·Ω⁻¹ with wᵢ = 1/σᵢ² (or
+    /// the least-squares weight): one pass of the engine, good enough to start a quasi-Newton
+    /// solver from (below-limit levels and the σ(f) dependence are left out).
+    pub fn gauss_newton(&self, theta: &[f64]) -> Mat {
         let duals: Vec<D3> = (0..self.n).map(|i| D3::var(theta[i], i)).collect();
-        let v = self.value(&duals);
-        (v.v, v.d)
+        let f = self.predictions(&duals);
+        let mut m = [[0.0; MAX]; MAX];
+        for (level, fi) in self.levels.iter().zip(&f) {
+            let w = match (&self.likelihood, level.conc_mg_l) {
+                (_, None) => continue,
+                (Likelihood::Bayes(res), Some(_)) => 1.0 / res.variance(fi.v),
+                (Likelihood::LeastSquares(wt), Some(y)) => weight(*wt, y),
+            };
+            for i in 0..self.n {
+                for j in 0..self.n {
+                    m[i][j] += 2.0 * w * fi.d[i] * fi.d[j];
+                }
+            }
+        }
+        if let Some(prior) = &self.prior {
+            for i in 0..self.n {
+                for j in 0..self.n {
+                    m[i][j] += 2.0 * prior.precision[i][j];
+                }
+            }
+        }
+        m
     }
 
     /// Hessian by central differences of the exact gradient (step 1e-4 in log-parameters).

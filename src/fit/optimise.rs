@@ -53,14 +53,14 @@ impl Gradient for Adapter<'_> {
 
 fn bfgs(problem: &Problem, start: &[f64]) -> Result<(Vec<f64>, u64, String), ArgminError> {
     let n = problem.n;
-    // Start from the inverse curvature at the start when it is positive definite (few
-    // iterations then), else from the identity.
-    let inverse = spd_inverse(&problem.hessian(start), n);
+    // Start from the inverse Gauss–Newton curvature at the start when it is positive definite
+    // (few iterations then), else from the identity.
+    let inverse = spd_inverse(&problem.gauss_newton(start), n);
     let initial: Vec<Vec<f64>> = (0..n)
         .map(|i| (0..n).map(|j| inverse.map_or(if i == j { 1.0 } else { 0.0 }, |m| m[i][j])).collect())
         .collect();
     let solver =
-        BFGS::new(MoreThuenteLineSearch::new()).with_tolerance_grad(1e-9)?.with_tolerance_cost(1e-15)?;
+        BFGS::new(MoreThuenteLineSearch::new()).with_tolerance_grad(1e-6)?.with_tolerance_cost(1e-15)?;
     let result = Executor::new(Adapter(problem), solver)
         .configure(|s| s.param(start.to_vec()).inv_hessian(initial).max_iters(200))
         .run()?;
