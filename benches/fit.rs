@@ -15,19 +15,7 @@ use criterion::{Criterion, Throughput, criterion_group, criterion_main};
 use std::hint::black_box;
 use std::time::{Duration, Instant};
 
-const MODEL: &str = "
-[clearance]
-typical_l_h = 4.0
-bsv_cv = 0.30
-[volume]
-typical_l = 50.0
-bsv_cv = 0.25
-[correlation]
-cl_v = 0.3
-[residual]
-additive_mg_l = 0.5
-proportional_cv = 0.10
-";
+const MODEL: &str = include_str!("../tests/fixtures/plain_model.toml");
 
 /// A sparse subject: `doses` 1-h infusions every 12 h with some irregularity, and 2–4 levels
 /// around the last interval (invented benchmark data).

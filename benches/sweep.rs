@@ -18,29 +18,7 @@ use criterion::{Criterion, Throughput, criterion_group, criterion_main};
 use std::time::Duration;
 
 /// An invented model: CL scaled by creatinine clearance, V by weight, as in the demo.
-const MODEL: &str = "
-[clearance]
-typical_l_h = 4.0
-bsv_cv = 0.30
-[[clearance.covariates]]
-covariate = \"crcl_ml_min\"
-form = \"power\"
-reference = 100.0
-effect = 0.75
-[volume]
-typical_l = 50.0
-bsv_cv = 0.25
-[[volume.covariates]]
-covariate = \"weight_kg\"
-form = \"power\"
-reference = 70.0
-effect = 1.0
-[correlation]
-cl_v = 0.3
-[residual]
-additive_mg_l = 0.5
-proportional_cv = 0.10
-";
+const MODEL: &str = include_str!("../tests/fixtures/covariate_model.toml");
 
 const SUBJECTS: u64 = 10_000;
 

@@ -30,19 +30,7 @@ use statrs::distribution::Normal;
 
 /// Invented population model: CL 4 L/h (CV 30 %), V 50 L (CV 25 %), correlated 0.3;
 /// residual error 0.5 mg/L + 10 %.
-const MODEL: &str = "# Invented model of a fictional drug.
-[clearance]
-typical_l_h = 4.0
-bsv_cv = 0.30
-[volume]
-typical_l = 50.0
-bsv_cv = 0.25
-[correlation]
-cl_v = 0.3
-[residual]
-additive_mg_l = 0.5
-proportional_cv = 0.10
-";
+const MODEL: &str = include_str!("fixtures/plain_model.toml");
 
 /// The invented trough: 6.4 mg/L half an hour before the fourth dose.
 const TROUGH: Level = Level { time_h: 35.5, conc_mg_l: Some(6.4), lloq_mg_l: None, line: 0 };

@@ -31,29 +31,7 @@ const LLOQ: f64 = 0.5;
 
 /// Invented model of a fictional drug: the issue's example values, with covariates and a
 /// CL–V correlation.
-const MODEL: &str = "
-[clearance]
-typical_l_h = 4.0
-bsv_cv = 0.30
-[[clearance.covariates]]
-covariate = \"crcl_ml_min\"
-form = \"power\"
-reference = 100.0
-effect = 0.75
-[volume]
-typical_l = 50.0
-bsv_cv = 0.25
-[[volume.covariates]]
-covariate = \"weight_kg\"
-form = \"power\"
-reference = 70.0
-effect = 1.0
-[correlation]
-cl_v = 0.3
-[residual]
-additive_mg_l = 0.5
-proportional_cv = 0.10
-";
+const MODEL: &str = include_str!("fixtures/covariate_model.toml");
 
 /// One virtual subject and the truth behind its levels.
 struct Virtual {

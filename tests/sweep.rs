@@ -24,44 +24,10 @@ use std::process::Command;
 
 /// CL log-normal around 4 L/h with CV 30 %, V around 50 L with CV 25 %, correlated 0.3;
 /// no covariates. Invented values.
-const MODEL: &str = "
-[clearance]
-typical_l_h = 4.0
-bsv_cv = 0.30
-[volume]
-typical_l = 50.0
-bsv_cv = 0.25
-[correlation]
-cl_v = 0.3
-[residual]
-additive_mg_l = 0.5
-proportional_cv = 0.10
-";
+const MODEL: &str = include_str!("fixtures/plain_model.toml");
 
 /// The same with CL scaled by creatinine clearance (power 0.75 at 100 mL/min) and V by weight.
-const COVARIATE_MODEL: &str = "
-[clearance]
-typical_l_h = 4.0
-bsv_cv = 0.30
-[[clearance.covariates]]
-covariate = \"crcl_ml_min\"
-form = \"power\"
-reference = 100.0
-effect = 0.75
-[volume]
-typical_l = 50.0
-bsv_cv = 0.25
-[[volume.covariates]]
-covariate = \"weight_kg\"
-form = \"power\"
-reference = 70.0
-effect = 1.0
-[correlation]
-cl_v = 0.3
-[residual]
-additive_mg_l = 0.5
-proportional_cv = 0.10
-";
+const COVARIATE_MODEL: &str = include_str!("fixtures/covariate_model.toml");
 
 fn model(text: &str) -> PopulationModel {
     PopulationModel::parse(&TomlText::new("model.toml", text)).expect("a valid model")
