@@ -188,8 +188,9 @@ fn the_report_prints_the_numbers_of_plan_and_sweep() {
         has(
             "sweep row",
             &format!(
-                "{} mg over {} h every {} h{} {} {} {} {} {} {} {} {}",
+                "{} mg {} over {} h every {} h{} {} {} {} {} {} {} {} {}",
                 num(&r["amount_mg"]),
+                r["route"].as_str().unwrap(),
                 num(&r["duration_h"]),
                 num(&r["every_h"]),
                 if broken { " *" } else { "" },

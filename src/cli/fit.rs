@@ -193,23 +193,15 @@ fn table(fits: &[FitResult]) -> String {
             if r.converged { "converged" } else { "NOT converged" },
             readable(r.objective, 6)
         );
-        let e = &r.estimates;
         let mut rows = Vec::new();
-        let prior = r.prior;
-        for (label, est, typical) in [
-            ("CL (L/h)", Some(&e.cl_l_h), prior.map(|p| p.cl_l_h)),
-            ("V (L)", Some(&e.v_l), prior.map(|p| p.v_l)),
-            ("k (1/h)", Some(&e.k_per_h), None),
-            ("half-life (h)", Some(&e.half_life_h), None),
-            ("ka (1/h)", e.ka_per_h.as_ref(), prior.and_then(|p| p.ka_per_h)),
-        ] {
-            let Some(est) = est else { continue };
+        for (name, unit, est, typical) in r.named_estimates() {
+            let label = format!("{name} ({unit})");
             let ci = est
                 .ci95
                 .map(|c| format!("{} – {}", readable(c[0], 4), readable(c[1], 4)))
                 .unwrap_or_else(|| "—".into());
             rows.push(vec![
-                label.to_string(),
+                label,
                 readable(est.value, 4),
                 est.se.map(|s| readable(s, 3)).unwrap_or_else(|| "—".into()),
                 ci,

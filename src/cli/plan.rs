@@ -341,13 +341,6 @@ fn band(b: &cistern::plan::recommend::Band, digits: usize) -> String {
     format!("{} ({}–{})", readable(b.median, digits), readable(b.p05, digits), readable(b.p95, digits))
 }
 
-fn regimen_text(amount: f64, every: f64, duration: f64, route: cistern::dosing::Route) -> String {
-    // Prescriptions read as written: 750 mg, 1.5 h, 12 h.
-    let plain = |x: f64| format!("{}", (x * 1e6).round() / 1e6);
-    let over = if duration > 0.0 { format!(" over {} h", plain(duration)) } else { String::new() };
-    format!("{} mg {route}{over} every {} h", plain(amount), plain(every))
-}
-
 fn table(post: &Subject, targets: &[Target], plan: &Plan, advice: Option<&Advice>, start: f64) -> String {
     let mut text = String::new();
     let who = post.id.as_deref().unwrap_or("the subject");
@@ -365,7 +358,7 @@ fn table(post: &Subject, targets: &[Target], plan: &Plan, advice: Option<&Advice
         .map(|(i, a)| {
             vec![
                 (i + 1).to_string(),
-                regimen_text(a.amount_mg, a.every_h, a.duration_h, a.route),
+                a.candidate().describe(),
                 format!("{:.1} %", 100.0 * a.pta),
                 band(&a.predicted.peak_mg_l, 3),
                 band(&a.predicted.trough_mg_l, 3),
@@ -399,7 +392,7 @@ fn table(post: &Subject, targets: &[Target], plan: &Plan, advice: Option<&Advice
             let a = &r.assessment;
             text += &format!(
                 "Recommended: {} from {} h — PTA {:.1} %",
-                regimen_text(a.amount_mg, a.every_h, a.duration_h, a.route),
+                a.candidate().describe(),
                 readable(r.start_h, 5),
                 100.0 * a.pta
             );

@@ -91,10 +91,15 @@ fn sweep_rows(
     rows.sort_by(|a, b| b.pta.total_cmp(&a.pta).then(a.daily_mg.total_cmp(&b.daily_mg)));
     let cell = |x: Option<f64>| x.map(|v| readable(v, 3)).unwrap_or_default();
     let label = |r: &SummaryRow| {
-        let over = if r.duration_h > 0.0 { format!(" over {} h", r.duration_h) } else { String::new() };
         let broken =
             if r.dose_limits_broken.is_empty() && r.exposure_limits_broken.is_empty() { "" } else { " *" };
-        format!("{} mg{over} every {} h{broken}", r.amount_mg, r.every_h)
+        let c = Candidate {
+            amount_mg: r.amount_mg,
+            every_h: r.every_h,
+            duration_h: r.duration_h,
+            route: r.route,
+        };
+        format!("{}{broken}", c.describe())
     };
     Ok(SweepRows {
         subjects: request.subjects,

@@ -208,6 +208,25 @@ pub struct FitResult {
     pub draws: Vec<Params>,
 }
 
+impl FitResult {
+    /// The estimates with their names, units and the population's typical value where the prior
+    /// has one, in reading order (ka only when estimated).
+    pub fn named_estimates(&self) -> Vec<(&'static str, &'static str, &Estimate, Option<f64>)> {
+        let e = &self.estimates;
+        let prior = self.prior;
+        let mut rows = vec![
+            ("clearance", "L/h", &e.cl_l_h, prior.map(|p| p.cl_l_h)),
+            ("volume", "L", &e.v_l, prior.map(|p| p.v_l)),
+            ("k", "1/h", &e.k_per_h, None),
+            ("half-life", "h", &e.half_life_h, None),
+        ];
+        if let Some(ka) = &e.ka_per_h {
+            rows.push(("ka", "1/h", ka, prior.and_then(|p| p.ka_per_h)));
+        }
+        rows
+    }
+}
+
 /// A well-mixed 64-bit hash, to derive independent per-subject seeds (SplitMix64).
 pub fn mix_seed(seed: u64, index: u64) -> u64 {
     let mut z = seed.wrapping_add(index.wrapping_add(1).wrapping_mul(0x9E37_79B9_7F4A_7C15));

@@ -96,11 +96,6 @@ fn estimate_cells(e: &Estimate) -> [String; 3] {
     ]
 }
 
-fn regimen(amount: f64, every: f64, duration: f64, route: crate::dosing::Route) -> String {
-    let over = if duration > 0.0 { format!(" over {} h", plain(duration)) } else { String::new() };
-    format!("{} mg {route}{over} every {} h", plain(amount), plain(every))
-}
-
 fn band(b: &recommend::Band) -> String {
     format!("{} ({} – {})", r3(b.median), r3(b.p05), r3(b.p95))
 }
@@ -286,19 +281,16 @@ pub fn build(a: &Analysis) -> Document {
 
     // Estimates.
     b.push(Block::Heading("Estimates".into()));
-    let e = &fit.estimates;
-    let prior = fit.prior;
     let mut rows = Vec::new();
-    for (label, est, typical) in [
-        ("clearance (L/h)", Some(&e.cl_l_h), prior.map(|p| p.cl_l_h)),
-        ("volume (L)", Some(&e.v_l), prior.map(|p| p.v_l)),
-        ("k (1/h)", Some(&e.k_per_h), None),
-        ("half-life (h)", Some(&e.half_life_h), None),
-        ("ka (1/h)", e.ka_per_h.as_ref(), prior.and_then(|p| p.ka_per_h)),
-    ] {
-        let Some(est) = est else { continue };
+    for (name, unit, est, typical) in fit.named_estimates() {
         let [v, ci, se] = estimate_cells(est);
-        rows.push(vec![label.to_string(), v, ci, se, typical.map(|t| readable(t, 4)).unwrap_or_default()]);
+        rows.push(vec![
+            format!("{name} ({unit})"),
+            v,
+            ci,
+            se,
+            typical.map(|t| readable(t, 4)).unwrap_or_default(),
+        ]);
     }
     b.push(Block::Table(Table {
         headers: vec![
@@ -346,7 +338,7 @@ pub fn build(a: &Analysis) -> Document {
         Some(r) => {
             let s = &r.assessment;
             let mut kv = vec![
-                ("Regimen".to_string(), regimen(s.amount_mg, s.every_h, s.duration_h, s.route)),
+                ("Regimen".to_string(), s.candidate().describe()),
                 ("First dose at".to_string(), format!("{} h", readable(r.start_h, 5))),
                 ("Probability of target attainment".to_string(), format!("{:.1} %", 100.0 * s.pta)),
                 ("Predicted peak, mg/L (90 %)".to_string(), band(&s.predicted.peak_mg_l)),
@@ -388,7 +380,7 @@ pub fn build(a: &Analysis) -> Document {
         .map(|(i, c)| {
             vec![
                 (i + 1).to_string(),
-                regimen(c.amount_mg, c.every_h, c.duration_h, c.route),
+                c.candidate().describe(),
                 format!("{:.1}", 100.0 * c.pta),
                 r3(c.predicted.peak_mg_l.median),
                 r3(c.predicted.trough_mg_l.median),
