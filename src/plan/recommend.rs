@@ -310,7 +310,8 @@ pub fn plan(input: &PlanInput) -> Result<Plan, Invalid> {
 }
 
 /// Maintenance dose × accumulation ratio for the point estimate, rounded up to the amount step
-/// and within the single-dose limit; `None` when it would not exceed the maintenance dose.
+/// and kept within the single-dose, rate and daily limits (the first day then holds the loading
+/// dose and the maintenance doses after it); `None` when it would not exceed the maintenance dose.
 fn loading_dose(input: &PlanInput, a: &Assessment) -> Option<f64> {
     let k = input.point.k_per_h();
     let ratio = 1.0 / -(-k * a.every_h).exp_m1();
@@ -323,6 +324,12 @@ fn loading_dose(input: &PlanInput, a: &Assessment) -> Option<f64> {
         && a.route == Route::Infusion
     {
         ld = ld.min((rate * a.duration_h / step + 1e-9).floor() * step);
+    }
+    if let Some(daily) = input.limits.max_daily_mg {
+        // The first 24 h hold the loading dose and the maintenance doses that follow it.
+        let doses_in_a_day = (24.0 / a.every_h - 1e-9).ceil().max(1.0);
+        let room = daily - (doses_in_a_day - 1.0) * a.amount_mg;
+        ld = ld.min((room / step + 1e-9).floor() * step);
     }
     (ld > a.amount_mg * (1.0 + 1e-9)).then_some(ld)
 }
