@@ -71,6 +71,18 @@ impl Sketch {
         }
     }
 
+    /// Whether a sketch read from a file could have come from counting `n` values: its bins lie
+    /// between those of [`FLOOR`] and the largest float, and its counts add up to `n` without
+    /// overflow. A damaged shard file is refused instead of exhausting memory.
+    pub fn holds(&self, n: u64) -> bool {
+        let lowest = (FLOOR.ln() / ln_gamma()).ceil() as i64;
+        let highest = (f64::MAX.ln() / ln_gamma()).ceil() as i64;
+        let first = i64::from(self.offset);
+        let last = first + self.counts.len() as i64 - 1;
+        let total = self.counts.iter().try_fold(self.below_floor, |acc, &c| acc.checked_add(c));
+        (self.counts.is_empty() || (first >= lowest && last <= highest)) && total == Some(n)
+    }
+
     /// The number of values counted.
     pub fn count(&self) -> u64 {
         self.below_floor + self.counts.iter().sum::<u64>()
@@ -112,6 +124,22 @@ mod tests {
         let n = sorted.len() as u64;
         let rank = (u64::from(percent) * n).div_ceil(100).clamp(1, n);
         sorted[rank as usize - 1]
+    }
+
+    #[test]
+    fn a_damaged_sketch_is_recognised() {
+        let mut s = Sketch::default();
+        for x in [0.0, 1e-3, 2.5, 40.0, 1e6] {
+            s.add(x);
+        }
+        assert!(s.holds(5));
+        assert!(!s.holds(4));
+        let far = Sketch { below_floor: 0, offset: i32::MAX - 1, counts: vec![1, 1] };
+        assert!(!far.holds(2));
+        let low = Sketch { below_floor: 0, offset: i32::MIN, counts: vec![1] };
+        assert!(!low.holds(1));
+        let overflow = Sketch { below_floor: u64::MAX, offset: 0, counts: vec![1] };
+        assert!(!overflow.holds(0));
     }
 
     #[test]

@@ -223,6 +223,15 @@ impl Tally {
         self.auc24_mg_h_l.add(o.auc24_mg_h_l);
     }
 
+    /// Whether a tally read from a file is internally consistent.
+    fn is_sound(&self) -> bool {
+        let within = |n: Option<u64>| n.is_none_or(|n| n <= self.subjects);
+        self.meets <= self.subjects
+            && within(self.over_peak)
+            && within(self.over_trough)
+            && [&self.trough_mg_l, &self.peak_mg_l, &self.auc24_mg_h_l].iter().all(|s| s.holds(self.subjects))
+    }
+
     fn merge(&mut self, other: &Tally) {
         self.subjects += other.subjects;
         self.meets += other.meets;
@@ -329,7 +338,7 @@ impl SweepState {
             && state.shard.index >= 1
             && state.shard.index <= state.shard.count
             && state.shard.span(state.setup.subjects) == (state.subjects_from..state.subjects_to)
-            && state.tallies.iter().all(|t| t.subjects == state.subjects_to - state.subjects_from);
+            && state.tallies.iter().all(|t| t.subjects == state.subjects_to - state.subjects_from && t.is_sound());
         if !consistent {
             return Err("a damaged sweep state: its counts, slice and setup do not agree".into());
         }
