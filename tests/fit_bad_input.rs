@@ -261,3 +261,27 @@ fn every_malformed_fit_input_is_refused_with_a_located_message() {
         failures.join("\n\n")
     );
 }
+
+#[test]
+fn absorption_flags_out_of_range_are_refused() {
+    // ka must be positive, the lag non-negative and F in (0, 1]; each message names its flag.
+    let demo = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-regimens");
+    let file = |name: &str| demo.join(name).to_string_lossy().into_owned();
+    for (flag, value, says) in [
+        ("--ka", "0", "ka must be positive"),
+        ("--ka", "-1/h", "ka must be positive"),
+        ("--tlag", "-1h", "the lag time must be non-negative"),
+        ("--f", "1.5", "bioavailability F must be in (0, 1]"),
+    ] {
+        let out = std::process::Command::new(env!("CARGO_BIN_EXE_cistern"))
+            .args(["fit", "--model", &file("model.toml"), "--doses", &file("doses.csv")])
+            .args(["--levels", &file("levels.csv"), "--covariates", &file("covariates.csv")])
+            .arg(format!("{flag}={value}"))
+            .output()
+            .expect("run cistern");
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{flag}={value}: {stderr}");
+        assert!(stderr.contains(&format!("error: {flag}: {says}")), "{flag}={value}: {stderr}");
+        assert!(out.stdout.is_empty(), "{flag}={value} printed results");
+    }
+}

@@ -1,12 +1,13 @@
 //! `cistern fit`: estimate clearance and volume (and ka for oral drugs) from sampled levels.
 
-use super::args::{OutputArgs, Problems, flag_number, flag_value};
+use super::args::{OutputArgs, Problems, flag_number, flag_value, invalid_flag};
 use super::study::{Study, StudyArgs};
+use cistern::Error;
+use cistern::engine::validate_absorption;
 use cistern::fit::objective::Weighting;
 use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, fit_all};
 use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
 use cistern::units::Kind;
-use cistern::{Error, InputError};
 use clap::Args;
 use serde::Serialize;
 
@@ -53,12 +54,12 @@ pub struct FitArgs {
     /// Hold ka fixed at this value (1/h), e.g. 1.2 or 1.2/h
     #[arg(long, value_name = "KA")]
     ka: Option<String>,
-    /// Oral bioavailability when the model gives none
-    #[arg(long, value_name = "F", default_value = "1")]
-    f: String,
-    /// Oral lag time when the model gives none, e.g. 30min
-    #[arg(long, value_name = "TIME", default_value = "0")]
-    tlag: String,
+    /// Oral bioavailability when the model gives none [default: 1]
+    #[arg(long, value_name = "F", allow_hyphen_values = true)]
+    f: Option<String>,
+    /// Oral lag time when the model gives none, e.g. 30min [default: 0]
+    #[arg(long, value_name = "TIME", allow_hyphen_values = true)]
+    tlag: Option<String>,
     #[command(flatten)]
     output: OutputArgs,
 }
@@ -73,25 +74,28 @@ struct FitJson<'a> {
 pub fn run(args: FitArgs) -> Result<(), Error> {
     let (study_args, case) = args.study.with_case()?;
     let mut problems = Problems::new();
-    let ka = args.ka.as_ref().and_then(|t| problems.take(flag_value("--ka", Kind::RateConstant, t)));
-    let f = problems.take(flag_number("--f", &args.f));
-    let tlag = problems.take(flag_value("--tlag", Kind::Time, &args.tlag));
+    let ka = match &args.ka {
+        Some(t) => problems.take(flag_value("--ka", Kind::RateConstant, t)).map(Some),
+        None => Some(None),
+    };
+    let f = args.f.as_ref().map_or(Some(1.0), |t| problems.take(flag_number("--f", t)));
+    let tlag = args.tlag.as_ref().map_or(Some(0.0), |t| problems.take(flag_value("--tlag", Kind::Time, t)));
+    if let (Some(ka), Some(f), Some(tlag)) = (ka, f, tlag) {
+        problems.take(validate_absorption(ka, f, tlag).map_err(invalid_flag));
+    }
     let study = study_args.load(&mut problems);
     problems.finish()?;
-    let (Some(Study { model, subjects, notes }), Some(f), Some(tlag)) = (study, f, tlag) else {
+    let (Some(Study { model, subjects, notes }), Some(ka), Some(f), Some(tlag)) = (study, ka, f, tlag) else {
         return Err(Error::Usage("the arguments could not be read".into()));
     };
     let method = args.method.unwrap_or(if model.is_some() { Method::Map } else { Method::Wls });
     if method == Method::Map && model.is_none() {
         return Err(Error::Usage("--method map needs a population model: give --model FILE".into()));
     }
-    if !(f > 0.0 && f <= 1.0) {
-        return Err(InputError::new("--f", format!("bioavailability must be in (0, 1], found {f}")).into());
-    }
     for n in &notes {
         args.output.note(n);
     }
-    if model.as_ref().is_some_and(|m| m.absorption.is_some()) && (args.f != "1" || args.tlag != "0") {
+    if model.as_ref().is_some_and(|m| m.absorption.is_some()) && (args.f.is_some() || args.tlag.is_some()) {
         args.output
             .note("the model's [absorption] table gives F and the lag time: --f and --tlag are not used");
     }

@@ -1,12 +1,13 @@
 //! `cistern sweep`: candidate regimens over a virtual population — PTA, limit risks and
 //! exposure percentiles per regimen; one shard of the subjects with `--shard`.
 
-use super::args::{OutputArgs, Problems, flag_number, flag_value};
+use super::args::{OutputArgs, Problems, flag_number, flag_value, invalid_flag};
 use super::regimen_grid::GridArgs;
 use super::study::take_all;
 use cistern::case::Case;
 use cistern::covariates::parse_covariates;
 use cistern::dosing::Route;
+use cistern::engine::validate_absorption;
 use cistern::io::output::{CAUTION, Format, Sink, full, io_failure};
 use cistern::io::table::Table;
 use cistern::model::PopulationModel;
@@ -128,8 +129,8 @@ fn population(
         let f = args.f.as_ref().map_or(Some(1.0), |t| problems.take(flag_number("--f", t)));
         let tlag =
             args.tlag.as_ref().map_or(Some(0.0), |t| problems.take(flag_value("--tlag", Kind::Time, t)));
-        if let Some(f) = f.filter(|f| !(*f > 0.0 && *f <= 1.0)) {
-            problems.push(InputError::new("--f", format!("bioavailability must be in (0, 1], found {f}")));
+        if let (Some(f), Some(tlag)) = (f, tlag) {
+            problems.take(validate_absorption(None, f, tlag).map_err(invalid_flag));
         }
         let Some((rows, notes)) = take_all(
             problems,

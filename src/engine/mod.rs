@@ -62,25 +62,28 @@ impl Params {
         if !positive(self.v_l) {
             return Err(Invalid::new("v_l", format!("volume must be positive, found {} L", self.v_l)));
         }
-        if let Some(ka) = self.ka_per_h
-            && !positive(ka)
-        {
-            return Err(Invalid::new("ka_per_h", format!("ka must be positive, found {ka} 1/h")));
-        }
-        if !(self.f.is_finite() && self.f > 0.0 && self.f <= 1.0) {
-            return Err(Invalid::new("f", format!("bioavailability F must be in (0, 1], found {}", self.f)));
-        }
-        if !(self.tlag_h.is_finite() && self.tlag_h >= 0.0) {
-            return Err(Invalid::new(
-                "tlag_h",
-                format!("the lag time must be non-negative, found {} h", self.tlag_h),
-            ));
-        }
+        validate_absorption(self.ka_per_h, self.f, self.tlag_h)?;
         if self.ka_per_h.is_none() && doses.iter().any(|d| d.route == Route::Oral) {
             return Err(Invalid::new("ka_per_h", "oral doses need an absorption rate constant (ka)"));
         }
         Ok(())
     }
+}
+
+/// Check the absorption parameters: ka > 0 when given, F in (0, 1], lag time ≥ 0.
+pub fn validate_absorption(ka_per_h: Option<f64>, f: f64, tlag_h: f64) -> Result<(), Invalid> {
+    if let Some(ka) = ka_per_h
+        && !(ka.is_finite() && ka > 0.0)
+    {
+        return Err(Invalid::new("ka_per_h", format!("ka must be positive, found {ka} 1/h")));
+    }
+    if !(f.is_finite() && f > 0.0 && f <= 1.0) {
+        return Err(Invalid::new("f", format!("bioavailability F must be in (0, 1], found {f}")));
+    }
+    if !(tlag_h.is_finite() && tlag_h >= 0.0) {
+        return Err(Invalid::new("tlag_h", format!("the lag time must be non-negative, found {tlag_h} h")));
+    }
+    Ok(())
 }
 
 /// The parameters in the number type the engine computes in (plain or with derivatives).

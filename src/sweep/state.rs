@@ -338,7 +338,10 @@ impl SweepState {
             && state.shard.index >= 1
             && state.shard.index <= state.shard.count
             && state.shard.span(state.setup.subjects) == (state.subjects_from..state.subjects_to)
-            && state.tallies.iter().all(|t| t.subjects == state.subjects_to - state.subjects_from && t.is_sound());
+            && state
+                .tallies
+                .iter()
+                .all(|t| t.subjects == state.subjects_to - state.subjects_from && t.is_sound());
         if !consistent {
             return Err("a damaged sweep state: its counts, slice and setup do not agree".into());
         }
