@@ -24,6 +24,8 @@ pub enum Kind {
     RateConstant,
     /// Zero-order input rate, base unit mg/h.
     InputRate,
+    /// Area under the concentration curve, base unit mg·h/L.
+    Auc,
 }
 
 impl Kind {
@@ -40,6 +42,14 @@ impl Kind {
             Kind::Volume => &[("l", 1.0), ("ml", 1e-3)],
             Kind::RateConstant => &[("per_h", 1.0), ("1_h", 1.0), ("per_min", 60.0), ("per_d", 1.0 / 24.0)],
             Kind::InputRate => &[("mg_h", 1.0), ("mg_min", 60.0), ("g_h", 1000.0)],
+            Kind::Auc => &[
+                ("mg_h_l", 1.0),
+                ("g_h_l", 1000.0),
+                ("ug_h_ml", 1.0),
+                ("mcg_h_ml", 1.0),
+                ("mg_min_l", 1.0 / 60.0),
+                ("ng_h_ml", 1e-3),
+            ],
         }
     }
 
@@ -70,14 +80,16 @@ impl fmt::Display for Kind {
             Kind::Volume => "volume",
             Kind::RateConstant => "rate constant",
             Kind::InputRate => "input rate",
+            Kind::Auc => "AUC",
         };
         f.write_str(name)
     }
 }
 
-/// Lower-case a unit and write `/` as `_`, so `mL/min`, `ml_min` and `ML/MIN` are one unit.
+/// Lower-case a unit and write `/`, `*`, `.` and `·` as `_`, so `mL/min`, `ml_min` and `ML/MIN`
+/// are one unit, and so are `mg*h/L`, `mg.h/l` and `mg·h/L`.
 fn normalise(unit: &str) -> String {
-    let u = unit.trim().to_ascii_lowercase().replace('/', "_");
+    let u = unit.trim().to_ascii_lowercase().replace(['/', '*', '.', '·'], "_");
     match u.as_str() {
         // `1/h` style rate constants.
         "_h" => "per_h".into(),

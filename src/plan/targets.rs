@@ -105,13 +105,6 @@ fn range(text: &str, kind: Kind) -> Result<(Option<f64>, Option<f64>), String> {
     Ok((lo, hi))
 }
 
-/// An AUC target's unit: mg·h/L, written as a bare number or with `mg*h/l` / `mg_h_l`.
-fn auc_range(text: &str) -> Result<(Option<f64>, Option<f64>), String> {
-    let cleaned: String =
-        text.to_ascii_lowercase().replace("mg*h/l", "").replace("mg_h_l", "").replace("mg.h/l", "");
-    range(&cleaned, Kind::Concentration).map_err(|e| e.replace("concentration", "AUC (mg·h/L)"))
-}
-
 /// Parse one `--target` specification.
 pub fn parse_target(spec: &str) -> Result<Target, String> {
     let (name, value) = spec
@@ -120,7 +113,7 @@ pub fn parse_target(spec: &str) -> Result<Target, String> {
     let name = name.trim().to_ascii_lowercase();
     let target = |metric, (lo, hi)| Target { metric, lo, hi };
     let parsed = match name.as_str() {
-        "auc24" => target(Metric::Auc24, auc_range(value)?),
+        "auc24" => target(Metric::Auc24, range(value, Kind::Auc)?),
         "trough" => target(Metric::Trough, range(value, Kind::Concentration)?),
         "peak" => target(Metric::Peak, range(value, Kind::Concentration)?),
         "cavg" => target(Metric::Cavg, range(value, Kind::Concentration)?),
@@ -144,7 +137,7 @@ pub fn parse_target(spec: &str) -> Result<Target, String> {
             )
         }
         other => match other.strip_prefix("auc_day").map(str::parse::<u32>) {
-            Some(Ok(day)) if day >= 1 => target(Metric::AucDay { day }, auc_range(value)?),
+            Some(Ok(day)) if day >= 1 => target(Metric::AucDay { day }, range(value, Kind::Auc)?),
             _ => {
                 return Err(format!(
                     "unknown target '{other}': expected auc24, auc_day<N>, trough, peak, cavg or above"
@@ -238,6 +231,8 @@ mod tests {
         assert_eq!((t.lo, t.hi), (Some(10.0), None));
         let t = parse_target("peak=..40000ng/ml").unwrap();
         assert_eq!(t.hi, Some(40.0));
+        assert_eq!(parse_target("auc24=400mg*h/l..0.6g.h/l").unwrap().hi, Some(600.0));
+        assert!(parse_target("auc24=400mg/l..").unwrap_err().contains("unknown AUC unit"));
         let t = parse_target("auc_day2=300..").unwrap();
         assert_eq!(t.metric, Metric::AucDay { day: 2 });
         let t = parse_target("above=2mg/l..@60%").unwrap();

@@ -440,8 +440,13 @@ mod tests {
         let targets = [parse_target("auc24=0.30000000000000004..").unwrap()];
         let setup = Setup::new(serde_json::json!({"model": "00ff"}), 7, 10, &candidates, &targets, &limits);
         let mut tally = Tally::new(&limits);
+        // A consistent tally: ten subjects, each sketch holding ten values.
         tally.subjects = 10;
-        tally.trough_mg_l.add(third);
+        for _ in 0..10 {
+            tally.trough_mg_l.add(third);
+            tally.peak_mg_l.add(third);
+            tally.auc24_mg_h_l.add(third);
+        }
         let state = SweepState::new(setup, Shard { index: 1, count: 1 }, vec![tally.clone(), tally]);
         let text = serde_json::to_string(&state).unwrap();
         let back = SweepState::parse(&text).unwrap();
