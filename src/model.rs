@@ -146,8 +146,9 @@ struct RawModel {
 #[serde(deny_unknown_fields)]
 struct RawDrug {
     name: Option<String>,
-    #[allow(dead_code)] // accepted for the reader's benefit; not used in computation
-    note: Option<String>,
+    /// Accepted for the reader's benefit; not used in computation.
+    #[serde(rename = "note")]
+    _note: Option<String>,
 }
 
 #[derive(Deserialize)]

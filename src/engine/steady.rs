@@ -125,11 +125,6 @@ impl SteadyCurve {
         self.at_entry_phase((phase - lag).rem_euclid(tau))
     }
 
-    /// The state just before each dose, in the lag-free frame.
-    pub fn state_before_dose(&self) -> State<f64> {
-        self.before_dose
-    }
-
     /// Peak concentration and its time after the drug enters (lag-free frame).
     fn peak(&self) -> (f64, f64) {
         let tau = self.dose.every_h;

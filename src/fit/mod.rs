@@ -544,9 +544,11 @@ fn fit_map(
         Intervals::LeastSquares => Intervals::Laplace,
         other => other,
     };
-    let estimates = match intervals {
-        Intervals::None | Intervals::LeastSquares => from_covariance(&theta, None, n, 0.0),
-        Intervals::Laplace => from_covariance(&theta, laplace.as_ref(), n, 1.959963984540054),
+    let estimates = match options.intervals {
+        Intervals::None => from_covariance(&theta, None, n, 0.0),
+        Intervals::Laplace | Intervals::LeastSquares => {
+            from_covariance(&theta, laplace.as_ref(), n, 1.959963984540054)
+        }
         Intervals::Posterior => {
             match posterior::sample(&problem, &theta, &opt.hessian, options.draws, seed) {
                 Some(draws) => {

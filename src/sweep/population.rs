@@ -298,14 +298,6 @@ impl Population {
         Population(Source::Table(rows))
     }
 
-    /// The number of subjects when fixed by a table; `None` for a model, which draws any number.
-    pub fn size(&self) -> Option<u64> {
-        match &self.0 {
-            Source::Table(rows) => Some(rows.len() as u64),
-            Source::Model { .. } => None,
-        }
-    }
-
     /// Subject `index` for `seed`: the same whatever else is computed around it.
     pub fn subject(&self, seed: u64, index: u64) -> Result<Subject<'_>, String> {
         let (model, covariates) = match &self.0 {
