@@ -61,6 +61,23 @@ pub struct SteadyState {
     pub loading_dose_mg: f64,
 }
 
+/// The exposure of a regimen at steady state.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Exposure {
+    /// Highest concentration in an interval (mg/L).
+    pub peak_mg_l: f64,
+    /// Time of the peak after the dose (h).
+    pub peak_time_h: f64,
+    /// Concentration just before the next dose (mg/L).
+    pub trough_mg_l: f64,
+    /// AUC over one interval (mg·h/L).
+    pub auc_tau_mg_h_l: f64,
+    /// AUC over 24 h, AUC_τ·24/τ (mg·h/L).
+    pub auc24_mg_h_l: f64,
+    /// Average concentration AUC_τ/τ (mg/L).
+    pub cavg_mg_l: f64,
+}
+
 /// The periodic steady-state curve of a regimen, for metrics and for reading off any phase.
 #[derive(Debug, Clone)]
 pub struct SteadyCurve {
@@ -200,8 +217,9 @@ impl SteadyCurve {
         ((fall - rise) / tau).clamp(0.0, 1.0)
     }
 
-    /// All steady-state metrics.
-    pub fn metrics(&self) -> SteadyState {
+    /// The exposure at steady state: peak, trough, AUC and average concentration — what planning
+    /// and sweeps evaluate for every draw and subject, without the descriptive extras.
+    pub fn exposure(&self) -> Exposure {
         let tau = self.dose.every_h;
         let lag = if self.dose.route == Route::Oral { self.kin.tlag_h } else { 0.0 };
         let (peak, peak_entry) = self.peak();
@@ -211,18 +229,30 @@ impl SteadyCurve {
         let mut w = self.walker();
         w.run_to(tau);
         let auc_tau = w.auc();
-        let cavg = auc_tau / tau;
-        let k = self.kin.k;
-        let accumulation_ratio = 1.0 / -(-k * tau).exp_m1();
-        SteadyState {
+        Exposure {
             peak_mg_l: peak,
             peak_time_h: peak_entry + lag,
             trough_mg_l: trough,
             auc_tau_mg_h_l: auc_tau,
             auc24_mg_h_l: auc_tau * 24.0 / tau,
-            cavg_mg_l: cavg,
+            cavg_mg_l: auc_tau / tau,
+        }
+    }
+
+    /// All steady-state metrics: the exposure and the descriptive extras.
+    pub fn metrics(&self) -> SteadyState {
+        let e = self.exposure();
+        let tau = self.dose.every_h;
+        let accumulation_ratio = 1.0 / -(-self.kin.k * tau).exp_m1();
+        SteadyState {
+            peak_mg_l: e.peak_mg_l,
+            peak_time_h: e.peak_time_h,
+            trough_mg_l: e.trough_mg_l,
+            auc_tau_mg_h_l: e.auc_tau_mg_h_l,
+            auc24_mg_h_l: e.auc24_mg_h_l,
+            cavg_mg_l: e.cavg_mg_l,
             accumulation_ratio,
-            fluctuation_pct: 100.0 * (peak - trough) / cavg,
+            fluctuation_pct: 100.0 * (e.peak_mg_l - e.trough_mg_l) / e.cavg_mg_l,
             time_to_90pct_h: self.time_to_fraction(0.90),
             time_to_95pct_h: self.time_to_fraction(0.95),
             loading_dose_mg: self.dose.amount_mg * accumulation_ratio,
@@ -231,7 +261,7 @@ impl SteadyCurve {
 
     /// Time for a constant input to reach `fraction` of its plateau from no drug:
     /// −ln(1 − x)/k for intravenous input; for oral input the absorption delays it and the
-    /// time solves 1 − (ka·e^(−kt) − k·e^(−ka t))/(ka − k) = x (found by bisection).
+    /// time solves 1 − (ka·e^(−kt) − k·e^(−ka t))/(ka − k) = x (found by safeguarded Newton steps).
     pub fn time_to_fraction(&self, fraction: f64) -> f64 {
         let k = self.kin.k;
         let elimination_only = -(-fraction).ln_1p() / k;

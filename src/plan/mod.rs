@@ -12,7 +12,7 @@ pub mod session;
 pub mod targets;
 
 use crate::dosing::Dose;
-use crate::engine::steady::{RepeatedDose, SteadyCurve, SteadyState};
+use crate::engine::steady::{Exposure, RepeatedDose, SteadyCurve};
 use crate::engine::{self, Params};
 use crate::error::Invalid;
 use candidates::Candidate;
@@ -70,7 +70,7 @@ pub fn last_day_end(targets: &[Target], course: &Course) -> Option<f64> {
 #[derive(Debug, Clone)]
 pub struct Evaluation {
     /// Steady-state metrics.
-    pub steady: SteadyState,
+    pub steady: Exposure,
     /// The value of each target's metric, in target order.
     pub values: Vec<f64>,
     /// Every target met.
@@ -100,7 +100,7 @@ pub fn evaluate(
             every_h: candidate.every_h,
         },
     )?;
-    let steady = curve.metrics();
+    let steady = curve.exposure();
     let values: Vec<f64> = targets
         .iter()
         .map(|t| match t.metric {

@@ -156,7 +156,7 @@ pub fn plan_subject(history: &[Dose], posterior: &Posterior, s: &Settings) -> Re
                 .iter()
                 .map(|p| {
                     SteadyCurve::new(p, dose).map_or(f64::NAN, |curve| {
-                        let m = curve.metrics();
+                        let m = curve.exposure();
                         match metric {
                             Exposure::Auc24 => m.auc24_mg_h_l,
                             Exposure::Trough => m.trough_mg_l,
