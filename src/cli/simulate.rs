@@ -5,7 +5,7 @@ use cistern::dosing::Dose;
 use cistern::engine;
 use cistern::io::doses::{DoseFile, parse_doses};
 use cistern::io::output::Sink;
-use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use cistern::io::output::{CAUTION, Format, csv_field, full, io_failure, readable, render_table};
 use cistern::io::table::Table;
 use cistern::report::layout::{PlotSpec, Series, Stroke};
 use cistern::report::svg;
@@ -204,7 +204,7 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
             writeln!(out, "{header}").map_err(io_failure)?;
             for ((who, _), (conc, _)) in subjects.iter().zip(&curves) {
                 let prefix = match who {
-                    Some(s) if with_subject => csv_field(s) + ",",
+                    Some(s) if with_subject => format!("{},", csv_field(s)),
                     _ => String::new(),
                 };
                 for (t, c) in times.iter().zip(conc) {
@@ -300,9 +300,4 @@ fn curve_plots(
             start_x: None,
         })
         .collect()
-}
-
-/// Quote a CSV field when it needs it.
-fn csv_field(s: &str) -> String {
-    if s.contains([',', '"', '\n', '\r']) { format!("\"{}\"", s.replace('"', "\"\"")) } else { s.to_string() }
 }

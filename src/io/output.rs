@@ -39,6 +39,20 @@ pub fn full(x: f64) -> String {
     format!("{x:?}")
 }
 
+/// A CSV field, quoted when it holds a comma, a quote or a line end (RFC 4180).
+pub fn csv_field(s: &str) -> std::borrow::Cow<'_, str> {
+    if s.contains([',', '"', '\n', '\r']) {
+        format!("\"{}\"", s.replace('"', "\"\"")).into()
+    } else {
+        s.into()
+    }
+}
+
+/// A prescription number as written: `750`, `1.5`, `0.25` (rounded to 1e-6, no trailing zeros).
+pub fn plain(x: f64) -> String {
+    format!("{}", (x * 1e6).round() / 1e6)
+}
+
 /// A number for reading: `digits` significant digits, no exponent for everyday magnitudes.
 pub fn readable(x: f64, digits: usize) -> String {
     if !x.is_finite() {

@@ -3,6 +3,7 @@
 //! derived from the rate limit.
 
 use crate::dosing::Route;
+use crate::io::output::plain;
 use crate::units::{Kind, parse_value};
 use serde::Serialize;
 
@@ -25,7 +26,6 @@ pub struct Candidate {
 impl Candidate {
     /// The regimen as a prescriber writes it: `750 mg infusion over 1.5 h every 12 h`.
     pub fn describe(&self) -> String {
-        let plain = |x: f64| format!("{}", (x * 1e6).round() / 1e6);
         let over =
             if self.duration_h > 0.0 { format!(" over {} h", plain(self.duration_h)) } else { String::new() };
         format!("{} mg {}{over} every {} h", plain(self.amount_mg), self.route, plain(self.every_h))

@@ -6,7 +6,7 @@ use crate::dosing::Dose;
 use crate::engine::{self, Params};
 use crate::fit::{Estimate, FitResult};
 use crate::io::levels::Level;
-use crate::io::output::readable;
+use crate::io::output::{plain, readable};
 use crate::model::PopulationModel;
 use crate::plan::Course;
 use crate::plan::advisor::Advice;
@@ -80,10 +80,6 @@ const GREY: (f32, f32, f32) = (0.45, 0.45, 0.45);
 
 fn r3(x: f64) -> String {
     readable(x, 3)
-}
-
-fn plain(x: f64) -> String {
-    format!("{}", (x * 1e6).round() / 1e6)
 }
 
 fn estimate_cells(e: &Estimate) -> [String; 3] {

@@ -16,7 +16,7 @@ pub mod summary;
 
 use crate::dosing::Dose;
 use crate::error::Error;
-use crate::io::output::io_failure;
+use crate::io::output::{csv_field, io_failure};
 use crate::plan::candidates::Candidate;
 use crate::plan::targets::{Limits, Target};
 use crate::plan::{Course, evaluate, last_day_end};
@@ -61,15 +61,6 @@ pub struct Sweep<'a> {
     pub seed: u64,
 }
 
-/// A CSV field, quoted when it needs it.
-fn csv_text(out: &mut String, s: &str) {
-    if s.contains([',', '"', '\n', '\r']) {
-        let _ = write!(out, "\"{}\"", s.replace('"', "\"\""));
-    } else {
-        out.push_str(s);
-    }
-}
-
 impl Sweep<'_> {
     /// The doses of each candidate from a fresh start, when a target is an AUC over a day of
     /// therapy (built once per candidate).
@@ -109,7 +100,7 @@ impl Sweep<'_> {
             }
             if rows {
                 let _ = write!(text, "{},", index + 1);
-                csv_text(&mut text, origin.unwrap_or(""));
+                text.push_str(&csv_field(origin.unwrap_or("")));
                 let _ = write!(text, ",{},{:?},{:?},", k + 1, params.cl_l_h, params.v_l);
                 if let Some(ka) = params.ka_per_h {
                     let _ = write!(text, "{ka:?}");
