@@ -1,7 +1,7 @@
 //! `cistern fit`: estimate clearance and volume (and ka for oral drugs) from sampled levels.
 
 use super::args::{OutputArgs, Problems, flag_number, flag_value, invalid_flag};
-use super::study::{Study, StudyArgs};
+use super::study::{Study, StudyArgs, seed_and_draws};
 use cistern::Error;
 use cistern::engine::validate_absorption;
 use cistern::fit::objective::Weighting;
@@ -102,8 +102,8 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     let options = FitOptions {
         method,
         intervals: args.intervals,
-        draws: args.draws.or(case.as_ref().and_then(|c| c.draws)).unwrap_or(2000) as usize,
-        seed: args.seed.or(case.as_ref().and_then(|c| c.seed)).unwrap_or(1),
+        draws: seed_and_draws(args.seed, args.draws, case.as_ref()).1 as usize,
+        seed: seed_and_draws(args.seed, args.draws, case.as_ref()).0,
         weighting: args.weighting,
         ka_per_h: ka,
         f,

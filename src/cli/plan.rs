@@ -4,9 +4,9 @@
 
 use super::args::{OutputArgs, Problems, flag_value};
 use super::regimen_grid::GridArgs;
-use super::study::StudyArgs;
+use super::study::{StudyArgs, planning_fit, seed_and_draws};
 use cistern::engine::Params;
-use cistern::fit::{FitOptions, Intervals, Method, fit_subject};
+
 use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
 use cistern::model::Residual;
 use cistern::plan::advisor::Advice;
@@ -189,16 +189,7 @@ fn posterior(args: &PlanArgs, r: &Resolved, problems: &mut Problems) -> Result<O
         r.subject.as_deref(),
         r.study.levels.as_deref().unwrap_or("--levels"),
     )?;
-    let options = FitOptions {
-        method: Method::Map,
-        intervals: Intervals::Posterior,
-        draws: r.draws as usize,
-        seed: r.seed,
-        keep_draws: r.draws as usize,
-        ..FitOptions::default()
-    };
-    let fit = fit_subject(subject, Some(model), &options, cistern::fit::mix_seed(r.seed, 0))
-        .map_err(Error::Usage)?;
+    let fit = planning_fit(subject, model, r.seed, r.draws as usize)?;
     Ok(Some(Subject {
         id: subject.id.clone(),
         doses: subject.doses.clone(),
@@ -216,8 +207,8 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
     let resolved = Resolved {
         study,
         subject: args.subject.clone().or_else(|| case.as_ref().and_then(|c| c.subject.clone())),
-        seed: args.seed.or(case.as_ref().and_then(|c| c.seed)).unwrap_or(1),
-        draws: args.draws.or(case.as_ref().and_then(|c| c.draws)).unwrap_or(2000),
+        seed: seed_and_draws(args.seed, args.draws, case.as_ref()).0,
+        draws: seed_and_draws(args.seed, args.draws, case.as_ref()).1,
     };
     let grid = match args.grid.grid_or_case(case.as_ref()) {
         Ok(g) => Some(g),

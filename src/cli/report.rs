@@ -3,10 +3,10 @@
 
 use super::args::{Problems, flag_value};
 use super::regimen_grid::GridArgs;
-use super::study::StudyArgs;
+use super::study::{StudyArgs, planning_fit, seed_and_draws};
 use cistern::case::{Case, SweepRequest};
 use cistern::covariates::parse_covariates;
-use cistern::fit::{FitOptions, Intervals, Method, fit_subject, mix_seed};
+use cistern::fit::mix_seed;
 use cistern::io::output::readable;
 use cistern::io::output::{CAUTION, Sink};
 use cistern::io::table::Table;
@@ -188,19 +188,10 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
             .into());
         }
     };
-    let seed = args.seed.or(case.seed).unwrap_or(1);
-    let draws = args.draws.or(case.draws).unwrap_or(2000) as usize;
+    let (seed, draws) = seed_and_draws(args.seed, args.draws, Some(&case));
     // The report has no grid flags: all of it comes from the case.
     let (candidates, targets, limits) = GridArgs::default().grid_or_case(Some(&case))?;
-    let options = FitOptions {
-        method: Method::Map,
-        intervals: Intervals::Posterior,
-        draws,
-        seed,
-        keep_draws: draws,
-        ..FitOptions::default()
-    };
-    let fit = fit_subject(subject, Some(model), &options, mix_seed(seed, 0)).map_err(Error::Usage)?;
+    let fit = planning_fit(subject, model, seed, draws as usize)?;
     let posterior = Posterior { point: fit.parameters, draws: fit.draws.clone(), residual: fit.residual };
     let settings = Settings {
         candidates: &candidates,

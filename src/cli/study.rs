@@ -4,7 +4,7 @@
 use super::args::{Problems, flag_number};
 use cistern::case::Case;
 use cistern::covariates::{Covariates, Sex, parse_covariates};
-use cistern::fit::SubjectData;
+use cistern::fit::{FitOptions, FitResult, Intervals, Method, SubjectData, fit_subject, mix_seed};
 use cistern::io::doses::parse_doses;
 use cistern::io::levels::parse_levels;
 use cistern::io::table::Table;
@@ -114,6 +114,34 @@ impl StudyArgs {
         }
         Some(Study { model, subjects, notes })
     }
+}
+
+/// The fit planning starts from: MAP against the model, with `draws` equal-weight posterior
+/// draws kept. Shared by `plan` and `report`, so both plan from the same posterior.
+pub fn planning_fit(
+    subject: &SubjectData,
+    model: &PopulationModel,
+    seed: u64,
+    draws: usize,
+) -> Result<FitResult, Error> {
+    let options = FitOptions {
+        method: Method::Map,
+        intervals: Intervals::Posterior,
+        draws,
+        seed,
+        keep_draws: draws,
+        ..FitOptions::default()
+    };
+    fit_subject(subject, Some(model), &options, mix_seed(seed, 0)).map_err(Error::Usage)
+}
+
+/// The seed and the number of posterior draws: a flag, else the case, else the defaults.
+pub fn seed_and_draws(seed: Option<u64>, draws: Option<u32>, case: Option<&Case>) -> (u64, u32) {
+    let defaults = FitOptions::default();
+    (
+        seed.or(case.and_then(|c| c.seed)).unwrap_or(defaults.seed),
+        draws.or(case.and_then(|c| c.draws)).unwrap_or(defaults.draws as u32),
+    )
 }
 
 /// Keep the value, or record every error.

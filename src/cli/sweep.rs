@@ -219,7 +219,7 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
         Some(case) => args.with_case(case),
         None => args,
     };
-    let seed = args.seed.unwrap_or(1);
+    let seed = args.seed.unwrap_or(cistern::fit::FitOptions::default().seed);
     let mut problems = Problems::new();
     let grid = match grid {
         Ok(g) => Some(g),
