@@ -247,7 +247,8 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
         created_iso: created,
         caution: CAUTION.to_string(),
     };
-    let document = build(&analysis);
+    let plots = concentration_plots(&analysis);
+    let document = build(&analysis, &plots);
     let bytes = pdf::render_pdf(&document).map_err(Error::Failure)?;
     let output = args.output.clone().unwrap_or_else(|| {
         let stem =
@@ -265,7 +266,7 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
     pdf_sink.writer().write_all(&bytes).map_err(cistern::io::output::io_failure)?;
     if let Some(mut sink) = svg_sink {
         sink.writer()
-            .write_all(svg::render_svg(&concentration_plots(&analysis), CAUTION).as_bytes())
+            .write_all(svg::render_svg(&plots, CAUTION).as_bytes())
             .map_err(cistern::io::output::io_failure)?;
         sink.finish()?;
     }

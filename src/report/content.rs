@@ -194,8 +194,9 @@ pub fn concentration_plots(a: &Analysis) -> Vec<PlotSpec> {
         .collect()
 }
 
-/// Build the report.
-pub fn build(a: &Analysis) -> Document {
+/// Build the report around its concentration plots (made once by [`concentration_plots`], so
+/// an SVG export can reuse them).
+pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
     let mut b = Vec::new();
     let fit = a.fit;
     let who = fit.subject.clone().unwrap_or_else(|| "the subject".into());
@@ -322,9 +323,7 @@ pub fn build(a: &Analysis) -> Document {
     for w in &fit.warnings {
         b.push(Block::Note(format!("Warning: {w}.")));
     }
-    for p in concentration_plots(a) {
-        b.push(Block::Plot(p));
-    }
+    b.extend(plots.iter().cloned().map(Block::Plot));
 
     // Recommendation.
     b.push(Block::Heading("Proposed regimen".into()));
