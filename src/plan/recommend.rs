@@ -274,8 +274,11 @@ pub fn plan(input: &PlanInput) -> Result<Plan, Invalid> {
     if input.draws.is_empty() {
         return Err(Invalid::new("draws", "planning needs posterior draws of the subject's parameters"));
     }
-    let mut assessed: Vec<Assessment> =
-        input.candidates.par_iter().map(|c| assess(input, c)).collect::<Result<_, _>>()?;
+    // Collected in candidate order first, so that when several fail the first one's error is
+    // reported whatever the thread count.
+    let results: Vec<Result<Assessment, Invalid>> =
+        input.candidates.par_iter().map(|c| assess(input, c)).collect();
+    let mut assessed: Vec<Assessment> = results.into_iter().collect::<Result<_, _>>()?;
     assessed.sort_by(|a, b| {
         b.pta
             .total_cmp(&a.pta)
