@@ -99,11 +99,12 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
         args.output
             .note("the model's [absorption] table gives F and the lag time: --f and --tlag are not used");
     }
+    let (seed, draws) = seed_and_draws(args.seed, args.draws, case.as_ref());
     let options = FitOptions {
         method,
         intervals: args.intervals,
-        draws: seed_and_draws(args.seed, args.draws, case.as_ref()).1 as usize,
-        seed: seed_and_draws(args.seed, args.draws, case.as_ref()).0,
+        draws: draws as usize,
+        seed,
         weighting: args.weighting,
         ka_per_h: ka,
         f,

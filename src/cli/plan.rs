@@ -204,11 +204,12 @@ fn posterior(args: &PlanArgs, r: &Resolved, problems: &mut Problems) -> Result<O
 pub fn run(args: PlanArgs) -> Result<(), Error> {
     let mut problems = Problems::new();
     let (study, case) = args.study.with_case()?;
+    let (seed, draws) = seed_and_draws(args.seed, args.draws, case.as_ref());
     let resolved = Resolved {
         study,
         subject: args.subject.clone().or_else(|| case.as_ref().and_then(|c| c.subject.clone())),
-        seed: seed_and_draws(args.seed, args.draws, case.as_ref()).0,
-        draws: seed_and_draws(args.seed, args.draws, case.as_ref()).1,
+        seed,
+        draws,
     };
     let grid = match args.grid.grid_or_case(case.as_ref()) {
         Ok(g) => Some(g),
