@@ -16,11 +16,9 @@
 //! repeated) dose times, overlapping and very short infusions, ka equal or close to k, lag
 //! times, zero doses, and query times in random order, some exactly at dose times.
 
-mod common;
-
+use crate::common::{assert_rel, rel_err};
 use cistern::dosing::{Dose, Route};
 use cistern::engine::{Params, auc, concentrations};
-use common::{assert_rel, rel_err};
 use ode_solvers::{Dop853, OutputType, System, Vector4};
 
 /// The bound on the worst relative error against the independent solver.

@@ -10,15 +10,13 @@
 //! (and 1/y landing inside both would be luck, not a reason). Case 6's unweighted nonlinear fit
 //! is the same estimator as our unweighted least squares, so it is checked instead.
 
-mod common;
-
+use crate::common::assert_rel;
 use cistern::covariates::{Covariates, Sex, cockcroft_gault};
 use cistern::dosing::{Dose, Route};
 use cistern::fit::objective::{Fixed, Likelihood, Problem, Weighting, blq_term, quantified_term};
 use cistern::fit::{FitOptions, Intervals, Method, SubjectData, fit_subject};
 use cistern::io::levels::Level;
 use cistern::model::Residual;
-use common::assert_rel;
 use serde_json::Value;
 use std::path::Path;
 use std::process::Command;

@@ -9,8 +9,7 @@
 //! - The analytic gradient of the objective equals finite differences of the objective.
 //! - Fits do not depend on the number of threads, and depend on the seed only through it.
 
-mod common;
-
+use crate::common::{assert_rel, rel_err};
 use cistern::covariates::Covariates;
 use cistern::dosing::{Dose, Regimen, Route};
 use cistern::engine::{self, Params};
@@ -19,7 +18,6 @@ use cistern::fit::{FitOptions, FitResult, Intervals, Method, SubjectData, fit_al
 use cistern::io::levels::Level;
 use cistern::io::tomlfile::TomlText;
 use cistern::model::{Parameter, PopulationModel, Residual};
-use common::{assert_rel, rel_err};
 use proptest::prelude::*;
 
 fn level(time_h: f64, conc: f64) -> Level {

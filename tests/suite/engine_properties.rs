@@ -12,12 +12,10 @@
 //! that perturbs exponents by about k·ε·t ≲ 10 × 2.2e-16 × 1250 ≈ 3e-12 relative, so 1e-10.
 //! Values below 1e-100 mg/L are essentially zero and compared absolutely.
 
-mod common;
-
+use crate::common::{argmax, assert_rel};
 use cistern::dosing::{Dose, Route};
 use cistern::engine::steady::{RepeatedDose, SteadyCurve};
 use cistern::engine::{Params, auc, concentrations};
-use common::{argmax, assert_rel};
 use proptest::prelude::*;
 use proptest::test_runner::RngSeed;
 

@@ -8,15 +8,13 @@
 //! fictional drug); the one published value is the AUC24 window of the 2020 consensus
 //! guideline, used as a check value only.
 
-mod common;
-
+use crate::common::{Ran, assert_abs, assert_rel, cistern_at, demo_copy};
 use cistern::dosing::Route;
 use cistern::engine::Params;
 use cistern::engine::steady::{RepeatedDose, SteadyCurve};
 use cistern::plan::candidates::Candidate;
 use cistern::plan::targets::{Limits, parse_target};
 use cistern::plan::{Course, evaluate};
-use common::{Ran, assert_abs, assert_rel, cistern_at, demo_copy};
 use serde_json::{Value, json};
 use std::path::Path;
 

@@ -7,12 +7,10 @@
 //! Printed and derived values are compared to half a unit in their last printed digit unless
 //! the source states a tolerance; exact identities to 1e-12 relative.
 
-mod common;
-
+use crate::common::{argmax, assert_abs, assert_rel};
 use cistern::dosing::{Dose, Route};
 use cistern::engine::steady::{RepeatedDose, SteadyCurve};
 use cistern::engine::{Params, auc, concentrations};
-use common::{argmax, assert_abs, assert_rel};
 
 /// Tolerance for exact identities (relative).
 const EXACT: f64 = 1e-12;

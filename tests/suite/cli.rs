@@ -7,14 +7,12 @@
 //! independent ODE solver and published cases elsewhere; a few exact identities and published
 //! values are repeated here so a wrong wiring (say, `--k` read as clearance) cannot pass.
 
-mod common;
-
+use crate::common::assert_rel;
 use cistern::dosing::{Dose, Regimen, Route};
 use cistern::engine::steady::{RepeatedDose, SteadyCurve};
 use cistern::engine::{self, Params};
 use cistern::io::output::CAUTION;
 use cistern::units::{Kind, parse_value};
-use common::assert_rel;
 use serde_json::Value;
 use std::path::Path;
 use std::process::Command;

@@ -12,9 +12,7 @@
 //! Without poppler the poppler checks are skipped with a message, unless
 //! `CISTERN_REQUIRE_POPPLER=1`, which makes them mandatory (CI sets it).
 
-mod common;
-
-use common::{
+use crate::common::{
     Ran, cistern_at, count_pixels, decode_png, demo_copy, find, find_all, page_texts, poppler_available,
     render_pages, squeeze, words,
 };

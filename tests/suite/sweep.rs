@@ -24,10 +24,10 @@ use std::process::Command;
 
 /// CL log-normal around 4 L/h with CV 30 %, V around 50 L with CV 25 %, correlated 0.3;
 /// no covariates. Invented values.
-const MODEL: &str = include_str!("fixtures/plain_model.toml");
+const MODEL: &str = include_str!("../fixtures/plain_model.toml");
 
 /// The same with CL scaled by creatinine clearance (power 0.75 at 100 mL/min) and V by weight.
-const COVARIATE_MODEL: &str = include_str!("fixtures/covariate_model.toml");
+const COVARIATE_MODEL: &str = include_str!("../fixtures/covariate_model.toml");
 
 fn model(text: &str) -> PopulationModel {
     PopulationModel::parse(&TomlText::new("model.toml", text)).expect("a valid model")

@@ -8,8 +8,7 @@
 //! It records the objectives at fixed points too, so the objective itself is checked apart
 //! from the optimiser. CI does not run Python: it reads the committed JSON.
 
-mod common;
-
+use crate::common::{assert_rel, rel_err};
 use cistern::covariates::Covariates;
 use cistern::dosing::{Dose, Route};
 use cistern::fit::objective::{Fixed, Likelihood, Prior, Problem, Weighting};
@@ -17,7 +16,6 @@ use cistern::fit::{FitOptions, FitResult, Intervals, Method, SubjectData, fit_su
 use cistern::io::levels::Level;
 use cistern::io::tomlfile::TomlText;
 use cistern::model::{PopulationModel, Residual};
-use common::{assert_rel, rel_err};
 use serde::Deserialize;
 use std::collections::BTreeMap;
 
@@ -95,7 +93,7 @@ struct Case {
 }
 
 fn reference() -> Reference {
-    let r: Reference = serde_json::from_str(include_str!("reference/fit_reference.json"))
+    let r: Reference = serde_json::from_str(include_str!("../reference/fit_reference.json"))
         .expect("tests/reference/fit_reference.json parses");
     assert_eq!(r.scipy, SCIPY_VERSION, "the reference values were regenerated: update SCIPY_VERSION");
     assert!(!r.numpy.is_empty() && r.cases.len() >= 5);

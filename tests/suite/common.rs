@@ -1,6 +1,4 @@
-//! Helpers shared by the integration tests (each test file uses a subset of them).
-
-#![allow(dead_code)]
+//! Helpers shared by the integration test modules.
 
 /// Relative error of `actual` against `expected`, measured against at least `floor`, so that
 /// values which are essentially zero are compared absolutely (to `floor` times the tolerance).

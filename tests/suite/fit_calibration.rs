@@ -31,7 +31,7 @@ const LLOQ: f64 = 0.5;
 
 /// Invented model of a fictional drug: the example values, with covariates and a
 /// CL–V correlation.
-const MODEL: &str = include_str!("fixtures/covariate_model.toml");
+const MODEL: &str = include_str!("../fixtures/covariate_model.toml");
 
 /// One virtual subject and the truth behind its levels.
 struct Virtual {

@@ -12,7 +12,7 @@
 //! barely moves along the ridge; a level at the end of the infusion depends mostly on V and
 //! cuts across the ridge, which pins CL down — and with it AUC24.
 
-mod common;
+use crate::common;
 
 use cistern::covariates::Covariates;
 use cistern::dosing::{Dose, Route};
@@ -30,7 +30,7 @@ use statrs::distribution::Normal;
 
 /// Invented population model: CL 4 L/h (CV 30 %), V 50 L (CV 25 %), correlated 0.3;
 /// residual error 0.5 mg/L + 10 %.
-const MODEL: &str = include_str!("fixtures/plain_model.toml");
+const MODEL: &str = include_str!("../fixtures/plain_model.toml");
 
 /// The invented trough: 6.4 mg/L half an hour before the fourth dose.
 const TROUGH: Level = Level { time_h: 35.5, conc_mg_l: Some(6.4), lloq_mg_l: None, line: 0 };

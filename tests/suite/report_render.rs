@@ -5,15 +5,15 @@
 //! Without poppler the poppler checks are skipped with a message, unless
 //! `CISTERN_REQUIRE_POPPLER=1`, which makes them mandatory (CI sets it).
 
-mod common;
-
+use crate::common::{
+    count_pixels, decode_png, find, page_texts, poppler_available, render_pages, squeeze, words,
+};
 use cistern::io::output::CAUTION;
 use cistern::report::layout::{
     Band, BarChart, Block, Document, HLine, Marker, PlotSpec, Series, Stroke, Table,
 };
 use cistern::report::pdf::render_pdf;
 use cistern::report::svg::render_svg;
-use common::{count_pixels, decode_png, find, page_texts, poppler_available, render_pages, squeeze, words};
 use std::process::Command;
 
 const FOOTER: &str = "cistern 0.1.0 · created 2025-03-01T14:05:09Z";

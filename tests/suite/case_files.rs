@@ -7,9 +7,7 @@
 //! — in the output directory. Then: flags override the case, and the paths in a case are
 //! relative to the case file, not to the working directory.
 
-mod common;
-
-use common::{Ran, cistern_at, demo_copy, page_texts, squeeze};
+use crate::common::{Ran, cistern_at, demo_copy, page_texts, squeeze};
 use serde_json::Value;
 use std::path::Path;
 
