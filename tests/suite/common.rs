@@ -229,3 +229,29 @@ pub fn render_pages(pdf: &std::path::Path, dir: &std::path::Path, dpi: u32) -> V
     pngs.sort();
     pngs
 }
+
+// ---- The published check cases ----
+
+/// The published check case named `name` from `cistern::verify::cases()`, the one place that
+/// states each case's expected value, source and tolerance (docs/references.md lists them).
+pub fn published(name: &str) -> cistern::verify::Case {
+    cistern::verify::cases()
+        .into_iter()
+        .find(|c| c.name == name)
+        .unwrap_or_else(|| panic!("no published check case is named {name:?}"))
+}
+
+/// Panics with `what` unless `actual` is within the stated tolerance of the expected value of
+/// the published case `name` (see [`published`]); used where a test reaches the case's value
+/// through another code path than the catalogue's own computation.
+#[track_caller]
+pub fn assert_published(actual: f64, name: &str, what: &str) {
+    let case = published(name);
+    assert!(
+        case.tolerance.allows(actual, case.expected),
+        "{what}: got {actual}, expected {} {} ({name}; {})",
+        case.expected,
+        case.tolerance.label(),
+        case.source
+    );
+}

@@ -2,8 +2,8 @@
 //! determinism across thread counts and shards, and the bad-input catalog.
 //!
 //! The closed forms rest on one exact identity: at steady state AUC24 = daily dose / CL,
-//! whatever V is (reference-cases case 10). With CL log-normal, ln CL ~ N(ln CL_typ, ω²), the
-//! share of subjects with AUC24 in a window and the percentiles of AUC24 follow from the
+//! whatever V is (docs/references.md, case 10). With CL log-normal, ln CL ~ N(ln CL_typ, ω²),
+//! the share of subjects with AUC24 in a window and the percentiles of AUC24 follow from the
 //! normal CDF and quantile function (statrs). The sweep draws a finite sample, so each check
 //! allows the Monte-Carlo error, stated from the binomial standard error beside it.
 
@@ -115,8 +115,9 @@ fn pta_and_auc24_percentiles_match_the_log_normal_closed_form() {
         assert_eq!(row.subjects, 20_000);
         check_closed_form(row, 4.0, PUBLISHED_WINDOW);
     }
-    // Reference-cases case 10: 1000 mg every 12 h with CL = 4 L/h gives AUC24 = 500 mg·h/L
-    // (derived identity), inside the published window; the typical subject is the median one.
+    // Reference case 10 (docs/references.md): 1000 mg every 12 h with CL = 4 L/h gives
+    // AUC24 = 500 mg·h/L (derived identity), inside the published window; the typical subject
+    // is the median one.
     let median = summary.regimens[0].auc24_mg_h_l.p50.unwrap();
     assert!((median / 500.0 - 1.0).abs() < 0.02, "median AUC24 {median} vs 500 for the typical CL");
 }
@@ -124,7 +125,7 @@ fn pta_and_auc24_percentiles_match_the_log_normal_closed_form() {
 #[test]
 fn a_covariate_pool_shifts_clearance_as_the_model_says() {
     // One pool subject: a 50-year-old man of 70 kg with serum creatinine 0.9 mg/dL, whose
-    // Cockcroft–Gault clearance is 97.22 mL/min (reference-cases case 9, Cockcroft DW, Gault
+    // Cockcroft–Gault clearance is 97.22 mL/min (reference case 9, Cockcroft DW, Gault
     // MH. Nephron 1976;16:31–41). Typical CL = 4 · (97.22/100)^0.75 L/h.
     let mut cov = Covariates::default();
     for (k, v) in [("age_y", 50.0), ("weight_kg", 70.0), ("scr_mg_dl", 0.9)] {
