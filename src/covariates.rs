@@ -8,7 +8,7 @@
 //! - Ideal body weight, Devine BJ. Drug Intell Clin Pharm 1974;8:650–655:
 //!   50 kg (men) or 45.5 kg (women) + 2.3 kg per inch of height over 5 feet.
 //!
-//! (Citations recalled from memory.)
+//! (The Devine citation is recalled from memory: its journal details could not be confirmed.)
 
 use crate::error::InputError;
 use crate::io::table::Table;

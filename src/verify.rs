@@ -2,11 +2,12 @@
 //! commands use, so that an installed copy can show that it computes what it should.
 //!
 //! Each case names its source as the project's published check cases do ("Bourne notes" is
-//! [`BOURNE_NOTES`]; see docs/methods.md). "Printed" values appear in the source; "derived"
-//! values were computed from the source's published formula or data; facts of the trade are
-//! "common practice, no source". A case uses the tolerance its source states; where none is
-//! stated, half a unit in the last digit of the expected value, and 1e-12 relative for exact
-//! identities.
+//! [`BOURNE_NOTES`]; docs/references.md lists the cases and their sources). "Printed" values
+//! appear in the source; "derived" values were computed from the source's published formula or
+//! data; facts of the trade are "common practice, no source". A case uses the tolerance its
+//! source states; where none is stated, half a unit in the last digit of the expected value, and
+//! 1e-12 relative for exact identities. This catalogue is the one place that states each case's
+//! expected value and tolerance: the tests look them up here.
 
 use crate::covariates::{Covariates, Sex};
 use crate::dosing::{Dose, Regimen, Route};

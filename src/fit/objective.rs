@@ -1,7 +1,7 @@
 //! Objective functions over log-parameters θ = (ln CL, ln V[, ln ka]).
 //!
-//! MAP (Sheiner LB, Beal SL. J Pharm Sci 1982;71:1344–1348; citation recalled from
-//! memory), the −2 log posterior up to a constant:
+//! MAP (Sheiner LB, Beal SL. J Pharm Sci 1982;71:1344–1348; issue number not confirmed),
+//! the −2 log posterior up to a constant:
 //!
 //! ```text
 //! Σ_quantified [ln(2π σᵢ²) + (yᵢ − fᵢ)²/σᵢ²]  +  Σ_BLQ −2 ln Φ((LLOQᵢ − fᵢ)/σᵢ)  +  ηᵀ Ω⁻¹ η

@@ -3,7 +3,7 @@
 //! The proposal starts as a multivariate Student t (ν = 5) centred at the MAP with the Laplace
 //! covariance 2·H⁻¹ (the objective is −2 log posterior), then is refitted once to the weighted
 //! mean and covariance of its own draws (population Monte Carlo: Cappé O et al. J Comput Graph
-//! Stat 2004;13:907; citation recalled from memory). Self-normalised weights
+//! Stat 2004;13(4):907–929). Self-normalised weights
 //! w ∝ exp(−½·objective(θ)) / q(θ) make the weighted draws a consistent sample of the exact
 //! posterior, so intervals do not inherit the Laplace approximation's bias.
 

@@ -2,8 +2,8 @@
 //!
 //! For each candidate sampling time t the advisor asks how much one more level at t would
 //! shrink the posterior uncertainty of the exposure the target is on (AUC24, trough, …). It is
-//! a preposterior analysis (Chaloner K, Verdinelli I. Stat Sci 1995;10:273–304, citation
-//! recalled from memory) done by importance reweighting of the current posterior draws θᵢ:
+//! a preposterior analysis (Chaloner K, Verdinelli I. Statist Sci 1995;10(3):273–304) done by
+//! importance reweighting of the current posterior draws θᵢ:
 //!
 //! 1. simulate a future level y = f(θₛ, t) + ε, with θₛ a random draw and ε ~ N(0, σ²(f));
 //! 2. weight every draw by its likelihood p(y | θᵢ) — the posterior after observing y;

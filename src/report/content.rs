@@ -546,10 +546,10 @@ fn methods(a: &Analysis, b: &mut Vec<Block>) {
             .into(),
     ));
     for r in [
-        "Sheiner LB, Beal SL. Bayesian individualization of pharmacokinetics: simple implementation and comparison with non-Bayesian methods. J Pharm Sci 1982;71:1344–1348 (recalled from memory).",
+        "Sheiner LB, Beal SL. Bayesian individualization of pharmacokinetics: simple implementation and comparison with non-Bayesian methods. J Pharm Sci 1982;71:1344–1348 (issue number not confirmed).",
         "Beal SL. Ways to fit a PK model with some data below the quantification limit. J Pharmacokinet Pharmacodyn 2001;28:481–504.",
         "Cockcroft DW, Gault MH. Prediction of creatinine clearance from serum creatinine. Nephron 1976;16:31–41.",
-        "Chaloner K, Verdinelli I. Bayesian experimental design: a review. Stat Sci 1995;10:273–304 (recalled from memory).",
+        "Chaloner K, Verdinelli I. Bayesian experimental design: a review. Statist Sci 1995;10(3):273–304.",
     ] {
         b.push(Block::Note(r.into()));
     }

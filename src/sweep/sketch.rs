@@ -3,7 +3,7 @@
 //! Positive values fall into logarithmic bins: with γ = (1 + α)/(1 − α), bin i holds
 //! (γ^(i−1), γ^i] and is reported as 2γ^i/(γ + 1), which is within a relative α of every value
 //! in the bin. This is the construction of DDSketch (Masson C, Rim JE, Lee HK. PVLDB
-//! 2019;12(12):2195–2205; citation recalled from memory). Counts are integers, so adding two
+//! 2019;12(12):2195–2205; author order not confirmed). Counts are integers, so adding two
 //! sketches is exact and gives the same sketch in any order: shards merge to exactly the
 //! unsharded result. The memory is one counter per bin between the smallest and the largest
 //! value seen (about 1,150 bins per decade at α = 0.1 %), whatever the number of values.
