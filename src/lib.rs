@@ -17,6 +17,7 @@ pub mod io;
 pub mod model;
 pub mod plan;
 pub mod report;
+pub mod stats;
 pub mod sweep;
 pub mod units;
 pub mod verify;

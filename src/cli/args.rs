@@ -3,7 +3,7 @@
 //! Value flags accept a leading `-` (`allow_hyphen_values`), so `--start -12h` works and a
 //! negative `--every -5h` reaches our own check, whose message names the flag.
 
-use cistern::dosing::{Regimen, Route};
+use cistern::dosing::{Regimen, Route, Schedule};
 use cistern::engine::Params;
 use cistern::io::output::{CAUTION, Format, Sink};
 use cistern::units::{Kind, parse_value};
@@ -206,8 +206,8 @@ impl RegimenArgs {
         self.dose.is_some() || self.every.is_some() || self.count.is_some() || self.duration.is_some()
     }
 
-    /// The regimen, with every problem reported. `count` defaults to `default_count`.
-    pub fn regimen(&self, problems: &mut Problems, default_count: Option<u32>) -> Option<Regimen> {
+    /// The schedule, with every problem reported. `count` defaults to `default_count`.
+    pub fn schedule(&self, problems: &mut Problems, default_count: Option<u32>) -> Option<Schedule> {
         let amount = match &self.dose {
             Some(t) => problems.take(flag_value("--dose", Kind::Amount, t)),
             None => {
@@ -250,16 +250,13 @@ impl RegimenArgs {
             }
         };
         let start = problems.take(flag_value("--start", Kind::Time, &self.start));
-        let regimen = Regimen {
-            amount_mg: amount?,
-            every_h: every?,
+        let schedule = Schedule {
+            regimen: Regimen { amount_mg: amount?, every_h: every?, duration_h: duration?, route: route? },
             count: count?,
-            route: route?,
-            duration_h: duration?,
             start_h: start?,
         };
-        match regimen.validate() {
-            Ok(()) => Some(regimen),
+        match schedule.validate() {
+            Ok(()) => Some(schedule),
             Err(invalid) => {
                 problems.push(invalid_flag(invalid));
                 None

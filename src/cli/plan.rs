@@ -305,10 +305,10 @@ fn write_csv(out: &mut dyn std::io::Write, plan: &Plan) -> std::io::Result<()> {
         let p = &a.predicted;
         w.write_record([
             (i + 1).to_string(),
-            full(a.amount_mg),
-            full(a.every_h),
-            full(a.duration_h),
-            a.route.to_string(),
+            full(a.regimen.amount_mg),
+            full(a.regimen.every_h),
+            full(a.regimen.duration_h),
+            a.regimen.route.to_string(),
             full(a.daily_mg),
             full(a.pta),
             opt(a.p_over_peak),
@@ -350,7 +350,7 @@ fn table(post: &Subject, targets: &[Target], plan: &Plan, advice: Option<&Advice
         .map(|(i, a)| {
             vec![
                 (i + 1).to_string(),
-                a.candidate().describe(),
+                a.regimen.describe(),
                 format!("{:.1} %", 100.0 * a.pta),
                 band(&a.predicted.peak_mg_l, 3),
                 band(&a.predicted.trough_mg_l, 3),
@@ -384,7 +384,7 @@ fn table(post: &Subject, targets: &[Target], plan: &Plan, advice: Option<&Advice
             let a = &r.assessment;
             text += &format!(
                 "Recommended: {} from {} h — PTA {:.1} %",
-                a.candidate().describe(),
+                a.regimen.describe(),
                 readable(r.start_h, 5),
                 100.0 * a.pta
             );
