@@ -1,5 +1,6 @@
 //! Output: formats, full-precision numbers, plain-text tables, and atomic file writes.
 
+use crate::choice::choice_enum;
 use crate::error::Error;
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -8,15 +9,17 @@ use std::path::{Path, PathBuf};
 pub const CAUTION: &str = "Not clinical advice: these are model calculations for research. \
 Dosing decisions belong to licensed clinicians following local protocols and the product labelling.";
 
-/// How results are printed.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
-pub enum Format {
-    /// Aligned columns for reading (the caution is printed below).
-    Table,
-    /// Pure data for any CSV reader (the caution goes to stderr).
-    Csv,
-    /// One JSON document with a `caution` field.
-    Json,
+choice_enum! {
+    /// How results are printed.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum Format: "format" {
+        /// Aligned columns for reading (the caution is printed below).
+        Table = "table",
+        /// Pure data for any CSV reader (the caution goes to stderr).
+        Csv = "csv",
+        /// One JSON document with a `caution` field.
+        Json = "json",
+    }
 }
 
 impl Format {
