@@ -10,6 +10,7 @@
 use super::Outcome;
 use super::sketch::{RELATIVE_ERROR, Sketch};
 use crate::dosing::Route;
+use crate::io::digest::sha256_hex;
 use crate::plan::candidates::Candidate;
 use crate::plan::dose_limits_broken;
 use crate::plan::targets::{Limits, Target};
@@ -19,8 +20,8 @@ use std::ops::Range;
 
 /// The `format` field of a state file.
 pub const STATE_FORMAT: &str = "cistern sweep state";
-/// The layout version of a state file.
-pub const STATE_VERSION: u32 = 1;
+/// The layout version of a state file (2: SHA-256 fingerprints; 1 had FNV-1a).
+pub const STATE_VERSION: u32 = 2;
 
 /// f64 as its shortest round-trip text.
 mod exact {
@@ -52,11 +53,6 @@ mod exact_opt {
             .map(|t| t.parse().map_err(|_| D::Error::custom(format!("expected a number, found '{t}'"))))
             .transpose()
     }
-}
-
-/// FNV-1a, 64 bits: a stable fingerprint of bytes (not a cryptographic hash).
-pub fn fnv1a64(bytes: &[u8]) -> u64 {
-    bytes.iter().fold(0xcbf2_9ce4_8422_2325, |h, &b| (h ^ u64::from(b)).wrapping_mul(0x0100_0000_01b3))
 }
 
 /// One candidate regimen as swept.
@@ -165,9 +161,9 @@ impl Setup {
         }
     }
 
-    /// A short fingerprint of the setup, to tell sweeps apart at a glance.
+    /// The setup's fingerprint (SHA-256 of its JSON), to tell sweeps apart at a glance.
     pub fn fingerprint(&self) -> String {
-        format!("{:016x}", fnv1a64(serde_json::to_string(self).unwrap_or_default().as_bytes()))
+        sha256_hex(serde_json::to_string(self).unwrap_or_default().as_bytes())
     }
 
     /// The names of the top-level fields in which two setups differ.
