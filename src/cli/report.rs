@@ -214,7 +214,7 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
             std::fs::read(f).map_err(|e| InputError::new(path_text(f), format!("cannot read: {e}")))?;
         digests.push((path_text(f), sha256_hex(&bytes)));
     }
-    let created = iso_utc(now_epoch_seconds());
+    let created = iso_utc(now_epoch_seconds()).map_err(Error::Failure)?;
     let analysis = Analysis {
         title: case
             .title

@@ -5,6 +5,8 @@
 //! fix the clock.
 
 use std::time::{SystemTime, UNIX_EPOCH};
+use time::OffsetDateTime;
+use time::format_description::well_known::Rfc3339;
 
 /// Seconds since the epoch: `SOURCE_DATE_EPOCH` when set and valid, else the system clock.
 pub fn now_epoch_seconds() -> i64 {
@@ -14,21 +16,13 @@ pub fn now_epoch_seconds() -> i64 {
         .unwrap_or_else(|| SystemTime::now().duration_since(UNIX_EPOCH).map_or(0, |d| d.as_secs() as i64))
 }
 
-/// `YYYY-MM-DDThh:mm:ssZ` for seconds since the epoch (proleptic Gregorian calendar; the
-/// days-to-civil conversion of H. Hinnant's public-domain date algorithms).
-pub fn iso_utc(seconds: i64) -> String {
-    let days = seconds.div_euclid(86_400);
-    let secs = seconds.rem_euclid(86_400);
-    let z = days + 719_468;
-    let era = z.div_euclid(146_097);
-    let doe = z.rem_euclid(146_097);
-    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
-    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
-    let mp = (5 * doy + 2) / 153;
-    let day = doy - (153 * mp + 2) / 5 + 1;
-    let month = if mp < 10 { mp + 3 } else { mp - 9 };
-    let year = yoe + era * 400 + i64::from(month <= 2);
-    format!("{year:04}-{month:02}-{day:02}T{:02}:{:02}:{:02}Z", secs / 3600, secs % 3600 / 60, secs % 60)
+/// `YYYY-MM-DDThh:mm:ssZ` (RFC 3339, UTC) for seconds since the epoch, or an error for a time
+/// outside the years 0000 to 9999.
+pub fn iso_utc(seconds: i64) -> Result<String, String> {
+    OffsetDateTime::from_unix_timestamp(seconds)
+        .map_err(|e| e.to_string())
+        .and_then(|t| t.format(&Rfc3339).map_err(|e| e.to_string()))
+        .map_err(|e| format!("the creation time {seconds} s after 1970 cannot be written as a date: {e}"))
 }
 
 #[cfg(test)]
@@ -38,9 +32,11 @@ mod tests {
     #[test]
     fn known_dates() {
         // Exact identities of the calendar: the epoch, a leap day, the end of 1999.
-        assert_eq!(iso_utc(0), "1970-01-01T00:00:00Z");
-        assert_eq!(iso_utc(951_782_400), "2000-02-29T00:00:00Z");
-        assert_eq!(iso_utc(946_684_799), "1999-12-31T23:59:59Z");
-        assert_eq!(iso_utc(-1), "1969-12-31T23:59:59Z");
+        assert_eq!(iso_utc(0).unwrap(), "1970-01-01T00:00:00Z");
+        assert_eq!(iso_utc(951_782_400).unwrap(), "2000-02-29T00:00:00Z");
+        assert_eq!(iso_utc(946_684_799).unwrap(), "1999-12-31T23:59:59Z");
+        assert_eq!(iso_utc(-1).unwrap(), "1969-12-31T23:59:59Z");
+        // Years past 9999 have no RFC 3339 date.
+        assert!(iso_utc(253_402_300_800).is_err());
     }
 }
