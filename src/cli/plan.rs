@@ -2,7 +2,7 @@
 //! attainment over the posterior, recommend one that respects every limit, and advise when to
 //! draw the next level.
 
-use super::args::{OutputArgs, Problems, flag_value};
+use super::args::{OutputArgs, Problems, choice, flag_value};
 use super::regimen_grid::GridArgs;
 use super::study::{StudyArgs, planning_fit, seed_and_draws};
 use cistern::engine::Params;
@@ -56,7 +56,7 @@ pub struct PlanArgs {
     #[command(flatten)]
     grid: GridArgs,
     /// Exposure the next-level advice should pin down [default: that of the first target]
-    #[arg(long, value_enum)]
+    #[arg(long, value_parser = choice::<Exposure>())]
     advise_on: Option<Exposure>,
     /// Dosing intervals of the new regimen searched for the next sampling time
     #[arg(long, default_value_t = 2, value_parser = clap::value_parser!(u32).range(1..=20))]

@@ -8,6 +8,7 @@ use cistern::case::{Case, SweepRequest};
 use cistern::covariates::parse_covariates;
 use cistern::dosing::Regimen;
 use cistern::fit::mix_seed;
+use cistern::io::digest::sha256_hex;
 use cistern::io::output::readable;
 use cistern::io::output::{CAUTION, Sink};
 use cistern::io::table::Table;
@@ -16,7 +17,7 @@ use cistern::plan::session::{Posterior, Settings, plan_subject};
 use cistern::plan::targets::{Limits, Target};
 use cistern::report::content::SweepRows;
 use cistern::report::content::{Analysis, build, concentration_plots};
-use cistern::report::provenance::{iso_utc, now_epoch_seconds, sha256_hex};
+use cistern::report::provenance::{iso_utc, now_epoch_seconds};
 use cistern::report::{pdf, svg};
 use cistern::sweep::Sweep;
 use cistern::sweep::population::{CovariateSource, Population};
@@ -207,7 +208,7 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
             std::fs::read(f).map_err(|e| InputError::new(path_text(f), format!("cannot read: {e}")))?;
         digests.push((path_text(f), sha256_hex(&bytes)));
     }
-    let created = iso_utc(now_epoch_seconds());
+    let created = iso_utc(now_epoch_seconds()).map_err(Error::Failure)?;
     let analysis = Analysis {
         title: case
             .title

@@ -7,23 +7,26 @@ use super::advisor::{Advice, Question, advise};
 use super::candidates::amount_step;
 use super::recommend::{Plan, PlanInput, plan};
 use super::targets::{Limits, Metric, Target};
+use crate::choice::choice_enum;
 use crate::dosing::{Dose, Regimen};
 use crate::engine::Params;
 use crate::engine::steady::SteadyCurve;
 use crate::error::Invalid;
 use crate::model::Residual;
 
-/// An exposure the next-level advice can pin down.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
-pub enum Exposure {
-    /// Steady-state AUC over 24 h.
-    Auc24,
-    /// Steady-state trough.
-    Trough,
-    /// Steady-state peak.
-    Peak,
-    /// Steady-state average concentration.
-    Cavg,
+choice_enum! {
+    /// An exposure the next-level advice can pin down.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum Exposure: "exposure" {
+        /// Steady-state AUC over 24 h.
+        Auc24 = "auc24",
+        /// Steady-state trough.
+        Trough = "trough",
+        /// Steady-state peak.
+        Peak = "peak",
+        /// Steady-state average concentration.
+        Cavg = "cavg",
+    }
 }
 
 impl Exposure {

@@ -10,6 +10,7 @@
 use super::Outcome;
 use super::sketch::{RELATIVE_ERROR, Sketch};
 use crate::dosing::Regimen;
+use crate::io::digest::sha256_hex;
 use crate::plan::dose_limits_broken;
 use crate::plan::targets::{Limits, Target};
 use serde::{Deserialize, Serialize};
@@ -18,13 +19,8 @@ use std::ops::Range;
 
 /// The `format` field of a state file.
 pub const STATE_FORMAT: &str = "cistern sweep state";
-/// The layout version of a state file (2: numbers as JSON numbers, no longer as text).
+/// The layout version of a state file (2: numbers as JSON numbers, SHA-256 fingerprints).
 pub const STATE_VERSION: u32 = 2;
-
-/// FNV-1a, 64 bits: a stable fingerprint of bytes (not a cryptographic hash).
-pub fn fnv1a64(bytes: &[u8]) -> u64 {
-    bytes.iter().fold(0xcbf2_9ce4_8422_2325, |h, &b| (h ^ u64::from(b)).wrapping_mul(0x0100_0000_01b3))
-}
 
 /// One candidate regimen as swept, with the dose limits it breaks by itself.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -86,9 +82,9 @@ impl Setup {
         }
     }
 
-    /// A short fingerprint of the setup, to tell sweeps apart at a glance.
+    /// The setup's fingerprint (SHA-256 of its JSON), to tell sweeps apart at a glance.
     pub fn fingerprint(&self) -> String {
-        format!("{:016x}", fnv1a64(serde_json::to_string(self).unwrap_or_default().as_bytes()))
+        sha256_hex(serde_json::to_string(self).unwrap_or_default().as_bytes())
     }
 
     /// The names of the top-level fields in which two setups differ.
