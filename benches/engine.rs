@@ -4,8 +4,8 @@
 //! machine. The simulation cost should grow with doses + times, not doses × times, so the
 //! 10,000-dose case must take far less than twice the 5,000-dose case.
 
-use cistern::dosing::{Dose, Route};
-use cistern::engine::steady::{RepeatedDose, SteadyCurve};
+use cistern::dosing::{Dose, Regimen, Route};
+use cistern::engine::steady::SteadyCurve;
 use cistern::engine::{self, Params};
 use criterion::{BenchmarkId, Criterion, Throughput, criterion_group, criterion_main};
 use std::hint::black_box;
@@ -64,12 +64,9 @@ fn simulate(c: &mut Criterion) {
 fn steady_state(c: &mut Criterion) {
     let p = params();
     let regimens = [
-        (
-            "infusion",
-            RepeatedDose { amount_mg: 1000.0, route: Route::Infusion, duration_h: 1.0, every_h: 12.0 },
-        ),
-        ("bolus", RepeatedDose { amount_mg: 1000.0, route: Route::Bolus, duration_h: 0.0, every_h: 12.0 }),
-        ("oral", RepeatedDose { amount_mg: 500.0, route: Route::Oral, duration_h: 0.0, every_h: 8.0 }),
+        ("infusion", Regimen { amount_mg: 1000.0, route: Route::Infusion, duration_h: 1.0, every_h: 12.0 }),
+        ("bolus", Regimen { amount_mg: 1000.0, route: Route::Bolus, duration_h: 0.0, every_h: 12.0 }),
+        ("oral", Regimen { amount_mg: 500.0, route: Route::Oral, duration_h: 0.0, every_h: 8.0 }),
     ];
     let mut group = c.benchmark_group("steady_state_metrics");
     group.sample_size(10).warm_up_time(Duration::from_secs(1)).measurement_time(Duration::from_secs(2));

@@ -7,13 +7,13 @@
 //! (`recommend::plan`), and the advisor alone, each with steady-state targets and with an
 //! AUC over a day of therapy as well (which continues the dose history for every draw).
 
-use cistern::dosing::{Dose, Route};
+use cistern::dosing::{Dose, Regimen, Route};
 use cistern::engine::Params;
-use cistern::engine::steady::{RepeatedDose, SteadyCurve};
+use cistern::engine::steady::SteadyCurve;
 use cistern::model::Residual;
 use cistern::plan::Course;
 use cistern::plan::advisor::{Question, advise};
-use cistern::plan::candidates::{Candidate, Durations, amount_step, grid, parse_amounts};
+use cistern::plan::candidates::{Durations, amount_step, grid, parse_amounts};
 use cistern::plan::recommend::{PlanInput, plan};
 use cistern::plan::session::{Posterior, Settings, plan_subject, sampling_times};
 use cistern::plan::targets::{Limits, Target, parse_target};
@@ -49,7 +49,7 @@ fn history() -> Vec<Dose> {
 }
 
 /// 11 amounts × 6 intervals × 3 durations = 198 candidates.
-fn candidates() -> Vec<Candidate> {
+fn candidates() -> Vec<Regimen> {
     let amounts = parse_amounts("500..3000/250").expect("amounts");
     let every = [6.0, 8.0, 12.0, 24.0, 36.0, 48.0];
     let durations = Durations::Fixed(vec![1.0, 2.0, 3.0]);
@@ -114,11 +114,10 @@ fn benches(c: &mut Criterion) {
     }
     // The advisor alone, for 1 g over 1 h every 12 h: 26 candidate times over two intervals,
     // 200 simulated levels each (what the command uses).
-    let regimen = Candidate { amount_mg: 1000.0, every_h: 12.0, duration_h: 1.0, route: Route::Infusion };
-    let dose = RepeatedDose { amount_mg: 1000.0, route: Route::Infusion, duration_h: 1.0, every_h: 12.0 };
+    let regimen = Regimen { amount_mg: 1000.0, every_h: 12.0, duration_h: 1.0, route: Route::Infusion };
     let exposure: Vec<f64> = draws
         .iter()
-        .map(|p| SteadyCurve::new(p, dose).expect("steady state").metrics().auc24_mg_h_l)
+        .map(|p| SteadyCurve::new(p, regimen).expect("steady state").metrics().exposure.auc24_mg_h_l)
         .collect();
     let times = sampling_times(&regimen, 48.5, 2);
     let doses = course.continued(&regimen, None, 48.5 + 36.0);

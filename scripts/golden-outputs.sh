@@ -4,7 +4,7 @@
 #   scripts/golden-outputs.sh BIN OUT_DIR
 # The architecture refactor was checked with it (diff -r of the two directories).
 set -u
-bin="$(cd "$(dirname "$1")" && pwd)/$(basename "$1")"
+src_bin="$(cd "$(dirname "$1")" && pwd)/$(basename "$1")"
 out="$2"
 root="$(cd "$(dirname "${BASH_SOURCE[0]}")/.." && pwd)"
 rm -rf "$out"; mkdir -p "$out"
@@ -12,6 +12,9 @@ out="$(cd "$out" && pwd)"
 work="$(mktemp -d)"
 cp -R "$root/demo-regimens" "$work/"
 cd "$work"
+# The report prints the command line: run the binary from one fixed relative path.
+cp "$src_bin" ./cistern
+bin=./cistern
 export SOURCE_DATE_EPOCH=1700000000
 d=demo-regimens
 n=0

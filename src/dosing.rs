@@ -1,9 +1,11 @@
 //! Dose events and regimens.
 //!
 //! A dose history is a list of [`Dose`]s in any order; a [`Regimen`] is the repeated dose a
-//! prescriber writes ("1 g over 1 h every 12 h, 6 doses") and expands into a history.
+//! prescriber writes ("1 g over 1 h every 12 h"), and a [`Schedule`] gives it a number of
+//! times from a start ("…, 6 doses") so that it expands into a history.
 
 use crate::error::Invalid;
+use crate::io::output::plain;
 use serde::{Deserialize, Serialize};
 use std::fmt;
 
@@ -61,21 +63,19 @@ impl Dose {
     }
 }
 
-/// A repeated dose: `count` doses of `amount_mg` every `every_h` from `start_h`.
+/// A repeated dose as a prescriber writes it ("750 mg infusion over 1.5 h every 12 h"): the one
+/// regimen type of planning, sweeps and steady state. The field order is the column order of
+/// every output that lists a regimen.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct Regimen {
-    /// Amount of each dose (mg).
+    /// Amount of each dose (mg). For oral doses, before bioavailability.
     pub amount_mg: f64,
     /// Dosing interval (h).
     pub every_h: f64,
-    /// Number of doses.
-    pub count: u32,
-    /// Route of each dose.
-    pub route: Route,
     /// Infusion duration (h); zero for bolus and oral.
     pub duration_h: f64,
-    /// Time of the first dose (h).
-    pub start_h: f64,
+    /// Route of each dose.
+    pub route: Route,
 }
 
 impl Regimen {
@@ -88,6 +88,43 @@ impl Regimen {
                 format!("the dosing interval must be positive, found {} h", self.every_h),
             ));
         }
+        Ok(())
+    }
+
+    /// The regimen's dose given at `time_h`.
+    pub fn dose_at(&self, time_h: f64) -> Dose {
+        Dose { time_h, amount_mg: self.amount_mg, route: self.route, duration_h: self.duration_h }
+    }
+
+    /// The regimen as a prescriber writes it: `750 mg infusion over 1.5 h every 12 h`.
+    pub fn describe(&self) -> String {
+        let over =
+            if self.duration_h > 0.0 { format!(" over {} h", plain(self.duration_h)) } else { String::new() };
+        format!("{} mg {}{over} every {} h", plain(self.amount_mg), self.route, plain(self.every_h))
+    }
+
+    /// Total amount over 24 h (mg).
+    pub fn daily_mg(&self) -> f64 {
+        self.amount_mg * 24.0 / self.every_h
+    }
+}
+
+/// A regimen given a stated number of times from a start time: a finite dose history
+/// ("… 6 doses from 0 h").
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct Schedule {
+    /// The repeated dose.
+    pub regimen: Regimen,
+    /// Number of doses.
+    pub count: u32,
+    /// Time of the first dose (h).
+    pub start_h: f64,
+}
+
+impl Schedule {
+    /// Check the schedule's values, returning what is wrong.
+    pub fn validate(&self) -> Result<(), Invalid> {
+        self.regimen.validate()?;
         if self.count == 0 {
             return Err(Invalid::new("count", "the dose count must be at least 1"));
         }
@@ -97,15 +134,10 @@ impl Regimen {
         Ok(())
     }
 
-    /// The dose history this regimen describes.
+    /// The dose history this schedule describes.
     pub fn doses(&self) -> Vec<Dose> {
         (0..self.count)
-            .map(|i| Dose {
-                time_h: self.start_h + f64::from(i) * self.every_h,
-                amount_mg: self.amount_mg,
-                route: self.route,
-                duration_h: self.duration_h,
-            })
+            .map(|i| self.regimen.dose_at(self.start_h + f64::from(i) * self.regimen.every_h))
             .collect()
     }
 }

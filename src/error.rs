@@ -74,6 +74,8 @@ impl fmt::Display for Invalid {
     }
 }
 
+impl std::error::Error for Invalid {}
+
 /// The error any library entry point returns.
 #[derive(Debug, Clone, PartialEq)]
 pub enum Error {

@@ -4,10 +4,12 @@
 //! Data flows one way: [`io`] → typed inputs ([`dosing`], [`engine::Params`]) → [`engine`]
 //! → typed results → [`io::output`]. See docs/methods.md for every equation and its source.
 
+#![forbid(unsafe_code)]
 #![deny(clippy::float_cmp)]
 #![warn(missing_docs)]
 
 pub mod case;
+pub mod choice;
 pub mod covariates;
 pub mod dosing;
 pub mod engine;
@@ -17,6 +19,7 @@ pub mod io;
 pub mod model;
 pub mod plan;
 pub mod report;
+pub mod stats;
 pub mod sweep;
 pub mod units;
 pub mod verify;

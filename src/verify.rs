@@ -10,8 +10,8 @@
 //! expected value and tolerance: the tests look them up here.
 
 use crate::covariates::{Covariates, Sex};
-use crate::dosing::{Dose, Regimen, Route};
-use crate::engine::steady::{RepeatedDose, SteadyCurve, SteadyState};
+use crate::dosing::{Dose, Regimen, Route, Schedule};
+use crate::engine::steady::{SteadyCurve, SteadyState};
 use crate::engine::{Params, auc, concentrations};
 use crate::fit::objective::{Weighting, blq_term, quantified_term};
 use crate::fit::{FitOptions, FitResult, Intervals, Method, SubjectData, fit_subject};
@@ -195,7 +195,7 @@ pub fn cases() -> Vec<Case> {
             kind: Derived,
             expected: 1.258,
             tolerance: half_digit(1e-3),
-            compute: || Ok(case6_peak()?.peak_time_h),
+            compute: || Ok(case6_peak()?.exposure.peak_time_h),
         },
         Case {
             name: "oral dose, Cmax",
@@ -204,7 +204,7 @@ pub fn cases() -> Vec<Case> {
             kind: Derived,
             expected: 3.859,
             tolerance: half_digit(1e-3),
-            compute: || Ok(case6_peak()?.peak_mg_l),
+            compute: || Ok(case6_peak()?.exposure.peak_mg_l),
         },
         Case {
             name: "oral dose, AUC0–∞ = A/k − A/ka",
@@ -280,7 +280,7 @@ pub fn cases() -> Vec<Case> {
             kind: Derived,
             expected: 19.4414,
             tolerance: Relative(1e-4),
-            compute: || Ok(case8_steady()?.peak_mg_l),
+            compute: || Ok(case8_steady()?.exposure.peak_mg_l),
         },
         Case {
             name: "intermittent infusion, steady-state Cmin",
@@ -289,7 +289,7 @@ pub fn cases() -> Vec<Case> {
             kind: Derived,
             expected: 0.77678,
             tolerance: Relative(1e-4),
-            compute: || Ok(case8_steady()?.trough_mg_l),
+            compute: || Ok(case8_steady()?.exposure.trough_mg_l),
         },
         Case {
             name: "two-level method, ke from 17.7 and 2.6 mg/L",
@@ -373,7 +373,7 @@ pub fn cases() -> Vec<Case> {
             compute: || {
                 // V is not given and does not matter.
                 let p = Params::iv(4.0, 50.0);
-                Ok(steady(&p, 1000.0, Route::Infusion, 1.0, 12.0)?.auc24_mg_h_l)
+                Ok(steady(&p, 1000.0, Route::Infusion, 1.0, 12.0)?.exposure.auc24_mg_h_l)
             },
         },
         Case {
@@ -441,7 +441,7 @@ pub fn cases() -> Vec<Case> {
                 // Steady-state trough over the first dose's trough.
                 let (p, amount, tau) = accumulation_regimen();
                 let ss = steady(&p, amount, Route::Infusion, 0.5, tau)?;
-                Ok(ss.trough_mg_l / conc(&p, &[dose(0.0, amount, Route::Infusion, 0.5)], tau))
+                Ok(ss.exposure.trough_mg_l / conc(&p, &[dose(0.0, amount, Route::Infusion, 0.5)], tau))
             },
         },
         Case {
@@ -477,8 +477,8 @@ fn steady(
     duration_h: f64,
     every_h: f64,
 ) -> Result<SteadyState, String> {
-    let dose = RepeatedDose { amount_mg, route, duration_h, every_h };
-    Ok(SteadyCurve::new(p, dose).map_err(|e| e.to_string())?.metrics())
+    let regimen = Regimen { amount_mg, every_h, duration_h, route };
+    Ok(SteadyCurve::new(p, regimen).map_err(|e| e.to_string())?.metrics())
 }
 
 /// The peak of a single oral dose: the steady-state peak finder with an interval so long that
@@ -540,7 +540,7 @@ fn case6_fit() -> Result<[f64; 3], String> {
 
 /// Case 7: tmax with k = 0.2 /h (V, F and the dose do not matter).
 fn case7_tmax(ka: f64) -> Result<f64, String> {
-    Ok(single_oral_peak(&oral(0.2, ka, 10.0), 100.0)?.peak_time_h)
+    Ok(single_oral_peak(&oral(0.2, ka, 10.0), 100.0)?.exposure.peak_time_h)
 }
 
 /// Case 8: 400 mg over 1 h every 36 h with ke = 0.092 /h, V = 20.4 L.
@@ -551,17 +551,14 @@ fn case8_steady() -> Result<SteadyState, String> {
 /// Case 8 through `fit --method two-level`: six doses (the last at 180 h, about 24
 /// half-lives in, so at steady state) and the rounded levels 2 h and 23 h after its start.
 fn case8_two_level() -> Result<FitResult, String> {
-    let regimen = Regimen {
-        amount_mg: 400.0,
-        every_h: 36.0,
+    let schedule = Schedule {
+        regimen: Regimen { amount_mg: 400.0, every_h: 36.0, duration_h: 1.0, route: Route::Infusion },
         count: 6,
-        route: Route::Infusion,
-        duration_h: 1.0,
         start_h: 0.0,
     };
     let subject = SubjectData {
         id: None,
-        doses: regimen.doses(),
+        doses: schedule.doses(),
         levels: sampled(&[182.0, 203.0], &[17.7, 2.6]),
         covariates: Covariates::default(),
     };

@@ -3,19 +3,30 @@
 //! Value flags accept a leading `-` (`allow_hyphen_values`), so `--start -12h` works and a
 //! negative `--every -5h` reaches our own check, whose message names the flag.
 
-use cistern::dosing::{Regimen, Route};
+use cistern::choice::Choice;
+use cistern::dosing::{Regimen, Route, Schedule};
 use cistern::engine::Params;
 use cistern::io::output::{CAUTION, Format, Sink};
 use cistern::units::{Kind, parse_value};
 use cistern::{Error, InputError};
 use clap::Args;
+use clap::builder::{PossibleValue, PossibleValuesParser, TypedValueParser};
 use std::io::IsTerminal;
+
+/// The parser of a library [`Choice`]: its spellings are the possible values, listed in
+/// `--help` with their descriptions, as clap's `ValueEnum` lists them.
+pub fn choice<C: Choice + std::str::FromStr<Err = cistern::Invalid> + Send + Sync>()
+-> impl TypedValueParser<Value = C> {
+    let values =
+        C::ALL.iter().map(|c| PossibleValue::new(c.spelling()).help(c.about().trim_end_matches('.')));
+    PossibleValuesParser::new(values).try_map(|text| text.parse::<C>())
+}
 
 /// Where and how to print.
 #[derive(Args, Debug, Clone)]
 pub struct OutputArgs {
     /// Output format [default: table on a terminal, csv when piped or from the -o extension]
-    #[arg(long, value_enum)]
+    #[arg(long, value_parser = choice::<Format>())]
     pub format: Option<Format>,
     /// Write the output to FILE (atomically; never over an input file); `-` is stdout
     #[arg(short = 'o', long = "output", value_name = "FILE")]
@@ -206,8 +217,8 @@ impl RegimenArgs {
         self.dose.is_some() || self.every.is_some() || self.count.is_some() || self.duration.is_some()
     }
 
-    /// The regimen, with every problem reported. `count` defaults to `default_count`.
-    pub fn regimen(&self, problems: &mut Problems, default_count: Option<u32>) -> Option<Regimen> {
+    /// The schedule, with every problem reported. `count` defaults to `default_count`.
+    pub fn schedule(&self, problems: &mut Problems, default_count: Option<u32>) -> Option<Schedule> {
         let amount = match &self.dose {
             Some(t) => problems.take(flag_value("--dose", Kind::Amount, t)),
             None => {
@@ -250,16 +261,13 @@ impl RegimenArgs {
             }
         };
         let start = problems.take(flag_value("--start", Kind::Time, &self.start));
-        let regimen = Regimen {
-            amount_mg: amount?,
-            every_h: every?,
+        let schedule = Schedule {
+            regimen: Regimen { amount_mg: amount?, every_h: every?, duration_h: duration?, route: route? },
             count: count?,
-            route: route?,
-            duration_h: duration?,
             start_h: start?,
         };
-        match regimen.validate() {
-            Ok(()) => Some(regimen),
+        match schedule.validate() {
+            Ok(()) => Some(schedule),
             Err(invalid) => {
                 problems.push(invalid_flag(invalid));
                 None

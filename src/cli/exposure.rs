@@ -2,11 +2,12 @@
 
 use super::args::{OutputArgs, ParamArgs, Problems, RegimenArgs, invalid_flag};
 use cistern::Error;
-use cistern::dosing::Route;
-use cistern::engine::steady::{RepeatedDose, SteadyCurve, SteadyState};
+use cistern::dosing::Regimen;
+use cistern::engine::steady::{SteadyCurve, SteadyState};
 use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
 use clap::Args;
 use serde::Serialize;
+use serde::ser::{SerializeStruct, Serializer};
 
 /// Steady-state peak, trough, AUC, average level, accumulation and loading dose of a regimen.
 #[derive(Args, Debug)]
@@ -40,18 +41,21 @@ struct ParametersJson {
     tlag_h: f64,
 }
 
-#[derive(Serialize)]
-struct RegimenJson {
-    amount_mg: f64,
-    every_h: f64,
-    route: Route,
-    duration_h: f64,
+/// The regimen block in the order this output has always had: the route before the duration.
+fn regimen_block<S: Serializer>(r: &Regimen, s: S) -> Result<S::Ok, S::Error> {
+    let mut block = s.serialize_struct("Regimen", 4)?;
+    block.serialize_field("amount_mg", &r.amount_mg)?;
+    block.serialize_field("every_h", &r.every_h)?;
+    block.serialize_field("route", &r.route)?;
+    block.serialize_field("duration_h", &r.duration_h)?;
+    block.end()
 }
 
 #[derive(Serialize)]
 struct ExposureJson<'a> {
     parameters: ParametersJson,
-    regimen: RegimenJson,
+    #[serde(serialize_with = "regimen_block")]
+    regimen: Regimen,
     steady_state: SteadyState,
     caution: &'a str,
 }
@@ -60,19 +64,14 @@ struct ExposureJson<'a> {
 pub fn run(args: ExposureArgs) -> Result<(), Error> {
     let mut problems = Problems::new();
     let params = args.params.params(&mut problems);
-    let regimen = args.regimen.regimen(&mut problems, Some(1));
+    let schedule = args.regimen.schedule(&mut problems, Some(1));
     problems.finish()?;
-    let (Some(params), Some(regimen)) = (params, regimen) else {
+    let (Some(params), Some(schedule)) = (params, schedule) else {
         return Err(Error::Usage("the arguments could not be read".into()));
     };
-    let dose = RepeatedDose {
-        amount_mg: regimen.amount_mg,
-        route: regimen.route,
-        duration_h: regimen.duration_h,
-        every_h: regimen.every_h,
-    };
+    let regimen = schedule.regimen;
     // Each flag's value was checked above; what is left is how they combine.
-    let ss = SteadyCurve::new(&params, dose).map_err(invalid_flag)?.metrics();
+    let ss = SteadyCurve::new(&params, regimen).map_err(invalid_flag)?.metrics();
     let k = params.k_per_h();
     let doc = ExposureJson {
         parameters: ParametersJson {
@@ -86,12 +85,7 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
             f: params.f,
             tlag_h: params.tlag_h,
         },
-        regimen: RegimenJson {
-            amount_mg: dose.amount_mg,
-            every_h: dose.every_h,
-            route: dose.route,
-            duration_h: dose.duration_h,
-        },
+        regimen,
         steady_state: ss,
         caution: CAUTION,
     };
@@ -125,7 +119,7 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
 /// Every number of the output as (key, value, label), in a fixed order.
 fn rows(doc: &ExposureJson) -> Vec<(&'static str, f64, &'static str)> {
     let p = &doc.parameters;
-    let s = &doc.steady_state;
+    let (s, e) = (&doc.steady_state, &doc.steady_state.exposure);
     let mut rows = vec![
         ("cl_l_h", p.cl_l_h, "clearance (L/h)"),
         ("v_l", p.v_l, "volume (L)"),
@@ -141,12 +135,12 @@ fn rows(doc: &ExposureJson) -> Vec<(&'static str, f64, &'static str)> {
         ("amount_mg", doc.regimen.amount_mg, "dose (mg)"),
         ("every_h", doc.regimen.every_h, "interval (h)"),
         ("duration_h", doc.regimen.duration_h, "infusion duration (h)"),
-        ("peak_mg_l", s.peak_mg_l, "steady-state peak (mg/L)"),
-        ("peak_time_h", s.peak_time_h, "peak time after dose (h)"),
-        ("trough_mg_l", s.trough_mg_l, "steady-state trough (mg/L)"),
-        ("auc_tau_mg_h_l", s.auc_tau_mg_h_l, "AUC over one interval (mg·h/L)"),
-        ("auc24_mg_h_l", s.auc24_mg_h_l, "AUC over 24 h (mg·h/L)"),
-        ("cavg_mg_l", s.cavg_mg_l, "average concentration (mg/L)"),
+        ("peak_mg_l", e.peak_mg_l, "steady-state peak (mg/L)"),
+        ("peak_time_h", e.peak_time_h, "peak time after dose (h)"),
+        ("trough_mg_l", e.trough_mg_l, "steady-state trough (mg/L)"),
+        ("auc_tau_mg_h_l", e.auc_tau_mg_h_l, "AUC over one interval (mg·h/L)"),
+        ("auc24_mg_h_l", e.auc24_mg_h_l, "AUC over 24 h (mg·h/L)"),
+        ("cavg_mg_l", e.cavg_mg_l, "average concentration (mg/L)"),
         ("accumulation_ratio", s.accumulation_ratio, "accumulation ratio"),
         ("fluctuation_pct", s.fluctuation_pct, "peak-trough fluctuation (% of average)"),
         ("time_to_90pct_h", s.time_to_90pct_h, "time to 90 % of steady state (h)"),

@@ -1,6 +1,6 @@
 //! `cistern fit`: estimate clearance and volume (and ka for oral drugs) from sampled levels.
 
-use super::args::{OutputArgs, Problems, flag_number, flag_value, invalid_flag};
+use super::args::{OutputArgs, Problems, choice, flag_number, flag_value, invalid_flag};
 use super::study::{Study, StudyArgs, seed_and_draws};
 use cistern::Error;
 use cistern::engine::validate_absorption;
@@ -34,10 +34,10 @@ pub struct FitArgs {
     #[command(flatten)]
     study: StudyArgs,
     /// Estimation method [default: map with --model, wls without]
-    #[arg(long, value_enum)]
+    #[arg(long, value_parser = choice::<Method>())]
     method: Option<Method>,
     /// Interval type
-    #[arg(long, value_enum, default_value = "posterior")]
+    #[arg(long, value_parser = choice::<Intervals>(), default_value = "posterior")]
     intervals: Intervals,
     /// Posterior draws per subject (importance sampling) [default: the case's, else 2000]
     #[arg(long, value_parser = clap::value_parser!(u32).range(100..=1_000_000))]
@@ -49,7 +49,7 @@ pub struct FitArgs {
     #[arg(long, value_name = "N", default_value_t = 0, value_parser = clap::value_parser!(u32).range(0..=100_000))]
     keep_draws: u32,
     /// Least-squares weighting (wls)
-    #[arg(long, value_enum, default_value = "none")]
+    #[arg(long, value_parser = choice::<Weighting>(), default_value = "none")]
     weighting: Weighting,
     /// Hold ka fixed at this value (1/h), e.g. 1.2 or 1.2/h
     #[arg(long, value_name = "KA")]

@@ -2,7 +2,7 @@
 //! attainment over the posterior, recommend one that respects every limit, and advise when to
 //! draw the next level.
 
-use super::args::{OutputArgs, Problems, flag_value};
+use super::args::{OutputArgs, Problems, choice, flag_value};
 use super::regimen_grid::GridArgs;
 use super::study::{StudyArgs, planning_fit, seed_and_draws};
 use cistern::engine::Params;
@@ -56,7 +56,7 @@ pub struct PlanArgs {
     #[command(flatten)]
     grid: GridArgs,
     /// Exposure the next-level advice should pin down [default: that of the first target]
-    #[arg(long, value_enum)]
+    #[arg(long, value_parser = choice::<Exposure>())]
     advise_on: Option<Exposure>,
     /// Dosing intervals of the new regimen searched for the next sampling time
     #[arg(long, default_value_t = 2, value_parser = clap::value_parser!(u32).range(1..=20))]
@@ -305,10 +305,10 @@ fn write_csv(out: &mut dyn std::io::Write, plan: &Plan) -> std::io::Result<()> {
         let p = &a.predicted;
         w.write_record([
             (i + 1).to_string(),
-            full(a.amount_mg),
-            full(a.every_h),
-            full(a.duration_h),
-            a.route.to_string(),
+            full(a.regimen.amount_mg),
+            full(a.regimen.every_h),
+            full(a.regimen.duration_h),
+            a.regimen.route.to_string(),
             full(a.daily_mg),
             full(a.pta),
             opt(a.p_over_peak),
@@ -350,7 +350,7 @@ fn table(post: &Subject, targets: &[Target], plan: &Plan, advice: Option<&Advice
         .map(|(i, a)| {
             vec![
                 (i + 1).to_string(),
-                a.candidate().describe(),
+                a.regimen.describe(),
                 format!("{:.1} %", 100.0 * a.pta),
                 band(&a.predicted.peak_mg_l, 3),
                 band(&a.predicted.trough_mg_l, 3),
@@ -384,7 +384,7 @@ fn table(post: &Subject, targets: &[Target], plan: &Plan, advice: Option<&Advice
             let a = &r.assessment;
             text += &format!(
                 "Recommended: {} from {} h — PTA {:.1} %",
-                a.candidate().describe(),
+                a.regimen.describe(),
                 readable(r.start_h, 5),
                 100.0 * a.pta
             );

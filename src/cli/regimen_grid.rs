@@ -3,9 +3,9 @@
 
 use super::args::{Problems, flag_number, flag_value};
 use cistern::case::{Case, GridText};
-use cistern::dosing::Route;
-use cistern::plan::candidates::{Candidate, Durations, grid, parse_amounts, positive_list};
-use cistern::plan::targets::{Limits, Target, parse_target};
+use cistern::dosing::{Regimen, Route};
+use cistern::plan::candidates::{Durations, grid, parse_amounts, positive_list};
+use cistern::plan::targets::{DEFAULT_MAX_RISK, Limits, Target, parse_target};
 use cistern::units::Kind;
 use cistern::{Error, InputError};
 use clap::Args;
@@ -62,7 +62,7 @@ pub struct GridArgs {
 impl GridArgs {
     /// The candidates, targets and limits, with every problem reported at once, each naming
     /// its flag.
-    pub fn grid(&self) -> Result<(Vec<Candidate>, Vec<Target>, Limits), Error> {
+    pub fn grid(&self) -> Result<(Vec<Regimen>, Vec<Target>, Limits), Error> {
         let mut problems = Problems::new();
         let mut targets = Vec::new();
         for spec in &self.targets {
@@ -96,8 +96,8 @@ impl GridArgs {
             max_trough_mg_l: optional("--max-trough", Kind::Concentration, &self.max_trough, &mut problems),
             min_every_h: optional("--min-every", Kind::Time, &self.min_every, &mut problems),
             max_risk: match &self.max_risk {
-                Some(t) => problems.take(flag_number("--max-risk", t)).unwrap_or(0.1),
-                None => 0.1,
+                Some(t) => problems.take(flag_number("--max-risk", t)).unwrap_or(DEFAULT_MAX_RISK),
+                None => DEFAULT_MAX_RISK,
             },
         };
         if let Err(m) = limits.validate() {
@@ -182,7 +182,7 @@ impl GridArgs {
     /// The candidates, targets and limits of these flags with the case (if any) filling in
     /// those left out. A problem with a value that came from the case names the case file
     /// and its key, not a flag that was never given.
-    pub fn grid_or_case(&self, case: Option<&Case>) -> Result<(Vec<Candidate>, Vec<Target>, Limits), Error> {
+    pub fn grid_or_case(&self, case: Option<&Case>) -> Result<(Vec<Regimen>, Vec<Target>, Limits), Error> {
         let Some(case) = case else { return self.grid() };
         self.or_case(&case.grid).grid().map_err(|e| match e {
             Error::Input(errors) => Error::Input(

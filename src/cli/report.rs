@@ -6,17 +6,18 @@ use super::regimen_grid::GridArgs;
 use super::study::{StudyArgs, planning_fit, seed_and_draws};
 use cistern::case::{Case, SweepRequest};
 use cistern::covariates::parse_covariates;
+use cistern::dosing::Regimen;
 use cistern::fit::mix_seed;
+use cistern::io::digest::sha256_hex;
 use cistern::io::output::readable;
 use cistern::io::output::{CAUTION, Sink};
 use cistern::io::table::Table;
 use cistern::model::PopulationModel;
-use cistern::plan::candidates::Candidate;
 use cistern::plan::session::{Posterior, Settings, plan_subject};
 use cistern::plan::targets::{Limits, Target};
 use cistern::report::content::SweepRows;
 use cistern::report::content::{Analysis, build, concentration_plots};
-use cistern::report::provenance::{iso_utc, now_epoch_seconds, sha256_hex};
+use cistern::report::provenance::{iso_utc, now_epoch_seconds};
 use cistern::report::{pdf, svg};
 use cistern::sweep::Sweep;
 use cistern::sweep::population::{CovariateSource, Population};
@@ -69,7 +70,7 @@ pub struct ReportArgs {
 fn sweep_rows(
     model: &PopulationModel,
     request: &SweepRequest,
-    candidates: &[Candidate],
+    candidates: &[Regimen],
     targets: &[Target],
     limits: &Limits,
     seed: u64,
@@ -93,13 +94,7 @@ fn sweep_rows(
     let label = |r: &SummaryRow| {
         let broken =
             if r.dose_limits_broken.is_empty() && r.exposure_limits_broken.is_empty() { "" } else { " *" };
-        let c = Candidate {
-            amount_mg: r.amount_mg,
-            every_h: r.every_h,
-            duration_h: r.duration_h,
-            route: r.route,
-        };
-        format!("{}{broken}", c.describe())
+        format!("{}{broken}", r.regimen.describe())
     };
     Ok(SweepRows {
         subjects: request.subjects,
@@ -213,7 +208,7 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
             std::fs::read(f).map_err(|e| InputError::new(path_text(f), format!("cannot read: {e}")))?;
         digests.push((path_text(f), sha256_hex(&bytes)));
     }
-    let created = iso_utc(now_epoch_seconds());
+    let created = iso_utc(now_epoch_seconds()).map_err(Error::Failure)?;
     let analysis = Analysis {
         title: case
             .title

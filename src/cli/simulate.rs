@@ -130,8 +130,8 @@ fn histories(args: &SimulateArgs, problems: &mut Problems) -> Option<DoseFile> {
             Some(file)
         }
         (None, _) => {
-            let regimen = args.regimen.regimen(problems, None)?;
-            Some(DoseFile { subjects: vec![(None, regimen.doses())], ignored_columns: Vec::new() })
+            let schedule = args.regimen.schedule(problems, None)?;
+            Some(DoseFile { subjects: vec![(None, schedule.doses())], ignored_columns: Vec::new() })
         }
     }
 }

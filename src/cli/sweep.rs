@@ -8,13 +8,14 @@ use cistern::case::Case;
 use cistern::covariates::parse_covariates;
 use cistern::dosing::Route;
 use cistern::engine::validate_absorption;
+use cistern::io::digest::sha256_hex;
 use cistern::io::output::{CAUTION, Format, Sink, full, io_failure};
 use cistern::io::table::Table;
 use cistern::model::PopulationModel;
 use cistern::sweep::Sweep;
 use cistern::sweep::population::{CovariateSource, Population, parse_draw, parse_params};
 use cistern::sweep::sketch::RELATIVE_ERROR;
-use cistern::sweep::state::{Setup, Shard, SweepState, fnv1a64};
+use cistern::sweep::state::{Setup, Shard, SweepState};
 use cistern::sweep::summary::Summary;
 use cistern::units::Kind;
 use cistern::{Error, InputError};
@@ -115,7 +116,7 @@ impl SweepArgs {
 /// A file's fingerprint, so shards of a sweep can tell that they read the same inputs.
 fn file_fingerprint(path: &str) -> Result<String, Error> {
     std::fs::read(path)
-        .map(|bytes| format!("{:016x}", fnv1a64(&bytes)))
+        .map(|bytes| sha256_hex(&bytes))
         .map_err(|e| InputError::new(path, format!("cannot read the file: {e}")).into())
 }
 

@@ -15,26 +15,13 @@
 
 use super::kernel::{State, depot_to_central};
 use super::{Events, Kinetics, Params, Walker};
-use crate::dosing::{Dose, Route};
+use crate::dosing::{Regimen, Route};
 use crate::error::Invalid;
 use serde::Serialize;
 
-/// The dose repeated at steady state.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct RepeatedDose {
-    /// Amount of each dose (mg).
-    pub amount_mg: f64,
-    /// Route.
-    pub route: Route,
-    /// Infusion duration (h); zero otherwise.
-    pub duration_h: f64,
-    /// Dosing interval τ (h).
-    pub every_h: f64,
-}
-
-/// Steady-state metrics of a repeated regimen.
+/// The exposure of a regimen at steady state.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct SteadyState {
+pub struct Exposure {
     /// Highest concentration in an interval (mg/L): end of infusion, the bolus instant, or the
     /// exact oral maximum.
     pub peak_mg_l: f64,
@@ -48,6 +35,14 @@ pub struct SteadyState {
     pub auc24_mg_h_l: f64,
     /// Average concentration AUC_τ/τ (mg/L).
     pub cavg_mg_l: f64,
+}
+
+/// Steady-state metrics of a repeated regimen: its exposure and the descriptive extras.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct SteadyState {
+    /// Peak, trough, AUC and average concentration.
+    #[serde(flatten)]
+    pub exposure: Exposure,
     /// Accumulation ratio 1/(1 − e^(−kτ)).
     pub accumulation_ratio: f64,
     /// Peak–trough fluctuation 100·(peak − trough)/Cavg (%).
@@ -61,53 +56,29 @@ pub struct SteadyState {
     pub loading_dose_mg: f64,
 }
 
-/// The exposure of a regimen at steady state.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct Exposure {
-    /// Highest concentration in an interval (mg/L).
-    pub peak_mg_l: f64,
-    /// Time of the peak after the dose (h).
-    pub peak_time_h: f64,
-    /// Concentration just before the next dose (mg/L).
-    pub trough_mg_l: f64,
-    /// AUC over one interval (mg·h/L).
-    pub auc_tau_mg_h_l: f64,
-    /// AUC over 24 h, AUC_τ·24/τ (mg·h/L).
-    pub auc24_mg_h_l: f64,
-    /// Average concentration AUC_τ/τ (mg/L).
-    pub cavg_mg_l: f64,
-}
-
 /// The periodic steady-state curve of a regimen, for metrics and for reading off any phase.
 #[derive(Debug, Clone)]
 pub struct SteadyCurve {
     kin: Kinetics<f64>,
-    dose: RepeatedDose,
+    regimen: Regimen,
     events: Events,
     before_dose: State<f64>,
 }
 
 impl SteadyCurve {
     /// Solve for the steady state. Returns what is wrong when the regimen has none.
-    pub fn new(params: &Params, dose: RepeatedDose) -> Result<Self, Invalid> {
-        let one =
-            Dose { time_h: 0.0, amount_mg: dose.amount_mg, route: dose.route, duration_h: dose.duration_h };
+    pub fn new(params: &Params, regimen: Regimen) -> Result<Self, Invalid> {
+        let one = regimen.dose_at(0.0);
         params.validate(&[one])?;
-        crate::dosing::validate_dose(dose.amount_mg, dose.route, dose.duration_h)?;
-        let tau = dose.every_h;
-        if !(tau.is_finite() && tau > 0.0) {
-            return Err(Invalid::new(
-                "every_h",
-                format!("the dosing interval must be positive, found {tau} h"),
-            ));
-        }
-        if dose.route == Route::Infusion && dose.duration_h > tau {
+        regimen.validate()?;
+        let tau = regimen.every_h;
+        if regimen.route == Route::Infusion && regimen.duration_h > tau {
             return Err(Invalid::new(
                 "duration_h",
                 format!(
                     "the infusion ({} h) is longer than the dosing interval ({tau} h); \
                      simulate the overlapping doses instead",
-                    dose.duration_h
+                    regimen.duration_h
                 ),
             ));
         }
@@ -118,10 +89,10 @@ impl SteadyCurve {
         let mut single = Walker::new(kin, &events, 0.0);
         single.run_to(tau);
         let u = single.state();
-        let depot = if dose.route == Route::Oral { u.depot / -(-kin.ka * tau).exp_m1() } else { 0.0 };
+        let depot = if regimen.route == Route::Oral { u.depot / -(-kin.ka * tau).exp_m1() } else { 0.0 };
         let carried = if depot > 0.0 { kin.ka * depot_to_central(kin.k, kin.ka, tau) * depot } else { 0.0 };
         let central = (u.central + carried) / -(-kin.k * tau).exp_m1();
-        Ok(SteadyCurve { kin, dose, events, before_dose: State { central, depot } })
+        Ok(SteadyCurve { kin, regimen, events, before_dose: State { central, depot } })
     }
 
     fn walker(&self) -> Walker<'_, f64> {
@@ -137,23 +108,23 @@ impl SteadyCurve {
 
     /// Steady-state concentration `phase` hours after a dose is given (0 ≤ phase < τ).
     pub fn at(&self, phase: f64) -> f64 {
-        let tau = self.dose.every_h;
-        let lag = if self.dose.route == Route::Oral { self.kin.tlag_h } else { 0.0 };
+        let tau = self.regimen.every_h;
+        let lag = if self.regimen.route == Route::Oral { self.kin.tlag_h } else { 0.0 };
         self.at_entry_phase((phase - lag).rem_euclid(tau))
     }
 
     /// Peak concentration and its time after the drug enters (lag-free frame).
     fn peak(&self) -> (f64, f64) {
-        let tau = self.dose.every_h;
-        match self.dose.route {
+        let tau = self.regimen.every_h;
+        match self.regimen.route {
             Route::Bolus => (self.at_entry_phase(0.0), 0.0),
-            Route::Infusion => (self.at_entry_phase(self.dose.duration_h), self.dose.duration_h),
+            Route::Infusion => (self.at_entry_phase(self.regimen.duration_h), self.regimen.duration_h),
             Route::Oral => {
                 // dC/dt = 0 ⇔ ka·D(s) = k·A(s); with y = (k·A − ka·D)/(ka²·D) just after the
                 // dose, s* = −y·ln(1 + (ka − k)·y)/((ka − k)·y)  (→ −y as ka → k).
                 let (k, ka) = (self.kin.k, self.kin.ka);
                 let a = self.before_dose.central;
-                let d = self.before_dose.depot + self.kin.f * self.dose.amount_mg;
+                let d = self.before_dose.depot + self.kin.f * self.regimen.amount_mg;
                 let mut best = (self.at_entry_phase(0.0), 0.0);
                 if d > 0.0 {
                     let y = (k * a - ka * d) / (ka * ka * d);
@@ -182,7 +153,7 @@ impl SteadyCurve {
     /// form (C = C∞ + (C0 − C∞)·e^(−ks) while infusing, C = Cpeak·e^(−k(s − T)) after);
     /// oral crossings are found by bisection.
     pub fn share_above(&self, threshold: f64) -> f64 {
-        let tau = self.dose.every_h;
+        let tau = self.regimen.every_h;
         let (peak, peak_at) = self.peak();
         if peak < threshold {
             return 0.0;
@@ -201,15 +172,15 @@ impl SteadyCurve {
             }
             0.5 * (lo + hi)
         };
-        let rise = match self.dose.route {
+        let rise = match self.regimen.route {
             _ if self.at_entry_phase(0.0) >= threshold => 0.0,
             Route::Infusion => {
-                let plateau = self.dose.amount_mg / self.dose.duration_h / (k * self.kin.v);
+                let plateau = self.regimen.amount_mg / self.regimen.duration_h / (k * self.kin.v);
                 ((start - plateau) / (threshold - plateau)).ln() / k
             }
             _ => bisect(0.0, peak_at, true),
         };
-        let fall = match self.dose.route {
+        let fall = match self.regimen.route {
             _ if end >= threshold => tau,
             Route::Oral => bisect(peak_at, tau, false),
             _ => peak_at + (peak / threshold).ln() / k,
@@ -220,8 +191,8 @@ impl SteadyCurve {
     /// The exposure at steady state: peak, trough, AUC and average concentration — what planning
     /// and sweeps evaluate for every draw and subject, without the descriptive extras.
     pub fn exposure(&self) -> Exposure {
-        let tau = self.dose.every_h;
-        let lag = if self.dose.route == Route::Oral { self.kin.tlag_h } else { 0.0 };
+        let tau = self.regimen.every_h;
+        let lag = if self.regimen.route == Route::Oral { self.kin.tlag_h } else { 0.0 };
         let (peak, peak_entry) = self.peak();
         // Just before the next dose: entry phase τ − (lag mod τ), in (0, τ], so that a bolus
         // given at phase 0 (counted by `at(0)`, values being right-continuous) is not.
@@ -242,20 +213,15 @@ impl SteadyCurve {
     /// All steady-state metrics: the exposure and the descriptive extras.
     pub fn metrics(&self) -> SteadyState {
         let e = self.exposure();
-        let tau = self.dose.every_h;
+        let tau = self.regimen.every_h;
         let accumulation_ratio = 1.0 / -(-self.kin.k * tau).exp_m1();
         SteadyState {
-            peak_mg_l: e.peak_mg_l,
-            peak_time_h: e.peak_time_h,
-            trough_mg_l: e.trough_mg_l,
-            auc_tau_mg_h_l: e.auc_tau_mg_h_l,
-            auc24_mg_h_l: e.auc24_mg_h_l,
-            cavg_mg_l: e.cavg_mg_l,
+            exposure: e,
             accumulation_ratio,
             fluctuation_pct: 100.0 * (e.peak_mg_l - e.trough_mg_l) / e.cavg_mg_l,
             time_to_90pct_h: self.time_to_fraction(0.90),
             time_to_95pct_h: self.time_to_fraction(0.95),
-            loading_dose_mg: self.dose.amount_mg * accumulation_ratio,
+            loading_dose_mg: self.regimen.amount_mg * accumulation_ratio,
         }
     }
 
@@ -265,7 +231,7 @@ impl SteadyCurve {
     pub fn time_to_fraction(&self, fraction: f64) -> f64 {
         let k = self.kin.k;
         let elimination_only = -(-fraction).ln_1p() / k;
-        if self.dose.route != Route::Oral {
+        if self.regimen.route != Route::Oral {
             return elimination_only;
         }
         let ka = self.kin.ka;
@@ -307,7 +273,7 @@ mod tests {
         // 1 − (ka·e^(−kt) − k·e^(−ka t))/(ka − k) = x at the returned time (less the lag).
         for &(ka, lag) in &[(1.1, 0.0), (0.09, 0.5), (0.0875, 0.0), (12.0, 2.0)] {
             let p = Params { cl_l_h: 4.2, v_l: 48.0, ka_per_h: Some(ka), f: 0.8, tlag_h: lag };
-            let dose = RepeatedDose { amount_mg: 500.0, route: Route::Oral, duration_h: 0.0, every_h: 8.0 };
+            let dose = Regimen { amount_mg: 500.0, route: Route::Oral, duration_h: 0.0, every_h: 8.0 };
             let curve = SteadyCurve::new(&p, dose).unwrap();
             let k = p.k_per_h();
             for x in [0.5, 0.9, 0.95, 0.999] {

@@ -15,6 +15,7 @@ pub mod optimise;
 pub mod posterior;
 pub mod two_level;
 
+use crate::choice::choice_enum;
 use crate::covariates::Covariates;
 use crate::dosing::{Dose, Route};
 use crate::engine::Params;
@@ -26,31 +27,35 @@ use rayon::prelude::*;
 use serde::Serialize;
 use statrs::distribution::{ContinuousCDF, StudentsT};
 
-/// Estimation method.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum, Serialize)]
-#[serde(rename_all = "kebab-case")]
-pub enum Method {
-    /// Maximum a posteriori against the population model.
-    Map,
-    /// Weighted least squares, no prior.
-    Wls,
-    /// Two post-infusion levels in one interval at steady state.
-    TwoLevel,
+choice_enum! {
+    /// Estimation method.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+    #[serde(rename_all = "kebab-case")]
+    pub enum Method: "method" {
+        /// Maximum a posteriori against the population model.
+        Map = "map",
+        /// Weighted least squares, no prior.
+        Wls = "wls",
+        /// Two post-infusion levels in one interval at steady state.
+        TwoLevel = "two-level",
+    }
 }
 
-/// How uncertainty is reported.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum, Serialize)]
-#[serde(rename_all = "kebab-case")]
-pub enum Intervals {
-    /// From draws of the actual posterior (map) — calibrated.
-    Posterior,
-    /// From the curvature at the optimum (fast; under-covers in sparse designs).
-    Laplace,
-    /// Point estimates only.
-    None,
-    /// From the least-squares curvature and residual variance (what wls reports; not a choice).
-    #[value(skip)]
-    LeastSquares,
+choice_enum! {
+    /// How uncertainty is reported.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+    #[serde(rename_all = "kebab-case")]
+    pub enum Intervals: "interval type" {
+        /// From draws of the actual posterior (map) — calibrated.
+        Posterior = "posterior",
+        /// From the curvature at the optimum (fast; under-covers in sparse designs).
+        Laplace = "laplace",
+        /// Point estimates only.
+        None = "none",
+        ;
+        /// From the least-squares curvature and residual variance (what wls reports; not a choice).
+        LeastSquares = "least-squares",
+    }
 }
 
 /// Options shared by all subjects of one run.

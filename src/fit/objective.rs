@@ -13,6 +13,7 @@
 //! exact gradients come from the engine run on [`Dual`] numbers.
 
 use super::linalg::{MAX, Mat};
+use crate::choice::choice_enum;
 use crate::dosing::Dose;
 use crate::engine::scalar::{Dual, Real};
 use crate::engine::{Events, Kinetics, predict};
@@ -58,18 +59,17 @@ pub fn blq_term<R: Real>(lloq: f64, f: R, var: R) -> R {
     z.through(ln_norm_cdf(zv), ln_norm_cdf_slope(zv)) * -2.0
 }
 
-/// How residuals are weighted in least squares.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum, serde::Serialize)]
-pub enum Weighting {
-    /// Equal weights.
-    #[value(name = "none")]
-    None,
-    /// wᵢ = 1/yᵢ.
-    #[value(name = "1/y")]
-    InvY,
-    /// wᵢ = 1/yᵢ².
-    #[value(name = "1/y^2")]
-    InvY2,
+choice_enum! {
+    /// How residuals are weighted in least squares.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+    pub enum Weighting: "weighting" {
+        /// Equal weights.
+        None = "none",
+        /// wᵢ = 1/yᵢ.
+        InvY = "1/y",
+        /// wᵢ = 1/yᵢ².
+        InvY2 = "1/y^2",
+    }
 }
 
 /// The data part of an objective.

@@ -29,19 +29,12 @@ pub struct WeightedDraws {
 }
 
 impl WeightedDraws {
-    /// Weighted quantile `p` of a function of θ.
+    /// Weighted quantile `p` of a function of θ ([`crate::stats::weighted_quantile`]).
     pub fn quantile(&self, p: f64, f: impl Fn(&[f64; MAX]) -> f64) -> f64 {
         let mut pairs: Vec<(f64, f64)> =
             self.theta.iter().zip(&self.weights).map(|(t, w)| (f(t), *w)).collect();
         pairs.sort_by(|a, b| a.0.total_cmp(&b.0));
-        let mut acc = 0.0;
-        for (x, w) in &pairs {
-            acc += w;
-            if acc >= p {
-                return *x;
-            }
-        }
-        pairs.last().map_or(f64::NAN, |p| p.0)
+        crate::stats::weighted_quantile(pairs, p)
     }
 
     /// Weighted mean and standard deviation of a function of θ.

@@ -1,22 +1,26 @@
 //! Output: formats, full-precision numbers, plain-text tables, and atomic file writes.
 
+use crate::choice::choice_enum;
 use crate::error::Error;
 use std::io::Write;
 use std::path::{Path, PathBuf};
+use tempfile::TempPath;
 
 /// The caution that travels with every exposure figure.
 pub const CAUTION: &str = "Not clinical advice: these are model calculations for research. \
 Dosing decisions belong to licensed clinicians following local protocols and the product labelling.";
 
-/// How results are printed.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
-pub enum Format {
-    /// Aligned columns for reading (the caution is printed below).
-    Table,
-    /// Pure data for any CSV reader (the caution goes to stderr).
-    Csv,
-    /// One JSON document with a `caution` field.
-    Json,
+choice_enum! {
+    /// How results are printed.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum Format: "format" {
+        /// Aligned columns for reading (the caution is printed below).
+        Table = "table",
+        /// Pure data for any CSV reader (the caution goes to stderr).
+        Csv = "csv",
+        /// One JSON document with a `caution` field.
+        Json = "json",
+    }
 }
 
 impl Format {
@@ -94,19 +98,20 @@ pub fn render_table(headers: &[&str], rows: &[Vec<String>]) -> String {
 
 /// Where output goes: stdout, or a file written under a temporary name and renamed into place
 /// on [`Sink::finish`], so a failed run never leaves a partial or clobbered file.
-pub struct Sink {
-    writer: Box<dyn Write>,
-    temp: Option<(PathBuf, PathBuf)>,
+pub struct Sink(Out);
+
+enum Out {
+    Stdout(std::io::BufWriter<std::io::StdoutLock<'static>>),
+    /// The temporary file, its path (the file is removed when the path is dropped) and the
+    /// path it becomes.
+    File(std::io::BufWriter<std::fs::File>, TempPath, PathBuf),
 }
 
 impl Sink {
     /// Open the output. `-` or no path means stdout. Refuses to write over any of `inputs`.
     pub fn open(path: Option<&str>, inputs: &[&str]) -> Result<Sink, Error> {
         let Some(path) = path.filter(|p| *p != "-") else {
-            return Ok(Sink {
-                writer: Box::new(std::io::BufWriter::new(std::io::stdout().lock())),
-                temp: None,
-            });
+            return Ok(Sink(Out::Stdout(std::io::BufWriter::new(std::io::stdout().lock()))));
         };
         let target = PathBuf::from(path);
         let same = |input: &str| match (std::fs::canonicalize(input), std::fs::canonicalize(&target)) {
@@ -118,48 +123,55 @@ impl Sink {
                 "refusing to write the output over the input file '{input}'; choose another -o path"
             )));
         }
-        let dir = match target.parent() {
-            Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
-            _ => PathBuf::from("."),
-        };
         let name = target.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
-        let temp = dir.join(format!(".{name}.{}.tmp", std::process::id()));
-        let file = std::fs::File::create(&temp)
-            .map_err(|e| Error::Failure(format!("cannot create the output '{path}': {e}")))?;
-        Ok(Sink { writer: Box::new(std::io::BufWriter::new(file)), temp: Some((temp, target)) })
+        // An unpredictable name, created exclusively; `create_new` (not tempfile's own create)
+        // gives the finished file a plain create's permissions rather than 0600, and errors
+        // that do not name the temporary file.
+        let (file, temp) = tempfile::Builder::new()
+            .prefix(&format!(".{name}."))
+            .suffix(".tmp")
+            .make_in(directory(&target), |temp| std::fs::File::create_new(temp))
+            .map_err(|e| Error::Failure(format!("cannot create the output '{path}': {e}")))?
+            .into_parts();
+        Ok(Sink(Out::File(std::io::BufWriter::new(file), temp, target)))
     }
 
     /// The writer to print into.
     pub fn writer(&mut self) -> &mut dyn Write {
-        &mut self.writer
+        match &mut self.0 {
+            Out::Stdout(w) => w,
+            Out::File(w, _, _) => w,
+        }
     }
 
-    /// Flush and, for a file, move it into place.
-    pub fn finish(mut self) -> Result<(), Error> {
-        let flushed = self.writer.flush();
-        // Close the file before renaming it.
-        self.writer = Box::new(std::io::sink());
-        match (flushed, self.temp.take()) {
-            (Ok(()), None) => Ok(()),
-            (Err(e), None) => Err(io_failure(e)),
-            (Ok(()), Some((temp, target))) => std::fs::rename(&temp, &target).map_err(|e| {
-                let _ = std::fs::remove_file(&temp);
-                Error::Failure(format!("cannot write '{}': {e}", target.display()))
-            }),
-            (Err(e), Some((temp, _))) => {
-                let _ = std::fs::remove_file(&temp);
-                Err(io_failure(e))
+    /// Flush and, for a file, move it into place durably: its data reaches the disk before the
+    /// rename, and the rename then too where the platform can sync a directory.
+    pub fn finish(self) -> Result<(), Error> {
+        match self.0 {
+            Out::Stdout(mut w) => w.flush().map_err(io_failure),
+            Out::File(w, temp, target) => {
+                let file = w.into_inner().map_err(|e| io_failure(e.into_error()))?;
+                file.sync_all().map_err(io_failure)?;
+                drop(file);
+                temp.persist(&target).map_err(|e| {
+                    Error::Failure(format!("cannot write '{}': {}", target.display(), e.error))
+                })?;
+                // Make the rename durable too. Best effort: the output is in place already, and
+                // some file systems (and platforms) cannot sync a directory.
+                if let Ok(dir) = std::fs::File::open(directory(&target)) {
+                    let _ = dir.sync_all();
+                }
+                Ok(())
             }
         }
     }
 }
 
-impl Drop for Sink {
-    fn drop(&mut self) {
-        // Not finished: an error happened, so leave nothing behind.
-        if let Some((temp, _)) = self.temp.take() {
-            let _ = std::fs::remove_file(temp);
-        }
+/// The directory a file path is in (`.` for a bare name).
+fn directory(path: &Path) -> &Path {
+    match path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p,
+        _ => Path::new("."),
     }
 }
 

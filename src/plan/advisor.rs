@@ -15,6 +15,7 @@
 use crate::dosing::Dose;
 use crate::engine::{self, Params};
 use crate::model::Residual;
+use crate::stats::weighted_quantile;
 use rand::SeedableRng;
 use rand::distr::Distribution;
 use rand::rngs::StdRng;
@@ -50,21 +51,11 @@ pub struct Advice {
     pub times: Vec<SampleValue>,
 }
 
-/// Weighted 5–95 % width of `values` taken in `order` (ascending values), weights summing to 1.
+/// Weighted 5–95 % width of `values` taken in `order` (ascending values), weights summing to 1
+/// ([`crate::stats::weighted_quantile`]).
 fn ci90_width(values: &[f64], order: &[usize], weights: &[f64]) -> f64 {
-    let (mut acc, mut lo, mut hi) = (0.0, None, None);
-    for &i in order {
-        acc += weights[i];
-        if lo.is_none() && acc >= 0.05 {
-            lo = Some(values[i]);
-        }
-        if hi.is_none() && acc >= 0.95 {
-            hi = Some(values[i]);
-            break;
-        }
-    }
-    let last = order.last().map_or(f64::NAN, |&i| values[i]);
-    hi.unwrap_or(last) - lo.unwrap_or(last)
+    let quantile = |p| weighted_quantile(order.iter().map(|&i| (values[i], weights[i])), p);
+    quantile(0.95) - quantile(0.05)
 }
 
 /// What the advisor weighs.

@@ -2,40 +2,11 @@
 //! (`500..3000/250`), intervals from a list (`6h,8h,12h,24h`), infusion durations fixed or
 //! derived from the rate limit.
 
-use crate::dosing::Route;
-use crate::io::output::plain;
+use crate::dosing::{Regimen, Route};
 use crate::units::{Kind, parse_value};
-use serde::Serialize;
 
 /// The most candidates one grid may hold.
 pub const MAX_CANDIDATES: usize = 100_000;
-
-/// One candidate maintenance regimen.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub struct Candidate {
-    /// Amount of each dose (mg).
-    pub amount_mg: f64,
-    /// Dosing interval (h).
-    pub every_h: f64,
-    /// Infusion duration (h); zero for bolus and oral.
-    pub duration_h: f64,
-    /// Route.
-    pub route: Route,
-}
-
-impl Candidate {
-    /// The regimen as a prescriber writes it: `750 mg infusion over 1.5 h every 12 h`.
-    pub fn describe(&self) -> String {
-        let over =
-            if self.duration_h > 0.0 { format!(" over {} h", plain(self.duration_h)) } else { String::new() };
-        format!("{} mg {}{over} every {} h", plain(self.amount_mg), self.route, plain(self.every_h))
-    }
-
-    /// Total amount over 24 h (mg).
-    pub fn daily_mg(&self) -> f64 {
-        self.amount_mg * 24.0 / self.every_h
-    }
-}
 
 /// How infusion durations are chosen.
 #[derive(Debug, Clone, PartialEq)]
@@ -99,7 +70,7 @@ pub fn grid(
     every: &[f64],
     route: Route,
     durations: &Durations,
-) -> Result<Vec<Candidate>, String> {
+) -> Result<Vec<Regimen>, String> {
     if amounts.is_empty() || every.is_empty() {
         return Err("the candidate grid is empty: give --amounts and --every".into());
     }
@@ -115,7 +86,7 @@ pub fn grid(
                 _ => vec![0.0],
             };
             for d in options.into_iter().filter(|&d| d <= tau) {
-                out.push(Candidate { amount_mg: amount, every_h: tau, duration_h: d, route });
+                out.push(Regimen { amount_mg: amount, every_h: tau, duration_h: d, route });
                 if out.len() > MAX_CANDIDATES {
                     return Err(format!("the grid has more than {MAX_CANDIDATES} candidates"));
                 }
@@ -130,7 +101,7 @@ pub fn grid(
 
 /// The rounding step the candidates' amounts imply: the smallest gap between two of them, or
 /// the smallest amount when they are all equal (for rounding a loading dose).
-pub fn amount_step(candidates: &[Candidate]) -> f64 {
+pub fn amount_step(candidates: &[Regimen]) -> f64 {
     let mut amounts: Vec<f64> = candidates.iter().map(|c| c.amount_mg).collect();
     amounts.sort_by(f64::total_cmp);
     amounts.dedup();

@@ -11,11 +11,10 @@ pub mod session;
 
 pub mod targets;
 
-use crate::dosing::Dose;
-use crate::engine::steady::{Exposure, RepeatedDose, SteadyCurve};
+use crate::dosing::{Dose, Regimen};
+use crate::engine::steady::{Exposure, SteadyCurve};
 use crate::engine::{self, Params};
 use crate::error::Invalid;
-use candidates::Candidate;
 use targets::{Limits, Metric, Target};
 
 /// Where a candidate regimen starts: after the doses already given.
@@ -36,18 +35,13 @@ impl<'a> Course<'a> {
     }
 
     /// The history continued by `candidate` (with an optional loading dose first) up to `until_h`.
-    pub fn continued(&self, candidate: &Candidate, loading_mg: Option<f64>, until_h: f64) -> Vec<Dose> {
+    pub fn continued(&self, candidate: &Regimen, loading_mg: Option<f64>, until_h: f64) -> Vec<Dose> {
         let mut doses = self.history.to_vec();
         let mut t = self.start_h;
         let mut first = true;
         while t < until_h {
             let amount = if first { loading_mg.unwrap_or(candidate.amount_mg) } else { candidate.amount_mg };
-            doses.push(Dose {
-                time_h: t,
-                amount_mg: amount,
-                route: candidate.route,
-                duration_h: candidate.duration_h,
-            });
+            doses.push(Dose { amount_mg: amount, ..candidate.dose_at(t) });
             first = false;
             t += candidate.every_h;
         }
@@ -85,21 +79,13 @@ pub struct Evaluation {
 /// (built once per candidate), needed only when a target is an AUC over a day of therapy.
 pub fn evaluate(
     params: &Params,
-    candidate: &Candidate,
+    candidate: &Regimen,
     targets: &[Target],
     limits: &Limits,
     course: &Course,
     course_doses: Option<&[Dose]>,
 ) -> Result<Evaluation, Invalid> {
-    let curve = SteadyCurve::new(
-        params,
-        RepeatedDose {
-            amount_mg: candidate.amount_mg,
-            route: candidate.route,
-            duration_h: candidate.duration_h,
-            every_h: candidate.every_h,
-        },
-    )?;
+    let curve = SteadyCurve::new(params, *candidate)?;
     let steady = curve.exposure();
     let values: Vec<f64> = targets
         .iter()
@@ -130,7 +116,7 @@ pub fn evaluate(
 }
 
 /// Dose limits a candidate breaks by itself (whatever the patient's kinetics), as reasons.
-pub fn dose_limits_broken(candidate: &Candidate, loading_mg: Option<f64>, limits: &Limits) -> Vec<String> {
+pub fn dose_limits_broken(candidate: &Regimen, loading_mg: Option<f64>, limits: &Limits) -> Vec<String> {
     let mut broken = Vec::new();
     let largest = candidate.amount_mg.max(loading_mg.unwrap_or(0.0));
     if let Some(m) = limits.max_dose_mg

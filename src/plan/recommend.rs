@@ -7,12 +7,12 @@
 //! Ranking: PTA, then the lower daily dose, then the longer interval. The best candidate that
 //! breaks no limit is recommended, with a loading dose when one reaches the targets sooner.
 
-use super::candidates::Candidate;
 use super::targets::{Limits, Metric, Target};
 use super::{Course, dose_limits_broken, evaluate, last_day_end};
-use crate::dosing::Route;
+use crate::dosing::{Regimen, Route};
 use crate::engine::{Events, Kinetics, Params, Walker};
 use crate::error::Invalid;
+use crate::stats::interpolated_quantile;
 use rayon::prelude::*;
 use serde::Serialize;
 
@@ -28,16 +28,12 @@ pub struct Band {
 }
 
 impl Band {
-    /// The band of `values` (sorted in place).
+    /// The band of `values` (sorted in place), interpolated between order statistics
+    /// ([`interpolated_quantile`]; see [`crate::stats`] for how it differs from the other
+    /// percentiles).
     pub fn of(values: &mut [f64]) -> Band {
         values.sort_by(f64::total_cmp);
-        let q = |p: f64| {
-            // Linear interpolation between order statistics (type 7, the common default).
-            let h = p * (values.len() - 1) as f64;
-            let (i, frac) = (h.floor() as usize, h - h.floor());
-            let next = values[(i + 1).min(values.len() - 1)];
-            values[i] + frac * (next - values[i])
-        };
+        let q = |p: f64| interpolated_quantile(values, p);
         Band { median: q(0.5), p05: q(0.05), p95: q(0.95) }
     }
 }
@@ -56,14 +52,9 @@ pub struct Predicted {
 /// One candidate's assessment.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Assessment {
-    /// Amount of each dose (mg).
-    pub amount_mg: f64,
-    /// Interval (h).
-    pub every_h: f64,
-    /// Infusion duration (h).
-    pub duration_h: f64,
-    /// Route.
-    pub route: Route,
+    /// The candidate regimen.
+    #[serde(flatten)]
+    pub regimen: Regimen,
     /// Total over 24 h (mg).
     pub daily_mg: f64,
     /// Probability of target attainment.
@@ -83,18 +74,6 @@ pub struct Assessment {
     pub time_to_target_h: Option<f64>,
     /// Why the candidate cannot be recommended (empty when it can).
     pub limits_broken: Vec<String>,
-}
-
-impl Assessment {
-    /// The candidate regimen.
-    pub fn candidate(&self) -> Candidate {
-        Candidate {
-            amount_mg: self.amount_mg,
-            every_h: self.every_h,
-            duration_h: self.duration_h,
-            route: self.route,
-        }
-    }
 }
 
 /// The recommendation.
@@ -121,7 +100,7 @@ pub struct PlanInput<'a> {
     /// The real history and where the new regimen starts.
     pub course: Course<'a>,
     /// Candidate regimens.
-    pub candidates: &'a [Candidate],
+    pub candidates: &'a [Regimen],
     /// Targets.
     pub targets: &'a [Target],
     /// Limits.
@@ -141,7 +120,7 @@ pub struct Plan {
     pub notes: Vec<String>,
 }
 
-fn assess(input: &PlanInput, c: &Candidate) -> Result<Assessment, Invalid> {
+fn assess(input: &PlanInput, c: &Regimen) -> Result<Assessment, Invalid> {
     let course = &input.course;
     let until = last_day_end(input.targets, course);
     let course_doses = until.map(|u| course.continued(c, None, u));
@@ -179,10 +158,7 @@ fn assess(input: &PlanInput, c: &Candidate) -> Result<Assessment, Invalid> {
         }
     }
     Ok(Assessment {
-        amount_mg: c.amount_mg,
-        every_h: c.every_h,
-        duration_h: c.duration_h,
-        route: c.route,
+        regimen: *c,
         daily_mg: c.daily_mg(),
         pta: met as f64 / n,
         p_over_peak,
@@ -206,7 +182,7 @@ const SAMPLES_PER_INTERVAL: usize = 96;
 pub fn time_to_target(
     p: &Params,
     course: &Course,
-    c: &Candidate,
+    c: &Regimen,
     loading_mg: Option<f64>,
     targets: &[Target],
 ) -> Option<f64> {
@@ -283,13 +259,13 @@ pub fn plan(input: &PlanInput) -> Result<Plan, Invalid> {
         b.pta
             .total_cmp(&a.pta)
             .then(a.daily_mg.total_cmp(&b.daily_mg))
-            .then(b.every_h.total_cmp(&a.every_h))
-            .then(a.amount_mg.total_cmp(&b.amount_mg))
+            .then(b.regimen.every_h.total_cmp(&a.regimen.every_h))
+            .then(a.regimen.amount_mg.total_cmp(&b.regimen.amount_mg))
     });
     let mut notes = Vec::new();
     let recommended = assessed.iter().find(|a| a.limits_broken.is_empty()).cloned().map(|a| {
-        let c = a.candidate();
-        let loading = loading_dose(input, &a);
+        let c = a.regimen;
+        let loading = loading_dose(input, &c);
         let with_loading =
             loading.and_then(|ld| time_to_target(&input.point, &input.course, &c, Some(ld), input.targets));
         let helps = matches!((with_loading, a.time_to_target_h), (Some(w), Some(wo)) if w < wo)
@@ -315,24 +291,24 @@ pub fn plan(input: &PlanInput) -> Result<Plan, Invalid> {
 /// Maintenance dose × accumulation ratio for the point estimate, rounded up to the amount step
 /// and kept within the single-dose, rate and daily limits (the first day then holds the loading
 /// dose and the maintenance doses after it); `None` when it would not exceed the maintenance dose.
-fn loading_dose(input: &PlanInput, a: &Assessment) -> Option<f64> {
+fn loading_dose(input: &PlanInput, c: &Regimen) -> Option<f64> {
     let k = input.point.k_per_h();
-    let ratio = 1.0 / -(-k * a.every_h).exp_m1();
+    let ratio = 1.0 / -(-k * c.every_h).exp_m1();
     let step = input.amount_step_mg;
-    let mut ld = (a.amount_mg * ratio / step - 1e-9).ceil() * step;
+    let mut ld = (c.amount_mg * ratio / step - 1e-9).ceil() * step;
     if let Some(max) = input.limits.max_dose_mg {
         ld = ld.min((max / step + 1e-9).floor() * step);
     }
     if let Some(rate) = input.limits.max_rate_mg_h
-        && a.route == Route::Infusion
+        && c.route == Route::Infusion
     {
-        ld = ld.min((rate * a.duration_h / step + 1e-9).floor() * step);
+        ld = ld.min((rate * c.duration_h / step + 1e-9).floor() * step);
     }
     if let Some(daily) = input.limits.max_daily_mg {
         // The first 24 h hold the loading dose and the maintenance doses that follow it.
-        let doses_in_a_day = (24.0 / a.every_h - 1e-9).ceil().max(1.0);
-        let room = daily - (doses_in_a_day - 1.0) * a.amount_mg;
+        let doses_in_a_day = (24.0 / c.every_h - 1e-9).ceil().max(1.0);
+        let room = daily - (doses_in_a_day - 1.0) * c.amount_mg;
         ld = ld.min((room / step + 1e-9).floor() * step);
     }
-    (ld > a.amount_mg * (1.0 + 1e-9)).then_some(ld)
+    (ld > c.amount_mg * (1.0 + 1e-9)).then_some(ld)
 }

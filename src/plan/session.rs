@@ -4,26 +4,29 @@
 
 use super::Course;
 use super::advisor::{Advice, Question, advise};
-use super::candidates::{Candidate, amount_step};
+use super::candidates::amount_step;
 use super::recommend::{Plan, PlanInput, plan};
 use super::targets::{Limits, Metric, Target};
-use crate::dosing::Dose;
+use crate::choice::choice_enum;
+use crate::dosing::{Dose, Regimen};
 use crate::engine::Params;
-use crate::engine::steady::{RepeatedDose, SteadyCurve};
+use crate::engine::steady::SteadyCurve;
 use crate::error::Invalid;
 use crate::model::Residual;
 
-/// An exposure the next-level advice can pin down.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
-pub enum Exposure {
-    /// Steady-state AUC over 24 h.
-    Auc24,
-    /// Steady-state trough.
-    Trough,
-    /// Steady-state peak.
-    Peak,
-    /// Steady-state average concentration.
-    Cavg,
+choice_enum! {
+    /// An exposure the next-level advice can pin down.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum Exposure: "exposure" {
+        /// Steady-state AUC over 24 h.
+        Auc24 = "auc24",
+        /// Steady-state trough.
+        Trough = "trough",
+        /// Steady-state peak.
+        Peak = "peak",
+        /// Steady-state average concentration.
+        Cavg = "cavg",
+    }
 }
 
 impl Exposure {
@@ -63,7 +66,7 @@ pub struct Posterior {
 #[derive(Debug, Clone)]
 pub struct Settings<'a> {
     /// Candidate regimens.
-    pub candidates: &'a [Candidate],
+    pub candidates: &'a [Regimen],
     /// Targets.
     pub targets: &'a [Target],
     /// Limits.
@@ -102,7 +105,7 @@ pub fn default_start(doses: &[Dose]) -> f64 {
 
 /// Candidate sampling times: every twelfth of an interval over the first intervals of the new
 /// regimen, plus the end of each infusion; a time on a dose is read a minute before it.
-pub fn sampling_times(c: &Candidate, start: f64, intervals: u32) -> Vec<f64> {
+pub fn sampling_times(c: &Regimen, start: f64, intervals: u32) -> Vec<f64> {
     let mut t: Vec<f64> = (1..=12 * intervals).map(|i| start + c.every_h * f64::from(i) / 12.0).collect();
     if c.duration_h > 0.0 {
         t.extend((0..intervals).map(|j| start + f64::from(j) * c.every_h + c.duration_h));
@@ -143,19 +146,13 @@ pub fn plan_subject(history: &[Dose], posterior: &Posterior, s: &Settings) -> Re
             None
         }
         (Some(r), Some(residual), intervals) => {
-            let c = r.assessment.candidate();
+            let c = r.assessment.regimen;
             let metric = s.advise_on.unwrap_or_else(|| Exposure::of(&s.targets[0]));
-            let dose = RepeatedDose {
-                amount_mg: c.amount_mg,
-                route: c.route,
-                duration_h: c.duration_h,
-                every_h: c.every_h,
-            };
             let exposure: Vec<f64> = posterior
                 .draws
                 .iter()
                 .map(|p| {
-                    SteadyCurve::new(p, dose).map_or(f64::NAN, |curve| {
+                    SteadyCurve::new(p, c).map_or(f64::NAN, |curve| {
                         let m = curve.exposure();
                         match metric {
                             Exposure::Auc24 => m.auc24_mg_h_l,

@@ -7,7 +7,7 @@
 //! by default the whole interval, or at least a stated share with `above=2mg/l..@60%`.
 
 use crate::units::{Kind, parse_value};
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 use std::fmt;
 
 /// What a target is about.
@@ -151,7 +151,7 @@ pub fn parse_target(spec: &str) -> Result<Target, String> {
 /// Safety limits. Dose limits are checked on the regimen itself; exposure limits on the
 /// predicted exposure, where a candidate breaks the limit when the probability of exceeding
 /// it is above `max_risk`.
-#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub struct Limits {
     /// Largest single dose (mg).
     pub max_dose_mg: Option<f64>,
@@ -167,6 +167,24 @@ pub struct Limits {
     pub min_every_h: Option<f64>,
     /// Largest acceptable probability of exceeding an exposure limit.
     pub max_risk: f64,
+}
+
+/// The acceptable probability of exceeding an exposure limit when none is stated.
+pub const DEFAULT_MAX_RISK: f64 = 0.1;
+
+impl Default for Limits {
+    /// No limits, and the default acceptable risk [`DEFAULT_MAX_RISK`].
+    fn default() -> Limits {
+        Limits {
+            max_dose_mg: None,
+            max_daily_mg: None,
+            max_rate_mg_h: None,
+            max_peak_mg_l: None,
+            max_trough_mg_l: None,
+            min_every_h: None,
+            max_risk: DEFAULT_MAX_RISK,
+        }
+    }
 }
 
 impl Limits {

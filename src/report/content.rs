@@ -104,11 +104,11 @@ pub fn concentration_plots(a: &Analysis) -> Vec<PlotSpec> {
     let first = a.doses.first().map_or(0.0, |d| d.time_h);
     let last_level = a.levels.iter().map(|l| l.time_h).fold(first, f64::max);
     let end = match rec {
-        Some(r) => r.start_h + 3.0 * r.assessment.every_h,
+        Some(r) => r.start_h + 3.0 * r.assessment.regimen.every_h,
         None => last_level.max(a.doses.last().map_or(first, |d| d.time_h)) + 24.0,
     };
     let doses = match rec {
-        Some(r) => a.course.continued(&r.assessment.candidate(), r.loading_dose_mg, end),
+        Some(r) => a.course.continued(&r.assessment.regimen, r.loading_dose_mg, end),
         None => a.doses.to_vec(),
     };
     let n = 400;
@@ -333,7 +333,7 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
         Some(r) => {
             let s = &r.assessment;
             let mut kv = vec![
-                ("Regimen".to_string(), s.candidate().describe()),
+                ("Regimen".to_string(), s.regimen.describe()),
                 ("First dose at".to_string(), format!("{} h", readable(r.start_h, 5))),
                 ("Probability of target attainment".to_string(), format!("{:.1} %", 100.0 * s.pta)),
                 ("Predicted peak, mg/L (90 %)".to_string(), band(&s.predicted.peak_mg_l)),
@@ -375,7 +375,7 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
         .map(|(i, c)| {
             vec![
                 (i + 1).to_string(),
-                c.candidate().describe(),
+                c.regimen.describe(),
                 format!("{:.1}", 100.0 * c.pta),
                 r3(c.predicted.peak_mg_l.median),
                 r3(c.predicted.trough_mg_l.median),

@@ -2,6 +2,7 @@
 
 pub mod content;
 pub mod layout;
+#[cfg(feature = "pdf")]
 pub mod pdf;
 pub mod plot;
 pub mod provenance;

@@ -260,14 +260,15 @@ pub fn wrap(text: &str, face: Face, size: f64, max: f64) -> Vec<String> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use printpdf::BuiltinFont;
 
     /// The AFM widths agree with the Helvetica clones printpdf bundles (its own metric data,
     /// an independent source) for every WinAnsi character both define, except a few glyphs
     /// where the clone's design differs from Adobe's; for those, poppler's standard-14 metrics
     /// (measured with `pdftotext -bbox`) side with the table.
     #[test]
+    #[cfg(feature = "pdf")]
     fn afm_widths_match_printpdf_font_data() {
+        use printpdf::BuiltinFont;
         for (face, font, known) in [
             (Face::Regular, BuiltinFont::Helvetica, "±µ÷€”"),
             (Face::Bold, BuiltinFont::HelveticaBold, "±µ÷€”"),

@@ -14,10 +14,9 @@ pub mod sketch;
 pub mod state;
 pub mod summary;
 
-use crate::dosing::Dose;
+use crate::dosing::{Dose, Regimen};
 use crate::error::Error;
 use crate::io::output::{csv_field, io_failure};
-use crate::plan::candidates::Candidate;
 use crate::plan::targets::{Limits, Target};
 use crate::plan::{Course, evaluate, last_day_end};
 use population::{Population, Subject};
@@ -52,7 +51,7 @@ pub struct Sweep<'a> {
     /// The virtual population.
     pub population: &'a Population,
     /// The candidate regimens.
-    pub candidates: &'a [Candidate],
+    pub candidates: &'a [Regimen],
     /// Targets every subject should meet.
     pub targets: &'a [Target],
     /// Safety limits.

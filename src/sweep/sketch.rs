@@ -8,6 +8,7 @@
 //! unsharded result. The memory is one counter per bin between the smallest and the largest
 //! value seen (about 1,150 bins per decade at α = 0.1 %), whatever the number of values.
 
+use crate::stats::nearest_rank;
 use serde::{Deserialize, Serialize};
 
 /// Relative accuracy α of every percentile the sketch reports: within 0.1 % of the exact
@@ -88,15 +89,15 @@ impl Sketch {
         self.below_floor + self.counts.iter().sum::<u64>()
     }
 
-    /// The `percent`-th percentile by the nearest-rank definition (the value of rank
-    /// ⌈percent·n/100⌉ in sorted order, at least rank 1), within [`RELATIVE_ERROR`]; `None`
-    /// when empty.
+    /// The `percent`-th percentile by the nearest-rank definition ([`crate::stats`]: the value
+    /// of rank ⌈percent·n/100⌉ in sorted order, at least rank 1), within [`RELATIVE_ERROR`];
+    /// `None` when empty.
     pub fn percentile(&self, percent: u32) -> Option<f64> {
         let n = self.count();
         if n == 0 {
             return None;
         }
-        let rank = ((u128::from(percent) * u128::from(n)).div_ceil(100) as u64).clamp(1, n);
+        let rank = nearest_rank(n, percent);
         if rank <= self.below_floor {
             return Some(0.0);
         }
@@ -121,9 +122,7 @@ mod tests {
 
     /// The exact nearest-rank percentile of a sample.
     fn exact(sorted: &[f64], percent: u32) -> f64 {
-        let n = sorted.len() as u64;
-        let rank = (u64::from(percent) * n).div_ceil(100).clamp(1, n);
-        sorted[rank as usize - 1]
+        sorted[nearest_rank(sorted.len() as u64, percent) as usize - 1]
     }
 
     #[test]

@@ -3,14 +3,14 @@
 //! A shard writes its state as JSON; `merge` checks that the states share one setup and cover
 //! every slice of the subjects exactly once, and adds their counts. Counts and sketches are
 //! integers, so the merged state is identical to the state of one unsharded run, and so is the
-//! summary made from it. Floating-point values in the state are written as their shortest
-//! round-trip text and read back with Rust's correctly rounded parser, so they survive the
-//! trip exactly.
+//! summary made from it. Floating-point values in the state are JSON numbers in their shortest
+//! round-trip form, read back with serde_json's correctly rounded parser (its
+//! `float_roundtrip` feature), so they survive the trip exactly.
 
 use super::Outcome;
 use super::sketch::{RELATIVE_ERROR, Sketch};
-use crate::dosing::Route;
-use crate::plan::candidates::Candidate;
+use crate::dosing::Regimen;
+use crate::io::digest::sha256_hex;
 use crate::plan::dose_limits_broken;
 use crate::plan::targets::{Limits, Target};
 use serde::{Deserialize, Serialize};
@@ -19,88 +19,17 @@ use std::ops::Range;
 
 /// The `format` field of a state file.
 pub const STATE_FORMAT: &str = "cistern sweep state";
-/// The layout version of a state file.
-pub const STATE_VERSION: u32 = 1;
+/// The layout version of a state file (2: numbers as JSON numbers, SHA-256 fingerprints).
+pub const STATE_VERSION: u32 = 2;
 
-/// f64 as its shortest round-trip text.
-mod exact {
-    use serde::{Deserialize, Deserializer, Serializer, de::Error};
-
-    pub fn serialize<S: Serializer>(x: &f64, s: S) -> Result<S::Ok, S::Error> {
-        s.serialize_str(&crate::io::output::full(*x))
-    }
-
-    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
-        let text = String::deserialize(d)?;
-        text.parse().map_err(|_| D::Error::custom(format!("expected a number, found '{text}'")))
-    }
-}
-
-/// `Option<f64>` as its shortest round-trip text, or null.
-mod exact_opt {
-    use serde::{Deserialize, Deserializer, Serializer, de::Error};
-
-    pub fn serialize<S: Serializer>(x: &Option<f64>, s: S) -> Result<S::Ok, S::Error> {
-        match x {
-            Some(x) => s.serialize_some(&crate::io::output::full(*x)),
-            None => s.serialize_none(),
-        }
-    }
-
-    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Option<f64>, D::Error> {
-        Option::<String>::deserialize(d)?
-            .map(|t| t.parse().map_err(|_| D::Error::custom(format!("expected a number, found '{t}'"))))
-            .transpose()
-    }
-}
-
-/// FNV-1a, 64 bits: a stable fingerprint of bytes (not a cryptographic hash).
-pub fn fnv1a64(bytes: &[u8]) -> u64 {
-    bytes.iter().fold(0xcbf2_9ce4_8422_2325, |h, &b| (h ^ u64::from(b)).wrapping_mul(0x0100_0000_01b3))
-}
-
-/// One candidate regimen as swept.
+/// One candidate regimen as swept, with the dose limits it breaks by itself.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct Regimen {
-    /// Amount of each dose (mg).
-    #[serde(with = "exact")]
-    pub amount_mg: f64,
-    /// Dosing interval (h).
-    #[serde(with = "exact")]
-    pub every_h: f64,
-    /// Infusion duration (h); zero otherwise.
-    #[serde(with = "exact")]
-    pub duration_h: f64,
-    /// Route.
-    pub route: Route,
+pub struct SweptRegimen {
+    /// The regimen.
+    #[serde(flatten)]
+    pub regimen: Regimen,
     /// The dose limits the regimen breaks by itself, as reasons.
     pub dose_limits_broken: Vec<String>,
-}
-
-/// The safety limits of a sweep, as [`Limits`] with every value kept exactly.
-#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-pub struct LimitSet {
-    /// Largest single dose (mg).
-    #[serde(with = "exact_opt")]
-    pub max_dose_mg: Option<f64>,
-    /// Largest total over 24 h (mg).
-    #[serde(with = "exact_opt")]
-    pub max_daily_mg: Option<f64>,
-    /// Fastest infusion (mg/h).
-    #[serde(with = "exact_opt")]
-    pub max_rate_mg_h: Option<f64>,
-    /// Highest acceptable steady-state peak (mg/L).
-    #[serde(with = "exact_opt")]
-    pub max_peak_mg_l: Option<f64>,
-    /// Highest acceptable steady-state trough (mg/L).
-    #[serde(with = "exact_opt")]
-    pub max_trough_mg_l: Option<f64>,
-    /// Shortest dosing interval (h).
-    #[serde(with = "exact_opt")]
-    pub min_every_h: Option<f64>,
-    /// Largest acceptable probability of exceeding an exposure limit.
-    #[serde(with = "exact")]
-    pub max_risk: f64,
 }
 
 /// Everything that determines a sweep's results. Shards merge only when their setups are equal.
@@ -118,11 +47,10 @@ pub struct Setup {
     /// The targets, as stated.
     pub targets: Vec<String>,
     /// The safety limits.
-    pub limits: LimitSet,
+    pub limits: Limits,
     /// The candidate regimens, in order.
-    pub regimens: Vec<Regimen>,
+    pub regimens: Vec<SweptRegimen>,
     /// Relative error of the percentiles.
-    #[serde(with = "exact")]
     pub percentile_relative_error: f64,
 }
 
@@ -132,7 +60,7 @@ impl Setup {
         population: serde_json::Value,
         seed: u64,
         subjects: u64,
-        candidates: &[Candidate],
+        candidates: &[Regimen],
         targets: &[Target],
         limits: &Limits,
     ) -> Setup {
@@ -142,22 +70,11 @@ impl Setup {
             seed,
             subjects,
             targets: targets.iter().map(Target::to_string).collect(),
-            limits: LimitSet {
-                max_dose_mg: limits.max_dose_mg,
-                max_daily_mg: limits.max_daily_mg,
-                max_rate_mg_h: limits.max_rate_mg_h,
-                max_peak_mg_l: limits.max_peak_mg_l,
-                max_trough_mg_l: limits.max_trough_mg_l,
-                min_every_h: limits.min_every_h,
-                max_risk: limits.max_risk,
-            },
+            limits: *limits,
             regimens: candidates
                 .iter()
-                .map(|c| Regimen {
-                    amount_mg: c.amount_mg,
-                    every_h: c.every_h,
-                    duration_h: c.duration_h,
-                    route: c.route,
+                .map(|c| SweptRegimen {
+                    regimen: *c,
                     dose_limits_broken: dose_limits_broken(c, None, limits),
                 })
                 .collect(),
@@ -165,9 +82,9 @@ impl Setup {
         }
     }
 
-    /// A short fingerprint of the setup, to tell sweeps apart at a glance.
+    /// The setup's fingerprint (SHA-256 of its JSON), to tell sweeps apart at a glance.
     pub fn fingerprint(&self) -> String {
-        format!("{:016x}", fnv1a64(serde_json::to_string(self).unwrap_or_default().as_bytes()))
+        sha256_hex(serde_json::to_string(self).unwrap_or_default().as_bytes())
     }
 
     /// The names of the top-level fields in which two setups differ.
@@ -408,6 +325,7 @@ impl Merger {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::dosing::Route;
     use crate::plan::candidates::{Durations, grid};
     use crate::plan::targets::parse_target;
 

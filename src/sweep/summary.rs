@@ -1,8 +1,8 @@
 //! The summary of a whole sweep, one row per regimen, made from its state alone, so that a
 //! merged state prints exactly what an unsharded run prints.
 
-use super::state::{Regimen, SweepState};
-use crate::dosing::Route;
+use super::state::{SweepState, SweptRegimen};
+use crate::dosing::{Regimen, Route};
 use crate::io::output::{CAUTION, Format, full, readable, render_table};
 use serde::Serialize;
 use std::io::Write;
@@ -32,15 +32,11 @@ impl Percentiles {
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct SummaryRow {
     /// 1-based position in the grid (the `regimen` column of the per-subject file).
-    pub regimen: usize,
-    /// Amount of each dose (mg).
-    pub amount_mg: f64,
-    /// Dosing interval (h).
-    pub every_h: f64,
-    /// Infusion duration (h).
-    pub duration_h: f64,
-    /// Route.
-    pub route: Route,
+    #[serde(rename = "regimen")]
+    pub index: usize,
+    /// The regimen.
+    #[serde(flatten)]
+    pub regimen: Regimen,
     /// Total over 24 h (mg).
     pub daily_mg: f64,
     /// Subjects.
@@ -138,13 +134,10 @@ impl Summary {
             .iter()
             .zip(&state.tallies)
             .enumerate()
-            .map(|(i, (r, t)): (usize, (&Regimen, _))| SummaryRow {
-                regimen: i + 1,
-                amount_mg: r.amount_mg,
-                every_h: r.every_h,
-                duration_h: r.duration_h,
-                route: r.route,
-                daily_mg: r.amount_mg * 24.0 / r.every_h,
+            .map(|(i, (r, t)): (usize, (&SweptRegimen, _))| SummaryRow {
+                index: i + 1,
+                regimen: r.regimen,
+                daily_mg: r.regimen.daily_mg(),
                 subjects: t.subjects,
                 pta: share(t.meets, t.subjects),
                 p_over_peak: t.over_peak.map(|n| share(n, t.subjects)),
@@ -187,11 +180,11 @@ impl Summary {
         let opt = |x: Option<f64>| x.map(full).unwrap_or_default();
         for r in &self.regimens {
             let mut row = vec![
-                r.regimen.to_string(),
-                full(r.amount_mg),
-                full(r.every_h),
-                full(r.duration_h),
-                r.route.to_string(),
+                r.index.to_string(),
+                full(r.regimen.amount_mg),
+                full(r.regimen.every_h),
+                full(r.regimen.duration_h),
+                r.regimen.route.to_string(),
                 full(r.daily_mg),
                 r.subjects.to_string(),
                 full(r.pta),
@@ -221,10 +214,14 @@ impl Summary {
             .iter()
             .map(|r| {
                 vec![
-                    r.regimen.to_string(),
-                    readable(r.amount_mg, 4),
-                    readable(r.every_h, 4),
-                    if r.route == Route::Infusion { readable(r.duration_h, 3) } else { r.route.to_string() },
+                    r.index.to_string(),
+                    readable(r.regimen.amount_mg, 4),
+                    readable(r.regimen.every_h, 4),
+                    if r.regimen.route == Route::Infusion {
+                        readable(r.regimen.duration_h, 3)
+                    } else {
+                        r.regimen.route.to_string()
+                    },
                     format!("{:.1}", 100.0 * r.pta),
                     share(r.p_over_peak),
                     share(r.p_over_trough),
@@ -257,7 +254,7 @@ impl Summary {
         text += &render_table(&headers, &rows);
         for r in &self.regimens {
             for reason in r.dose_limits_broken.iter().chain(&r.exposure_limits_broken) {
-                text += &format!("regimen {}: {reason}\n", r.regimen);
+                text += &format!("regimen {}: {reason}\n", r.index);
             }
         }
         text += &format!(

@@ -8,8 +8,8 @@
 //! values are repeated here so a wrong wiring (say, `--k` read as clearance) cannot pass.
 
 use crate::common::{assert_published, assert_rel};
-use cistern::dosing::{Dose, Regimen, Route};
-use cistern::engine::steady::{RepeatedDose, SteadyCurve};
+use cistern::dosing::{Dose, Regimen, Route, Schedule};
+use cistern::engine::steady::SteadyCurve;
 use cistern::engine::{self, Params};
 use cistern::io::output::CAUTION;
 use cistern::units::{Kind, parse_value};
@@ -85,12 +85,9 @@ const REGIMEN: [&str; 10] =
     ["--dose", "1g", "--route", "infusion", "--duration", "1h", "--every", "12h", "--count", "6"];
 
 fn regimen_doses() -> Vec<Dose> {
-    Regimen {
-        amount_mg: 1000.0,
-        every_h: 12.0,
+    Schedule {
+        regimen: Regimen { amount_mg: 1000.0, every_h: 12.0, duration_h: 1.0, route: Route::Infusion },
         count: 6,
-        route: Route::Infusion,
-        duration_h: 1.0,
         start_h: 0.0,
     }
     .doses()
@@ -362,7 +359,7 @@ fn exposure_json_carries_the_library_metrics_and_the_published_case() {
 
     // Every steady-state number is the library's, and the parameters are as given.
     let params = Params::iv(0.092 * 20.4, 20.4);
-    let dose = RepeatedDose { amount_mg: 400.0, route: Route::Infusion, duration_h: 1.0, every_h: 36.0 };
+    let dose = Regimen { amount_mg: 400.0, route: Route::Infusion, duration_h: 1.0, every_h: 36.0 };
     let metrics = serde_json::to_value(SteadyCurve::new(&params, dose).unwrap().metrics()).unwrap();
     assert_eq!(keys(s), keys(&metrics));
     for key in keys(&metrics) {

@@ -11,7 +11,7 @@
 
 use crate::common::{assert_rel, rel_err};
 use cistern::covariates::Covariates;
-use cistern::dosing::{Dose, Regimen, Route};
+use cistern::dosing::{Dose, Regimen, Route, Schedule};
 use cistern::engine::{self, Params};
 use cistern::fit::objective::{Fixed, Likelihood, Prior, Problem, Weighting};
 use cistern::fit::{FitOptions, FitResult, Intervals, Method, SubjectData, fit_all, fit_subject};
@@ -43,7 +43,12 @@ fn levels_of(params: &Params, doses: &[Dose], times: &[f64], noise: &[f64]) -> V
 }
 
 fn infusions(amount_mg: f64, every_h: f64, count: u32, duration_h: f64) -> Vec<Dose> {
-    Regimen { amount_mg, every_h, count, route: Route::Infusion, duration_h, start_h: 0.0 }.doses()
+    Schedule {
+        regimen: Regimen { amount_mg, every_h, duration_h, route: Route::Infusion },
+        count,
+        start_h: 0.0,
+    }
+    .doses()
 }
 
 // --- Two levels, no prior: an exact fit ------------------------------------------------------
@@ -93,12 +98,9 @@ proptest! {
 fn two_oral_levels_with_ka_fixed_are_fitted_exactly() {
     // With ka held fixed two oral levels may have more than one exact fit, so only the fit
     // through both levels is asserted (invented history: 500 mg every 12 h, F = 0.8).
-    let doses: Vec<Dose> = Regimen {
-        amount_mg: 500.0,
-        every_h: 12.0,
+    let doses: Vec<Dose> = Schedule {
+        regimen: Regimen { amount_mg: 500.0, every_h: 12.0, duration_h: 0.0, route: Route::Oral },
         count: 3,
-        route: Route::Oral,
-        duration_h: 0.0,
         start_h: 0.0,
     }
     .doses();
@@ -308,12 +310,9 @@ proptest! {
 fn the_gradient_is_exact_where_ka_equals_k() {
     // ka = k is the removable singularity of the oral solution; the engine switches to its
     // limit form there, and the gradient must follow (invented history).
-    let doses: Vec<Dose> = Regimen {
-        amount_mg: 400.0,
-        every_h: 8.0,
+    let doses: Vec<Dose> = Schedule {
+        regimen: Regimen { amount_mg: 400.0, every_h: 8.0, duration_h: 0.0, route: Route::Oral },
         count: 4,
-        route: Route::Oral,
-        duration_h: 0.0,
         start_h: 0.0,
     }
     .doses();

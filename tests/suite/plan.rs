@@ -9,10 +9,9 @@
 //! guideline, used as a check value only.
 
 use crate::common::{Ran, assert_abs, assert_published, assert_rel, cistern_at, demo_copy};
-use cistern::dosing::Route;
+use cistern::dosing::{Regimen, Route};
 use cistern::engine::Params;
-use cistern::engine::steady::{RepeatedDose, SteadyCurve};
-use cistern::plan::candidates::Candidate;
+use cistern::engine::steady::SteadyCurve;
 use cistern::plan::targets::{Limits, parse_target};
 use cistern::plan::{Course, evaluate};
 use serde_json::{Value, json};
@@ -726,8 +725,8 @@ fn brute_share(curve: &SteadyCurve, every: f64, lo: f64, hi: f64) -> f64 {
 /// Invented regimens: bolus, a 2-h infusion, an infusion lasting the whole interval (constant
 /// level), oral with a lag, oral with a lag longer than the interval, and oral with
 /// absorption slower than elimination (flip-flop).
-fn regimens() -> Vec<(&'static str, Params, RepeatedDose)> {
-    let dose = |amount_mg, route, duration_h, every_h| RepeatedDose { amount_mg, route, duration_h, every_h };
+fn regimens() -> Vec<(&'static str, Params, Regimen)> {
+    let dose = |amount_mg, route, duration_h, every_h| Regimen { amount_mg, route, duration_h, every_h };
     let oral = |ka: f64, tlag_h: f64| Params { cl_l_h: 4.2, v_l: 48.0, ka_per_h: Some(ka), f: 0.8, tlag_h };
     vec![
         ("bolus", Params::iv(4.2, 48.0), dose(1000.0, Route::Bolus, 0.0, 12.0)),
@@ -746,7 +745,7 @@ fn time_above_a_threshold_matches_dense_sampling() {
     for (name, p, dose) in regimens() {
         let curve = SteadyCurve::new(&p, dose).unwrap();
         let m = curve.metrics();
-        let (lo, hi) = (m.trough_mg_l, m.peak_mg_l);
+        let (lo, hi) = (m.exposure.trough_mg_l, m.exposure.peak_mg_l);
         let mut thresholds = vec![0.5 * lo, 1.5 * hi];
         if hi - lo > 1e-9 * hi {
             thresholds.extend([0.02, 0.1, 0.3, 0.5, 0.7, 0.9, 0.98].map(|x| lo + x * (hi - lo)));
@@ -770,7 +769,7 @@ fn time_in_a_window_matches_dense_sampling_in_the_plan() {
     for (name, p, dose) in regimens() {
         let curve = SteadyCurve::new(&p, dose).unwrap();
         let m = curve.metrics();
-        let (lo, hi) = (m.trough_mg_l, m.peak_mg_l);
+        let (lo, hi) = (m.exposure.trough_mg_l, m.exposure.peak_mg_l);
         // A constant level (an infusion lasting the whole interval) lies inside a wide window.
         let window = if hi - lo > 1e-9 * hi {
             (lo + 0.25 * (hi - lo), lo + 0.75 * (hi - lo))
@@ -778,7 +777,7 @@ fn time_in_a_window_matches_dense_sampling_in_the_plan() {
             (0.5 * lo, 2.0 * hi)
         };
         let target = parse_target(&format!("above={}..{}@50%", window.0, window.1)).unwrap();
-        let candidate = Candidate {
+        let candidate = Regimen {
             amount_mg: dose.amount_mg,
             every_h: dose.every_h,
             duration_h: dose.duration_h,

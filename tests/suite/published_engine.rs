@@ -11,8 +11,8 @@
 //! courses).
 
 use crate::common::{argmax, assert_abs, assert_published, assert_rel};
-use cistern::dosing::{Dose, Route};
-use cistern::engine::steady::{RepeatedDose, SteadyCurve};
+use cistern::dosing::{Dose, Regimen, Route};
+use cistern::engine::steady::SteadyCurve;
 use cistern::engine::{Params, auc, concentrations};
 
 /// Tolerance for exact identities (relative).
@@ -73,17 +73,17 @@ fn case_7_oral_tmax_as_ka_varies() {
         assert_abs(found, closed_form, 1e-6, &format!("case 7, tmax = ln(ka/k)/(ka − k), ka = {ka}"));
         // The steady-state peak finder, with an interval so long that nothing accumulates
         // (e^(−kτ) underflows to 0), must give the single-dose peak.
-        let once = RepeatedDose { amount_mg: 100.0, route: Route::Oral, duration_h: 0.0, every_h: 1e4 };
+        let once = Regimen { amount_mg: 100.0, route: Route::Oral, duration_h: 0.0, every_h: 1e4 };
         let ss = SteadyCurve::new(&p, once).unwrap().metrics();
         assert_rel(
-            ss.peak_time_h,
+            ss.exposure.peak_time_h,
             closed_form,
             1e-9,
             0.0,
             &format!("case 7, steady-state peak time, ka = {ka}"),
         );
         assert_rel(
-            ss.peak_mg_l,
+            ss.exposure.peak_mg_l,
             conc(&p, &[dose(0.0, 100.0, Route::Oral, 0.0)], closed_form),
             EXACT,
             0.0,
@@ -126,13 +126,21 @@ fn case_8_steady_state_intermittent_infusion() {
     // 400 mg over 1 h every 36 h at steady state, ke = 0.092 /h, V = 20.4 L.
     let (ke, v) = (0.092, 20.4);
     let p = Params::iv(ke * v, v);
-    let regimen = RepeatedDose { amount_mg: 400.0, route: Route::Infusion, duration_h: 1.0, every_h: 36.0 };
+    let regimen = Regimen { amount_mg: 400.0, route: Route::Infusion, duration_h: 1.0, every_h: 36.0 };
     let curve = SteadyCurve::new(&p, regimen).unwrap();
     let ss = curve.metrics();
     // Source tolerance 1e-4 relative.
-    assert_published(ss.peak_mg_l, "intermittent infusion, steady-state Cmax", "case 8 Cmax (derived)");
-    assert_abs(ss.peak_time_h, 1.0, 1e-12, "case 8 peak at the end of the infusion");
-    assert_published(ss.trough_mg_l, "intermittent infusion, steady-state Cmin", "case 8 Cmin (derived)");
+    assert_published(
+        ss.exposure.peak_mg_l,
+        "intermittent infusion, steady-state Cmax",
+        "case 8 Cmax (derived)",
+    );
+    assert_abs(ss.exposure.peak_time_h, 1.0, 1e-12, "case 8 peak at the end of the infusion");
+    assert_published(
+        ss.exposure.trough_mg_l,
+        "intermittent infusion, steady-state Cmin",
+        "case 8 Cmin (derived)",
+    );
     // Levels 2 h and 23 h after the start of the dose: C1 = 17.7326, C2 = 2.56872 (derived).
     assert_rel(curve.at(2.0), 17.7326, 1e-4, 0.0, "case 8 C1 (derived)");
     assert_rel(curve.at(23.0), 2.56872, 1e-4, 0.0, "case 8 C2 (derived)");
@@ -143,12 +151,12 @@ fn case_10_auc24_is_daily_dose_over_clearance() {
     // Case 10, derived identity: AUC24 at steady state = daily dose/CL;
     // 1000 mg every 12 h with CL = 4 L/h → 500 mg·h/L. V (not given) does not matter.
     let case = "steady-state AUC24, 1000 mg every 12 h, CL 4 L/h";
-    let regimen = |route, duration_h| RepeatedDose { amount_mg: 1000.0, route, duration_h, every_h: 12.0 };
+    let regimen = |route, duration_h| Regimen { amount_mg: 1000.0, route, duration_h, every_h: 12.0 };
     for v in [20.0, 50.0, 200.0] {
         let p = Params { ka_per_h: Some(1.3), ..Params::iv(4.0, v) };
         for (route, duration) in [(Route::Bolus, 0.0), (Route::Infusion, 1.0), (Route::Oral, 0.0)] {
             let ss = SteadyCurve::new(&p, regimen(route, duration)).unwrap().metrics();
-            assert_published(ss.auc24_mg_h_l, case, &format!("case 10 AUC24, {route}, V = {v} L"));
+            assert_published(ss.exposure.auc24_mg_h_l, case, &format!("case 10 AUC24, {route}, V = {v} L"));
         }
     }
     // The same by simulation: 40 infusions (20 days), AUC over the last full day.
@@ -188,7 +196,7 @@ fn case_12_approach_to_plateau_of_a_constant_infusion() {
     // 90 % after log2(10) ≈ 3.32 half-lives.
     let ninety = conc(&p, &doses, 3.32 * half) / plateau;
     assert_abs(ninety, 0.90, 5e-4, "90 % after 3.32 half-lives");
-    let regimen = RepeatedDose { amount_mg: 800.0, route: Route::Infusion, duration_h: 8.0, every_h: 8.0 };
+    let regimen = Regimen { amount_mg: 800.0, route: Route::Infusion, duration_h: 8.0, every_h: 8.0 };
     let ss = SteadyCurve::new(&p, regimen).unwrap().metrics();
     assert_published(ss.time_to_90pct_h / half, "time to 90 % of steady state", "time to 90 % in half-lives");
     assert_rel(ss.time_to_90pct_h / half, 10f64.log2(), EXACT, 0.0, "time to 90 % = log2(10) half-lives");
@@ -196,7 +204,11 @@ fn case_12_approach_to_plateau_of_a_constant_infusion() {
     // Plateau = input rate / CL: reached by the long infusion, and by the steady state of an
     // infusion that runs the whole interval (peak = trough = average).
     assert_published(conc(&p, &doses, 9000.0), "plateau = rate/CL, 100 mg/h, CL 5 L/h", "plateau = rate/CL");
-    for (value, what) in [(ss.peak_mg_l, "peak"), (ss.trough_mg_l, "trough"), (ss.cavg_mg_l, "average")] {
+    for (value, what) in [
+        (ss.exposure.peak_mg_l, "peak"),
+        (ss.exposure.trough_mg_l, "trough"),
+        (ss.exposure.cavg_mg_l, "average"),
+    ] {
         assert_rel(value, plateau, EXACT, 0.0, &format!("continuous-infusion steady-state {what} = rate/CL"));
     }
 }
@@ -211,14 +223,14 @@ fn case_12_accumulation_ratio_and_loading_dose() {
     let ratio = 1.0 / (1.0 - (-p.k_per_h() * tau).exp());
     for (route, duration) in [(Route::Bolus, 0.0), (Route::Infusion, 0.5), (Route::Infusion, 8.0)] {
         let what = format!("{route} over {duration} h");
-        let regimen = RepeatedDose { amount_mg: amount, route, duration_h: duration, every_h: tau };
+        let regimen = Regimen { amount_mg: amount, route, duration_h: duration, every_h: tau };
         let ss = SteadyCurve::new(&p, regimen).unwrap().metrics();
         assert_rel(ss.accumulation_ratio, ratio, EXACT, 0.0, &format!("accumulation ratio, {what}"));
         assert_rel(ss.loading_dose_mg, amount * ratio, EXACT, 0.0, &format!("loading dose, {what}"));
         // The ratio is steady-state trough over the first dose's trough.
         let first = [dose(0.0, amount, route, duration)];
         assert_rel(
-            ss.trough_mg_l / conc(&p, &first, tau),
+            ss.exposure.trough_mg_l / conc(&p, &first, tau),
             ratio,
             EXACT,
             0.0,
@@ -232,13 +244,19 @@ fn case_12_accumulation_ratio_and_loading_dose() {
             let trough = conc(&p, &history[..j], tau * j as f64);
             assert_rel(
                 trough,
-                ss.trough_mg_l,
+                ss.exposure.trough_mg_l,
                 EXACT,
                 0.0,
                 &format!("trough {j} after a loading dose, {what}"),
             );
-            let peak = conc(&p, &history[..j], tau * (j - 1) as f64 + ss.peak_time_h);
-            assert_rel(peak, ss.peak_mg_l, EXACT, 0.0, &format!("peak {j} after a loading dose, {what}"));
+            let peak = conc(&p, &history[..j], tau * (j - 1) as f64 + ss.exposure.peak_time_h);
+            assert_rel(
+                peak,
+                ss.exposure.peak_mg_l,
+                EXACT,
+                0.0,
+                &format!("peak {j} after a loading dose, {what}"),
+            );
         }
     }
     // For oral doses the formula is exact only when absorption is complete within τ (drug

@@ -9,14 +9,14 @@
 
 use cistern::io::tomlfile::TomlText;
 use cistern::model::PopulationModel;
-use cistern::plan::candidates::{Candidate, Durations, grid};
+use cistern::plan::candidates::{Durations, grid};
 use cistern::plan::targets::{Limits, parse_target};
 use cistern::sweep::population::{CovariateSource, Population, parse_draw};
 use cistern::sweep::sketch::RELATIVE_ERROR;
 use cistern::sweep::state::{Setup, Shard, SweepState};
 use cistern::sweep::summary::{Summary, SummaryRow};
 use cistern::sweep::{PER_SUBJECT_HEADER, Sweep};
-use cistern::{covariates::Covariates, dosing::Route, io::output::Format};
+use cistern::{covariates::Covariates, dosing::Regimen, dosing::Route, io::output::Format};
 use serde_json::json;
 use statrs::distribution::{ContinuousCDF, Normal};
 use std::path::Path;
@@ -40,7 +40,7 @@ fn omega_cl() -> f64 {
 
 /// Infusions of 1 h: 1000 mg every 12 h, 750 mg every 8 h, 1500 mg every 24 h (daily 2000,
 /// 2250 and 1500 mg).
-fn candidates() -> Vec<Candidate> {
+fn candidates() -> Vec<Regimen> {
     let mut c = grid(&[1000.0], &[12.0], Route::Infusion, &Durations::Fixed(vec![1.0])).unwrap();
     c.extend(grid(&[750.0], &[8.0], Route::Infusion, &Durations::Fixed(vec![1.0])).unwrap());
     c.extend(grid(&[1500.0], &[24.0], Route::Infusion, &Durations::Fixed(vec![1.0])).unwrap());
@@ -48,12 +48,7 @@ fn candidates() -> Vec<Candidate> {
 }
 
 /// Sweep subjects 0..n of `population` through the library; the summary and the per-subject CSV.
-fn sweep_summary(
-    population: &Population,
-    candidates: &[Candidate],
-    n: u64,
-    target: &str,
-) -> (Summary, String) {
+fn sweep_summary(population: &Population, candidates: &[Regimen], n: u64, target: &str) -> (Summary, String) {
     let targets = vec![parse_target(target).unwrap()];
     let limits = Limits { max_trough_mg_l: Some(15.0), max_risk: 0.1, ..Limits::default() };
     let sweep = Sweep { population, candidates, targets: &targets, limits: &limits, seed: 2020 };
@@ -77,7 +72,7 @@ fn check_closed_form(row: &SummaryRow, cl_median: f64, window: (f64, f64)) {
     assert!(
         (row.pta - pta).abs() <= 4.0 * se,
         "regimen {}: PTA {} vs closed form {pta} (4 SE = {})",
-        row.regimen,
+        row.index,
         row.pta,
         4.0 * se
     );
@@ -94,7 +89,7 @@ fn check_closed_form(row: &SummaryRow, cl_median: f64, window: (f64, f64)) {
         assert!(
             (lo..=hi).contains(&got),
             "regimen {}: AUC24 p{} = {got}, expected {} within [{lo}, {hi}]",
-            row.regimen,
+            row.index,
             p * 100.0,
             auc_quantile(p)
         );
