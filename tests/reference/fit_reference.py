@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""Reference optima for the fitter, computed with scipy, for tests/fit_reference.rs.
+"""Reference optima for the fitter, computed with scipy, for tests/suite/fit_reference.rs.
 
 Run from the repository root:
 
