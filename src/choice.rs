@@ -1,7 +1,7 @@
 //! Closed sets of named options (a fit method, an output format): how each option is written,
 //! read back and described, so that any front end can parse and list them.
 
-use crate::error::Invalid;
+use crate::error::InputError;
 
 /// A closed set of named options, declared with [`choice_enum!`].
 pub trait Choice: Copy + 'static {
@@ -16,10 +16,10 @@ pub trait Choice: Copy + 'static {
 }
 
 /// The option spelled `text`, or an error that lists the accepted spellings.
-pub fn parse<C: Choice>(text: &str) -> Result<C, Invalid> {
+pub fn parse<C: Choice>(text: &str) -> Result<C, InputError> {
     C::ALL.iter().copied().find(|c| c.spelling() == text).ok_or_else(|| {
         let accepted: Vec<&str> = C::ALL.iter().map(|c| c.spelling()).collect();
-        Invalid::new(
+        InputError::field(
             C::WHAT,
             format!("unknown {} '{text}'; expected one of: {}", C::WHAT, accepted.join(", ")),
         )
@@ -61,7 +61,7 @@ macro_rules! choice_enum {
         }
 
         impl std::str::FromStr for $name {
-            type Err = $crate::error::Invalid;
+            type Err = $crate::error::InputError;
             fn from_str(text: &str) -> Result<Self, Self::Err> {
                 $crate::choice::parse(text)
             }
@@ -89,7 +89,7 @@ mod tests {
         assert_eq!(Method::TwoLevel.to_string(), "two-level");
         assert_eq!(Method::Map.about(), "Maximum a posteriori against the population model.");
         let e = "wl".parse::<Method>().unwrap_err();
-        assert_eq!(e.to_string(), "unknown method 'wl'; expected one of: map, wls, two-level");
+        assert_eq!(e.message, "unknown method 'wl'; expected one of: map, wls, two-level");
         // Written out, but not a choice.
         assert_eq!(Intervals::LeastSquares.to_string(), "least-squares");
         assert!("least-squares".parse::<Intervals>().is_err());

@@ -44,6 +44,16 @@ impl Covariates {
         self.values.insert(name.to_string(), value);
     }
 
+    /// Take every value `other` has (numbers and sex) over this one's.
+    pub fn overlay(&mut self, other: &Covariates) {
+        for (k, v) in other.iter() {
+            self.set(k, v);
+        }
+        if other.sex.is_some() {
+            self.sex = other.sex;
+        }
+    }
+
     /// All numeric covariates in name order.
     pub fn iter(&self) -> impl Iterator<Item = (&str, f64)> {
         self.values.iter().map(|(k, v)| (k.as_str(), *v))
@@ -133,12 +143,36 @@ pub fn ideal_body_weight(height_cm: f64, sex: Sex) -> f64 {
     base + 2.3 * (height_cm / 2.54 - 60.0)
 }
 
+/// Read one `NAME=VALUE` covariate (`weight_kg=70`, `sex=F`) into `cov`.
+pub fn parse_assignment(cov: &mut Covariates, item: &str) -> Result<(), String> {
+    let Some((name, value)) = item.split_once('=') else {
+        return Err(format!("expected NAME=VALUE, found '{item}'"));
+    };
+    let (name, value) = (name.trim(), value.trim());
+    if name == "sex" {
+        cov.sex = Some(match value.to_ascii_uppercase().as_str() {
+            "M" | "MALE" => Sex::Male,
+            "F" | "FEMALE" => Sex::Female,
+            _ => return Err(format!("sex must be M or F, found '{value}'")),
+        });
+        return Ok(());
+    }
+    match value.parse::<f64>() {
+        Ok(v) if v.is_finite() && v >= 0.0 => {
+            cov.set(name, v);
+            Ok(())
+        }
+        Ok(v) if v.is_finite() => Err(format!("{name} must not be negative, found {v}")),
+        _ => Err(format!("expected a number, found '{value}'")),
+    }
+}
+
 /// Read a covariates table: a `subject` column and numeric columns; `sex` as M/F.
 /// Returns subjects in file order.
 pub fn parse_covariates(table: &Table) -> Result<Vec<(String, Covariates)>, Vec<InputError>> {
     let src = table.source.as_str();
     let Some(subject) = table.column("subject") else {
-        return Err(vec![InputError::new(src, "missing the subject column").at_line(table.header_line)]);
+        return Err(vec![InputError::in_file(src, "missing the subject column").at_line(table.header_line)]);
     };
     let mut errors = Vec::new();
     let mut out: Vec<(String, Covariates)> = Vec::new();
@@ -164,7 +198,7 @@ pub fn parse_covariates(table: &Table) -> Result<Vec<(String, Covariates)>, Vec<
                     "M" | "MALE" => cov.sex = Some(Sex::Male),
                     "F" | "FEMALE" => cov.sex = Some(Sex::Female),
                     _ => errors.push(
-                        InputError::new(src, format!("expected M or F, found '{text}'"))
+                        InputError::in_file(src, format!("expected M or F, found '{text}'"))
                             .at_line(row.line)
                             .in_column("sex"),
                     ),
@@ -174,7 +208,7 @@ pub fn parse_covariates(table: &Table) -> Result<Vec<(String, Covariates)>, Vec<
             match text.parse::<f64>() {
                 Ok(v) if v.is_finite() && v >= 0.0 => cov.set(name, v),
                 _ => errors.push(
-                    InputError::new(src, format!("expected a non-negative number, found '{text}'"))
+                    InputError::in_file(src, format!("expected a non-negative number, found '{text}'"))
                         .at_line(row.line)
                         .in_column(name.clone()),
                 ),

@@ -4,7 +4,7 @@
 //! prescriber writes ("1 g over 1 h every 12 h"), and a [`Schedule`] gives it a number of
 //! times from a start ("…, 6 doses") so that it expands into a history.
 
-use crate::error::Invalid;
+use crate::error::InputError;
 use crate::io::output::plain;
 use serde::{Deserialize, Serialize};
 use std::fmt;
@@ -80,10 +80,10 @@ pub struct Regimen {
 
 impl Regimen {
     /// Check the regimen's values, returning what is wrong.
-    pub fn validate(&self) -> Result<(), Invalid> {
+    pub fn validate(&self) -> Result<(), InputError> {
         validate_dose(self.amount_mg, self.route, self.duration_h)?;
         if !(self.every_h.is_finite() && self.every_h > 0.0) {
-            return Err(Invalid::new(
+            return Err(InputError::field(
                 "every_h",
                 format!("the dosing interval must be positive, found {} h", self.every_h),
             ));
@@ -123,13 +123,13 @@ pub struct Schedule {
 
 impl Schedule {
     /// Check the schedule's values, returning what is wrong.
-    pub fn validate(&self) -> Result<(), Invalid> {
+    pub fn validate(&self) -> Result<(), InputError> {
         self.regimen.validate()?;
         if self.count == 0 {
-            return Err(Invalid::new("count", "the dose count must be at least 1"));
+            return Err(InputError::field("count", "the dose count must be at least 1"));
         }
         if !self.start_h.is_finite() {
-            return Err(Invalid::new("start_h", "the start time must be a finite number"));
+            return Err(InputError::field("start_h", "the start time must be a finite number"));
         }
         Ok(())
     }
@@ -143,15 +143,15 @@ impl Schedule {
 }
 
 /// Check one dose's amount, route and duration, returning what is wrong.
-pub fn validate_dose(amount_mg: f64, route: Route, duration_h: f64) -> Result<(), Invalid> {
+pub fn validate_dose(amount_mg: f64, route: Route, duration_h: f64) -> Result<(), InputError> {
     if !(amount_mg.is_finite() && amount_mg >= 0.0) {
-        return Err(Invalid::new(
+        return Err(InputError::field(
             "amount_mg",
             format!("the amount must be a non-negative number, found {amount_mg} mg"),
         ));
     }
     match route {
-        Route::Infusion if !(duration_h.is_finite() && duration_h > 0.0) => Err(Invalid::new(
+        Route::Infusion if !(duration_h.is_finite() && duration_h > 0.0) => Err(InputError::field(
             "duration_h",
             if duration_h == 0.0 {
                 "an infusion needs its duration (a positive time)".to_string()
@@ -159,7 +159,7 @@ pub fn validate_dose(amount_mg: f64, route: Route, duration_h: f64) -> Result<()
                 format!("an infusion needs a positive duration, found {duration_h} h")
             },
         )),
-        Route::Bolus | Route::Oral if duration_h != 0.0 => Err(Invalid::new(
+        Route::Bolus | Route::Oral if duration_h != 0.0 => Err(InputError::field(
             "duration_h",
             format!("a duration is only meaningful for an infusion, not for {route} doses"),
         )),

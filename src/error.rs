@@ -1,85 +1,192 @@
-//! Errors: one located error type for bad input, and the top-level error the binary maps to
-//! an exit code (2 for bad input or usage, 1 for any other failure).
+//! The library's one error type, [`Error`], and the located problem it carries, [`InputError`].
+//!
+//! Every problem with an input says where the value came from — a place in a file (line and
+//! column, or a TOML key), a command-line flag, or a named field of a value passed through the
+//! library — as data ([`Origin`]), not as text guessed from a file name. Code that checks a
+//! value without knowing where it came from reports the value's field
+//! ([`InputError::field`]); the caller that does know puts the real origin in
+//! ([`InputError::located`]), so no library message names a flag.
+//!
+//! Exit codes: 2 for bad input or usage, 1 for any other failure, 0 for a closed output pipe.
 
 use std::fmt;
 
-/// One problem found in one input: a file (or a command-line flag), with the line and column
-/// where it was found when those are known, and what was expected there.
-#[derive(Debug, Clone, PartialEq, Eq)]
+/// Where a value (or a problem with it) came from.
+#[derive(Debug, Clone, PartialEq, Eq, Hash)]
+pub enum Origin {
+    /// A file, with the line and the place on it when they are known.
+    File {
+        /// The file's path as the user gave it.
+        path: String,
+        /// 1-based line number.
+        line: Option<u64>,
+        /// The column (CSV) or key (TOML) the value sits in.
+        place: Option<Place>,
+    },
+    /// A command-line flag, spelled as the user typed it (`--max-dose`). Only the binary
+    /// creates these.
+    Flag(String),
+    /// A field of a value given through the library, by its `<quantity>_<unit>` name
+    /// (`amount_mg`): the origin of a value whose real source the checking code cannot know.
+    Field(String),
+}
+
+/// A place within a line of a file.
+#[derive(Debug, Clone, PartialEq, Eq, Hash)]
+pub enum Place {
+    /// A CSV column, by its header.
+    Column(String),
+    /// A TOML key, dotted (`limits.max_dose`).
+    Key(String),
+}
+
+impl Origin {
+    /// A whole file.
+    pub fn file(path: impl Into<String>) -> Origin {
+        Origin::File { path: path.into(), line: None, place: None }
+    }
+
+    /// A key of a TOML file, on a line when known.
+    pub fn key(path: impl Into<String>, line: Option<u64>, key: impl Into<String>) -> Origin {
+        Origin::File { path: path.into(), line, place: Some(Place::Key(key.into())) }
+    }
+}
+
+impl Origin {
+    /// The same place without its line: for a problem between two values (a contradiction),
+    /// which no single line holds.
+    pub fn without_line(&self) -> Origin {
+        match self {
+            Origin::File { path, place, .. } => {
+                Origin::File { path: path.clone(), line: None, place: place.clone() }
+            }
+            other => other.clone(),
+        }
+    }
+}
+
+impl fmt::Display for Origin {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Origin::File { path, line, place } => {
+                f.write_str(path)?;
+                let place = place.as_ref().map(|p| match p {
+                    Place::Column(c) => format!("column {c}"),
+                    Place::Key(k) => format!("key {k}"),
+                });
+                match (line, place) {
+                    (Some(l), Some(p)) => write!(f, ": line {l}, {p}"),
+                    (Some(l), None) => write!(f, ": line {l}"),
+                    (None, Some(p)) => write!(f, ": {p}"),
+                    (None, None) => Ok(()),
+                }
+            }
+            Origin::Flag(flag) => f.write_str(flag),
+            Origin::Field(field) => f.write_str(field),
+        }
+    }
+}
+
+/// One problem found in one input, where it was found, and what was expected there.
+#[derive(Debug, Clone, PartialEq, Eq, Hash)]
 pub struct InputError {
-    /// The file path, or the flag (`--dose`) the value came from.
-    pub source: String,
-    /// 1-based line number in the file, when the problem is on a line.
-    pub line: Option<u64>,
-    /// Column name (CSV header or TOML key), when the problem is in one column.
-    pub column: Option<String>,
+    /// Where the offending value came from.
+    pub origin: Origin,
     /// What is wrong and what was expected.
     pub message: String,
 }
 
 impl InputError {
-    /// A problem with a whole input (no line or column).
-    pub fn new(source: impl Into<String>, message: impl Into<String>) -> Self {
-        InputError { source: source.into(), line: None, column: None, message: message.into() }
+    /// A problem at `origin`.
+    pub fn at(origin: Origin, message: impl Into<String>) -> Self {
+        InputError { origin, message: message.into() }
     }
 
-    /// Attach the 1-based line number.
-    pub fn at_line(mut self, line: u64) -> Self {
-        self.line = Some(line);
+    /// A problem with a whole file (add the line and column or key with the builders).
+    pub fn in_file(path: impl Into<String>, message: impl Into<String>) -> Self {
+        InputError::at(Origin::file(path), message)
+    }
+
+    /// A problem with a command-line flag's value.
+    pub fn flag(flag: impl Into<String>, message: impl Into<String>) -> Self {
+        InputError::at(Origin::Flag(flag.into()), message)
+    }
+
+    /// A problem with a field of a value whose source the checking code does not know.
+    pub fn field(field: impl Into<String>, message: impl Into<String>) -> Self {
+        InputError::at(Origin::Field(field.into()), message)
+    }
+
+    /// Attach the 1-based line number (of a file).
+    pub fn at_line(mut self, n: u64) -> Self {
+        if let Origin::File { line, .. } = &mut self.origin {
+            *line = Some(n);
+        }
         self
     }
 
-    /// Attach the column (a CSV header or a TOML key).
-    pub fn in_column(mut self, column: impl Into<String>) -> Self {
-        self.column = Some(column.into());
+    /// Attach the CSV column (of a file).
+    pub fn in_column(self, column: impl Into<String>) -> Self {
+        self.with_place(Place::Column(column.into()))
+    }
+
+    /// Attach the TOML key (of a file).
+    pub fn at_key(self, key: impl Into<String>) -> Self {
+        self.with_place(Place::Key(key.into()))
+    }
+
+    fn with_place(mut self, p: Place) -> Self {
+        if let Origin::File { place, .. } = &mut self.origin {
+            *place = Some(p);
+        }
         self
+    }
+
+    /// Put in the real origin of a problem reported against a field.
+    pub fn located(mut self, origin: Origin) -> Self {
+        if matches!(self.origin, Origin::Field(_)) {
+            self.origin = origin;
+        }
+        self
+    }
+
+    /// The field a problem was reported against, when its origin is not known.
+    pub fn field_name(&self) -> Option<&str> {
+        match &self.origin {
+            Origin::Field(f) => Some(f),
+            _ => None,
+        }
+    }
+
+    /// The line of the file, when known.
+    pub fn line(&self) -> Option<u64> {
+        match &self.origin {
+            Origin::File { line, .. } => *line,
+            _ => None,
+        }
+    }
+
+    /// The CSV column or TOML key, when known.
+    pub fn place(&self) -> Option<&str> {
+        match &self.origin {
+            Origin::File { place: Some(Place::Column(p) | Place::Key(p)), .. } => Some(p),
+            _ => None,
+        }
     }
 }
 
 impl fmt::Display for InputError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        write!(f, "{}", self.source)?;
-        // A TOML file's locations are keys; a CSV file's are columns.
-        let what = if self.source.ends_with(".toml") { "key" } else { "column" };
-        match (&self.line, &self.column) {
-            (Some(l), Some(c)) => write!(f, ": line {l}, {what} {c}")?,
-            (Some(l), None) => write!(f, ": line {l}")?,
-            (None, Some(c)) => write!(f, ": {what} {c}")?,
-            (None, None) => {}
-        }
-        write!(f, ": {}", self.message)
+        write!(f, "{}: {}", self.origin, self.message)
     }
 }
 
-/// A value outside its allowed range: which field (by its `<quantity>_<unit>` name, e.g.
-/// `cl_l_h`, `duration_h`) and what is wrong, so each caller can name its own flag or column.
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct Invalid {
-    /// The field's name.
-    pub field: &'static str,
-    /// What is wrong.
-    pub message: String,
-}
+impl std::error::Error for InputError {}
 
-impl Invalid {
-    /// A problem with `field`.
-    pub fn new(field: &'static str, message: impl Into<String>) -> Self {
-        Invalid { field, message: message.into() }
-    }
-}
-
-impl fmt::Display for Invalid {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(&self.message)
-    }
-}
-
-impl std::error::Error for Invalid {}
-
-/// The error any library entry point returns.
+/// The error every library entry point returns.
 #[derive(Debug, Clone, PartialEq)]
 pub enum Error {
-    /// One or more problems in the inputs (files or flag values); exit code 2.
+    /// One or more problems in the inputs (files, flags or values); exit code 2.
     Input(Vec<InputError>),
     /// A request that cannot be carried out as stated (conflicting options and the like); exit code 2.
     Usage(String),
@@ -96,6 +203,23 @@ impl Error {
             Error::Input(_) | Error::Usage(_) => 2,
             Error::Failure(_) => 1,
             Error::OutputClosed => 0,
+        }
+    }
+
+    /// Put in the real origin of every problem reported against a field, by the field's name
+    /// (for callers that know where each field's value came from).
+    pub fn located(self, origin_of: impl Fn(&str) -> Option<Origin>) -> Error {
+        match self {
+            Error::Input(errors) => Error::Input(
+                errors
+                    .into_iter()
+                    .map(|e| match e.field_name().and_then(&origin_of) {
+                        Some(origin) => e.located(origin),
+                        None => e,
+                    })
+                    .collect(),
+            ),
+            other => other,
         }
     }
 }
@@ -134,3 +258,61 @@ impl From<Vec<InputError>> for Error {
 
 /// Shorthand for library results.
 pub type Result<T, E = Error> = std::result::Result<T, E>;
+
+/// Collects the problems of several independent checks, so that all are reported at once.
+#[derive(Debug, Default)]
+pub struct Problems {
+    errors: Vec<InputError>,
+    /// The first failure that is not a problem with an input.
+    other: Option<Error>,
+}
+
+impl Problems {
+    /// No problems yet.
+    pub fn new() -> Self {
+        Problems::default()
+    }
+
+    /// Keep the value, or record its problem and return `None`.
+    pub fn take<T>(&mut self, r: std::result::Result<T, InputError>) -> Option<T> {
+        r.map_err(|e| self.errors.push(e)).ok()
+    }
+
+    /// Keep the value, or record every problem of its error and return `None`.
+    pub fn take_all<T>(&mut self, r: Result<T>) -> Option<T> {
+        match r {
+            Ok(v) => Some(v),
+            Err(Error::Input(errors)) => {
+                self.errors.extend(errors);
+                None
+            }
+            Err(e) => {
+                self.other.get_or_insert(e);
+                None
+            }
+        }
+    }
+
+    /// Record a problem.
+    pub fn push(&mut self, e: InputError) {
+        self.errors.push(e);
+    }
+
+    /// `Ok` when nothing went wrong, else every problem recorded, each once (problems with
+    /// inputs first: they are what the user can fix).
+    pub fn finish(mut self) -> Result<()> {
+        let mut seen = std::collections::HashSet::new();
+        self.errors.retain(|e| seen.insert(e.clone()));
+        match (self.errors.is_empty(), self.other) {
+            (true, None) => Ok(()),
+            (true, Some(e)) => Err(e),
+            (false, _) => Err(Error::Input(self.errors)),
+        }
+    }
+
+    /// The value when nothing went wrong, else every problem recorded.
+    pub fn finish_with<T>(self, value: Option<T>) -> Result<T> {
+        self.finish()?;
+        value.ok_or_else(|| Error::Usage("the inputs could not be read".into()))
+    }
+}

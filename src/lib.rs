@@ -19,9 +19,14 @@ pub mod io;
 pub mod model;
 pub mod plan;
 pub mod report;
+pub mod seeds;
+pub mod spec;
 pub mod stats;
 pub mod sweep;
 pub mod units;
 pub mod verify;
+pub mod workflow;
 
-pub use error::{Error, InputError, Invalid, Result};
+pub use error::{Error, InputError, Origin, Result};
+pub use io::output::CAUTION;
+pub use seeds::Seeds;

@@ -446,10 +446,10 @@ proportional_cv = 0.10
         let bad = EXAMPLE.replace("bsv_cv = 0.25", "bsv_cv = -1").replace("\"power\"", "\"cubic\"");
         let e = PopulationModel::parse(&TomlText::new("m.toml", &bad)).unwrap_err();
         assert_eq!(e.len(), 2, "{e:?}");
-        assert_eq!(e[0].line, Some(7));
-        assert_eq!(e[1].line, Some(12));
+        assert_eq!(e[0].line(), Some(7));
+        assert_eq!(e[1].line(), Some(12));
         let unknown = EXAMPLE.replace("bsv_cv = 0.30", "bsv_cv = 0.30\nspread = 2");
         let e = PopulationModel::parse(&TomlText::new("m.toml", &unknown)).unwrap_err();
-        assert!(e[0].message.contains("spread") && e[0].line == Some(5), "{e:?}");
+        assert!(e[0].message.contains("spread") && e[0].line() == Some(5), "{e:?}");
     }
 }

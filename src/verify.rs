@@ -528,7 +528,7 @@ fn case6_fit() -> Result<[f64; 3], String> {
         weighting: Weighting::None,
         ..FitOptions::default()
     };
-    let fit = fit_subject(&subject, None, &options, 1)?;
+    let fit = fit_subject(&subject, None, &options, 1).map_err(|e| e.to_string())?;
     if !fit.converged {
         return Err(format!("the fit did not converge: {}", fit.warnings.join("; ")));
     }
@@ -564,7 +564,7 @@ fn case8_two_level() -> Result<FitResult, String> {
     };
     let options =
         FitOptions { method: Method::TwoLevel, intervals: Intervals::None, ..FitOptions::default() };
-    fit_subject(&subject, None, &options, 1)
+    fit_subject(&subject, None, &options, 1).map_err(|e| e.to_string())
 }
 
 fn case8_two_level_peak_trough() -> Result<(f64, f64), String> {

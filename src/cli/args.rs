@@ -6,16 +6,17 @@
 use cistern::choice::Choice;
 use cistern::dosing::{Regimen, Route, Schedule};
 use cistern::engine::Params;
+use cistern::error::Problems;
 use cistern::io::output::{CAUTION, Format, Sink};
 use cistern::units::{Kind, parse_value};
-use cistern::{Error, InputError};
+use cistern::{Error, InputError, Origin};
 use clap::Args;
 use clap::builder::{PossibleValue, PossibleValuesParser, TypedValueParser};
 use std::io::IsTerminal;
 
 /// The parser of a library [`Choice`]: its spellings are the possible values, listed in
 /// `--help` with their descriptions, as clap's `ValueEnum` lists them.
-pub fn choice<C: Choice + std::str::FromStr<Err = cistern::Invalid> + Send + Sync>()
+pub fn choice<C: Choice + std::str::FromStr<Err = cistern::InputError> + Send + Sync>()
 -> impl TypedValueParser<Value = C> {
     let values =
         C::ALL.iter().map(|c| PossibleValue::new(c.spelling()).help(c.about().trim_end_matches('.')));
@@ -103,44 +104,21 @@ pub fn flag_for(field: &str) -> &'static str {
 }
 
 /// A range problem reported against the flag that set the field.
-pub fn invalid_flag(invalid: cistern::Invalid) -> InputError {
-    InputError::new(flag_for(invalid.field), invalid.message)
+pub fn invalid_flag(invalid: InputError) -> InputError {
+    let flag = flag_for(invalid.field_name().unwrap_or_default());
+    invalid.located(Origin::Flag(flag.into()))
 }
 
 /// Parse a flag's value with units, naming the flag in the error.
 pub fn flag_value(flag: &str, kind: Kind, text: &str) -> Result<f64, InputError> {
-    parse_value(kind, text).map_err(|m| InputError::new(flag, m))
+    parse_value(kind, text).map_err(|m| InputError::flag(flag, m))
 }
 
 /// Parse a plain number flag.
 pub fn flag_number(flag: &str, text: &str) -> Result<f64, InputError> {
     match text.trim().parse::<f64>() {
         Ok(v) if v.is_finite() => Ok(v),
-        _ => Err(InputError::new(flag, format!("expected a number, found '{text}'"))),
-    }
-}
-
-/// Collect the errors of several independent parses, so all are reported at once.
-pub struct Problems(Vec<InputError>);
-
-impl Problems {
-    pub fn new() -> Self {
-        Problems(Vec::new())
-    }
-
-    /// Keep the value, or record the error and return `None`.
-    pub fn take<T>(&mut self, r: Result<T, InputError>) -> Option<T> {
-        r.map_err(|e| self.0.push(e)).ok()
-    }
-
-    /// Record an error.
-    pub fn push(&mut self, e: InputError) {
-        self.0.push(e);
-    }
-
-    /// `Ok` when nothing went wrong.
-    pub fn finish(self) -> Result<(), Error> {
-        if self.0.is_empty() { Ok(()) } else { Err(Error::Input(self.0)) }
+        _ => Err(InputError::flag(flag, format!("expected a number, found '{text}'"))),
     }
 }
 
@@ -150,7 +128,8 @@ impl ParamArgs {
         let v = match &self.v {
             Some(t) => problems.take(flag_value("--v", Kind::Volume, t)),
             None => {
-                problems.push(InputError::new("--v", "the volume of distribution is required, e.g. --v 48l"));
+                problems
+                    .push(InputError::flag("--v", "the volume of distribution is required, e.g. --v 48l"));
                 None
             }
         };
@@ -160,7 +139,7 @@ impl ParamArgs {
                 problems.take(flag_value("--k", Kind::RateConstant, t)).zip(v).map(|(k, v)| k * v)
             }
             (None, None) => {
-                problems.push(InputError::new(
+                problems.push(InputError::flag(
                     "--cl",
                     "give the clearance (--cl 4.2l/h) or the rate constant (--k 0.09/h)",
                 ));
@@ -177,11 +156,11 @@ impl ParamArgs {
         let params = Params { cl_l_h: cl, v_l: v, ka_per_h: ka, f, tlag_h: tlag };
         // The engine owns the range checks; name the flag its complaint is about.
         if let Err(invalid) = params.validate(&[]) {
-            let flag = match invalid.field {
+            let flag = match invalid.field_name().unwrap_or_default() {
                 "cl_l_h" if self.cl.is_none() => "--k",
                 field => flag_for(field),
             };
-            problems.push(InputError::new(flag, invalid.message));
+            problems.push(invalid.located(Origin::Flag(flag.into())));
             return None;
         }
         Some(params)
@@ -222,7 +201,7 @@ impl RegimenArgs {
         let amount = match &self.dose {
             Some(t) => problems.take(flag_value("--dose", Kind::Amount, t)),
             None => {
-                problems.push(InputError::new("--dose", "the dose amount is required, e.g. --dose 1g"));
+                problems.push(InputError::flag("--dose", "the dose amount is required, e.g. --dose 1g"));
                 None
             }
         };
@@ -231,13 +210,13 @@ impl RegimenArgs {
             None if self.count == Some(1) => Some(24.0),
             None => {
                 problems
-                    .push(InputError::new("--every", "the dosing interval is required, e.g. --every 12h"));
+                    .push(InputError::flag("--every", "the dosing interval is required, e.g. --every 12h"));
                 None
             }
         };
         let route = Route::parse(&self.route);
         if route.is_none() {
-            problems.push(InputError::new(
+            problems.push(InputError::flag(
                 "--route",
                 format!("expected bolus, infusion or oral, found '{}'", self.route),
             ));
@@ -245,7 +224,7 @@ impl RegimenArgs {
         let duration = match (&self.duration, route) {
             (Some(t), _) => problems.take(flag_value("--duration", Kind::Time, t)),
             (None, Some(Route::Infusion)) => {
-                problems.push(InputError::new(
+                problems.push(InputError::flag(
                     "--duration",
                     "an infusion needs its duration, e.g. --duration 1h (or choose --route bolus/oral)",
                 ));
@@ -256,7 +235,7 @@ impl RegimenArgs {
         let count = match self.count.or(default_count) {
             Some(c) => Some(c),
             None => {
-                problems.push(InputError::new("--count", "the number of doses is required, e.g. --count 6"));
+                problems.push(InputError::flag("--count", "the number of doses is required, e.g. --count 6"));
                 None
             }
         };

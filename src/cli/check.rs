@@ -33,7 +33,7 @@ fn has_quantity(table: &Table, quantity: &str) -> bool {
 fn check_file(path: &str) -> Result<String, Vec<InputError>> {
     let extension = std::path::Path::new(path).extension().and_then(|e| e.to_str()).unwrap_or("");
     if !extension.eq_ignore_ascii_case("csv") && !extension.eq_ignore_ascii_case("toml") {
-        return Err(vec![InputError::new(
+        return Err(vec![InputError::in_file(
             path,
             "cannot tell what kind of file this is from its name: expected a .csv or .toml file",
         )]);
@@ -67,7 +67,7 @@ fn check_file(path: &str) -> Result<String, Vec<InputError>> {
         return Ok(format!("covariates file, {} subject(s)", subjects.len()));
     }
     Err(vec![
-        InputError::new(
+        InputError::in_file(
             path,
             "cannot tell what kind of file this is: expected an amount_<unit> column (doses), \
              a conc_<unit> column (levels) or a subject column (covariates)",

@@ -1,9 +1,10 @@
 //! `cistern exposure`: steady-state metrics of a repeated regimen.
 
-use super::args::{OutputArgs, ParamArgs, Problems, RegimenArgs, invalid_flag};
+use super::args::{OutputArgs, ParamArgs, RegimenArgs, invalid_flag};
 use cistern::Error;
 use cistern::dosing::Regimen;
 use cistern::engine::steady::{SteadyCurve, SteadyState};
+use cistern::error::Problems;
 use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
 use clap::Args;
 use serde::Serialize;

@@ -1,13 +1,16 @@
 //! `cistern fit`: estimate clearance and volume (and ka for oral drugs) from sampled levels.
 
-use super::args::{OutputArgs, Problems, choice, flag_number, flag_value, invalid_flag};
-use super::study::{Study, StudyArgs, seed_and_draws};
+use super::args::{OutputArgs, choice, flag_number, flag_value, invalid_flag};
+use super::study::StudyArgs;
 use cistern::Error;
 use cistern::engine::validate_absorption;
+use cistern::error::Problems;
 use cistern::fit::objective::Weighting;
 use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, fit_all};
 use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use cistern::spec::Needs;
 use cistern::units::Kind;
+use cistern::workflow::{Required, Study};
 use clap::Args;
 use serde::Serialize;
 
@@ -40,7 +43,7 @@ pub struct FitArgs {
     #[arg(long, value_parser = choice::<Intervals>(), default_value = "posterior")]
     intervals: Intervals,
     /// Posterior draws per subject (importance sampling) [default: the case's, else 2000]
-    #[arg(long, value_parser = clap::value_parser!(u32).range(100..=1_000_000))]
+    #[arg(long)]
     draws: Option<u32>,
     /// Seed for the posterior draws [default: the case's, else 1]
     #[arg(long)]
@@ -72,7 +75,9 @@ struct FitJson<'a> {
 
 /// Run the command.
 pub fn run(args: FitArgs) -> Result<(), Error> {
-    let (study_args, case) = args.study.with_case()?;
+    let mut spec = args.study.spec()?;
+    spec.seed.set("--seed", args.seed);
+    spec.draws.set("--draws", args.draws);
     let mut problems = Problems::new();
     let ka = match &args.ka {
         Some(t) => problems.take(flag_value("--ka", Kind::RateConstant, t)).map(Some),
@@ -83,15 +88,12 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     if let (Some(ka), Some(f), Some(tlag)) = (ka, f, tlag) {
         problems.take(validate_absorption(ka, f, tlag).map_err(invalid_flag));
     }
-    let study = study_args.load(&mut problems);
-    problems.finish()?;
-    let (Some(Study { model, subjects, notes }), Some(ka), Some(f), Some(tlag)) = (study, ka, f, tlag) else {
-        return Err(Error::Usage("the arguments could not be read".into()));
-    };
+    let settings = problems.take_all(spec.resolve(Needs::default()));
+    let study =
+        problems.take_all(Study::load(&spec.inputs, Required { model: args.method == Some(Method::Map) }));
+    let (((Study { model, subjects, notes }, settings), (ka, f)), tlag) =
+        problems.finish_with(study.zip(settings).zip(ka.zip(f)).zip(tlag))?;
     let method = args.method.unwrap_or(if model.is_some() { Method::Map } else { Method::Wls });
-    if method == Method::Map && model.is_none() {
-        return Err(Error::Usage("--method map needs a population model: give --model FILE".into()));
-    }
     for n in &notes {
         args.output.note(n);
     }
@@ -99,34 +101,35 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
         args.output
             .note("the model's [absorption] table gives F and the lag time: --f and --tlag are not used");
     }
-    let (seed, draws) = seed_and_draws(args.seed, args.draws, case.as_ref());
     let options = FitOptions {
         method,
         intervals: args.intervals,
-        draws: draws as usize,
-        seed,
+        draws: settings.draws,
+        seed: settings.seed,
         weighting: args.weighting,
         ka_per_h: ka,
         f,
         tlag_h: tlag,
         keep_draws: args.keep_draws as usize,
     };
-    let outcomes = fit_all(&subjects, model.as_ref(), &options);
-    let mut fits = Vec::with_capacity(outcomes.len());
+    // A subject that cannot be fitted is that subject's result: the others are written, and
+    // the failures reported after them.
+    let mut fits = Vec::with_capacity(subjects.len());
     let mut failures = Vec::new();
-    for (s, o) in subjects.iter().zip(outcomes) {
-        match o {
+    for (s, outcome) in subjects.iter().zip(fit_all(&subjects, model.as_ref(), &options)) {
+        match outcome {
             Ok(r) => fits.push(r),
-            Err(m) => failures.push(match &s.id {
-                Some(id) => format!("subject {id}: {m}"),
-                None => m,
+            Err(e) => failures.push(match &s.id {
+                Some(id) => format!("subject {id}: {e}"),
+                None => e.to_string(),
             }),
         }
     }
-    if !failures.is_empty() {
+    if fits.is_empty() && !failures.is_empty() {
         return Err(Error::Usage(failures.join("\n")));
     }
-    let inputs = study_args.paths();
+    let files = spec.files();
+    let inputs: Vec<&str> = files.iter().filter_map(|p| p.to_str()).collect();
     let format = args.output.format();
     let mut sink = args.output.sink(&inputs)?;
     let out = sink.writer();
@@ -143,7 +146,17 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
         }
     }
     args.output.caution_for_csv(format);
-    sink.finish()
+    sink.finish()?;
+    if failures.is_empty() {
+        Ok(())
+    } else {
+        Err(Error::Failure(format!(
+            "{} of {} subjects could not be fitted:\n{}",
+            failures.len(),
+            subjects.len(),
+            failures.join("\n")
+        )))
+    }
 }
 
 fn estimate_cells(e: Option<&Estimate>) -> [String; 4] {

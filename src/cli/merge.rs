@@ -30,8 +30,8 @@ pub fn run(args: MergeArgs) -> Result<(), Error> {
     let mut merger = Merger::default();
     for path in &args.shards {
         let text = std::fs::read_to_string(path)
-            .map_err(|e| InputError::new(path, format!("cannot read the file as UTF-8 text: {e}")))?;
-        let state = SweepState::parse(&text).map_err(|m| InputError::new(path, m))?;
+            .map_err(|e| InputError::in_file(path, format!("cannot read the file as UTF-8 text: {e}")))?;
+        let state = SweepState::parse(&text).map_err(|m| InputError::in_file(path, m))?;
         merger.add(path, state).map_err(Error::Usage)?;
     }
     let merged = merger.finish().map_err(Error::Usage)?;

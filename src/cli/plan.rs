@@ -2,21 +2,23 @@
 //! attainment over the posterior, recommend one that respects every limit, and advise when to
 //! draw the next level.
 
-use super::args::{OutputArgs, Problems, choice, flag_value};
+use super::args::{OutputArgs, choice};
 use super::regimen_grid::GridArgs;
-use super::study::{StudyArgs, planning_fit, seed_and_draws};
-use cistern::engine::Params;
+use super::study::StudyArgs;
+use cistern::error::Problems;
+use cistern::spec::{DEFAULT_DRAWS, Needs, Stated};
+use cistern::workflow::{NextLevel, PlanSubject, Required, Study, plan};
+use cistern::{Origin, Seeds};
+use std::path::PathBuf;
 
+use cistern::Error;
 use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
-use cistern::model::Residual;
 use cistern::plan::advisor::Advice;
 use cistern::plan::recommend::Plan;
-use cistern::plan::session::{Exposure, Outcome, Posterior, Settings, plan_subject};
+use cistern::plan::session::{Exposure, Outcome};
 use cistern::plan::targets::{Limits, Target};
-use cistern::units::Kind;
-use cistern::{Error, InputError};
 use clap::Args;
-use serde::{Deserialize, Serialize};
+use serde::Serialize;
 
 /// Rank candidate regimens for one subject and recommend one, with the next-level advice.
 #[derive(Args, Debug)]
@@ -45,7 +47,7 @@ pub struct PlanArgs {
     #[arg(long, value_name = "ID")]
     subject: Option<String>,
     /// Posterior draws to plan over [default: the case's, else 2000]
-    #[arg(long, value_parser = clap::value_parser!(u32).range(100..=100_000))]
+    #[arg(long)]
     draws: Option<u32>,
     /// Seed for the posterior draws and the advisor's simulations [default: the case's, else 1]
     #[arg(long)]
@@ -68,22 +70,6 @@ pub struct PlanArgs {
     output: OutputArgs,
 }
 
-/// The parts of a saved fit that planning reads.
-#[derive(Deserialize)]
-struct SavedFit {
-    subjects: Vec<SavedSubject>,
-}
-
-#[derive(Deserialize)]
-struct SavedSubject {
-    subject: Option<String>,
-    parameters: Params,
-    #[serde(default)]
-    residual: Option<Residual>,
-    #[serde(default)]
-    draws: Vec<Params>,
-}
-
 #[derive(Serialize)]
 struct PlanJson<'a> {
     subject: Option<&'a str>,
@@ -96,168 +82,63 @@ struct PlanJson<'a> {
     caution: &'a str,
 }
 
-/// The subject's history, point estimate, draws and residual model.
-struct Subject {
-    id: Option<String>,
-    doses: Vec<cistern::dosing::Dose>,
-    point: Params,
-    draws: Vec<Params>,
-    residual: Option<Residual>,
-    warnings: Vec<String>,
-}
-
-fn pick<'a, T>(
-    items: &'a [T],
-    id_of: impl Fn(&T) -> Option<&str>,
-    wanted: Option<&str>,
-    source: &str,
-) -> Result<&'a T, Error> {
-    match wanted {
-        Some(w) => items
-            .iter()
-            .find(|x| id_of(x) == Some(w))
-            .ok_or_else(|| InputError::new(source, format!("no subject '{w}' in the data")).into()),
-        None if items.len() == 1 => Ok(&items[0]),
-        None => Err(Error::Usage(format!(
-            "the data hold {} subjects: choose one with --subject (e.g. --subject {})",
-            items.len(),
-            items.iter().find_map(&id_of).unwrap_or("ID")
-        ))),
-    }
-}
-
-/// The settings after merging the flags with the case file.
-struct Resolved {
-    study: StudyArgs,
-    subject: Option<String>,
-    seed: u64,
-    draws: u32,
-}
-
-fn posterior(args: &PlanArgs, r: &Resolved, problems: &mut Problems) -> Result<Option<Subject>, Error> {
-    if let Some(path) = &args.fit {
-        let text = std::fs::read_to_string(path)
-            .map_err(|e| InputError::new(path, format!("cannot read the file: {e}")))?;
-        let saved: SavedFit = serde_json::from_str(&text).map_err(|e| {
-            InputError::new(path, format!("not a fit from `cistern fit --format json`: {e}"))
-                .at_line(e.line() as u64)
-        })?;
-        let s = pick(&saved.subjects, |s| s.subject.as_deref(), r.subject.as_deref(), path)?;
-        if s.draws.is_empty() {
-            return Err(InputError::new(
-                path,
-                "the fit has no posterior draws: run `cistern fit` with --keep-draws 2000",
-            )
-            .into());
-        }
-        let Some(doses_path) = r.study.doses.as_deref() else {
-            return Err(InputError::new(
-                "--doses",
-                "the dose history is required with --fit, e.g. --doses doses.csv",
-            )
-            .into());
-        };
-        let table = cistern::io::table::Table::read(doses_path).map_err(Error::Input)?;
-        let file = cistern::io::doses::parse_doses(&table).map_err(Error::Input)?;
-        // The history must be the fitted subject's: matched by identifier, or the only one
-        // when neither file names subjects.
-        let (_, doses) = pick(&file.subjects, |(id, _)| id.as_deref(), s.subject.as_deref(), doses_path)?;
-        return Ok(Some(Subject {
-            id: s.subject.clone(),
-            doses: doses.clone(),
-            point: s.parameters,
-            draws: s.draws.clone(),
-            residual: s.residual,
-            warnings: Vec::new(),
-        }));
-    }
-    let Some(study) = r.study.load(problems) else { return Ok(None) };
-    let Some(model) = &study.model else {
-        problems.push(r.study.missing(
-            "--model",
-            "inputs.model",
-            "planning needs the population model (or a saved fit with --fit)",
-        ));
-        return Ok(None);
-    };
-    for n in &study.notes {
-        args.output.note(n);
-    }
-    let subject = pick(
-        &study.subjects,
-        |s| s.id.as_deref(),
-        r.subject.as_deref(),
-        r.study.levels.as_deref().unwrap_or("--levels"),
-    )?;
-    let fit = planning_fit(subject, model, r.seed, r.draws as usize)?;
-    Ok(Some(Subject {
-        id: subject.id.clone(),
-        doses: subject.doses.clone(),
-        point: fit.parameters,
-        draws: fit.draws,
-        residual: fit.residual,
-        warnings: fit.warnings,
-    }))
-}
-
 /// Run the command.
 pub fn run(args: PlanArgs) -> Result<(), Error> {
+    let mut spec = args.study.spec()?;
+    spec.subject.set("--subject", args.subject.clone());
+    spec.seed.set("--seed", args.seed);
+    spec.draws.set("--draws", args.draws);
+    spec.start.set("--start", args.start.clone());
     let mut problems = Problems::new();
-    let (study, case) = args.study.with_case()?;
-    let (seed, draws) = seed_and_draws(args.seed, args.draws, case.as_ref());
-    let resolved = Resolved {
-        study,
-        subject: args.subject.clone().or_else(|| case.as_ref().and_then(|c| c.subject.clone())),
-        seed,
-        draws,
-    };
-    let grid = match args.grid.grid_or_case(case.as_ref()) {
-        Ok(g) => Some(g),
-        Err(Error::Input(errors)) => {
-            errors.into_iter().for_each(|e| problems.push(e));
-            None
+    args.grid.apply(&mut spec, &mut problems);
+    let settings = problems.take_all(spec.resolve(Needs { grid: true }));
+    let seeds = Seeds(spec.seed());
+    let subject = match &args.fit {
+        Some(path) => {
+            let saved = Stated { value: PathBuf::from(path), origin: Origin::Flag("--fit".into()) };
+            problems.take_all(PlanSubject::saved(&saved, &spec.inputs.doses, &spec.subject))
         }
-        Err(e) => return Err(e),
+        None => {
+            let draws = settings.as_ref().map_or(DEFAULT_DRAWS as usize, |s| s.draws);
+            problems.take_all(Study::load(&spec.inputs, Required { model: true }).and_then(|study| {
+                for n in &study.notes {
+                    args.output.note(n);
+                }
+                let model = study.model.as_ref().ok_or_else(|| Error::Usage("no population model".into()))?;
+                PlanSubject::fitted(&study, model, &spec.subject, seeds, draws).map(|(s, _)| s)
+            }))
+        }
     };
-    let start = args
-        .start
-        .as_ref()
-        .or(case.as_ref().and_then(|c| c.start.as_ref()))
-        .and_then(|s| problems.take(flag_value("--start", Kind::Time, s)));
-    let post = posterior(&args, &resolved, &mut problems)?;
-    problems.finish()?;
-    let (Some((candidates, targets, limits)), Some(post)) = (grid, post) else {
-        return Err(Error::Usage("the arguments could not be read".into()));
+    let (settings, subject) = problems.finish_with(settings.zip(subject))?;
+    let Some(grid) = &settings.grid else {
+        return Err(Error::Usage("the candidate grid is incomplete".into()));
     };
-    for w in &post.warnings {
+    for w in &subject.warnings {
         args.output.note(&format!("fit: {w}"));
     }
-    let settings = Settings {
-        candidates: &candidates,
-        targets: &targets,
-        limits,
-        start_h: start,
-        advise_on: args.advise_on,
-        advise_intervals: if args.no_advice { 0 } else { args.advise_intervals },
-        seed: cistern::fit::mix_seed(resolved.seed, 1),
+    let next_level = NextLevel {
+        exposure: args.advise_on,
+        intervals: if args.no_advice { 0 } else { args.advise_intervals },
     };
-    let posterior = Posterior { point: post.point, draws: post.draws.clone(), residual: post.residual };
     let Outcome { start_h, plan: result, advice, notes } =
-        plan_subject(&post.doses, &posterior, &settings).map_err(|e| Error::Usage(e.message))?;
+        plan(&subject, grid, settings.start_h, next_level, seeds)?;
+    let targets = &grid.targets;
+    let limits = &grid.limits;
     for n in &notes {
         args.output.note(n);
     }
-    let inputs: Vec<&str> = resolved.study.paths().into_iter().chain(args.fit.as_deref()).collect();
+    let files = spec.files();
+    let inputs: Vec<&str> = files.iter().filter_map(|p| p.to_str()).chain(args.fit.as_deref()).collect();
     let format = args.output.format();
     let mut sink = args.output.sink(&inputs)?;
     let out = sink.writer();
     match format {
         Format::Json => {
             let doc = PlanJson {
-                subject: post.id.as_deref(),
+                subject: subject.id.as_deref(),
                 start_h,
-                targets: &targets,
-                limits: &limits,
+                targets,
+                limits,
                 plan: &result,
                 next_level: advice.as_ref(),
                 caution: CAUTION,
@@ -267,7 +148,7 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
         }
         Format::Csv => write_csv(out, &result).map_err(io_failure)?,
         Format::Table => {
-            write!(out, "{}", table(&post, &targets, &result, advice.as_ref(), start_h))
+            write!(out, "{}", table(&subject, targets, &result, advice.as_ref(), start_h))
                 .map_err(io_failure)?;
             writeln!(out, "\n{CAUTION}").map_err(io_failure)?;
         }
@@ -333,7 +214,7 @@ fn band(b: &cistern::plan::recommend::Band, digits: usize) -> String {
     format!("{} ({}–{})", readable(b.median, digits), readable(b.p05, digits), readable(b.p95, digits))
 }
 
-fn table(post: &Subject, targets: &[Target], plan: &Plan, advice: Option<&Advice>, start: f64) -> String {
+fn table(post: &PlanSubject, targets: &[Target], plan: &Plan, advice: Option<&Advice>, start: f64) -> String {
     let mut text = String::new();
     let who = post.id.as_deref().unwrap_or("the subject");
     let goals: Vec<String> = targets.iter().map(Target::to_string).collect();

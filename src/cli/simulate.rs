@@ -1,8 +1,9 @@
 //! `cistern simulate`: concentrations over a dose history at requested times, and the exact AUC.
 
-use super::args::{OutputArgs, ParamArgs, Problems, RegimenArgs, flag_value, invalid_flag};
+use super::args::{OutputArgs, ParamArgs, RegimenArgs, flag_value, invalid_flag};
 use cistern::dosing::Dose;
 use cistern::engine;
+use cistern::error::Problems;
 use cistern::io::doses::{DoseFile, parse_doses};
 use cistern::io::output::Sink;
 use cistern::io::output::{CAUTION, Format, csv_field, full, io_failure, readable, render_table};
@@ -75,7 +76,7 @@ pub fn parse_grid(text: &str) -> Result<Vec<f64>, InputError> {
     let flag = "--times";
     let parts: Vec<&str> = text.split(':').collect();
     if parts.len() != 3 {
-        return Err(InputError::new(
+        return Err(InputError::flag(
             flag,
             format!("expected START:END:STEP, e.g. 0:48h:30min, found '{text}'"),
         ));
@@ -84,15 +85,15 @@ pub fn parse_grid(text: &str) -> Result<Vec<f64>, InputError> {
     let end = flag_value(flag, Kind::Time, parts[1])?;
     let step = flag_value(flag, Kind::Time, parts[2])?;
     if step <= 0.0 {
-        return Err(InputError::new(flag, format!("the STEP must be positive, found '{}'", parts[2])));
+        return Err(InputError::flag(flag, format!("the STEP must be positive, found '{}'", parts[2])));
     }
     if end < start {
-        return Err(InputError::new(flag, format!("END ({end} h) is before START ({start} h)")));
+        return Err(InputError::flag(flag, format!("END ({end} h) is before START ({start} h)")));
     }
     // Include END when it lies on the grid up to rounding.
     let intervals = ((end - start) / step * (1.0 + 1e-12) + 1e-9).floor();
     if intervals + 1.0 > MAX_POINTS {
-        return Err(InputError::new(
+        return Err(InputError::flag(
             flag,
             format!("the grid has more than {MAX_POINTS:e} points; use a larger STEP"),
         ));
@@ -111,7 +112,7 @@ fn times_of(args: &SimulateArgs, problems: &mut Problems) -> Option<Vec<f64>> {
             Some(out)
         }
         (None, true) => {
-            problems.push(InputError::new("--times", "give the times: --times 0:48h:30min or --at 1,2,6"));
+            problems.push(InputError::flag("--times", "give the times: --times 0:48h:30min or --at 1,2,6"));
             None
         }
     }
@@ -121,7 +122,7 @@ fn histories(args: &SimulateArgs, problems: &mut Problems) -> Option<DoseFile> {
     match (&args.doses, args.regimen.given()) {
         (Some(_), true) => {
             problems
-                .push(InputError::new("--doses", "give either a doses file or the regimen flags, not both"));
+                .push(InputError::flag("--doses", "give either a doses file or the regimen flags, not both"));
             None
         }
         (Some(path), false) => {

@@ -1,28 +1,24 @@
 //! `cistern sweep`: candidate regimens over a virtual population — PTA, limit risks and
 //! exposure percentiles per regimen; one shard of the subjects with `--shard`.
 
-use super::args::{OutputArgs, Problems, flag_number, flag_value, invalid_flag};
+use super::args::{OutputArgs, flag_number, flag_value, invalid_flag};
 use super::regimen_grid::GridArgs;
-use super::study::take_all;
-use cistern::case::Case;
-use cistern::covariates::parse_covariates;
 use cistern::dosing::Route;
 use cistern::engine::validate_absorption;
-use cistern::io::digest::sha256_hex;
-use cistern::io::output::{CAUTION, Format, Sink, full, io_failure};
-use cistern::io::table::Table;
-use cistern::model::PopulationModel;
+use cistern::error::Problems;
+use cistern::io::output::{CAUTION, Format, Sink, io_failure};
+use cistern::spec::{Grid, Needs, Setting, Spec, Stated, SweepSpec};
 use cistern::sweep::Sweep;
-use cistern::sweep::population::{CovariateSource, Population, parse_draw, parse_params};
 use cistern::sweep::sketch::RELATIVE_ERROR;
 use cistern::sweep::state::{Setup, Shard, SweepState};
 use cistern::sweep::summary::Summary;
 use cistern::units::Kind;
-use cistern::{Error, InputError};
+use cistern::workflow::sweep::{Source, VirtualPopulation, population};
+use cistern::{Error, InputError, Origin, case};
 use clap::Args;
 use indicatif::{ProgressBar, ProgressStyle};
-use serde_json::json;
 use std::io::IsTerminal;
+use std::path::PathBuf;
 
 /// Sweep candidate regimens over a virtual population: for each regimen the probability of
 /// target attainment (PTA), the probability of breaking each exposure limit, and the 5th,
@@ -97,174 +93,80 @@ pub struct SweepArgs {
     output: OutputArgs,
 }
 
-impl SweepArgs {
-    /// These flags with the case file filling in those left out (the grid aside: see
-    /// [`GridArgs::grid_or_case`]).
-    fn with_case(self, case: &Case) -> SweepArgs {
-        let text = |p: &Option<std::path::PathBuf>| p.as_ref().map(|p| p.to_string_lossy().into_owned());
-        let pool = case.sweep.as_ref().and_then(|s| text(&s.covariates));
-        SweepArgs {
-            model: self.model.clone().or_else(|| text(&case.model)),
-            covariates: self.covariates.clone().or(if self.draws.is_empty() { pool } else { None }),
-            subjects: self.subjects.or(case.sweep.as_ref().map(|s| s.subjects)),
-            seed: self.seed.or(case.seed),
-            ..self
-        }
-    }
-}
-
-/// A file's fingerprint, so shards of a sweep can tell that they read the same inputs.
-fn file_fingerprint(path: &str) -> Result<String, Error> {
-    std::fs::read(path)
-        .map(|bytes| sha256_hex(&bytes))
-        .map_err(|e| InputError::new(path, format!("cannot read the file: {e}")).into())
-}
-
-/// The population, its size, and its description for the sweep's setup.
-fn population(
-    args: &SweepArgs,
-    oral: bool,
-    problems: &mut Problems,
-) -> Result<Option<(Population, u64, serde_json::Value)>, Error> {
-    if let Some(path) = &args.params {
-        let f = args.f.as_ref().map_or(Some(1.0), |t| problems.take(flag_number("--f", t)));
-        let tlag =
-            args.tlag.as_ref().map_or(Some(0.0), |t| problems.take(flag_value("--tlag", Kind::Time, t)));
-        if let (Some(f), Some(tlag)) = (f, tlag) {
-            problems.take(validate_absorption(None, f, tlag).map_err(invalid_flag));
-        }
-        let Some((rows, notes)) = take_all(
-            problems,
-            Table::read(path).and_then(|t| parse_params(&t, oral, f.unwrap_or(1.0), tlag.unwrap_or(0.0))),
-        ) else {
-            return Ok(None);
-        };
-        notes.iter().for_each(|n| args.output.note(n));
-        let described = json!({
-            "params": file_fingerprint(path)?,
-            "f": f.map(full),
-            "tlag_h": tlag.map(full),
-        });
-        let n = rows.len() as u64;
-        return Ok(Some((Population::from_params(rows), n, described)));
-    }
-    let Some(path) = &args.model else {
-        // The flags require --model or --params; only a case can leave both out.
-        if let Some(case) = &args.case {
-            problems.push(
-                InputError::new(
-                    case,
-                    "a sweep draws its subjects from a population model: add inputs.model, or give --model",
-                )
-                .in_column("inputs.model"),
-            );
-        }
-        return Ok(None);
-    };
-    let model = take_all(problems, PopulationModel::read(path));
-    let subjects = match args.subjects {
-        Some(0) => {
-            problems.push(InputError::new("--subjects", "expected at least 1 subject"));
-            None
-        }
-        Some(n) => Some(n),
-        None => {
-            problems.push(InputError::new(
-                "--subjects",
-                "give the number of subjects to draw, e.g. --subjects 10000",
-            ));
-            None
-        }
-    };
-    let (source, source_name) = if let Some(pool) = &args.covariates {
-        let pool = take_all(problems, Table::read(pool).and_then(|t| parse_covariates(&t)));
-        (pool.map(CovariateSource::Pool), args.covariates.clone().unwrap_or_default())
-    } else if !args.draws.is_empty() {
-        let mut draws = Vec::new();
-        for spec in &args.draws {
-            match parse_draw(spec) {
-                Ok(d) => draws.push(d),
-                Err(m) => problems.push(InputError::new("--draw", m)),
-            }
-        }
-        (Some(CovariateSource::Draws(draws)), "--draw".to_string())
-    } else {
-        (Some(CovariateSource::None), path.clone())
-    };
-    let (Some(model), Some(subjects), Some(source)) = (model, subjects, source) else {
-        return Ok(None);
-    };
-    if oral && model.absorption.is_none() {
-        problems.push(InputError::new(path, "oral candidates need an [absorption] table in the model"));
-        return Ok(None);
-    }
-    let described = json!({
-        "model": file_fingerprint(path)?,
-        "covariates": args.covariates.as_deref().map(file_fingerprint).transpose()?,
-        "draws": args.draws,
-    });
-    match Population::from_model(model, source) {
-        Ok(p) => Ok(Some((p, subjects, described))),
-        Err(m) => {
-            problems.push(InputError::new(source_name, m));
-            Ok(None)
-        }
-    }
-}
-
 /// Run the command.
 pub fn run(args: SweepArgs) -> Result<(), Error> {
-    let case = args.case.as_deref().map(Case::read).transpose().map_err(Error::Input)?;
-    let grid = args.grid.grid_or_case(case.as_ref());
-    let args = match &case {
-        Some(case) => args.with_case(case),
-        None => args,
+    let mut spec = match &args.case {
+        Some(path) => case::read(path)?,
+        None => Spec::new(),
     };
-    let seed = args.seed.unwrap_or(cistern::fit::FitOptions::default().seed);
-    let mut problems = Problems::new();
-    let grid = match grid {
-        Ok(g) => Some(g),
-        Err(Error::Input(errors)) => {
-            errors.into_iter().for_each(|e| problems.push(e));
-            None
+    spec.inputs.model.set("--model", args.model.as_ref().map(PathBuf::from));
+    spec.seed.set("--seed", args.seed);
+    // Subjects drawn from a model: how many, and where their covariates come from (a table of
+    // individual parameters needs neither).
+    if args.params.is_none() {
+        let sweep = spec.sweep.get_or_insert_with(|| SweepSpec {
+            subjects: Setting::unset(Origin::Flag("--subjects".into())),
+            covariates: Setting::unset(Origin::Flag("--covariates".into())),
+        });
+        sweep.subjects.set("--subjects", args.subjects);
+        // Covariate distributions replace the case's pool.
+        if !args.draws.is_empty() {
+            sweep.covariates = Setting::unset(Origin::Flag("--covariates".into()));
         }
-        Err(e) => return Err(e),
-    };
-    let oral = grid.as_ref().is_some_and(|(c, _, _)| c.iter().any(|c| c.route == Route::Oral));
+        sweep.covariates.set("--covariates", args.covariates.as_ref().map(PathBuf::from));
+    }
+    let mut problems = Problems::new();
+    args.grid.apply(&mut spec, &mut problems);
+    let settings = problems.take_all(spec.resolve(Needs { grid: true }));
+    let grid = settings.as_ref().and_then(|s| s.grid.clone());
+    let oral = grid.as_ref().is_some_and(|g| g.candidates.iter().any(|c| c.route == Route::Oral));
     let shard = match &args.shard {
-        Some(t) => problems.take(Shard::parse(t).map_err(|m| InputError::new("--shard", m))),
+        Some(t) => problems.take(Shard::parse(t).map_err(|m| InputError::flag("--shard", m))),
         None => Some(Shard::WHOLE),
     };
-    let population = population(&args, oral, &mut problems)?;
+    let source = match &args.params {
+        Some(path) => {
+            let f = args.f.as_ref().map_or(Some(1.0), |t| problems.take(flag_number("--f", t)));
+            let tlag =
+                args.tlag.as_ref().map_or(Some(0.0), |t| problems.take(flag_value("--tlag", Kind::Time, t)));
+            if let (Some(f), Some(tlag)) = (f, tlag) {
+                problems.take(validate_absorption(None, f, tlag).map_err(invalid_flag));
+            }
+            let path = Stated { value: PathBuf::from(path), origin: Origin::Flag("--params".into()) };
+            f.zip(tlag).map(|(f, tlag_h)| Source::Params { path, f, tlag_h })
+        }
+        None => {
+            let flag = Origin::Flag("--draw".into());
+            let draws = args.draws.iter().map(|d| Stated { value: d.clone(), origin: flag.clone() });
+            Some(Source::Model { draws: draws.collect() })
+        }
+    };
+    let population = source.and_then(|source| problems.take_all(population(&spec, &source, oral)));
     if args.shard.is_some() && args.output.format.is_some_and(|f| f != Format::Json) {
-        problems.push(InputError::new("--format", "a shard writes its state as JSON; leave out --format"));
+        problems.push(InputError::flag("--format", "a shard writes its state as JSON; leave out --format"));
     }
     if let Some(rows) = &args.per_subject {
         let summary = args.output.output.as_deref().unwrap_or("-");
         if rows == summary {
-            problems.push(InputError::new(
+            problems.push(InputError::flag(
                 "--per-subject",
                 format!("'{rows}' is also where the summary goes (-o); give them different files"),
             ));
         }
     }
-    problems.finish()?;
-    let (Some((candidates, targets, limits)), Some(shard), Some((population, subjects, described))) =
-        (grid, shard, population)
-    else {
-        return Err(Error::Usage("the arguments could not be read".into()));
-    };
+    let ((grid, shard), virtual_population) = problems.finish_with(grid.zip(shard).zip(population))?;
+    let VirtualPopulation { population, subjects, described, notes } = virtual_population;
+    notes.iter().for_each(|n| args.output.note(n));
+    let Grid { candidates, targets, limits } = grid;
+    let seed = spec.seed();
     let sweep =
         Sweep { population: &population, candidates: &candidates, targets: &targets, limits: &limits, seed };
     sweep.check()?;
     let setup = Setup::new(described, seed, subjects, &candidates, &targets, &limits);
     let span = shard.span(subjects);
 
-    let inputs: Vec<&str> =
-        [args.case.as_deref(), args.model.as_deref(), args.covariates.as_deref(), args.params.as_deref()]
-            .into_iter()
-            .flatten()
-            .collect();
+    let files = spec.files();
+    let inputs: Vec<&str> = files.iter().filter_map(|p| p.to_str()).chain(args.params.as_deref()).collect();
     let mut per_subject = match &args.per_subject {
         Some(path) => Some(Sink::open(Some(path), &inputs)?),
         None => None,

@@ -14,7 +14,7 @@ pub mod scalar;
 pub mod steady;
 
 use crate::dosing::{Dose, Route};
-use crate::error::Invalid;
+use crate::error::InputError;
 use kernel::{Rates, State, step};
 use scalar::Real;
 use serde::{Deserialize, Serialize};
@@ -51,37 +51,40 @@ impl Params {
     }
 
     /// Check the values, and that oral doses have what they need. Returns what is wrong.
-    pub fn validate(&self, doses: &[Dose]) -> Result<(), Invalid> {
+    pub fn validate(&self, doses: &[Dose]) -> Result<(), InputError> {
         let positive = |x: f64| x.is_finite() && x > 0.0;
         if !positive(self.cl_l_h) {
-            return Err(Invalid::new(
+            return Err(InputError::field(
                 "cl_l_h",
                 format!("clearance must be positive, found {} L/h", self.cl_l_h),
             ));
         }
         if !positive(self.v_l) {
-            return Err(Invalid::new("v_l", format!("volume must be positive, found {} L", self.v_l)));
+            return Err(InputError::field("v_l", format!("volume must be positive, found {} L", self.v_l)));
         }
         validate_absorption(self.ka_per_h, self.f, self.tlag_h)?;
         if self.ka_per_h.is_none() && doses.iter().any(|d| d.route == Route::Oral) {
-            return Err(Invalid::new("ka_per_h", "oral doses need an absorption rate constant (ka)"));
+            return Err(InputError::field("ka_per_h", "oral doses need an absorption rate constant (ka)"));
         }
         Ok(())
     }
 }
 
 /// Check the absorption parameters: ka > 0 when given, F in (0, 1], lag time ≥ 0.
-pub fn validate_absorption(ka_per_h: Option<f64>, f: f64, tlag_h: f64) -> Result<(), Invalid> {
+pub fn validate_absorption(ka_per_h: Option<f64>, f: f64, tlag_h: f64) -> Result<(), InputError> {
     if let Some(ka) = ka_per_h
         && !(ka.is_finite() && ka > 0.0)
     {
-        return Err(Invalid::new("ka_per_h", format!("ka must be positive, found {ka} 1/h")));
+        return Err(InputError::field("ka_per_h", format!("ka must be positive, found {ka} 1/h")));
     }
     if !(f.is_finite() && f > 0.0 && f <= 1.0) {
-        return Err(Invalid::new("f", format!("bioavailability F must be in (0, 1], found {f}")));
+        return Err(InputError::field("f", format!("bioavailability F must be in (0, 1], found {f}")));
     }
     if !(tlag_h.is_finite() && tlag_h >= 0.0) {
-        return Err(Invalid::new("tlag_h", format!("the lag time must be non-negative, found {tlag_h} h")));
+        return Err(InputError::field(
+            "tlag_h",
+            format!("the lag time must be non-negative, found {tlag_h} h"),
+        ));
     }
     Ok(())
 }

@@ -16,7 +16,7 @@
 use super::kernel::{State, depot_to_central};
 use super::{Events, Kinetics, Params, Walker};
 use crate::dosing::{Regimen, Route};
-use crate::error::Invalid;
+use crate::error::InputError;
 use serde::Serialize;
 
 /// The exposure of a regimen at steady state.
@@ -67,13 +67,13 @@ pub struct SteadyCurve {
 
 impl SteadyCurve {
     /// Solve for the steady state. Returns what is wrong when the regimen has none.
-    pub fn new(params: &Params, regimen: Regimen) -> Result<Self, Invalid> {
+    pub fn new(params: &Params, regimen: Regimen) -> Result<Self, InputError> {
         let one = regimen.dose_at(0.0);
         params.validate(&[one])?;
         regimen.validate()?;
         let tau = regimen.every_h;
         if regimen.route == Route::Infusion && regimen.duration_h > tau {
-            return Err(Invalid::new(
+            return Err(InputError::field(
                 "duration_h",
                 format!(
                     "the infusion ({} h) is longer than the dosing interval ({tau} h); \

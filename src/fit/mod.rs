@@ -19,8 +19,10 @@ use crate::choice::choice_enum;
 use crate::covariates::Covariates;
 use crate::dosing::{Dose, Route};
 use crate::engine::Params;
+use crate::error::Error;
 use crate::io::levels::Level;
 use crate::model::{PopulationModel, Residual};
+use crate::seeds::Seeds;
 use linalg::{MAX, Mat, spd_inverse};
 use objective::{Likelihood, Prior, Problem, Weighting};
 use rayon::prelude::*;
@@ -232,24 +234,17 @@ impl FitResult {
     }
 }
 
-/// A well-mixed 64-bit hash, to derive independent per-subject seeds (SplitMix64).
-pub fn mix_seed(seed: u64, index: u64) -> u64 {
-    let mut z = seed.wrapping_add(index.wrapping_add(1).wrapping_mul(0x9E37_79B9_7F4A_7C15));
-    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-    z ^ (z >> 31)
-}
-
 /// Fit every subject in parallel; results are in input order and independent of thread count.
 pub fn fit_all(
     subjects: &[SubjectData],
     model: Option<&PopulationModel>,
     options: &FitOptions,
-) -> Vec<Result<FitResult, String>> {
+) -> Vec<Result<FitResult, Error>> {
+    let seeds = Seeds(options.seed);
     subjects
         .par_iter()
         .enumerate()
-        .map(|(i, s)| fit_subject(s, model, options, mix_seed(options.seed, i as u64)))
+        .map(|(i, s)| fit_subject(s, model, options, seeds.fit_subject(i as u64)))
         .collect()
 }
 
@@ -283,29 +278,31 @@ fn absorption(
     let estimate_ka = oral && fixed_ka.is_none();
     if estimate_ka && options.method == Method::Map && model_abs.is_none() {
         return Err(
-            "oral doses: the model has no [absorption] table to give ka a prior; add one or fix ka with --ka"
+            "oral doses: the model has no [absorption] table to give ka a prior; add one, or hold ka fixed"
                 .into(),
         );
     }
     Ok(Absorption { estimate_ka, fixed_ka: fixed_ka.or(model_abs.map(|a| a.ka.typical)), f, tlag_h })
 }
 
-/// Fit one subject with its own `seed`.
+/// Fit one subject with its own `seed`. A subject whose data or options cannot be fitted as
+/// asked is an [`Error::Usage`] naming what is wrong.
 pub fn fit_subject(
     subject: &SubjectData,
     model: Option<&PopulationModel>,
     options: &FitOptions,
     seed: u64,
-) -> Result<FitResult, String> {
-    let abs = absorption(subject, model, options)?;
+) -> Result<FitResult, Error> {
+    let abs = absorption(subject, model, options).map_err(Error::Usage)?;
     match options.method {
         Method::TwoLevel => fit_two_level(subject, &abs),
-        Method::Map => {
-            let model = model.ok_or("the map method needs a population model: give --model")?;
-            fit_map(subject, model, options, &abs, seed)
-        }
+        Method::Map => match model {
+            Some(model) => fit_map(subject, model, options, &abs, seed),
+            None => Err("the map method needs a population model".into()),
+        },
         Method::Wls => fit_wls(subject, model, options, &abs),
     }
+    .map_err(Error::Usage)
 }
 
 fn base_params(abs: &Absorption, theta: &[f64]) -> Params {
@@ -565,7 +562,7 @@ fn fit_map(
                         ));
                     }
                     if options.keep_draws > 0 {
-                        let u0 = (mix_seed(seed, u64::MAX) >> 11) as f64 / (1u64 << 53) as f64;
+                        let u0 = (Seeds::resample_offset(seed) >> 11) as f64 / (1u64 << 53) as f64;
                         kept = draws
                             .resample(options.keep_draws, u0)
                             .iter()

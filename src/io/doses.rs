@@ -39,15 +39,13 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
     let count = table.column("count");
     let header_line = table.header_line;
     let missing = |what: &str, example: &str| {
-        InputError::new(src, format!("missing the {what} column (for example '{example}')"))
+        InputError::in_file(src, format!("missing the {what} column (for example '{example}')"))
             .at_line(header_line)
     };
-    if time.is_none() && !errors.iter().any(|e| e.column.as_deref().is_some_and(|c| c.starts_with("time"))) {
+    if time.is_none() && !errors.iter().any(|e| e.place().is_some_and(|c| c.starts_with("time"))) {
         errors.push(missing("dose time", "time_h"));
     }
-    if amount.is_none()
-        && !errors.iter().any(|e| e.column.as_deref().is_some_and(|c| c.starts_with("amount")))
-    {
+    if amount.is_none() && !errors.iter().any(|e| e.place().is_some_and(|c| c.starts_with("amount"))) {
         errors.push(missing("dose amount", "amount_mg"));
     }
     if route.is_none() {
@@ -55,7 +53,7 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
     }
     if every.is_some() != count.is_some() {
         errors.push(
-            InputError::new(src, "'every_<unit>' and 'count' go together: give both or neither")
+            InputError::in_file(src, "'every_<unit>' and 'count' go together: give both or neither")
                 .at_line(header_line),
         );
     }
@@ -106,8 +104,11 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
             continue;
         };
         if let Err(invalid) = validate_dose(a, r, d) {
-            let col =
-                if invalid.field == "amount_mg" { &amount } else { duration.as_ref().unwrap_or(&route) };
+            let col = if invalid.field_name() == Some("amount_mg") {
+                &amount
+            } else {
+                duration.as_ref().unwrap_or(&route)
+            };
             errors.push(row.error(src, Some(col), invalid.message));
         }
         if errors.len() > before {
@@ -208,13 +209,13 @@ mod tests {
             "time_h,amount_mg,route,duration_h\n0,-5,bolus,\nx,100,oral,\n1,100,iv,\n2,100,infusion,\n",
         )
         .unwrap_err();
-        let lines: Vec<_> = e.iter().map(|e| e.line).collect();
+        let lines: Vec<_> = e.iter().map(|e| e.line()).collect();
         assert_eq!(lines, [Some(2), Some(3), Some(4), Some(5)], "{e:?}");
     }
 
     #[test]
     fn a_known_quantity_with_an_unknown_unit_is_refused() {
         let e = parse("time_h,amount_kg,route\n0,1,bolus\n").unwrap_err();
-        assert_eq!(e[0].column.as_deref(), Some("amount_kg"));
+        assert_eq!(e[0].place(), Some("amount_kg"));
     }
 }

@@ -52,7 +52,7 @@ pub fn parse_levels(table: &Table) -> Result<LevelFile, Vec<InputError>> {
     }
     let (Some(time), Some(conc)) = (time, conc) else {
         return Err(vec![
-            InputError::new(
+            InputError::in_file(
                 src,
                 "a levels file needs a time column (e.g. time_h) and a concentration column (e.g. conc_mg_l)",
             )
@@ -185,7 +185,7 @@ mod tests {
     fn negative_duplicate_and_bad_limits_are_located() {
         let t = Table::parse("l.csv", b"time_h,conc_mg_l\n1,-2\n2,3\n2,4\n3,<x\n").unwrap();
         let e = parse_levels(&t).unwrap_err();
-        let lines: Vec<_> = e.iter().map(|e| e.line.unwrap()).collect();
+        let lines: Vec<_> = e.iter().map(|e| e.line().unwrap()).collect();
         assert_eq!(lines, [2, 4, 5], "{e:?}");
     }
 }

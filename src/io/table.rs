@@ -81,7 +81,7 @@ impl Table {
             newlines.partition_point(|&n| n < i) as u64 + 1
         };
         let located = |pos: Option<&csv::Position>, msg: String| {
-            let e = InputError::new(source, msg);
+            let e = InputError::in_file(source, msg);
             match pos {
                 Some(p) => e.at_line(line_at(p)),
                 None => e,
@@ -92,7 +92,7 @@ impl Table {
             Err(e) => return Err(vec![located(e.position(), csv_message(&e))]),
         };
         if headers.iter().all(String::is_empty) {
-            return Err(vec![InputError::new(
+            return Err(vec![InputError::in_file(
                 source,
                 "the file is empty: expected a header line naming the columns",
             )]);
@@ -101,11 +101,11 @@ impl Table {
         for (i, h) in headers.iter().enumerate() {
             if h.is_empty() {
                 errors.push(
-                    InputError::new(source, format!("column {} has no name", i + 1)).at_line(header_line),
+                    InputError::in_file(source, format!("column {} has no name", i + 1)).at_line(header_line),
                 );
             } else if headers[..i].contains(h) {
                 errors.push(
-                    InputError::new(source, format!("duplicate column '{h}'"))
+                    InputError::in_file(source, format!("duplicate column '{h}'"))
                         .at_line(header_line)
                         .in_column(h.clone()),
                 );
@@ -121,7 +121,7 @@ impl Table {
                     }
                     if r.len() != headers.len() {
                         errors.push(
-                            InputError::new(
+                            InputError::in_file(
                                 source,
                                 format!(
                                     "expected {} fields as in the header, found {}",
@@ -139,8 +139,9 @@ impl Table {
             }
         }
         if errors.is_empty() && rows.is_empty() {
-            errors
-                .push(InputError::new(source, "the file has a header but no data rows").at_line(header_line));
+            errors.push(
+                InputError::in_file(source, "the file has a header but no data rows").at_line(header_line),
+            );
         }
         if errors.is_empty() {
             Ok(Table { source: source.to_string(), headers, header_line, rows })
@@ -152,7 +153,7 @@ impl Table {
     /// Read and parse a CSV file.
     pub fn read(path: &str) -> Result<Table, Vec<InputError>> {
         let bytes = std::fs::read(path)
-            .map_err(|e| vec![InputError::new(path, format!("cannot read the file: {e}"))])?;
+            .map_err(|e| vec![InputError::in_file(path, format!("cannot read the file: {e}"))])?;
         Table::parse(path, &bytes)
     }
 
@@ -174,7 +175,7 @@ impl Table {
             match parse_name(h, &[(quantity, kind)]) {
                 Ok(Some(n)) => {
                     if let Some(prev) = &found {
-                        return Err(InputError::new(
+                        return Err(InputError::in_file(
                             &self.source,
                             format!("columns '{}' and '{h}' both give the {quantity}; keep one", prev.name),
                         )
@@ -185,7 +186,7 @@ impl Table {
                 }
                 Ok(None) => {}
                 Err(m) => {
-                    return Err(InputError::new(&self.source, m)
+                    return Err(InputError::in_file(&self.source, m)
                         .at_line(self.header_line)
                         .in_column(h.clone()));
                 }
@@ -215,7 +216,7 @@ impl Row {
     pub fn number(&self, source: &str, column: &Column) -> Result<f64, InputError> {
         let text = self.text(column);
         let error = |what: &str| {
-            InputError::new(source, format!("expected a number, found {what}"))
+            InputError::in_file(source, format!("expected a number, found {what}"))
                 .at_line(self.line)
                 .in_column(column.name.clone())
         };
@@ -236,7 +237,7 @@ impl Row {
 
     /// A located error about this row.
     pub fn error(&self, source: &str, column: Option<&Column>, message: impl Into<String>) -> InputError {
-        let e = InputError::new(source, message).at_line(self.line);
+        let e = InputError::in_file(source, message).at_line(self.line);
         match column {
             Some(c) => e.in_column(c.name.clone()),
             None => e,
@@ -272,7 +273,7 @@ mod tests {
         let text = "a,b,a\n1,2,3\n1,2\n4,5,6,7\n";
         let errors = Table::parse("x.csv", text.as_bytes()).unwrap_err();
         assert_eq!(errors.len(), 3, "{errors:?}");
-        assert_eq!(errors[1].line, Some(3));
-        assert_eq!(errors[2].line, Some(4));
+        assert_eq!(errors[1].line(), Some(3));
+        assert_eq!(errors[2].line(), Some(4));
     }
 }

@@ -16,7 +16,7 @@ impl TomlText {
     /// Read a file.
     pub fn read(path: &str) -> Result<TomlText, InputError> {
         let text = std::fs::read_to_string(path)
-            .map_err(|e| InputError::new(path, format!("cannot read the file as UTF-8 text: {e}")))?;
+            .map_err(|e| InputError::in_file(path, format!("cannot read the file as UTF-8 text: {e}")))?;
         Ok(TomlText { source: path.to_string(), text })
     }
 
@@ -33,14 +33,14 @@ impl TomlText {
 
     /// A located error at `span`.
     pub fn error_at(&self, span: Range<usize>, key: &str, message: impl Into<String>) -> InputError {
-        InputError::new(&self.source, message).at_line(self.line_of(span.start)).in_column(key)
+        InputError::in_file(&self.source, message).at_line(self.line_of(span.start)).at_key(key)
     }
 
     /// Deserialize, turning syntax errors, unknown keys and wrong types into a located error.
     pub fn parse<T: DeserializeOwned>(&self) -> Result<T, InputError> {
         toml::from_str(&self.text).map_err(|mut e| {
             let message = e.message().trim().replace('\n', "; ");
-            let mut err = InputError::new(&self.source, message);
+            let mut err = InputError::in_file(&self.source, message);
             if let Some(span) = e.span() {
                 err = err.at_line(self.line_of(span.start));
             }
@@ -52,7 +52,7 @@ impl TomlText {
                 .lines()
                 .find_map(|l| Some(l.strip_prefix("in `")?.strip_suffix('`')?.to_string()));
             match key {
-                Some(key) => err.in_column(key),
+                Some(key) => err.at_key(key),
                 None => err,
             }
         })

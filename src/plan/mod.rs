@@ -14,7 +14,7 @@ pub mod targets;
 use crate::dosing::{Dose, Regimen};
 use crate::engine::steady::{Exposure, SteadyCurve};
 use crate::engine::{self, Params};
-use crate::error::Invalid;
+use crate::error::InputError;
 use targets::{Limits, Metric, Target};
 
 /// Where a candidate regimen starts: after the doses already given.
@@ -84,7 +84,7 @@ pub fn evaluate(
     limits: &Limits,
     course: &Course,
     course_doses: Option<&[Dose]>,
-) -> Result<Evaluation, Invalid> {
+) -> Result<Evaluation, InputError> {
     let curve = SteadyCurve::new(params, *candidate)?;
     let steady = curve.exposure();
     let values: Vec<f64> = targets

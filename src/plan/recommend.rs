@@ -11,7 +11,7 @@ use super::targets::{Limits, Metric, Target};
 use super::{Course, dose_limits_broken, evaluate, last_day_end};
 use crate::dosing::{Regimen, Route};
 use crate::engine::{Events, Kinetics, Params, Walker};
-use crate::error::Invalid;
+use crate::error::InputError;
 use crate::stats::interpolated_quantile;
 use rayon::prelude::*;
 use serde::Serialize;
@@ -120,7 +120,7 @@ pub struct Plan {
     pub notes: Vec<String>,
 }
 
-fn assess(input: &PlanInput, c: &Regimen) -> Result<Assessment, Invalid> {
+fn assess(input: &PlanInput, c: &Regimen) -> Result<Assessment, InputError> {
     let course = &input.course;
     let until = last_day_end(input.targets, course);
     let course_doses = until.map(|u| course.continued(c, None, u));
@@ -246,13 +246,13 @@ pub fn time_to_target(
 }
 
 /// Assess every candidate (in parallel, deterministically), rank, and recommend.
-pub fn plan(input: &PlanInput) -> Result<Plan, Invalid> {
+pub fn plan(input: &PlanInput) -> Result<Plan, InputError> {
     if input.draws.is_empty() {
-        return Err(Invalid::new("draws", "planning needs posterior draws of the subject's parameters"));
+        return Err(InputError::field("draws", "planning needs posterior draws of the subject's parameters"));
     }
     // Collected in candidate order first, so that when several fail the first one's error is
     // reported whatever the thread count.
-    let results: Vec<Result<Assessment, Invalid>> =
+    let results: Vec<Result<Assessment, InputError>> =
         input.candidates.par_iter().map(|c| assess(input, c)).collect();
     let mut assessed: Vec<Assessment> = results.into_iter().collect::<Result<_, _>>()?;
     assessed.sort_by(|a, b| {

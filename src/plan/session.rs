@@ -11,7 +11,7 @@ use crate::choice::choice_enum;
 use crate::dosing::{Dose, Regimen};
 use crate::engine::Params;
 use crate::engine::steady::SteadyCurve;
-use crate::error::Invalid;
+use crate::error::InputError;
 use crate::model::Residual;
 
 choice_enum! {
@@ -122,7 +122,10 @@ pub fn sampling_times(c: &Regimen, start: f64, intervals: u32) -> Vec<f64> {
 }
 
 /// Plan for one subject with dose history `history`.
-pub fn plan_subject(history: &[Dose], posterior: &Posterior, s: &Settings) -> Result<Outcome, Invalid> {
+pub fn plan_subject(history: &[Dose], posterior: &Posterior, s: &Settings) -> Result<Outcome, InputError> {
+    let Some(first_target) = s.targets.first() else {
+        return Err(InputError::field("targets", "planning needs at least one target"));
+    };
     let start_h = s.start_h.unwrap_or_else(|| default_start(history));
     let mut notes = Vec::new();
     if s.start_h.is_none() {
@@ -147,7 +150,7 @@ pub fn plan_subject(history: &[Dose], posterior: &Posterior, s: &Settings) -> Re
         }
         (Some(r), Some(residual), intervals) => {
             let c = r.assessment.regimen;
-            let metric = s.advise_on.unwrap_or_else(|| Exposure::of(&s.targets[0]));
+            let metric = s.advise_on.unwrap_or_else(|| Exposure::of(first_target));
             let exposure: Vec<f64> = posterior
                 .draws
                 .iter()

@@ -6,6 +6,7 @@
 //! the dosing interval at steady state with the concentration in the window (2 mg/L and up);
 //! by default the whole interval, or at least a stated share with `above=2mg/l..@60%`.
 
+use crate::error::InputError;
 use crate::units::{Kind, parse_value};
 use serde::{Deserialize, Serialize};
 use std::fmt;
@@ -188,48 +189,58 @@ impl Default for Limits {
 }
 
 impl Limits {
-    /// Contradictions among the limits themselves.
-    pub fn validate(&self) -> Result<(), String> {
+    /// Contradictions among the limits themselves, each reported against its field
+    /// (`max_dose_mg`, …; `limits` for two limits that contradict each other).
+    pub fn validate(&self) -> Result<(), InputError> {
         let positive = [
-            ("--max-dose", self.max_dose_mg),
-            ("--max-daily", self.max_daily_mg),
-            ("--max-rate", self.max_rate_mg_h),
-            ("--max-peak", self.max_peak_mg_l),
-            ("--max-trough", self.max_trough_mg_l),
-            ("--min-every", self.min_every_h),
+            ("max_dose_mg", "the largest dose", self.max_dose_mg, "mg"),
+            ("max_daily_mg", "the largest daily dose", self.max_daily_mg, "mg"),
+            ("max_rate_mg_h", "the fastest infusion rate", self.max_rate_mg_h, "mg/h"),
+            ("max_peak_mg_l", "the highest peak", self.max_peak_mg_l, "mg/L"),
+            ("max_trough_mg_l", "the highest trough", self.max_trough_mg_l, "mg/L"),
+            ("min_every_h", "the shortest interval", self.min_every_h, "h"),
         ];
-        for (flag, v) in positive {
+        for (field, what, v, unit) in positive {
             if let Some(v) = v
                 && !(v.is_finite() && v > 0.0)
             {
-                return Err(format!("{flag} must be positive, found {v}"));
+                return Err(InputError::field(field, format!("{what} must be positive, found {v} {unit}")));
             }
         }
         if let (Some(t), Some(p)) = (self.max_trough_mg_l, self.max_peak_mg_l)
             && t > p
         {
-            return Err(format!(
-                "--max-trough ({t} mg/L) is above --max-peak ({p} mg/L): the limits contradict each other"
+            return Err(InputError::field(
+                "limits",
+                format!(
+                    "the highest trough ({t} mg/L) is above the highest peak ({p} mg/L): the limits contradict each other"
+                ),
             ));
         }
         if !(0.0..1.0).contains(&self.max_risk) {
-            return Err(format!("--max-risk must be in [0, 1), found {}", self.max_risk));
+            return Err(InputError::field(
+                "max_risk",
+                format!("the largest acceptable risk must be in [0, 1), found {}", self.max_risk),
+            ));
         }
         Ok(())
     }
 
-    /// Targets that no regimen can meet within these limits.
-    pub fn conflicts_with(&self, targets: &[Target]) -> Result<(), String> {
+    /// Targets that no regimen can meet within these limits, reported against the targets.
+    pub fn conflicts_with(&self, targets: &[Target]) -> Result<(), InputError> {
         for t in targets {
-            let (limit, flag) = match t.metric {
-                Metric::Trough => (self.max_trough_mg_l, "--max-trough"),
-                Metric::Peak | Metric::Cavg => (self.max_peak_mg_l, "--max-peak"),
+            let (limit, what) = match t.metric {
+                Metric::Trough => (self.max_trough_mg_l, "the highest trough"),
+                Metric::Peak | Metric::Cavg => (self.max_peak_mg_l, "the highest peak"),
                 _ => (None, ""),
             };
             if let (Some(limit), Some(lo)) = (limit, t.lo)
                 && lo > limit
             {
-                return Err(format!("the target {t} asks for more than {flag} {limit} mg/L allows"));
+                return Err(InputError::field(
+                    "targets",
+                    format!("the target {t} asks for more than {what} allowed ({limit} mg/L)"),
+                ));
             }
         }
         Ok(())

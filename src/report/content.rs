@@ -12,21 +12,11 @@ use crate::plan::Course;
 use crate::plan::advisor::Advice;
 use crate::plan::recommend::{self, Plan};
 use crate::plan::targets::{Limits, Metric, Target};
+use crate::sweep::summary::{Summary, SummaryRow};
 use rand::SeedableRng;
 use rand::distr::Distribution;
 use rand::rngs::StdRng;
 use statrs::distribution::Normal;
-
-/// A sweep's summary, one row per regimen, as the report shows it.
-#[derive(Debug, Clone, PartialEq)]
-pub struct SweepRows {
-    /// Number of virtual subjects.
-    pub subjects: u64,
-    /// Column headers of the percentile table.
-    pub headers: Vec<String>,
-    /// (regimen label, PTA, table row) per regimen.
-    pub rows: Vec<(String, f64, Vec<String>)>,
-}
 
 /// Everything the report shows.
 #[derive(Debug, Clone)]
@@ -59,8 +49,8 @@ pub struct Analysis<'a> {
     pub plan: &'a Plan,
     /// The next-level advice.
     pub advice: Option<&'a Advice>,
-    /// An optional sweep.
-    pub sweep: Option<&'a SweepRows>,
+    /// An optional sweep's summary.
+    pub sweep: Option<&'a Summary>,
     /// (input path, SHA-256) pairs.
     pub digests: Vec<(String, String)>,
     /// The seed used.
@@ -118,7 +108,7 @@ pub fn concentration_plots(a: &Analysis) -> Vec<PlotSpec> {
     let residual = a.fit.residual.unwrap_or(a.model.residual);
     let step = (a.draws.len() / 400).max(1);
     let normal = Normal::new(0.0, 1.0).expect("standard normal");
-    let mut rng = StdRng::seed_from_u64(crate::fit::mix_seed(a.seed, 2));
+    let mut rng = StdRng::seed_from_u64(crate::seeds::Seeds(a.seed).report_bands());
     let curves: Vec<Vec<f64>> = a
         .draws
         .iter()
@@ -435,24 +425,7 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
         }));
     }
     if let Some(s) = a.sweep {
-        b.push(Block::PageBreak);
-        b.push(Block::Heading(format!("Virtual population: {} subjects", s.subjects)));
-        b.push(Block::Bars(super::layout::BarChart {
-            title: "Probability of target attainment by regimen".into(),
-            labels: s.rows.iter().map(|r| r.0.clone()).collect(),
-            values: s.rows.iter().map(|r| r.1).collect(),
-            axis_label: "probability of target attainment".into(),
-        }));
-        b.push(Block::Table(Table {
-            headers: s.headers.clone(),
-            rows: s.rows.iter().map(|r| r.2.clone()).collect(),
-            right: s.headers.iter().map(|h| h != "regimen").collect(),
-        }));
-        b.push(Block::Note(
-            "Regimens marked * break a stated limit. PTA: share of the virtual subjects meeting every target; \
-             troughs and peaks in mg/L, AUC24 in mg·h/L, at steady state."
-                .into(),
-        ));
+        sweep_page(s, &mut b);
     }
     methods(a, &mut b);
     Document {
@@ -462,6 +435,59 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
         created_iso: a.created_iso.clone(),
         blocks: b,
     }
+}
+
+/// Regimens the sweep page shows, best first.
+const SWEEP_ROWS: usize = 20;
+
+/// The sweep's page: PTA by regimen and the exposure percentiles, best regimens first.
+fn sweep_page(s: &Summary, b: &mut Vec<Block>) {
+    let mut rows: Vec<&SummaryRow> = s.regimens.iter().collect();
+    rows.sort_by(|a, b| b.pta.total_cmp(&a.pta).then(a.daily_mg.total_cmp(&b.daily_mg)));
+    rows.truncate(SWEEP_ROWS);
+    let label = |r: &SummaryRow| {
+        let broken =
+            if r.dose_limits_broken.is_empty() && r.exposure_limits_broken.is_empty() { "" } else { " *" };
+        format!("{}{broken}", r.regimen.describe())
+    };
+    let cell = |x: Option<f64>| x.map(|v| readable(v, 3)).unwrap_or_default();
+    let headers: Vec<String> =
+        ["regimen", "PTA %", "trough p05", "p50", "p95", "peak p50", "AUC24 p05", "p50", "p95"]
+            .map(String::from)
+            .to_vec();
+    b.push(Block::PageBreak);
+    b.push(Block::Heading(format!("Virtual population: {} subjects", s.subjects)));
+    b.push(Block::Bars(super::layout::BarChart {
+        title: "Probability of target attainment by regimen".into(),
+        labels: rows.iter().map(|r| label(r)).collect(),
+        values: rows.iter().map(|r| r.pta).collect(),
+        axis_label: "probability of target attainment".into(),
+    }));
+    b.push(Block::Table(Table {
+        right: headers.iter().map(|h| h != "regimen").collect(),
+        headers,
+        rows: rows
+            .iter()
+            .map(|r| {
+                vec![
+                    label(r),
+                    format!("{:.1}", 100.0 * r.pta),
+                    cell(r.trough_mg_l.p05),
+                    cell(r.trough_mg_l.p50),
+                    cell(r.trough_mg_l.p95),
+                    cell(r.peak_mg_l.p50),
+                    cell(r.auc24_mg_h_l.p05),
+                    cell(r.auc24_mg_h_l.p50),
+                    cell(r.auc24_mg_h_l.p95),
+                ]
+            })
+            .collect(),
+    }));
+    b.push(Block::Note(
+        "Regimens marked * break a stated limit. PTA: share of the virtual subjects meeting every target; \
+         troughs and peaks in mg/L, AUC24 in mg·h/L, at steady state."
+            .into(),
+    ));
 }
 
 fn limits_text(l: &Limits) -> String {

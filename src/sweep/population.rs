@@ -6,15 +6,15 @@
 //! (so corr(η_CL, η_V) = ρ) and η_ka = ω_ka·z₃; each parameter is its typical value for the
 //! subject's covariates times e^η. Covariates are resampled uniformly with replacement from a
 //! pool of real or invented subjects, or drawn from stated distributions. Every draw of
-//! subject i comes from its own generator seeded with `mix_seed(seed, i)`, so a subject is the
+//! subject i comes from its own generator seeded with `Seeds(seed).virtual_subject(i)`, so a subject is the
 //! same whatever the thread count, the chunking or the shard it falls in.
 
 use crate::covariates::{Covariates, Sex};
 use crate::engine::Params;
 use crate::error::InputError;
-use crate::fit::mix_seed;
 use crate::io::table::{Column, Table};
 use crate::model::PopulationModel;
+use crate::seeds::Seeds;
 use crate::units::Kind;
 use rand::distr::Distribution;
 use rand::rngs::StdRng;
@@ -309,7 +309,7 @@ impl Population {
             }
             Source::Model { model, covariates } => (model, covariates),
         };
-        let mut rng = StdRng::seed_from_u64(mix_seed(seed, index));
+        let mut rng = StdRng::seed_from_u64(Seeds(seed).virtual_subject(index));
         let normal = Normal::standard();
         let (z1, z2) = (normal.sample(&mut rng), normal.sample(&mut rng));
         let rho = model.correlation_cl_v;
@@ -357,7 +357,7 @@ fn exact_unit_column(table: &Table, quantity: &str, kind: Kind) -> Result<Option
             continue;
         };
         if let Some(prev) = &found {
-            return Err(InputError::new(
+            return Err(InputError::in_file(
                 &table.source,
                 format!("columns '{}' and '{h}' both give the {kind}; keep one", prev.name),
             )
@@ -388,7 +388,7 @@ pub fn parse_params(
     if !errors.is_empty() {
         return Err(errors);
     }
-    let missing = |what: &str| vec![InputError::new(src, what).at_line(table.header_line)];
+    let missing = |what: &str| vec![InputError::in_file(src, what).at_line(table.header_line)];
     let (Some(cl), Some(v)) = (cl, v) else {
         return Err(missing("a parameters file needs a clearance column (cl_l_h) and a volume column (v_l)"));
     };

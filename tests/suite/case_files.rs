@@ -136,8 +136,8 @@ fn catalog() -> Vec<Bad> {
         bad("no amounts", &[("amounts = ", None)], &[(GRID, &["bad.toml: key plan.amounts"])]),
         bad("no targets", &[("targets = ", None)], &[(GRID, &["bad.toml: key plan.targets"])]),
         // The data do not hold what the case asks for.
-        bad("subject not in the data", &[("subject = ", Some("subject = \"P99\""))], &[(&[Report], &["bad.toml: key case.subject", "'P99'"]), (&[Plan], &["'P99'"])]),
-        bad("several subjects, none named", &[("subject = ", None)], &[(&[Report], &["bad.toml: ", "3 subjects", "case.subject"]), (&[Plan], &["3 subjects", "--subject"])]),
+        bad("subject not in the data", &[("subject = ", Some("subject = \"P99\""))], &[(&[Report], &["bad.toml: line {line}, key case.subject", "'P99'"]), (&[Plan], &["'P99'"])]),
+        bad("several subjects, none named", &[("subject = ", None)], &[(&[Report], &["bad.toml: ", "3 subjects", "case.subject"]), (&[Plan], &["3 subjects", "case.subject"])]),
         bad("no model", &[("model = ", None)], &[(&[Report, Plan, Sweep], &["bad.toml: key inputs.model"])]),
         bad("no levels", &[("levels = ", None)], &[(&[Report, Plan, Fit], &["bad.toml: key inputs.levels"])]),
     ]
@@ -349,7 +349,7 @@ fn a_problem_with_a_flag_given_over_a_case_names_the_flag() {
     let dir = demo_copy();
     for (flag, value, names) in [
         ("--target", "trough=25..30", "error: --target: "),
-        ("--max-peak", "10mg/l", "error: limits: "),
+        ("--max-peak", "10mg/l", "error: --max-peak: "),
         ("--amounts", "lots", "error: --amounts: "),
     ] {
         for cmd in ["plan", "sweep"] {

@@ -360,7 +360,7 @@ fn demo_model() -> PopulationModel {
 
 /// The whole output of a run, to the last bit: JSON carries every f64 in round-trip form, and
 /// the kept posterior draws (not in the JSON) are compared by their bits.
-fn fingerprint(results: &[Result<FitResult, String>]) -> (String, Vec<u64>) {
+fn fingerprint(results: &[Result<FitResult, cistern::Error>]) -> (String, Vec<u64>) {
     let fits: Vec<&FitResult> = results.iter().map(|r| r.as_ref().unwrap()).collect();
     let bits =
         fits.iter().flat_map(|f| &f.draws).flat_map(|p| [p.cl_l_h.to_bits(), p.v_l.to_bits()]).collect();

@@ -65,9 +65,13 @@ fn read_doses(bytes: &[u8]) -> Result<Vec<InputError>, TestCaseError> {
     prop_assert!(!errors.is_empty());
     let lines = lines_in(bytes);
     for e in &errors {
-        prop_assert_eq!(&e.source, "f.csv");
+        prop_assert!(
+            matches!(&e.origin, cistern::Origin::File { path, .. } if path == "f.csv"),
+            "{:?}",
+            e.origin
+        );
         prop_assert!(!e.message.is_empty());
-        if let Some(line) = e.line {
+        if let Some(line) = e.line() {
             prop_assert!((1..=lines).contains(&line), "line {} of {}: {}", line, lines, e);
         }
     }
@@ -170,7 +174,7 @@ proptest! {
             text.push('\n');
         }
         // Every wrong row is reported, at its own line, and nothing else is.
-        let blamed: BTreeSet<u64> = read_doses(text.as_bytes())?.iter().filter_map(|e| e.line).collect();
+        let blamed: BTreeSet<u64> = read_doses(text.as_bytes())?.iter().filter_map(|e| e.line()).collect();
         prop_assert_eq!(blamed, wrong_lines, "{}", text);
     }
 

@@ -909,16 +909,20 @@ fn bad_input_is_refused_with_exit_code_2_and_nothing_written() {
         (
             "max trough above max peak",
             with(&[], &["--max-trough", "30", "--max-peak", "20"]),
-            "--max-trough (30 mg/L) is above --max-peak (20 mg/L)",
+            "--max-trough: the highest trough (30 mg/L) is above the highest peak (20 mg/L)",
         ),
         (
             "target trough above max trough",
             with(&[], &["--target", "trough=20..30", "--max-trough", "15"]),
-            "asks for more than --max-trough 15 mg/L allows",
+            "--target: the target trough=20..30 asks for more than the highest trough allowed (15 mg/L)",
         ),
-        ("risk of 1", with(&[], &["--max-risk", "1"]), "--max-risk must be in [0, 1)"),
+        (
+            "risk of 1",
+            with(&[], &["--max-risk", "1"]),
+            "--max-risk: the largest acceptable risk must be in [0, 1)",
+        ),
         ("unknown subject", with(&[("--subject", "P99")], &[]), "no subject 'P99'"),
-        ("several subjects, none chosen", with(&[("--subject", "")], &[]), "choose one with --subject"),
+        ("several subjects, none chosen", with(&[("--subject", "")], &[]), "--subject: the data hold"),
         (
             "unknown subject in a fit",
             from_fit("two.json", &[]).into_iter().map(|a| if a == "P01" { "P7".into() } else { a }).collect(),
@@ -927,7 +931,7 @@ fn bad_input_is_refused_with_exit_code_2_and_nothing_written() {
         (
             "several subjects in a fit, none chosen",
             from_fit("two.json", &[]).into_iter().filter(|a| a != "--subject" && a != "P01").collect(),
-            "choose one with --subject",
+            "--subject: the data hold",
         ),
         ("a fit without draws", from_fit("nodraws.json", &[]), "the fit has no posterior draws"),
         ("a malformed fit", from_fit("broken.json", &[]), "broken.json: line"),

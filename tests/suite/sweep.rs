@@ -429,7 +429,7 @@ fn catalog() -> Vec<Bad> {
     let model = |rest: &str| format!("sweep --model model.toml {rest}");
     vec![
         // The candidate grid, the targets and the limits.
-        bad(&with("--amounts 1g --durations 1h --target auc24=400..600"), "--every: the candidate grid needs --every"),
+        bad(&with("--amounts 1g --durations 1h --target auc24=400..600"), "--every: the candidate grid needs the dosing intervals to try"),
         bad(&with("--amounts , --every 12h --durations 1h --target auc24=1.."), "--amounts: the list ',' is empty"),
         bad(&with("--amounts 3g..1g/250 --every 12h --durations 1h --target auc24=1.."), "--amounts: expected LO..HI/STEP"),
         bad(&with("--amounts 1g --every 12h --durations 13h --target auc24=1.."), "no candidate fits"),
@@ -437,7 +437,7 @@ fn catalog() -> Vec<Bad> {
         bad(&with("--amounts 1g --every 12h --durations 1h"), "--target: give at least one target"),
         bad(&with("--amounts 1g --every 12h --durations 1h --target trough=20..10"), "--target: the lower bound is above the upper bound"),
         bad(&with(&format!("{grid} --max-trough 30 --max-peak 20")), "the limits contradict each other"),
-        bad(&with("--amounts 1g --every 12h --durations 1h --target trough=25.. --max-trough 20"), "asks for more than --max-trough"),
+        bad(&with("--amounts 1g --every 12h --durations 1h --target trough=25.. --max-trough 20"), "--target: the target trough=25.. asks for more than the highest trough allowed (20 mg/L)"),
         bad(&with(&format!("{grid} --max-rate 10")), "--max-rate: give the rate with its unit"),
         // Shards.
         bad(&with(&format!("{grid} --shard 5/4")), "--shard: the shard I must be between 1 and N = 4"),

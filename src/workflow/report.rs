@@ -1,0 +1,111 @@
+//! The regimen report of a spec: fit the subject, plan, sweep when asked, and lay the whole
+//! analysis out as a document, ready to render as PDF (feature `pdf`) or its plots as SVG.
+
+use super::plan::{NextLevel, PlanSubject, plan};
+use super::study::{Required, Study};
+use crate::error::{Error, InputError, Problems, Result};
+use crate::io::digest::sha256_hex;
+use crate::io::output::CAUTION;
+use crate::plan::Course;
+use crate::plan::session::Outcome;
+use crate::report::content::{Analysis, build, concentration_plots};
+use crate::report::layout::{Document, PlotSpec};
+use crate::seeds::Seeds;
+use crate::spec::{Needs, Spec};
+
+/// Where a report came from, supplied by the caller: the command line that asked for it and
+/// the creation time to print (the library reads neither the process's arguments nor the clock).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Provenance {
+    /// The command line (or a description of the call) that produced the report.
+    pub command_line: String,
+    /// Creation time, ISO 8601 UTC.
+    pub created_iso: String,
+}
+
+/// A report, laid out.
+#[derive(Debug, Clone)]
+pub struct Report {
+    /// The pages' content.
+    pub document: Document,
+    /// The concentration plots (also on the document's pages).
+    pub plots: Vec<PlotSpec>,
+    /// Notes for the user (where the new regimen starts, and the like).
+    pub notes: Vec<String>,
+}
+
+impl Report {
+    /// The report as PDF bytes.
+    #[cfg(feature = "pdf")]
+    pub fn pdf(&self) -> Result<Vec<u8>> {
+        crate::report::pdf::render_pdf(&self.document).map_err(Error::Failure)
+    }
+
+    /// The concentration plots as one SVG document, with the caution.
+    pub fn svg(&self) -> String {
+        crate::report::svg::render_svg(&self.plots, CAUTION)
+    }
+}
+
+/// Fit the spec's subject against its model, plan over the grid, sweep the grid over a
+/// virtual population when the spec asks, and lay out the report.
+pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
+    let mut problems = Problems::new();
+    let settings = problems.take_all(spec.resolve(Needs { grid: true }));
+    let study = problems.take_all(Study::load(&spec.inputs, Required { model: true }));
+    let (settings, study) = problems.finish_with(settings.zip(study))?;
+    let (Some(grid), Some(model)) = (&settings.grid, &study.model) else {
+        return Err(Error::Usage("the report needs a population model and a candidate grid".into()));
+    };
+    let seeds = Seeds(settings.seed);
+    let data = study.subject(&spec.subject)?;
+    let (subject, fit) = PlanSubject::fitted(&study, model, &spec.subject, seeds, settings.draws)?;
+    let Outcome { start_h, plan: planned, advice, notes } =
+        plan(&subject, grid, settings.start_h, NextLevel::default(), seeds)?;
+    let sweep = match (&spec.sweep, settings.sweep_subjects) {
+        (Some(sweep), Some(subjects)) => {
+            Some(super::sweep::summary(model, &sweep.covariates, grid, settings.seed, subjects)?)
+        }
+        _ => None,
+    };
+    let mut digests = Vec::new();
+    for f in spec.files() {
+        let path = f.to_string_lossy().into_owned();
+        let bytes = std::fs::read(&f).map_err(|e| InputError::in_file(&path, format!("cannot read: {e}")))?;
+        digests.push((path, sha256_hex(&bytes)));
+    }
+    let analysis = Analysis {
+        title: spec
+            .report
+            .title
+            .clone()
+            .unwrap_or_else(|| format!("Regimen report: {}", data.id.as_deref().unwrap_or("subject"))),
+        author: spec.report.author.clone(),
+        note: spec.report.note.clone(),
+        model,
+        covariates: &data.covariates,
+        doses: &data.doses,
+        levels: &data.levels,
+        fit: &fit,
+        draws: &fit.draws,
+        targets: &grid.targets,
+        limits: &grid.limits,
+        course: Course {
+            history: &data.doses,
+            start_h,
+            therapy_start_h: data.doses.first().map_or(start_h, |d| d.time_h),
+        },
+        plan: &planned,
+        advice: advice.as_ref(),
+        sweep: sweep.as_ref(),
+        digests,
+        seed: settings.seed,
+        command_line: provenance.command_line,
+        version: env!("CARGO_PKG_VERSION").to_string(),
+        created_iso: provenance.created_iso,
+        caution: CAUTION.to_string(),
+    };
+    let plots = concentration_plots(&analysis);
+    let document = build(&analysis, &plots);
+    Ok(Report { document, plots, notes })
+}

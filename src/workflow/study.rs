@@ -1,0 +1,192 @@
+//! Loading a study: the model, doses, levels and covariates files of a spec, read and matched
+//! by subject, with the covariates the model needs derived.
+
+use crate::covariates::{Covariates, parse_assignment, parse_covariates};
+use crate::error::{InputError, Origin, Problems, Result};
+use crate::fit::SubjectData;
+use crate::io::doses::parse_doses;
+use crate::io::levels::parse_levels;
+use crate::io::table::Table;
+use crate::model::PopulationModel;
+use crate::spec::{Inputs, Setting, Stated};
+use std::collections::{HashMap, HashSet};
+use std::path::Path;
+
+/// A study's data, read and matched by subject.
+#[derive(Debug, Clone)]
+pub struct Study {
+    /// The population model, when the spec names one.
+    pub model: Option<PopulationModel>,
+    /// Subjects with doses and levels, in the order of the levels file.
+    pub subjects: Vec<SubjectData>,
+    /// Notes for the user (ignored columns, subjects left out).
+    pub notes: Vec<String>,
+}
+
+/// What a study must hold for the analysis at hand.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Required {
+    /// The population model.
+    pub model: bool,
+}
+
+fn text(p: &Path) -> String {
+    p.to_string_lossy().into_owned()
+}
+
+impl Study {
+    /// Read the study a spec names: every problem in every file at once, each located.
+    pub fn load(inputs: &Inputs, required: Required) -> Result<Study> {
+        let mut problems = Problems::new();
+        let doses = problems.take(inputs.doses.required("the doses file is required"));
+        let levels = problems.take(inputs.levels.required("the levels file is required"));
+        let model = match &inputs.model.value {
+            Some(path) => problems.take_all(PopulationModel::read(&text(path)).map_err(Into::into)),
+            None if required.model => {
+                problems.push(inputs.model.problem("the population model is required"));
+                None
+            }
+            None => None,
+        };
+        let matched = match (doses, levels) {
+            (Some(d), Some(l)) => assemble(inputs, d, l, model.as_ref(), &mut problems),
+            _ => None,
+        };
+        let (subjects, notes) = problems.finish_with(matched)?;
+        Ok(Study { model, subjects, notes })
+    }
+
+    /// The subject a spec asks for, or the only one.
+    pub fn subject(&self, wanted: &Setting<String>) -> std::result::Result<&SubjectData, InputError> {
+        pick(&self.subjects, |s| s.id.as_deref(), wanted, "the levels file")
+    }
+}
+
+/// The item whose identifier is `wanted`, or the only item when none is wanted.
+pub fn pick<'a, T>(
+    items: &'a [T],
+    id_of: impl Fn(&T) -> Option<&str>,
+    wanted: &Setting<String>,
+    holder: &str,
+) -> std::result::Result<&'a T, InputError> {
+    match (&wanted.value, items) {
+        (Some(w), _) => items
+            .iter()
+            .find(|x| id_of(x) == Some(w.as_str()))
+            .ok_or_else(|| wanted.problem(format!("no subject '{w}' in {holder}"))),
+        (None, [only]) => Ok(only),
+        (None, _) => Err(wanted.problem(format!(
+            "the data hold {} subjects: choose one (e.g. {})",
+            items.len(),
+            items.iter().find_map(&id_of).unwrap_or("ID")
+        ))),
+    }
+}
+
+/// Covariates given for every subject (`NAME=VALUE`).
+fn common_covariates(items: &[Stated<String>], problems: &mut Problems) -> Covariates {
+    let mut cov = Covariates::default();
+    for item in items {
+        problems.take(
+            parse_assignment(&mut cov, &item.value).map_err(|m| InputError::at(item.origin.clone(), m)),
+        );
+    }
+    cov
+}
+
+/// Where the covariates of the subjects came from, for a problem in deriving them.
+fn covariates_origin(inputs: &Inputs) -> Origin {
+    match (&inputs.covariates.value, inputs.covariate.first()) {
+        (Some(path), _) => Origin::file(text(path)),
+        (None, Some(first)) => first.origin.clone(),
+        (None, None) => inputs.covariates.origin.clone(),
+    }
+}
+
+/// Match doses, levels and covariates by subject, and derive the covariates the model needs.
+fn assemble(
+    inputs: &Inputs,
+    doses_path: &Path,
+    levels_path: &Path,
+    model: Option<&PopulationModel>,
+    problems: &mut Problems,
+) -> Option<(Vec<SubjectData>, Vec<String>)> {
+    let (doses_path, levels_path) = (text(doses_path), text(levels_path));
+    let doses = problems.take_all(Table::read(&doses_path).and_then(|t| parse_doses(&t)).map_err(Into::into));
+    let levels =
+        problems.take_all(Table::read(&levels_path).and_then(|t| parse_levels(&t)).map_err(Into::into));
+    let covariates = match &inputs.covariates.value {
+        Some(path) => {
+            problems.take_all(Table::read(&text(path)).and_then(|t| parse_covariates(&t)).map_err(Into::into))
+        }
+        None => Some(Vec::new()),
+    };
+    let common = common_covariates(&inputs.covariate, problems);
+    let (doses, mut levels, covariates) = (doses?, levels?, covariates?);
+    let mut notes = levels.notes.clone();
+    if !doses.ignored_columns.is_empty() {
+        notes.push(format!("{doses_path}: ignored columns: {}", doses.ignored_columns.join(", ")));
+    }
+    let dose_ids = doses.subjects.iter().any(|(s, _)| s.is_some());
+    let level_ids = levels.subjects.iter().any(|(s, _)| s.is_some());
+    if dose_ids != level_ids {
+        // One subject named on one side only: pair them; otherwise it is ambiguous.
+        match (&doses.subjects[..], &mut levels.subjects[..]) {
+            ([(id, _)], [(level_id, _)]) => *level_id = id.clone(),
+            _ => {
+                problems.push(InputError::in_file(
+                    &levels_path,
+                    "the doses and levels files must both have a subject column, or neither",
+                ));
+                return None;
+            }
+        }
+    }
+    let dose_of: HashMap<&Option<String>, &Vec<_>> = doses.subjects.iter().map(|(s, d)| (s, d)).collect();
+    let cov_of: HashMap<&str, &Covariates> = covariates.iter().map(|(s, c)| (s.as_str(), c)).collect();
+    let needed = model.map(|m| m.covariates_needed()).unwrap_or_default();
+    let mut subjects = Vec::new();
+    for (id, lv) in &levels.subjects {
+        let name = id.clone().unwrap_or_else(|| "(single subject)".into());
+        let Some(d) = dose_of.get(id) else {
+            let first_row = lv.iter().map(|l| l.line).min().unwrap_or(0);
+            problems.push(
+                InputError::in_file(
+                    &levels_path,
+                    format!("subject {name} has levels but no doses in {doses_path}"),
+                )
+                .at_line(first_row),
+            );
+            continue;
+        };
+        let first_dose = d.iter().map(|x| x.time_h).fold(f64::INFINITY, f64::min);
+        for l in lv.iter().filter(|l| l.time_h < first_dose) {
+            let who = id.as_ref().map_or_else(String::new, |s| format!("subject {s}: "));
+            problems.push(
+                InputError::in_file(
+                    &levels_path,
+                    format!("{who}a level at {} h comes before the first dose at {first_dose} h", l.time_h),
+                )
+                .at_line(l.line),
+            );
+        }
+        let mut cov = id.as_deref().and_then(|s| cov_of.get(s)).map(|c| (*c).clone()).unwrap_or_default();
+        cov.overlay(&common);
+        if let Err(m) = cov.derive(&needed) {
+            problems.push(InputError::at(covariates_origin(inputs), format!("subject {name}: {m}")));
+            continue;
+        }
+        subjects.push(SubjectData { id: id.clone(), doses: d.to_vec(), levels: lv.clone(), covariates: cov });
+    }
+    let fitted: HashSet<&Option<String>> = levels.subjects.iter().map(|(s, _)| s).collect();
+    let skipped: Vec<String> = doses
+        .subjects
+        .iter()
+        .filter(|(s, _)| !fitted.contains(s))
+        .map(|(s, _)| s.clone().unwrap_or_default())
+        .collect();
+    if !skipped.is_empty() {
+        notes.push(format!("subjects with doses but no levels are not fitted: {}", skipped.join(", ")));
+    }
+    Some((subjects, notes))
+}
