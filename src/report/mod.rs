@@ -1,4 +1,5 @@
-//! The regimen report: a document model drawn as PDF pages, and its plots as SVG.
+//! The regimen report: a document model drawn as PDF pages (with the `pdf` feature), and its
+//! plots as SVG.
 
 pub mod content;
 pub mod layout;
