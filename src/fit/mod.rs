@@ -112,6 +112,20 @@ pub struct SubjectData {
     pub covariates: Covariates,
 }
 
+impl SubjectData {
+    /// The time of the first dose, if any.
+    pub fn first_dose_h(&self) -> Option<f64> {
+        self.doses.iter().map(|d| d.time_h).reduce(f64::min)
+    }
+
+    /// Levels drawn before the first dose: the model cannot explain them (one check, used by the
+    /// fitter and by the study loader, which names the file and line).
+    pub fn levels_before_first_dose(&self) -> impl Iterator<Item = &Level> {
+        let first = self.first_dose_h().unwrap_or(f64::INFINITY);
+        self.levels.iter().filter(move |l| l.time_h < first)
+    }
+}
+
 /// An estimate with its uncertainty.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct Estimate {
@@ -403,8 +417,8 @@ fn plausibility(model: Option<&PopulationModel>, e: &Estimates, warnings: &mut V
 }
 
 fn check_levels(subject: &SubjectData) -> Result<(), String> {
-    let first = subject.doses.first().map(|d| d.time_h).ok_or("the subject has no doses")?;
-    if let Some(l) = subject.levels.iter().find(|l| l.time_h < first) {
+    let first = subject.first_dose_h().ok_or("the subject has no doses")?;
+    if let Some(l) = subject.levels_before_first_dose().next() {
         return Err(format!(
             "a level at {} h (line {}) comes before the first dose at {first} h",
             l.time_h, l.line

@@ -159,8 +159,14 @@ fn assemble(
             );
             continue;
         };
-        let first_dose = d.iter().map(|x| x.time_h).fold(f64::INFINITY, f64::min);
-        for l in lv.iter().filter(|l| l.time_h < first_dose) {
+        let mut subject = SubjectData {
+            id: id.clone(),
+            doses: d.to_vec(),
+            levels: lv.clone(),
+            covariates: Covariates::default(),
+        };
+        let first_dose = subject.first_dose_h().unwrap_or(f64::INFINITY);
+        for l in subject.levels_before_first_dose() {
             let who = id.as_ref().map_or_else(String::new, |s| format!("subject {s}: "));
             problems.push(
                 InputError::in_file(
@@ -176,7 +182,8 @@ fn assemble(
             problems.push(InputError::at(covariates_origin(inputs), format!("subject {name}: {m}")));
             continue;
         }
-        subjects.push(SubjectData { id: id.clone(), doses: d.to_vec(), levels: lv.clone(), covariates: cov });
+        subject.covariates = cov;
+        subjects.push(subject);
     }
     let fitted: HashSet<&Option<String>> = levels.subjects.iter().map(|(s, _)| s).collect();
     let skipped: Vec<String> = doses
