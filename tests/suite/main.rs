@@ -13,6 +13,7 @@ mod fit_bad_input;
 mod fit_calibration;
 mod fit_properties;
 mod fit_reference;
+mod library;
 mod parser_fuzz;
 mod plan;
 mod published_engine;
