@@ -40,9 +40,12 @@ pub fn nearest_rank(n: u64, percent: u32) -> u64 {
 
 /// The p-quantile of a non-empty sorted sample by linear interpolation between order
 /// statistics ("type 7"): position h = p·(n − 1), value x⌊h⌋ + (h − ⌊h⌋)·(x⌊h⌋+1 − x⌊h⌋).
-/// Used only by planning's prediction bands (see the module documentation).
+/// Used only by planning's prediction bands (see the module documentation). NaN for no values.
 pub fn interpolated_quantile(sorted: &[f64], p: f64) -> f64 {
-    let h = p * (sorted.len() - 1) as f64;
+    if sorted.is_empty() {
+        return f64::NAN;
+    }
+    let h = (p.clamp(0.0, 1.0) * (sorted.len() - 1) as f64).max(0.0);
     let (i, frac) = (h.floor() as usize, h - h.floor());
     let next = sorted[(i + 1).min(sorted.len() - 1)];
     sorted[i] + frac * (next - sorted[i])
