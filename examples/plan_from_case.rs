@@ -1,15 +1,14 @@
 //! Fit one subject and plan a regimen through the library alone, without the command line:
 //!
 //! ```text
-//! cargo run --example plan_from_case --no-default-features -- demo-regimens/p01.toml
+//! cargo run --release --no-default-features --example plan_from_case -- demo-regimens/p01.toml
 //! ```
 //!
 //! Not clinical advice: the printed figures are model calculations for research; dosing
 //! decisions belong to licensed clinicians following local protocols.
 
-use cistern::spec::Needs;
-use cistern::workflow::{NextLevel, PlanSubject, Required, Study, plan};
-use cistern::{Error, Seeds, case};
+use cistern::workflow::plan;
+use cistern::{Error, Needs, NextLevel, PlanSubject, Required, Seeds, Study, case};
 
 fn main() -> Result<(), Error> {
     let path = std::env::args().nth(1).unwrap_or_else(|| "demo-regimens/p01.toml".into());

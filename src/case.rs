@@ -110,6 +110,15 @@ struct RawReport {
 /// Read a case file into a spec: unknown keys, values of the wrong type and files that do not
 /// exist are errors naming the key and its line. The values themselves are checked when the
 /// spec is resolved, located at the same key and line.
+///
+/// ```
+/// let spec = cistern::case::read("demo-regimens/p01.toml")?;
+/// assert_eq!(spec.subject.value.as_deref(), Some("P01"));
+/// let max_dose = &spec.grid.limits.max_dose;
+/// assert_eq!(max_dose.value.as_deref(), Some("2.5g"));
+/// assert_eq!(max_dose.origin.to_string(), "demo-regimens/p01.toml: line 27, key limits.max_dose");
+/// # Ok::<(), cistern::Error>(())
+/// ```
 pub fn read(path: &str) -> Result<Spec> {
     let text = TomlText::read(path)?;
     let raw: RawCase = text.parse()?;

@@ -3,7 +3,7 @@
 
 use crate::error::InputError;
 
-/// A closed set of named options, declared with [`choice_enum!`].
+/// A closed set of named options, declared with the crate's `choice_enum!` macro.
 pub trait Choice: Copy + 'static {
     /// What an option of the set is, for messages (`method`).
     const WHAT: &'static str;

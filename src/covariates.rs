@@ -45,7 +45,7 @@ impl Covariates {
     }
 
     /// Take every value `other` has (numbers and sex) over this one's.
-    pub fn overlay(&mut self, other: &Covariates) {
+    pub(crate) fn overlay(&mut self, other: &Covariates) {
         for (k, v) in other.iter() {
             self.set(k, v);
         }
@@ -144,7 +144,7 @@ pub fn ideal_body_weight(height_cm: f64, sex: Sex) -> f64 {
 }
 
 /// Read one `NAME=VALUE` covariate (`weight_kg=70`, `sex=F`) into `cov`.
-pub fn parse_assignment(cov: &mut Covariates, item: &str) -> Result<(), String> {
+pub(crate) fn parse_assignment(cov: &mut Covariates, item: &str) -> Result<(), String> {
     let Some((name, value)) = item.split_once('=') else {
         return Err(format!("expected NAME=VALUE, found '{item}'"));
     };

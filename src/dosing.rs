@@ -143,7 +143,7 @@ impl Schedule {
 }
 
 /// Check one dose's amount, route and duration, returning what is wrong.
-pub fn validate_dose(amount_mg: f64, route: Route, duration_h: f64) -> Result<(), InputError> {
+pub(crate) fn validate_dose(amount_mg: f64, route: Route, duration_h: f64) -> Result<(), InputError> {
     if !(amount_mg.is_finite() && amount_mg >= 0.0) {
         return Err(InputError::field(
             "amount_mg",

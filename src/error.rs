@@ -8,6 +8,31 @@
 //! ([`InputError::located`]), so no library message names a flag.
 //!
 //! Exit codes: 2 for bad input or usage, 1 for any other failure, 0 for a closed output pipe.
+//!
+//! Every entry point returns [`Result`], so `?` carries any of them through a caller's
+//! function, and each problem prints with its origin:
+//!
+//! ```
+//! use cistern::{Error, Needs, Spec};
+//!
+//! fn draws_of(case: &str) -> cistern::Result<usize> {
+//!     let spec = cistern::case::read(case)?;
+//!     Ok(spec.resolve(Needs::default())?.draws)
+//! }
+//!
+//! assert_eq!(draws_of("demo-regimens/p01.toml")?, 2000);
+//! let Err(Error::Input(problems)) = draws_of("demo-regimens/missing.toml") else { panic!() };
+//! assert!(problems[0].to_string().starts_with("demo-regimens/missing.toml: "));
+//!
+//! let mut spec = Spec::new();
+//! spec.grid.limits.max_dose.value = Some("2.5 kg".into());
+//! let Err(Error::Input(problems)) = spec.resolve(Needs::default()) else { panic!() };
+//! assert_eq!(
+//!     problems[0].to_string(),
+//!     "limits.max_dose: unknown amount unit 'kg' in '2.5 kg'; accepted units: mg, g, mcg, ug"
+//! );
+//! # Ok::<(), Error>(())
+//! ```
 
 use std::fmt;
 

@@ -329,6 +329,25 @@ impl GridSpec {
     /// The candidate grid, targets and limits, with every problem reported at once, each at
     /// the origin of the value at fault. Every value given is checked; a missing one is a
     /// problem only when the grid is `required`, else the grid is `None`.
+    ///
+    /// A grid built in code rather than read from a case file:
+    ///
+    /// ```
+    /// use cistern::spec::{Spec, Stated};
+    /// use cistern::{Origin, Route};
+    ///
+    /// let mut spec = Spec::new();
+    /// let grid = &mut spec.grid;
+    /// let target = Stated { value: "auc24=400..600".to_string(), origin: Origin::Field("target".into()) };
+    /// grid.targets.value = Some(vec![target]);
+    /// grid.amounts.value = Some("500..1500/250".into());
+    /// grid.every.value = Some("12h,24h".into());
+    /// grid.durations.value = Some("1h".into());
+    /// let grid = spec.grid.resolve(true)?.expect("every part of the grid is given");
+    /// assert_eq!(grid.candidates.len(), 5 * 2);
+    /// assert!(grid.candidates.iter().all(|r| r.route == Route::Infusion && r.duration_h == 1.0));
+    /// # Ok::<(), cistern::Error>(())
+    /// ```
     pub fn resolve(&self, required: bool) -> Result<Option<Grid>> {
         let mut problems = Problems::new();
         let missing = |problems: &mut Problems, e: InputError| {

@@ -4,13 +4,13 @@
 //! with bolus doses added to A, oral doses (× F, after the lag time) added to D and infusions
 //! adding their rate to R while they run. The model is linear and time-invariant, so any dose
 //! history is the superposition of its doses; rather than summing one curve per dose at every
-//! time (O(doses × times)), [`Walker`] carries the state forward through the merged, sorted
-//! events and requested times with the exact propagator of [`kernel`], which costs
+//! time (O(doses × times)), a walker carries the state forward through the merged, sorted
+//! events and requested times with the exact propagator over each event-free interval, which costs
 //! O(doses + times) after sorting. Values are right-continuous: at the instant of a bolus the
 //! bolus counts.
 
-pub mod kernel;
-pub mod scalar;
+pub(crate) mod kernel;
+pub(crate) mod scalar;
 pub mod steady;
 
 use crate::dosing::{Dose, Route};
@@ -91,7 +91,7 @@ pub fn validate_absorption(ka_per_h: Option<f64>, f: f64, tlag_h: f64) -> Result
 
 /// The parameters in the number type the engine computes in (plain or with derivatives).
 #[derive(Debug, Clone, Copy)]
-pub struct Kinetics<R> {
+pub(crate) struct Kinetics<R> {
     /// Elimination rate constant (1/h).
     pub k: R,
     /// Volume (L).
@@ -121,7 +121,7 @@ enum Input {
 
 /// A dose history turned into sorted state changes.
 #[derive(Debug, Clone)]
-pub struct Events {
+pub(crate) struct Events {
     list: Vec<(f64, Input)>,
 }
 
@@ -166,7 +166,7 @@ impl Events {
 /// infusion runs, so a very short (very high-rate) infusion does not leave rounding residue
 /// in the rate of the others.
 #[derive(Debug, Clone)]
-pub struct Walker<'a, R> {
+pub(crate) struct Walker<'a, R> {
     kin: Kinetics<R>,
     events: &'a [(f64, Input)],
     next: usize,
@@ -290,12 +290,25 @@ impl<'a, R: Real> Walker<'a, R> {
 /// Concentrations (mg/L) at `times` (any order) for a dose history.
 ///
 /// The caller validates `params` against `doses` first ([`Params::validate`]).
+///
+/// ```
+/// use cistern::engine::{Params, concentrations};
+/// use cistern::{Dose, Route};
+///
+/// let params = Params::iv(5.0, 50.0); // CL 5 L/h, V 50 L: k = 0.1 per hour
+/// let dose = Dose { time_h: 0.0, amount_mg: 1000.0, route: Route::Bolus, duration_h: 0.0 };
+/// params.validate(&[dose])?;
+/// let c = concentrations(&params, &[dose], &[10.0, 0.0]);
+/// assert!((c[0] - 20.0 * (-1.0f64).exp()).abs() < 1e-12);
+/// assert!((c[1] - 20.0).abs() < 1e-12);
+/// # Ok::<(), cistern::InputError>(())
+/// ```
 pub fn concentrations(params: &Params, doses: &[Dose], times: &[f64]) -> Vec<f64> {
     concentrations_with(Kinetics::from(params), doses, times)
 }
 
 /// [`concentrations`] in any number type (used with [`scalar::Dual`] for exact gradients).
-pub fn concentrations_with<R: Real>(kin: Kinetics<R>, doses: &[Dose], times: &[f64]) -> Vec<R> {
+pub(crate) fn concentrations_with<R: Real>(kin: Kinetics<R>, doses: &[Dose], times: &[f64]) -> Vec<R> {
     let events = Events::new(doses, kin.tlag_h);
     let mut order: Vec<usize> = (0..times.len()).collect();
     if !times.is_sorted_by(|a, b| a <= b) {
@@ -313,7 +326,7 @@ pub fn concentrations_with<R: Real>(kin: Kinetics<R>, doses: &[Dose], times: &[f
 
 /// Concentrations at ascending `times` into `out`, for an event list built once and reused
 /// (the fitter evaluates the same history many times).
-pub fn predict<R: Real>(kin: Kinetics<R>, events: &Events, times: &[f64], out: &mut [R]) {
+pub(crate) fn predict<R: Real>(kin: Kinetics<R>, events: &Events, times: &[f64], out: &mut [R]) {
     let start = events.first_time().unwrap_or(f64::INFINITY).min(times.first().copied().unwrap_or(0.0));
     let mut walker = Walker::new(kin, events, start).without_auc();
     for (t, slot) in times.iter().zip(out) {

@@ -9,10 +9,10 @@
 // Index loops read as the matrix formulas they implement.
 #![allow(clippy::needless_range_loop)]
 
-pub mod linalg;
+pub(crate) mod linalg;
 pub mod objective;
-pub mod optimise;
-pub mod posterior;
+pub(crate) mod optimise;
+pub(crate) mod posterior;
 pub mod two_level;
 
 use crate::choice::choice_enum;
@@ -301,6 +301,27 @@ fn absorption(
 
 /// Fit one subject with its own `seed`. A subject whose data or options cannot be fitted as
 /// asked is an [`Error::Usage`] naming what is wrong.
+///
+/// A least-squares fit of levels without a population model:
+///
+/// ```
+/// use cistern::engine::{Params, concentrations};
+/// use cistern::fit::{FitOptions, Method, SubjectData, fit_subject};
+/// use cistern::io::levels::Level;
+/// use cistern::{Covariates, Dose, Route};
+///
+/// let truth = Params::iv(4.0, 40.0);
+/// let doses = vec![Dose { time_h: 0.0, amount_mg: 1000.0, route: Route::Infusion, duration_h: 1.0 }];
+/// let times = [2.0, 6.0, 12.0];
+/// let levels = (times.iter().zip(concentrations(&truth, &doses, &times)))
+///     .map(|(&time_h, c)| Level { time_h, conc_mg_l: Some(c), lloq_mg_l: None, line: 0 })
+///     .collect();
+/// let subject = SubjectData { id: None, doses, levels, covariates: Covariates::default() };
+/// let options = FitOptions { method: Method::Wls, ..FitOptions::default() };
+/// let fit = fit_subject(&subject, None, &options, 1)?;
+/// assert!((fit.parameters.cl_l_h - 4.0).abs() < 1e-3 && (fit.parameters.v_l - 40.0).abs() < 1e-2);
+/// # Ok::<(), cistern::Error>(())
+/// ```
 pub fn fit_subject(
     subject: &SubjectData,
     model: Option<&PopulationModel>,

@@ -10,7 +10,7 @@
 //!
 //! The below-limit term is the M3 method (Beal SL. J Pharmacokinet Pharmacodyn 2001;28:481).
 //! Weighted least squares: Σ wᵢ (yᵢ − fᵢ)² with wᵢ = 1, 1/yᵢ or 1/yᵢ². Predictions and their
-//! exact gradients come from the engine run on [`Dual`] numbers.
+//! exact gradients come from the engine run on dual numbers.
 
 use super::linalg::{MAX, Mat};
 use crate::choice::choice_enum;
@@ -22,10 +22,10 @@ use crate::model::Residual;
 use std::f64::consts::{PI, SQRT_2};
 
 /// A number carrying the gradient with respect to the (at most three) log-parameters.
-pub type D3 = Dual<MAX>;
+pub(crate) type D3 = Dual<MAX>;
 
 /// ln Φ(x), accurate far into the lower tail.
-pub fn ln_norm_cdf(x: f64) -> f64 {
+pub(crate) fn ln_norm_cdf(x: f64) -> f64 {
     if x > -30.0 {
         (0.5 * statrs::function::erf::erfc(-x / SQRT_2)).ln()
     } else {
@@ -143,7 +143,7 @@ impl Problem {
     }
 
     /// The levels the objective uses.
-    pub fn levels(&self) -> &[Level] {
+    pub(crate) fn levels(&self) -> &[Level] {
         &self.levels
     }
 
@@ -155,14 +155,14 @@ impl Problem {
     }
 
     /// Predicted concentrations at the levels' times.
-    pub fn predictions<R: Real>(&self, theta: &[R]) -> Vec<R> {
+    pub(crate) fn predictions<R: Real>(&self, theta: &[R]) -> Vec<R> {
         let mut out = vec![R::cst(0.0); self.times.len()];
         predict(self.kinetics(theta), &self.events, &self.times, &mut out);
         out
     }
 
     /// The objective at θ, in any number type.
-    pub fn value<R: Real>(&self, theta: &[R]) -> R {
+    pub(crate) fn value<R: Real>(&self, theta: &[R]) -> R {
         let f = self.predictions(theta);
         let mut total = R::cst(0.0);
         for (level, fi) in self.levels.iter().zip(f) {
@@ -218,7 +218,7 @@ impl Problem {
     /// The Gauss–Newton approximation of the Hessian, 2·Σ wᵢ ∇fᵢ ∇fᵢᵀ + 2·Ω⁻¹ with wᵢ = 1/σᵢ² (or
     /// the least-squares weight): one pass of the engine, good enough to start a quasi-Newton
     /// solver from (below-limit levels and the σ(f) dependence are left out).
-    pub fn gauss_newton(&self, theta: &[f64]) -> Mat {
+    pub(crate) fn gauss_newton(&self, theta: &[f64]) -> Mat {
         let duals: Vec<D3> = (0..self.n).map(|i| D3::var(theta[i], i)).collect();
         let f = self.predictions(&duals);
         let mut m = [[0.0; MAX]; MAX];
@@ -245,7 +245,7 @@ impl Problem {
     }
 
     /// Hessian by central differences of the exact gradient (step 1e-4 in log-parameters).
-    pub fn hessian(&self, theta: &[f64]) -> Mat {
+    pub(crate) fn hessian(&self, theta: &[f64]) -> Mat {
         let h = 1e-4;
         let mut m = [[0.0; MAX]; MAX];
         for j in 0..self.n {
@@ -271,7 +271,7 @@ impl Problem {
 }
 
 /// The least-squares weight of a level with value `y`.
-pub fn weight(w: Weighting, y: f64) -> f64 {
+pub(crate) fn weight(w: Weighting, y: f64) -> f64 {
     match w {
         Weighting::None => 1.0,
         Weighting::InvY => 1.0 / y,

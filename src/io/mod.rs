@@ -1,6 +1,6 @@
 //! Readers and writers: CSV tables with located errors, dose files, output formats, digests.
 
-pub mod digest;
+pub(crate) mod digest;
 pub mod doses;
 pub mod levels;
 pub mod output;

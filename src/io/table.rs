@@ -169,7 +169,7 @@ impl Table {
     /// Find the `<quantity>_<unit>` column for `quantity`, checking its unit.
     ///
     /// Errors: the quantity appears twice with different units, or with an unknown unit.
-    pub fn unit_column(&self, quantity: &str, kind: Kind) -> Result<Option<Column>, InputError> {
+    pub(crate) fn unit_column(&self, quantity: &str, kind: Kind) -> Result<Option<Column>, InputError> {
         let mut found: Option<Column> = None;
         for (index, h) in self.headers.iter().enumerate() {
             match parse_name(h, &[(quantity, kind)]) {
@@ -196,7 +196,7 @@ impl Table {
     }
 
     /// Columns that no reader claimed, for a note on stderr.
-    pub fn unused_columns(&self, used: &[&Column]) -> Vec<String> {
+    pub(crate) fn unused_columns(&self, used: &[&Column]) -> Vec<String> {
         self.headers
             .iter()
             .enumerate()
@@ -231,7 +231,7 @@ impl Row {
     }
 
     /// An optional number: `None` for an empty field.
-    pub fn optional_number(&self, source: &str, column: &Column) -> Result<Option<f64>, InputError> {
+    pub(crate) fn optional_number(&self, source: &str, column: &Column) -> Result<Option<f64>, InputError> {
         if self.text(column).is_empty() { Ok(None) } else { self.number(source, column).map(Some) }
     }
 

@@ -26,13 +26,13 @@ impl TomlText {
     }
 
     /// The 1-based line holding byte `offset`.
-    pub fn line_of(&self, offset: usize) -> u64 {
+    pub(crate) fn line_of(&self, offset: usize) -> u64 {
         let end = offset.min(self.text.len());
         self.text.as_bytes()[..end].iter().filter(|&&b| b == b'\n').count() as u64 + 1
     }
 
     /// A located error at `span`.
-    pub fn error_at(&self, span: Range<usize>, key: &str, message: impl Into<String>) -> InputError {
+    pub(crate) fn error_at(&self, span: Range<usize>, key: &str, message: impl Into<String>) -> InputError {
         InputError::in_file(&self.source, message).at_line(self.line_of(span.start)).at_key(key)
     }
 

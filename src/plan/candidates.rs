@@ -46,7 +46,7 @@ pub fn parse_amounts(text: &str) -> Result<Vec<f64>, String> {
 }
 
 /// Parse a comma-separated list of positive values of one kind (`6h,8h,12h`).
-pub fn positive_list(text: &str, kind: Kind) -> Result<Vec<f64>, String> {
+pub(crate) fn positive_list(text: &str, kind: Kind) -> Result<Vec<f64>, String> {
     let mut out = Vec::new();
     for part in text.split(',').map(str::trim).filter(|p| !p.is_empty()) {
         let v = parse_value(kind, part)?;

@@ -50,7 +50,7 @@ impl<'a> Course<'a> {
 }
 
 /// The end of the last "day N" any target asks about, from the start of therapy (h).
-pub fn last_day_end(targets: &[Target], course: &Course) -> Option<f64> {
+pub(crate) fn last_day_end(targets: &[Target], course: &Course) -> Option<f64> {
     targets
         .iter()
         .filter_map(|t| match t.metric {

@@ -179,7 +179,7 @@ const SAMPLES_PER_INTERVAL: usize = 96;
 
 /// Hours from the start of `c` (with an optional loading dose) until one whole interval meets
 /// every steady-state target, for parameters `p`; targets on a fixed day are not part of it.
-pub fn time_to_target(
+pub(crate) fn time_to_target(
     p: &Params,
     course: &Course,
     c: &Regimen,

@@ -95,7 +95,7 @@ pub struct Outcome {
 }
 
 /// One interval after the last dose (the interval between the last two doses, else 24 h).
-pub fn default_start(doses: &[Dose]) -> f64 {
+pub(crate) fn default_start(doses: &[Dose]) -> f64 {
     match doses {
         [] => 0.0,
         [only] => only.time_h + 24.0,

@@ -3,13 +3,13 @@
 //! Every page carries the caution banner at the top and a footer with the page number. Blocks
 //! flow down the page; a table row, a label–value pair, a plot and a bar chart are never split
 //! across pages, a table's header repeats on each page it continues on, and a heading is not
-//! left alone at the bottom of a page. Plots are vector graphics laid out by [`plot`].
+//! left alone at the bottom of a page. Plots are vector graphics laid out by the plot geometry the SVG backend shares.
 //!
 //! The output is deterministic: the document ID is a digest of the content and the dates come
 //! from [`Document::created_iso`].
 
 use super::layout::{Block, Document, Rgb, Table};
-use super::plot::{self, Anchor, Scene, Shape};
+use super::plot::{self, Anchor, Scene, Shape, WHITE};
 use super::text::{self, Face};
 use printpdf::{
     BuiltinFont, Color, Line, LineDashPattern, LineJoinStyle, LinePoint, Mm, Op, PaintMode, PdfDocument,
@@ -56,7 +56,6 @@ const ZEBRA_FILL: Rgb = (0.965, 0.965, 0.97);
 const BANNER_FILL: Rgb = (1.0, 0.93, 0.88);
 const BANNER_EDGE: Rgb = (0.72, 0.16, 0.08);
 const BANNER_INK: Rgb = (0.50, 0.05, 0.03);
-const WHITE: Rgb = (1.0, 1.0, 1.0);
 
 /// Renders the document as PDF bytes.
 pub fn render_pdf(doc: &Document) -> Result<Vec<u8>, String> {

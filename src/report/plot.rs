@@ -3,7 +3,7 @@
 //! shapes in points (y downward from the panel's top-left corner); each backend only
 //! translates shapes, so both draw the same picture.
 
-use super::layout::{BarChart, PlotSpec, Rgb, Stroke};
+use super::layout::{PlotSpec, Rgb, Stroke};
 use super::text::{self, Face};
 
 /// A position in a scene, in points: x to the right, y downward from the top-left corner.
@@ -355,7 +355,8 @@ const MUTED: Rgb = (0.35, 0.35, 0.35);
 const MARKER: Rgb = (0.05, 0.05, 0.05);
 const DOSE: Rgb = (0.45, 0.15, 0.55);
 const TARGET: Rgb = (0.80, 0.92, 0.80);
-const WHITE: Rgb = (1.0, 1.0, 1.0);
+#[cfg(feature = "pdf")]
+pub(crate) const WHITE: Rgb = (1.0, 1.0, 1.0);
 /// How much band colours are lightened.
 const BAND_LIGHTEN: f32 = 0.72;
 
@@ -671,12 +672,14 @@ pub fn plot_scene(spec: &PlotSpec, width: f64, height: f64) -> Scene {
 }
 
 /// Height of a bar chart with `bars` bars.
+#[cfg(feature = "pdf")]
 pub fn bars_height(bars: usize) -> f64 {
     20.0 + bars as f64 * 14.0 + 32.0
 }
 
 /// Lays out a horizontal bar chart `width` points wide (its height is [`bars_height`]).
-pub fn bars_scene(chart: &BarChart, width: f64) -> Scene {
+#[cfg(feature = "pdf")]
+pub fn bars_scene(chart: &super::layout::BarChart, width: f64) -> Scene {
     const BAR_COLOR: Rgb = (0.25, 0.45, 0.70);
     let height = bars_height(chart.labels.len());
     let labels: Vec<String> = chart.labels.iter().map(|l| text::to_winansi(l)).collect();

@@ -1,5 +1,5 @@
 //! The report's plot as a standalone SVG (for papers): the same panels as in the PDF, laid out
-//! by [`plot`], stacked vertically. Units are points. Each text carries its Helvetica width
+//! by the plot geometry the PDF backend shares, stacked vertically. Units are points. Each text carries its Helvetica width
 //! (`textLength`), so a viewer that substitutes a wider font still keeps the layout.
 
 use super::layout::{PlotSpec, Rgb};

@@ -17,9 +17,8 @@ pub enum Face {
 
 /// Height of a capital letter above the baseline, per unit font size (Helvetica AFM
 /// `CapHeight 718`).
+#[cfg(feature = "pdf")]
 pub const CAP_HEIGHT: f64 = 0.718;
-/// Depth of descenders below the baseline, per unit font size (Helvetica AFM `Descender -207`).
-pub const DESCENT: f64 = 0.207;
 
 /// Advance widths in 1/1000 em for WinAnsi codes 32–255 (0 where the code is unassigned).
 /// From Adobe's Helvetica and Helvetica-Bold AFM files (version 003.001, as shipped in groff's

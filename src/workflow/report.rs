@@ -49,6 +49,21 @@ impl Report {
 
 /// Fit the spec's subject against its model, plan over the grid, sweep the grid over a
 /// virtual population when the spec asks, and lay out the report.
+///
+/// ```
+/// use cistern::workflow::report::{Provenance, report};
+///
+/// let mut spec = cistern::case::read("demo-regimens/p01.toml")?;
+/// spec.draws.value = Some(200);
+/// spec.sweep = None;
+/// let when = Provenance { command_line: "my-tool p01".into(), created_iso: "2025-03-01T14:05:09Z".into() };
+/// let report = report(&spec, when)?;
+/// assert!(report.document.title.contains("P01"));
+/// assert!(report.svg().starts_with("<svg"));
+/// #[cfg(feature = "pdf")]
+/// assert!(report.pdf()?.starts_with(b"%PDF"));
+/// # Ok::<(), cistern::Error>(())
+/// ```
 pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
     let mut problems = Problems::new();
     let settings = problems.take_all(spec.resolve(Needs { grid: true }));

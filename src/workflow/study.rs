@@ -36,6 +36,22 @@ fn text(p: &Path) -> String {
 
 impl Study {
     /// Read the study a spec names: every problem in every file at once, each located.
+    ///
+    /// ```
+    /// use cistern::{Required, Spec, Study};
+    ///
+    /// let mut spec = Spec::new();
+    /// let inputs = &mut spec.inputs;
+    /// inputs.model.value = Some("demo-regimens/model.toml".into());
+    /// inputs.doses.value = Some("demo-regimens/doses.csv".into());
+    /// inputs.levels.value = Some("demo-regimens/levels.csv".into());
+    /// inputs.covariates.value = Some("demo-regimens/covariates.csv".into());
+    /// let study = Study::load(&spec.inputs, Required { model: true })?;
+    /// assert_eq!(study.subjects.len(), 3);
+    /// // The model needs creatinine clearance: derived from the covariates file.
+    /// assert!(study.subjects[0].covariates.get("crcl_ml_min").is_some());
+    /// # Ok::<(), cistern::Error>(())
+    /// ```
     pub fn load(inputs: &Inputs, required: Required) -> Result<Study> {
         let mut problems = Problems::new();
         let doses = problems.take(inputs.doses.required("the doses file is required"));
@@ -63,7 +79,7 @@ impl Study {
 }
 
 /// The item whose identifier is `wanted`, or the only item when none is wanted.
-pub fn pick<'a, T>(
+pub(crate) fn pick<'a, T>(
     items: &'a [T],
     id_of: impl Fn(&T) -> Option<&str>,
     wanted: &Setting<String>,
