@@ -109,7 +109,8 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
                 .into_iter()
                 .map(|(name, value, label)| vec![label.to_string(), readable(value, 5), name.to_string()])
                 .collect();
-            write!(out, "{}", render_table(&["quantity", "value", "key"], &table)).map_err(io_failure)?;
+            write!(out, "{}", render_table(&["quantity", "value", "key"], &table, &[]))
+                .map_err(io_failure)?;
             writeln!(out, "\n{CAUTION}").map_err(io_failure)?;
         }
     }

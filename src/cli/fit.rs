@@ -226,7 +226,7 @@ fn table(fits: &[FitResult]) -> String {
                 typical.map(|t| readable(t, 4)).unwrap_or_default(),
             ]);
         }
-        text += &render_table(&["parameter", "estimate", "se", "95% interval", "typical"], &rows);
+        text += &render_table(&["parameter", "estimate", "se", "95% interval", "typical"], &rows, &[]);
         let lv: Vec<Vec<String>> = r
             .levels
             .iter()
@@ -243,7 +243,7 @@ fn table(fits: &[FitResult]) -> String {
                 ]
             })
             .collect();
-        text += &render_table(&["time_h", "observed_mg_l", "predicted_mg_l", "weighted_residual"], &lv);
+        text += &render_table(&["time_h", "observed_mg_l", "predicted_mg_l", "weighted_residual"], &lv, &[]);
         for d in &r.derived_covariates {
             text += &format!("derived: {d}\n");
         }

@@ -255,6 +255,7 @@ fn table(post: &PlanSubject, targets: &[Target], plan: &Plan, advice: Option<&Ad
             "limits",
         ],
         &rows,
+        &[],
     );
     if plan.candidates.len() > 15 {
         text += &format!("… and {} more candidates (--format csv lists all)\n", plan.candidates.len() - 15);
@@ -313,7 +314,7 @@ fn table(post: &PlanSubject, targets: &[Target], plan: &Plan, advice: Option<&Ad
                 ]
             })
             .collect();
-        text += &render_table(&["time_h", "h after dose", "expected 90 % width", "shrinkage"], &rows);
+        text += &render_table(&["time_h", "h after dose", "expected 90 % width", "shrinkage"], &rows, &[]);
     }
     text
 }

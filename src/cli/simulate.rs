@@ -232,7 +232,7 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
                     rows.push(row);
                 }
             }
-            write!(out, "{}", render_table(&headers, &rows)).map_err(io_failure)?;
+            write!(out, "{}", render_table(&headers, &rows, &[])).map_err(io_failure)?;
             writeln!(out).map_err(io_failure)?;
             for ((who, _), (_, auc)) in subjects.iter().zip(&curves) {
                 let name = who.as_deref().map(|s| format!("subject {s}: ")).unwrap_or_default();

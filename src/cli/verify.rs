@@ -43,16 +43,6 @@ fn tolerance_parts(t: Tolerance) -> (&'static str, f64) {
     }
 }
 
-/// Pad a text column so that the table, which right-aligns, shows it left-aligned.
-fn left_align(column: usize, headers: &mut [String], rows: &mut [Vec<String>]) {
-    let cells = || std::iter::once(&headers[column]).chain(rows.iter().map(|r| &r[column]));
-    let width = cells().map(|c| c.chars().count()).max().unwrap_or(0);
-    headers[column] = format!("{:<width$}", headers[column]);
-    for r in rows.iter_mut() {
-        r[column] = format!("{:<width$}", r[column]);
-    }
-}
-
 /// Run the command.
 pub fn run(args: VerifyArgs) -> Result<(), Error> {
     let outcomes = run_all();
@@ -109,7 +99,7 @@ pub fn run(args: VerifyArgs) -> Result<(), Error> {
             w.flush().map_err(io_failure)?;
         }
         Format::Table => {
-            let mut rows: Vec<Vec<String>> = outcomes
+            let rows: Vec<Vec<String>> = outcomes
                 .iter()
                 .map(|o| {
                     vec![
@@ -124,16 +114,10 @@ pub fn run(args: VerifyArgs) -> Result<(), Error> {
                     ]
                 })
                 .collect();
-            let mut headers =
-                ["result", "case", "expected", "computed", "tolerance", "unit", "kind", "source"]
-                    .map(String::from);
-            for column in [1, 5, 6, 7] {
-                left_align(column, &mut headers, &mut rows);
-            }
-            let headers = headers.each_ref().map(String::as_str);
+            let headers = ["result", "case", "expected", "computed", "tolerance", "unit", "kind", "source"];
             writeln!(out, "cistern {version}: installation check, {} cases", outcomes.len())
                 .map_err(io_failure)?;
-            write!(out, "{}", render_table(&headers, &rows)).map_err(io_failure)?;
+            write!(out, "{}", render_table(&headers, &rows, &[1, 5, 6, 7])).map_err(io_failure)?;
             for o in outcomes.iter().filter(|o| o.error.is_some()) {
                 writeln!(out, "{}: {}", o.name, o.error.as_deref().unwrap_or_default())
                     .map_err(io_failure)?;

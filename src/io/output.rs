@@ -75,8 +75,9 @@ pub fn readable(x: f64, digits: usize) -> String {
     format!("{x:.decimals$}")
 }
 
-/// A plain-text table with right-aligned columns.
-pub fn render_table(headers: &[&str], rows: &[Vec<String>]) -> String {
+/// A plain-text table: columns are right-aligned, as numbers read best, except the
+/// `text_columns` (0-based), which are left-aligned.
+pub fn render_table(headers: &[&str], rows: &[Vec<String>], text_columns: &[usize]) -> String {
     let mut widths: Vec<usize> = headers.iter().map(|h| h.len()).collect();
     for r in rows {
         for (w, cell) in widths.iter_mut().zip(r) {
@@ -85,7 +86,13 @@ pub fn render_table(headers: &[&str], rows: &[Vec<String>]) -> String {
     }
     let mut out = String::new();
     let line = |cells: &mut dyn Iterator<Item = &str>, out: &mut String| {
-        let parts: Vec<String> = cells.zip(&widths).map(|(c, w)| format!("{c:>w$}")).collect();
+        let parts: Vec<String> = cells
+            .zip(&widths)
+            .enumerate()
+            .map(
+                |(i, (c, w))| if text_columns.contains(&i) { format!("{c:<w$}") } else { format!("{c:>w$}") },
+            )
+            .collect();
         out.push_str(parts.join("  ").trim_end());
         out.push('\n');
     };
@@ -195,6 +202,16 @@ mod tests {
         for x in [0.1, 1.0 / 3.0, 1e-300, 123456789.0123, f64::MIN_POSITIVE] {
             assert_eq!(full(x).parse::<f64>().unwrap(), x);
         }
+    }
+
+    #[test]
+    fn tables_right_align_numbers_and_left_align_text_columns() {
+        let rows = vec![
+            vec!["a".to_string(), "1.5".into(), "xyz".into()],
+            vec!["bcd".into(), "10".into(), "q".into()],
+        ];
+        let text = render_table(&["name", "value", "note"], &rows, &[0, 2]);
+        assert_eq!(text, "name  value  note\na       1.5  xyz\nbcd      10  q\n");
     }
 
     #[test]

@@ -251,7 +251,7 @@ impl Summary {
         ];
         let mut text =
             format!("{} subjects, seed {}; targets: {}\n", self.subjects, self.seed, self.targets.join(", "));
-        text += &render_table(&headers, &rows);
+        text += &render_table(&headers, &rows, &[]);
         for r in &self.regimens {
             for reason in r.dose_limits_broken.iter().chain(&r.exposure_limits_broken) {
                 text += &format!("regimen {}: {reason}\n", r.index);
