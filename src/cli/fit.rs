@@ -7,7 +7,7 @@ use cistern::engine::validate_absorption;
 use cistern::error::Problems;
 use cistern::fit::objective::Weighting;
 use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, fit_all};
-use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table, write_json};
 use cistern::spec::Needs;
 use cistern::units::Kind;
 use cistern::workflow::{Required, Study};
@@ -67,10 +67,10 @@ pub struct FitArgs {
     output: OutputArgs,
 }
 
+/// The JSON output.
 #[derive(Serialize)]
 struct FitJson<'a> {
     subjects: &'a [FitResult],
-    caution: &'a str,
 }
 
 /// Run the command.
@@ -134,11 +134,7 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     let mut sink = args.output.sink(&inputs)?;
     let out = sink.writer();
     match format {
-        Format::Json => {
-            serde_json::to_writer_pretty(&mut *out, &FitJson { subjects: &fits, caution: CAUTION })
-                .map_err(|e| io_failure(e.into()))?;
-            writeln!(out).map_err(io_failure)?;
-        }
+        Format::Json => write_json(out, &FitJson { subjects: &fits }).map_err(io_failure)?,
         Format::Csv => write_csv(out, &fits).map_err(io_failure)?,
         Format::Table => {
             write!(out, "{}", table(&fits)).map_err(io_failure)?;

@@ -12,7 +12,7 @@ use cistern::{Origin, Seeds};
 use std::path::PathBuf;
 
 use cistern::Error;
-use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table, write_json};
 use cistern::plan::advisor::Advice;
 use cistern::plan::recommend::Plan;
 use cistern::plan::session::{Exposure, Outcome};
@@ -70,6 +70,7 @@ pub struct PlanArgs {
     output: OutputArgs,
 }
 
+/// The JSON output.
 #[derive(Serialize)]
 struct PlanJson<'a> {
     subject: Option<&'a str>,
@@ -79,7 +80,6 @@ struct PlanJson<'a> {
     #[serde(flatten)]
     plan: &'a Plan,
     next_level: Option<&'a Advice>,
-    caution: &'a str,
 }
 
 /// Run the command.
@@ -141,10 +141,8 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
                 limits,
                 plan: &result,
                 next_level: advice.as_ref(),
-                caution: CAUTION,
             };
-            serde_json::to_writer_pretty(&mut *out, &doc).map_err(|e| io_failure(e.into()))?;
-            writeln!(out).map_err(io_failure)?;
+            write_json(out, &doc).map_err(io_failure)?;
         }
         Format::Csv => write_csv(out, &result).map_err(io_failure)?,
         Format::Table => {

@@ -6,7 +6,7 @@ use cistern::engine;
 use cistern::error::Problems;
 use cistern::io::doses::{DoseFile, parse_doses};
 use cistern::io::output::Sink;
-use cistern::io::output::{CAUTION, Format, csv_field, full, io_failure, readable, render_table};
+use cistern::io::output::{CAUTION, Format, csv_field, full, io_failure, readable, render_table, write_json};
 use cistern::io::table::Table;
 use cistern::report::layout::{PlotSpec, Series, Stroke};
 use cistern::report::svg;
@@ -65,10 +65,10 @@ struct SubjectCurve<'a> {
     auc_mg_h_l: f64,
 }
 
+/// The JSON output.
 #[derive(Serialize)]
 struct SimulateJson<'a> {
     subjects: Vec<SubjectCurve<'a>>,
-    caution: &'a str,
 }
 
 /// Parse `START:END:STEP` into the grid START + i·STEP, i = 0, 1, … up to END within rounding.
@@ -195,10 +195,8 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
                         auc_mg_h_l: *auc,
                     })
                     .collect(),
-                caution: CAUTION,
             };
-            serde_json::to_writer_pretty(&mut *out, &doc).map_err(|e| io_failure(e.into()))?;
-            writeln!(out).map_err(io_failure)?;
+            write_json(out, &doc).map_err(io_failure)?;
         }
         Format::Csv => {
             let header = if with_subject { "subject,time_h,conc_mg_l" } else { "time_h,conc_mg_l" };

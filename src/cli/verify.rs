@@ -2,7 +2,7 @@
 
 use super::args::OutputArgs;
 use cistern::Error;
-use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table, write_json};
 use cistern::verify::{BOURNE_NOTES, Outcome, Tolerance, run_all};
 use clap::Args;
 use serde::Serialize;
@@ -22,6 +22,7 @@ pub struct VerifyArgs {
     output: OutputArgs,
 }
 
+/// The JSON output.
 #[derive(Serialize)]
 struct VerifyJson<'a> {
     version: &'a str,
@@ -29,7 +30,6 @@ struct VerifyJson<'a> {
     failed: usize,
     cases: &'a [Outcome],
     bourne_notes: &'a str,
-    caution: &'a str,
 }
 
 fn result_label(o: &Outcome) -> &'static str {
@@ -54,16 +54,8 @@ pub fn run(args: VerifyArgs) -> Result<(), Error> {
     let out = sink.writer();
     match format {
         Format::Json => {
-            let doc = VerifyJson {
-                version,
-                passed,
-                failed,
-                cases: &outcomes,
-                bourne_notes: BOURNE_NOTES,
-                caution: CAUTION,
-            };
-            serde_json::to_writer_pretty(&mut *out, &doc).map_err(|e| io_failure(e.into()))?;
-            writeln!(out).map_err(io_failure)?;
+            let doc = VerifyJson { version, passed, failed, cases: &outcomes, bourne_notes: BOURNE_NOTES };
+            write_json(out, &doc).map_err(io_failure)?;
         }
         Format::Csv => {
             let mut w = csv::Writer::from_writer(&mut *out);

@@ -2,6 +2,7 @@
 
 use crate::choice::choice_enum;
 use crate::error::Error;
+use serde::Serialize;
 use std::io::Write;
 use std::path::{Path, PathBuf};
 use tempfile::TempPath;
@@ -50,6 +51,23 @@ pub fn csv_field(s: &str) -> std::borrow::Cow<'_, str> {
     } else {
         s.into()
     }
+}
+
+/// A JSON result with the caution as its last field: the shape of every JSON output.
+#[derive(Debug, Clone, Copy, Serialize)]
+pub struct Cautioned<'a, T> {
+    /// The result; its fields come first.
+    #[serde(flatten)]
+    pub result: &'a T,
+    /// [`CAUTION`].
+    pub caution: &'static str,
+}
+
+/// Write `result` (a struct or a map) as pretty JSON with the caution as its last field, and
+/// a line end.
+pub fn write_json<T: Serialize>(out: &mut dyn Write, result: &T) -> std::io::Result<()> {
+    serde_json::to_writer_pretty(&mut *out, &Cautioned { result, caution: CAUTION })?;
+    writeln!(out)
 }
 
 /// A prescription number as written: `750`, `1.5`, `0.25` (rounded to 1e-6, no trailing zeros).
@@ -202,6 +220,19 @@ mod tests {
         for x in [0.1, 1.0 / 3.0, 1e-300, 123456789.0123, f64::MIN_POSITIVE] {
             assert_eq!(full(x).parse::<f64>().unwrap(), x);
         }
+    }
+
+    #[test]
+    fn json_results_end_with_the_caution() {
+        #[derive(Serialize)]
+        struct Answer {
+            b: u32,
+            a: f64,
+        }
+        let mut out = Vec::new();
+        write_json(&mut out, &Answer { b: 1, a: 0.5 }).unwrap();
+        let expected = format!("{{\n  \"b\": 1,\n  \"a\": 0.5,\n  \"caution\": \"{CAUTION}\"\n}}\n");
+        assert_eq!(String::from_utf8(out).unwrap(), expected);
     }
 
     #[test]

@@ -3,7 +3,7 @@
 
 use super::state::{SweepState, SweptRegimen};
 use crate::dosing::{Regimen, Route};
-use crate::io::output::{CAUTION, Format, full, readable, render_table};
+use crate::io::output::{CAUTION, Format, full, readable, render_table, write_json};
 use serde::Serialize;
 use std::io::Write;
 
@@ -99,13 +99,6 @@ pub const SUMMARY_HEADER: [&str; 21] = [
     "auc24_p95_mg_h_l",
 ];
 
-#[derive(Serialize)]
-struct SummaryJson<'a> {
-    #[serde(flatten)]
-    summary: &'a Summary,
-    caution: &'a str,
-}
-
 impl Summary {
     /// The summary of a whole sweep's state.
     pub fn of(state: &SweepState) -> Summary {
@@ -163,10 +156,7 @@ impl Summary {
     pub fn write(&self, out: &mut dyn Write, format: Format) -> std::io::Result<()> {
         match format {
             Format::Csv => self.write_csv(out),
-            Format::Json => {
-                serde_json::to_writer_pretty(&mut *out, &SummaryJson { summary: self, caution: CAUTION })?;
-                writeln!(out)
-            }
+            Format::Json => write_json(out, self),
             Format::Table => {
                 write!(out, "{}", self.table())?;
                 writeln!(out, "\n{CAUTION}")
