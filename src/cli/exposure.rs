@@ -5,7 +5,7 @@ use cistern::Error;
 use cistern::dosing::Regimen;
 use cistern::engine::steady::{SteadyCurve, SteadyState};
 use cistern::error::Problems;
-use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table, write_json};
+use cistern::io::output::{CAUTION, CsvWriter, Format, io_failure, readable, render_table, write_json};
 use clap::Args;
 use serde::Serialize;
 use serde::ser::{SerializeStruct, Serializer};
@@ -96,9 +96,13 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
         Format::Json => write_json(out, &doc).map_err(io_failure)?,
         Format::Csv => {
             let rows = rows(&doc);
-            let names: Vec<&str> = rows.iter().map(|r| r.0).collect();
-            let values: Vec<String> = rows.iter().map(|r| full(r.1)).collect();
-            writeln!(out, "{}\n{}", names.join(","), values.join(",")).map_err(io_failure)?;
+            let mut w = CsvWriter::new(out);
+            w.row(rows.iter().map(|r| r.0)).map_err(io_failure)?;
+            for r in &rows {
+                w.number(r.1).map_err(io_failure)?;
+            }
+            w.end_row().map_err(io_failure)?;
+            w.finish().map_err(io_failure)?;
         }
         Format::Table => {
             let table: Vec<Vec<String>> = rows(&doc)

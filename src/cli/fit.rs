@@ -7,7 +7,7 @@ use cistern::engine::validate_absorption;
 use cistern::error::Problems;
 use cistern::fit::objective::Weighting;
 use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, fit_all};
-use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table, write_json};
+use cistern::io::output::{CAUTION, CsvWriter, Format, full, io_failure, readable, render_table, write_json};
 use cistern::spec::Needs;
 use cistern::units::Kind;
 use cistern::workflow::{Required, Study};
@@ -170,8 +170,8 @@ fn write_csv(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std::io::Resul
         header.extend([n.to_string(), format!("{n}_se"), format!("{n}_ci95_lo"), format!("{n}_ci95_hi")]);
     }
     header.push("warnings".into());
-    let mut w = csv::Writer::from_writer(out);
-    w.write_record(&header)?;
+    let mut w = CsvWriter::new(out);
+    w.row(&header)?;
     for r in fits {
         let e = &r.estimates;
         let mut row = vec![
@@ -189,9 +189,9 @@ fn write_csv(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std::io::Resul
             row.extend(estimate_cells(est));
         }
         row.push(r.warnings.join("; "));
-        w.write_record(&row)?;
+        w.row(&row)?;
     }
-    w.flush()
+    w.finish().map(drop)
 }
 
 fn table(fits: &[FitResult]) -> String {

@@ -12,7 +12,7 @@ use cistern::{Origin, Seeds};
 use std::path::PathBuf;
 
 use cistern::Error;
-use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table, write_json};
+use cistern::io::output::{CAUTION, CsvWriter, Format, full, io_failure, readable, render_table, write_json};
 use cistern::plan::advisor::Advice;
 use cistern::plan::recommend::Plan;
 use cistern::plan::session::{Exposure, Outcome};
@@ -156,8 +156,8 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
 }
 
 fn write_csv(out: &mut dyn std::io::Write, plan: &Plan) -> std::io::Result<()> {
-    let mut w = csv::Writer::from_writer(out);
-    w.write_record([
+    let mut w = CsvWriter::new(out);
+    w.row([
         "rank",
         "amount_mg",
         "every_h",
@@ -182,7 +182,7 @@ fn write_csv(out: &mut dyn std::io::Write, plan: &Plan) -> std::io::Result<()> {
     let opt = |x: Option<f64>| x.map(full).unwrap_or_default();
     for (i, a) in plan.candidates.iter().enumerate() {
         let p = &a.predicted;
-        w.write_record([
+        w.row([
             (i + 1).to_string(),
             full(a.regimen.amount_mg),
             full(a.regimen.every_h),
@@ -205,7 +205,7 @@ fn write_csv(out: &mut dyn std::io::Write, plan: &Plan) -> std::io::Result<()> {
             a.limits_broken.join("; "),
         ])?;
     }
-    w.flush()
+    w.finish().map(drop)
 }
 
 fn band(b: &cistern::plan::recommend::Band, digits: usize) -> String {

@@ -2,7 +2,7 @@
 
 use super::args::OutputArgs;
 use cistern::Error;
-use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table, write_json};
+use cistern::io::output::{CAUTION, CsvWriter, Format, full, io_failure, readable, render_table, write_json};
 use cistern::verify::{BOURNE_NOTES, Outcome, Tolerance, run_all};
 use clap::Args;
 use serde::Serialize;
@@ -58,7 +58,7 @@ pub fn run(args: VerifyArgs) -> Result<(), Error> {
             write_json(out, &doc).map_err(io_failure)?;
         }
         Format::Csv => {
-            let mut w = csv::Writer::from_writer(&mut *out);
+            let mut w = CsvWriter::new(&mut *out);
             let header = [
                 "case",
                 "unit",
@@ -71,10 +71,10 @@ pub fn run(args: VerifyArgs) -> Result<(), Error> {
                 "passed",
                 "error",
             ];
-            w.write_record(header).map_err(|e| io_failure(e.into()))?;
+            w.row(header).map_err(io_failure)?;
             for o in &outcomes {
                 let (kind, tol) = tolerance_parts(o.tolerance);
-                w.write_record([
+                w.row([
                     o.name,
                     o.unit,
                     o.source,
@@ -86,9 +86,9 @@ pub fn run(args: VerifyArgs) -> Result<(), Error> {
                     if o.passed { "true" } else { "false" },
                     o.error.as_deref().unwrap_or(""),
                 ])
-                .map_err(|e| io_failure(e.into()))?;
+                .map_err(io_failure)?;
             }
-            w.flush().map_err(io_failure)?;
+            w.finish().map_err(io_failure)?;
         }
         Format::Table => {
             let rows: Vec<Vec<String>> = outcomes

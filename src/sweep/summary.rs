@@ -3,7 +3,7 @@
 
 use super::state::{SweepState, SweptRegimen};
 use crate::dosing::{Regimen, Route};
-use crate::io::output::{CAUTION, Format, full, readable, render_table, write_json};
+use crate::io::output::{CAUTION, CsvWriter, Format, full, readable, render_table, write_json};
 use serde::Serialize;
 use std::io::Write;
 
@@ -165,8 +165,8 @@ impl Summary {
     }
 
     fn write_csv(&self, out: &mut dyn Write) -> std::io::Result<()> {
-        let mut w = csv::Writer::from_writer(out);
-        w.write_record(SUMMARY_HEADER)?;
+        let mut w = CsvWriter::new(out);
+        w.row(SUMMARY_HEADER)?;
         let opt = |x: Option<f64>| x.map(full).unwrap_or_default();
         for r in &self.regimens {
             let mut row = vec![
@@ -186,9 +186,9 @@ impl Summary {
             for p in [&r.trough_mg_l, &r.peak_mg_l, &r.auc24_mg_h_l] {
                 row.extend(p.cells());
             }
-            w.write_record(&row)?;
+            w.row(&row)?;
         }
-        w.flush()
+        w.finish().map(drop)
     }
 
     fn table(&self) -> String {
