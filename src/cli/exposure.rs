@@ -5,7 +5,7 @@ use cistern::Error;
 use cistern::dosing::Regimen;
 use cistern::engine::steady::{SteadyCurve, SteadyState};
 use cistern::error::Problems;
-use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use cistern::io::output::{CAUTION, CsvWriter, Format, io_failure, readable, render_table, write_json};
 use clap::Args;
 use serde::Serialize;
 use serde::ser::{SerializeStruct, Serializer};
@@ -52,13 +52,13 @@ fn regimen_block<S: Serializer>(r: &Regimen, s: S) -> Result<S::Ok, S::Error> {
     block.end()
 }
 
+/// The JSON output.
 #[derive(Serialize)]
-struct ExposureJson<'a> {
+struct ExposureJson {
     parameters: ParametersJson,
     #[serde(serialize_with = "regimen_block")]
     regimen: Regimen,
     steady_state: SteadyState,
-    caution: &'a str,
 }
 
 /// Run the command.
@@ -88,28 +88,29 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
         },
         regimen,
         steady_state: ss,
-        caution: CAUTION,
     };
     let format = args.output.format();
     let mut sink = args.output.sink(&[])?;
     let out = sink.writer();
     match format {
-        Format::Json => {
-            serde_json::to_writer_pretty(&mut *out, &doc).map_err(|e| io_failure(e.into()))?;
-            writeln!(out).map_err(io_failure)?;
-        }
+        Format::Json => write_json(out, &doc).map_err(io_failure)?,
         Format::Csv => {
             let rows = rows(&doc);
-            let names: Vec<&str> = rows.iter().map(|r| r.0).collect();
-            let values: Vec<String> = rows.iter().map(|r| full(r.1)).collect();
-            writeln!(out, "{}\n{}", names.join(","), values.join(",")).map_err(io_failure)?;
+            let mut w = CsvWriter::new(out);
+            w.row(rows.iter().map(|r| r.0)).map_err(io_failure)?;
+            for r in &rows {
+                w.number(r.1).map_err(io_failure)?;
+            }
+            w.end_row().map_err(io_failure)?;
+            w.finish().map_err(io_failure)?;
         }
         Format::Table => {
             let table: Vec<Vec<String>> = rows(&doc)
                 .into_iter()
                 .map(|(name, value, label)| vec![label.to_string(), readable(value, 5), name.to_string()])
                 .collect();
-            write!(out, "{}", render_table(&["quantity", "value", "key"], &table)).map_err(io_failure)?;
+            write!(out, "{}", render_table(&["quantity", "value", "key"], &table, &[]))
+                .map_err(io_failure)?;
             writeln!(out, "\n{CAUTION}").map_err(io_failure)?;
         }
     }

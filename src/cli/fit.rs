@@ -7,7 +7,7 @@ use cistern::engine::validate_absorption;
 use cistern::error::Problems;
 use cistern::fit::objective::Weighting;
 use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, fit_all};
-use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use cistern::io::output::{CAUTION, CsvWriter, Format, full, io_failure, readable, render_table, write_json};
 use cistern::spec::Needs;
 use cistern::units::Kind;
 use cistern::workflow::{Required, Study};
@@ -67,10 +67,10 @@ pub struct FitArgs {
     output: OutputArgs,
 }
 
+/// The JSON output.
 #[derive(Serialize)]
 struct FitJson<'a> {
     subjects: &'a [FitResult],
-    caution: &'a str,
 }
 
 /// Run the command.
@@ -134,11 +134,7 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     let mut sink = args.output.sink(&inputs)?;
     let out = sink.writer();
     match format {
-        Format::Json => {
-            serde_json::to_writer_pretty(&mut *out, &FitJson { subjects: &fits, caution: CAUTION })
-                .map_err(|e| io_failure(e.into()))?;
-            writeln!(out).map_err(io_failure)?;
-        }
+        Format::Json => write_json(out, &FitJson { subjects: &fits }).map_err(io_failure)?,
         Format::Csv => write_csv(out, &fits).map_err(io_failure)?,
         Format::Table => {
             write!(out, "{}", table(&fits)).map_err(io_failure)?;
@@ -174,8 +170,8 @@ fn write_csv(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std::io::Resul
         header.extend([n.to_string(), format!("{n}_se"), format!("{n}_ci95_lo"), format!("{n}_ci95_hi")]);
     }
     header.push("warnings".into());
-    let mut w = csv::Writer::from_writer(out);
-    w.write_record(&header)?;
+    let mut w = CsvWriter::new(out);
+    w.row(&header)?;
     for r in fits {
         let e = &r.estimates;
         let mut row = vec![
@@ -193,9 +189,9 @@ fn write_csv(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std::io::Resul
             row.extend(estimate_cells(est));
         }
         row.push(r.warnings.join("; "));
-        w.write_record(&row)?;
+        w.row(&row)?;
     }
-    w.flush()
+    w.finish().map(drop)
 }
 
 fn table(fits: &[FitResult]) -> String {
@@ -226,7 +222,7 @@ fn table(fits: &[FitResult]) -> String {
                 typical.map(|t| readable(t, 4)).unwrap_or_default(),
             ]);
         }
-        text += &render_table(&["parameter", "estimate", "se", "95% interval", "typical"], &rows);
+        text += &render_table(&["parameter", "estimate", "se", "95% interval", "typical"], &rows, &[]);
         let lv: Vec<Vec<String>> = r
             .levels
             .iter()
@@ -243,7 +239,7 @@ fn table(fits: &[FitResult]) -> String {
                 ]
             })
             .collect();
-        text += &render_table(&["time_h", "observed_mg_l", "predicted_mg_l", "weighted_residual"], &lv);
+        text += &render_table(&["time_h", "observed_mg_l", "predicted_mg_l", "weighted_residual"], &lv, &[]);
         for d in &r.derived_covariates {
             text += &format!("derived: {d}\n");
         }

@@ -12,7 +12,7 @@ use cistern::{Origin, Seeds};
 use std::path::PathBuf;
 
 use cistern::Error;
-use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use cistern::io::output::{CAUTION, CsvWriter, Format, full, io_failure, readable, render_table, write_json};
 use cistern::plan::advisor::Advice;
 use cistern::plan::recommend::Plan;
 use cistern::plan::session::{Exposure, Outcome};
@@ -70,6 +70,7 @@ pub struct PlanArgs {
     output: OutputArgs,
 }
 
+/// The JSON output.
 #[derive(Serialize)]
 struct PlanJson<'a> {
     subject: Option<&'a str>,
@@ -79,7 +80,6 @@ struct PlanJson<'a> {
     #[serde(flatten)]
     plan: &'a Plan,
     next_level: Option<&'a Advice>,
-    caution: &'a str,
 }
 
 /// Run the command.
@@ -141,10 +141,8 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
                 limits,
                 plan: &result,
                 next_level: advice.as_ref(),
-                caution: CAUTION,
             };
-            serde_json::to_writer_pretty(&mut *out, &doc).map_err(|e| io_failure(e.into()))?;
-            writeln!(out).map_err(io_failure)?;
+            write_json(out, &doc).map_err(io_failure)?;
         }
         Format::Csv => write_csv(out, &result).map_err(io_failure)?,
         Format::Table => {
@@ -158,8 +156,8 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
 }
 
 fn write_csv(out: &mut dyn std::io::Write, plan: &Plan) -> std::io::Result<()> {
-    let mut w = csv::Writer::from_writer(out);
-    w.write_record([
+    let mut w = CsvWriter::new(out);
+    w.row([
         "rank",
         "amount_mg",
         "every_h",
@@ -184,7 +182,7 @@ fn write_csv(out: &mut dyn std::io::Write, plan: &Plan) -> std::io::Result<()> {
     let opt = |x: Option<f64>| x.map(full).unwrap_or_default();
     for (i, a) in plan.candidates.iter().enumerate() {
         let p = &a.predicted;
-        w.write_record([
+        w.row([
             (i + 1).to_string(),
             full(a.regimen.amount_mg),
             full(a.regimen.every_h),
@@ -207,7 +205,7 @@ fn write_csv(out: &mut dyn std::io::Write, plan: &Plan) -> std::io::Result<()> {
             a.limits_broken.join("; "),
         ])?;
     }
-    w.flush()
+    w.finish().map(drop)
 }
 
 fn band(b: &cistern::plan::recommend::Band, digits: usize) -> String {
@@ -255,6 +253,7 @@ fn table(post: &PlanSubject, targets: &[Target], plan: &Plan, advice: Option<&Ad
             "limits",
         ],
         &rows,
+        &[],
     );
     if plan.candidates.len() > 15 {
         text += &format!("… and {} more candidates (--format csv lists all)\n", plan.candidates.len() - 15);
@@ -313,7 +312,7 @@ fn table(post: &PlanSubject, targets: &[Target], plan: &Plan, advice: Option<&Ad
                 ]
             })
             .collect();
-        text += &render_table(&["time_h", "h after dose", "expected 90 % width", "shrinkage"], &rows);
+        text += &render_table(&["time_h", "h after dose", "expected 90 % width", "shrinkage"], &rows, &[]);
     }
     text
 }

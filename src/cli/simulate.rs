@@ -6,7 +6,7 @@ use cistern::engine;
 use cistern::error::Problems;
 use cistern::io::doses::{DoseFile, parse_doses};
 use cistern::io::output::Sink;
-use cistern::io::output::{CAUTION, Format, csv_field, full, io_failure, readable, render_table};
+use cistern::io::output::{CAUTION, CsvWriter, Format, full, io_failure, readable, render_table, write_json};
 use cistern::io::table::Table;
 use cistern::report::layout::{PlotSpec, Series, Stroke};
 use cistern::report::svg;
@@ -65,10 +65,10 @@ struct SubjectCurve<'a> {
     auc_mg_h_l: f64,
 }
 
+/// The JSON output.
 #[derive(Serialize)]
 struct SimulateJson<'a> {
     subjects: Vec<SubjectCurve<'a>>,
-    caution: &'a str,
 }
 
 /// Parse `START:END:STEP` into the grid START + i·STEP, i = 0, 1, … up to END within rounding.
@@ -195,23 +195,11 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
                         auc_mg_h_l: *auc,
                     })
                     .collect(),
-                caution: CAUTION,
             };
-            serde_json::to_writer_pretty(&mut *out, &doc).map_err(|e| io_failure(e.into()))?;
-            writeln!(out).map_err(io_failure)?;
+            write_json(out, &doc).map_err(io_failure)?;
         }
         Format::Csv => {
-            let header = if with_subject { "subject,time_h,conc_mg_l" } else { "time_h,conc_mg_l" };
-            writeln!(out, "{header}").map_err(io_failure)?;
-            for ((who, _), (conc, _)) in subjects.iter().zip(&curves) {
-                let prefix = match who {
-                    Some(s) if with_subject => format!("{},", csv_field(s)),
-                    _ => String::new(),
-                };
-                for (t, c) in times.iter().zip(conc) {
-                    writeln!(out, "{prefix}{},{}", full(*t), full(*c)).map_err(io_failure)?;
-                }
-            }
+            write_csv(out, &subjects, &times, &curves, with_subject).map_err(io_failure)?;
             for ((who, _), (_, auc)) in subjects.iter().zip(&curves) {
                 let name = who.as_deref().map(|s| format!("subject {s}: ")).unwrap_or_default();
                 args.output.note(&format!("{name}AUC from {t_lo} h to {t_hi} h = {} mg·h/L", full(*auc)));
@@ -232,7 +220,7 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
                     rows.push(row);
                 }
             }
-            write!(out, "{}", render_table(&headers, &rows)).map_err(io_failure)?;
+            write!(out, "{}", render_table(&headers, &rows, &[])).map_err(io_failure)?;
             writeln!(out).map_err(io_failure)?;
             for ((who, _), (_, auc)) in subjects.iter().zip(&curves) {
                 let name = who.as_deref().map(|s| format!("subject {s}: ")).unwrap_or_default();
@@ -249,6 +237,30 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
         plot.finish()?;
     }
     sink.finish()
+}
+
+/// The curves as CSV: one row per subject and time.
+fn write_csv(
+    out: &mut dyn std::io::Write,
+    subjects: &[(Option<String>, Vec<Dose>)],
+    times: &[f64],
+    curves: &[(Vec<f64>, f64)],
+    with_subject: bool,
+) -> std::io::Result<()> {
+    let mut w = CsvWriter::new(out);
+    let header = ["subject", "time_h", "conc_mg_l"];
+    w.row(&header[usize::from(!with_subject)..])?;
+    for ((who, _), (conc, _)) in subjects.iter().zip(curves) {
+        for (t, c) in times.iter().zip(conc) {
+            if with_subject {
+                w.text(who.as_deref().unwrap_or(""))?;
+            }
+            w.number(*t)?;
+            w.number(*c)?;
+            w.end_row()?;
+        }
+    }
+    w.finish().map(drop)
 }
 
 /// The simulated curves as plot panels, linear and logarithmic, one line per subject.

@@ -2,7 +2,7 @@
 
 use super::args::OutputArgs;
 use cistern::Error;
-use cistern::io::output::{CAUTION, Format, full, io_failure, readable, render_table};
+use cistern::io::output::{CAUTION, CsvWriter, Format, full, io_failure, readable, render_table, write_json};
 use cistern::verify::{BOURNE_NOTES, Outcome, Tolerance, run_all};
 use clap::Args;
 use serde::Serialize;
@@ -22,6 +22,7 @@ pub struct VerifyArgs {
     output: OutputArgs,
 }
 
+/// The JSON output.
 #[derive(Serialize)]
 struct VerifyJson<'a> {
     version: &'a str,
@@ -29,7 +30,6 @@ struct VerifyJson<'a> {
     failed: usize,
     cases: &'a [Outcome],
     bourne_notes: &'a str,
-    caution: &'a str,
 }
 
 fn result_label(o: &Outcome) -> &'static str {
@@ -40,16 +40,6 @@ fn tolerance_parts(t: Tolerance) -> (&'static str, f64) {
     match t {
         Tolerance::Absolute(x) => ("absolute", x),
         Tolerance::Relative(x) => ("relative", x),
-    }
-}
-
-/// Pad a text column so that the table, which right-aligns, shows it left-aligned.
-fn left_align(column: usize, headers: &mut [String], rows: &mut [Vec<String>]) {
-    let cells = || std::iter::once(&headers[column]).chain(rows.iter().map(|r| &r[column]));
-    let width = cells().map(|c| c.chars().count()).max().unwrap_or(0);
-    headers[column] = format!("{:<width$}", headers[column]);
-    for r in rows.iter_mut() {
-        r[column] = format!("{:<width$}", r[column]);
     }
 }
 
@@ -64,19 +54,11 @@ pub fn run(args: VerifyArgs) -> Result<(), Error> {
     let out = sink.writer();
     match format {
         Format::Json => {
-            let doc = VerifyJson {
-                version,
-                passed,
-                failed,
-                cases: &outcomes,
-                bourne_notes: BOURNE_NOTES,
-                caution: CAUTION,
-            };
-            serde_json::to_writer_pretty(&mut *out, &doc).map_err(|e| io_failure(e.into()))?;
-            writeln!(out).map_err(io_failure)?;
+            let doc = VerifyJson { version, passed, failed, cases: &outcomes, bourne_notes: BOURNE_NOTES };
+            write_json(out, &doc).map_err(io_failure)?;
         }
         Format::Csv => {
-            let mut w = csv::Writer::from_writer(&mut *out);
+            let mut w = CsvWriter::new(&mut *out);
             let header = [
                 "case",
                 "unit",
@@ -89,10 +71,10 @@ pub fn run(args: VerifyArgs) -> Result<(), Error> {
                 "passed",
                 "error",
             ];
-            w.write_record(header).map_err(|e| io_failure(e.into()))?;
+            w.row(header).map_err(io_failure)?;
             for o in &outcomes {
                 let (kind, tol) = tolerance_parts(o.tolerance);
-                w.write_record([
+                w.row([
                     o.name,
                     o.unit,
                     o.source,
@@ -104,12 +86,12 @@ pub fn run(args: VerifyArgs) -> Result<(), Error> {
                     if o.passed { "true" } else { "false" },
                     o.error.as_deref().unwrap_or(""),
                 ])
-                .map_err(|e| io_failure(e.into()))?;
+                .map_err(io_failure)?;
             }
-            w.flush().map_err(io_failure)?;
+            w.finish().map_err(io_failure)?;
         }
         Format::Table => {
-            let mut rows: Vec<Vec<String>> = outcomes
+            let rows: Vec<Vec<String>> = outcomes
                 .iter()
                 .map(|o| {
                     vec![
@@ -124,16 +106,10 @@ pub fn run(args: VerifyArgs) -> Result<(), Error> {
                     ]
                 })
                 .collect();
-            let mut headers =
-                ["result", "case", "expected", "computed", "tolerance", "unit", "kind", "source"]
-                    .map(String::from);
-            for column in [1, 5, 6, 7] {
-                left_align(column, &mut headers, &mut rows);
-            }
-            let headers = headers.each_ref().map(String::as_str);
+            let headers = ["result", "case", "expected", "computed", "tolerance", "unit", "kind", "source"];
             writeln!(out, "cistern {version}: installation check, {} cases", outcomes.len())
                 .map_err(io_failure)?;
-            write!(out, "{}", render_table(&headers, &rows)).map_err(io_failure)?;
+            write!(out, "{}", render_table(&headers, &rows, &[1, 5, 6, 7])).map_err(io_failure)?;
             for o in outcomes.iter().filter(|o| o.error.is_some()) {
                 writeln!(out, "{}: {}", o.name, o.error.as_deref().unwrap_or_default())
                     .map_err(io_failure)?;

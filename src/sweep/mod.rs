@@ -15,20 +15,24 @@ pub mod state;
 pub mod summary;
 
 use crate::dosing::{Dose, Regimen};
+use crate::engine::Params;
 use crate::error::Error;
-use crate::io::output::{csv_field, io_failure};
+use crate::io::output::{CsvWriter, io_failure};
 use crate::plan::targets::{Limits, Target};
 use crate::plan::{Course, evaluate, last_day_end};
 use population::{Population, Subject};
 use rayon::prelude::*;
 use state::Tally;
-use std::fmt::Write as _;
 use std::io::Write;
 use std::ops::Range;
 
 /// Subject-regimen evaluations per chunk: bounds the memory held between writes (about
 /// 32 bytes per evaluation, plus the per-subject rows when asked for).
 const CHUNK_EVALUATIONS: usize = 1 << 16;
+
+/// The tasks each chunk is split into: each evaluates its subjects in order and writes their
+/// rows with one CSV writer, and there are enough of them to keep every thread busy.
+const TASKS_PER_CHUNK: u64 = 64;
 
 /// The columns of the per-subject CSV.
 pub const PER_SUBJECT_HEADER: &str = "subject,origin,regimen,cl_l_h,v_l,ka_per_h,trough_mg_l,peak_mg_l,\
@@ -68,16 +72,36 @@ impl Sweep<'_> {
         self.candidates.iter().map(|c| until.map(|u| Course::fresh().continued(c, None, u))).collect()
     }
 
-    /// Evaluate every candidate for subject `index`; with `rows`, also its per-subject rows.
+    /// Evaluate every candidate for subjects `span`, in order (outcomes subject by subject);
+    /// with `rows`, also their per-subject rows as CSV.
+    fn subjects(
+        &self,
+        span: Range<u64>,
+        doses: &[Option<Vec<Dose>>],
+        rows: bool,
+    ) -> Result<(Vec<Outcome>, Vec<u8>), Error> {
+        let mut outcomes = Vec::with_capacity((span.end - span.start) as usize * self.candidates.len());
+        let mut csv = rows.then(|| CsvWriter::new(Vec::new()));
+        for index in span {
+            self.subject(index, doses, &mut outcomes, csv.as_mut())?;
+        }
+        let bytes = match csv {
+            Some(w) => w.finish().map_err(io_failure)?,
+            None => Vec::new(),
+        };
+        Ok((outcomes, bytes))
+    }
+
+    /// Evaluate every candidate for subject `index` into `outcomes`; with `rows`, also write
+    /// its per-subject rows.
     fn subject(
         &self,
         index: u64,
         doses: &[Option<Vec<Dose>>],
-        rows: bool,
-    ) -> Result<(Vec<Outcome>, String), Error> {
+        outcomes: &mut Vec<Outcome>,
+        mut rows: Option<&mut CsvWriter<Vec<u8>>>,
+    ) -> Result<(), Error> {
         let Subject { params, origin } = self.population.subject(self.seed, index).map_err(Error::Usage)?;
-        let mut outcomes = Vec::with_capacity(self.candidates.len());
-        let mut text = String::new();
         for (k, (c, d)) in self.candidates.iter().zip(doses).enumerate() {
             let e = evaluate(&params, c, self.targets, self.limits, &Course::fresh(), d.as_deref())
                 .map_err(|inv| Error::Usage(format!("subject {}, regimen {}: {inv}", index + 1, k + 1)))?;
@@ -97,35 +121,50 @@ impl Sweep<'_> {
                     k + 1
                 )));
             }
-            if rows {
-                let _ = write!(text, "{},", index + 1);
-                text.push_str(&csv_field(origin.unwrap_or("")));
-                let _ = write!(text, ",{},{:?},{:?},", k + 1, params.cl_l_h, params.v_l);
-                if let Some(ka) = params.ka_per_h {
-                    let _ = write!(text, "{ka:?}");
-                }
-                let flag = |set: bool, on: bool| if set { if on { "true" } else { "false" } } else { "" };
-                let _ = writeln!(
-                    text,
-                    ",{:?},{:?},{:?},{},{},{}",
-                    o.trough_mg_l,
-                    o.peak_mg_l,
-                    o.auc24_mg_h_l,
-                    o.meets,
-                    flag(self.limits.max_peak_mg_l.is_some(), o.over_peak),
-                    flag(self.limits.max_trough_mg_l.is_some(), o.over_trough)
-                );
+            if let Some(w) = rows.as_mut() {
+                self.write_row(w, index, origin, k, &params, &o).map_err(io_failure)?;
             }
             outcomes.push(o);
         }
-        Ok((outcomes, text))
+        Ok(())
+    }
+
+    /// One per-subject row (the columns of [`PER_SUBJECT_HEADER`]).
+    fn write_row(
+        &self,
+        w: &mut CsvWriter<Vec<u8>>,
+        index: u64,
+        origin: Option<&str>,
+        k: usize,
+        params: &Params,
+        o: &Outcome,
+    ) -> std::io::Result<()> {
+        let yes_no = |on: bool| if on { "true" } else { "false" };
+        // Empty without the limit.
+        let over = |limit: Option<f64>, on: bool| if limit.is_some() { yes_no(on) } else { "" };
+        w.integer(index + 1)?;
+        w.text(origin.unwrap_or(""))?;
+        w.integer(k as u64 + 1)?;
+        w.number(params.cl_l_h)?;
+        w.number(params.v_l)?;
+        match params.ka_per_h {
+            Some(ka) => w.number(ka)?,
+            None => w.text("")?,
+        }
+        w.number(o.trough_mg_l)?;
+        w.number(o.peak_mg_l)?;
+        w.number(o.auc24_mg_h_l)?;
+        w.text(yes_no(o.meets))?;
+        w.text(over(self.limits.max_peak_mg_l, o.over_peak))?;
+        w.text(over(self.limits.max_trough_mg_l, o.over_trough))?;
+        w.end_row()
     }
 
     /// Evaluate every candidate once for the first subject, so that a regimen the engine
     /// refuses (an oral regimen without absorption in the model, say) is reported before any
     /// work is done.
     pub fn check(&self) -> Result<(), Error> {
-        self.subject(0, &self.course_doses(), false).map(|_| ())
+        self.subjects(0..1, &self.course_doses(), false).map(|_| ())
     }
 
     /// Sweep subjects `span` (0-based): per-subject rows (with [`PER_SUBJECT_HEADER`]) go to
@@ -138,25 +177,34 @@ impl Sweep<'_> {
         progress: &mut dyn FnMut(u64),
     ) -> Result<Vec<Tally>, Error> {
         let doses = self.course_doses();
-        let mut tallies = vec![Tally::new(self.limits); self.candidates.len()];
+        let regimens = self.candidates.len();
+        let mut tallies = vec![Tally::new(self.limits); regimens];
         if let Some(out) = per_subject.as_mut() {
-            writeln!(out, "{PER_SUBJECT_HEADER}").map_err(io_failure)?;
+            let mut w = CsvWriter::new(&mut **out);
+            w.row(PER_SUBJECT_HEADER.split(',')).map_err(io_failure)?;
+            w.finish().map_err(io_failure)?;
         }
         let rows = per_subject.is_some();
-        let chunk = (CHUNK_EVALUATIONS / self.candidates.len().max(1)).max(1) as u64;
+        let chunk = (CHUNK_EVALUATIONS / regimens.max(1)).max(1) as u64;
         let mut start = span.start;
         while start < span.end {
             let end = span.end.min(start + chunk);
-            let results: Vec<Result<(Vec<Outcome>, String), Error>> = (0..(end - start) as usize)
+            let per_task = (end - start).div_ceil(TASKS_PER_CHUNK);
+            let results: Vec<Result<_, Error>> = (0..(end - start).div_ceil(per_task))
                 .into_par_iter()
-                .map(|j| self.subject(start + j as u64, &doses, rows))
+                .map(|j| {
+                    let first = start + j * per_task;
+                    self.subjects(first..end.min(first + per_task), &doses, rows)
+                })
                 .collect();
             // The first failure in subject order, so the message does not depend on threads.
             let done = results.into_iter().collect::<Result<Vec<_>, Error>>()?;
-            tallies.par_iter_mut().enumerate().for_each(|(k, t)| done.iter().for_each(|(o, _)| t.add(&o[k])));
+            tallies.par_iter_mut().enumerate().for_each(|(k, t)| {
+                done.iter().flat_map(|(o, _)| o.chunks_exact(regimens)).for_each(|o| t.add(&o[k]))
+            });
             if let Some(out) = per_subject.as_mut() {
-                for (_, text) in &done {
-                    out.write_all(text.as_bytes()).map_err(io_failure)?;
+                for (_, csv) in &done {
+                    out.write_all(csv).map_err(io_failure)?;
                 }
             }
             progress(end - start);

@@ -3,7 +3,7 @@
 
 use super::state::{SweepState, SweptRegimen};
 use crate::dosing::{Regimen, Route};
-use crate::io::output::{CAUTION, Format, full, readable, render_table};
+use crate::io::output::{CAUTION, CsvWriter, Format, full, readable, render_table, write_json};
 use serde::Serialize;
 use std::io::Write;
 
@@ -99,13 +99,6 @@ pub const SUMMARY_HEADER: [&str; 21] = [
     "auc24_p95_mg_h_l",
 ];
 
-#[derive(Serialize)]
-struct SummaryJson<'a> {
-    #[serde(flatten)]
-    summary: &'a Summary,
-    caution: &'a str,
-}
-
 impl Summary {
     /// The summary of a whole sweep's state.
     pub fn of(state: &SweepState) -> Summary {
@@ -163,10 +156,7 @@ impl Summary {
     pub fn write(&self, out: &mut dyn Write, format: Format) -> std::io::Result<()> {
         match format {
             Format::Csv => self.write_csv(out),
-            Format::Json => {
-                serde_json::to_writer_pretty(&mut *out, &SummaryJson { summary: self, caution: CAUTION })?;
-                writeln!(out)
-            }
+            Format::Json => write_json(out, self),
             Format::Table => {
                 write!(out, "{}", self.table())?;
                 writeln!(out, "\n{CAUTION}")
@@ -175,8 +165,8 @@ impl Summary {
     }
 
     fn write_csv(&self, out: &mut dyn Write) -> std::io::Result<()> {
-        let mut w = csv::Writer::from_writer(out);
-        w.write_record(SUMMARY_HEADER)?;
+        let mut w = CsvWriter::new(out);
+        w.row(SUMMARY_HEADER)?;
         let opt = |x: Option<f64>| x.map(full).unwrap_or_default();
         for r in &self.regimens {
             let mut row = vec![
@@ -196,9 +186,9 @@ impl Summary {
             for p in [&r.trough_mg_l, &r.peak_mg_l, &r.auc24_mg_h_l] {
                 row.extend(p.cells());
             }
-            w.write_record(&row)?;
+            w.row(&row)?;
         }
-        w.flush()
+        w.finish().map(drop)
     }
 
     fn table(&self) -> String {
@@ -251,7 +241,7 @@ impl Summary {
         ];
         let mut text =
             format!("{} subjects, seed {}; targets: {}\n", self.subjects, self.seed, self.targets.join(", "));
-        text += &render_table(&headers, &rows);
+        text += &render_table(&headers, &rows, &[]);
         for r in &self.regimens {
             for reason in r.dose_limits_broken.iter().chain(&r.exposure_limits_broken) {
                 text += &format!("regimen {}: {reason}\n", r.index);
