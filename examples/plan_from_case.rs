@@ -17,7 +17,7 @@ fn main() -> Result<(), Error> {
     let study = Study::load(&spec.inputs, Required { model: true })?;
     let model = study.model.as_ref().ok_or_else(|| Error::Usage("the case names no model".into()))?;
     let seeds = Seeds(settings.seed);
-    let (subject, fit) = PlanSubject::fitted(&study, model, &spec.subject, seeds, settings.draws)?;
+    let (subject, fit) = PlanSubject::fitted(study.subject(&spec.subject)?, model, seeds, settings.draws)?;
     println!(
         "{}: CL {:.3} L/h, V {:.2} L",
         subject.id.as_deref().unwrap_or("subject"),

@@ -13,7 +13,7 @@
 //! let study = Study::load(&spec.inputs, Required { model: true })?;
 //! let (model, grid) = (study.model.as_ref().unwrap(), settings.grid.as_ref().unwrap());
 //! let seeds = Seeds(settings.seed);
-//! let (subject, fit) = PlanSubject::fitted(&study, model, &spec.subject, seeds, 200)?;
+//! let (subject, fit) = PlanSubject::fitted(study.subject(&spec.subject)?, model, seeds, 200)?;
 //! let outcome = plan(&subject, grid, settings.start_h, NextLevel::default(), seeds)?;
 //! let best = outcome.plan.recommended.expect("a regimen within every limit");
 //! println!("CL {:.2} L/h: {}", fit.parameters.cl_l_h, best.assessment.regimen.describe());

@@ -105,7 +105,7 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
                     args.output.note(n);
                 }
                 let model = study.model.as_ref().ok_or_else(|| Error::Usage("no population model".into()))?;
-                PlanSubject::fitted(&study, model, &spec.subject, seeds, draws).map(|(s, _)| s)
+                PlanSubject::fitted(study.subject(&spec.subject)?, model, seeds, draws).map(|(s, _)| s)
             }))
         }
     };

@@ -1,7 +1,7 @@
 //! The subject a plan is for: a dose history and the posterior to plan over, from a fit made
 //! on the spot or from a fit saved with its draws.
 
-use super::study::{Study, pick};
+use super::study::pick;
 use crate::dosing::Dose;
 use crate::engine::Params;
 use crate::error::{InputError, Origin, Result};
@@ -64,15 +64,14 @@ struct SavedSubject {
 }
 
 impl PlanSubject {
-    /// Fit the wanted subject of a study against its model, keeping `draws` posterior draws.
+    /// Fit a subject of a study (see [`super::Study::subject`]) against its model, keeping `draws`
+    /// posterior draws.
     pub fn fitted(
-        study: &Study,
+        subject: &SubjectData,
         model: &PopulationModel,
-        wanted: &Setting<String>,
         seeds: Seeds,
         draws: usize,
     ) -> Result<(PlanSubject, FitResult)> {
-        let subject = study.subject(wanted)?;
         let fit = planning_fit(subject, model, seeds, draws)?;
         let planned = PlanSubject {
             id: subject.id.clone(),

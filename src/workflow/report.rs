@@ -74,7 +74,7 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
     };
     let seeds = Seeds(settings.seed);
     let data = study.subject(&spec.subject)?;
-    let (subject, fit) = PlanSubject::fitted(&study, model, &spec.subject, seeds, settings.draws)?;
+    let (subject, fit) = PlanSubject::fitted(data, model, seeds, settings.draws)?;
     let Outcome { start_h, plan: planned, advice, notes } =
         plan(&subject, grid, settings.start_h, NextLevel::default(), seeds)?;
     let sweep = match (&spec.sweep, settings.sweep_subjects) {
