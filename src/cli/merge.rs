@@ -1,11 +1,13 @@
 //! `cistern merge`: combine the shard states of one sweep into its summary.
 
 use super::args::OutputArgs;
-use cistern::io::output::io_failure;
+use cistern::io::input::read_text;
+use cistern::io::output::{RunFiles, io_failure};
 use cistern::sweep::state::{Merger, SweepState};
 use cistern::sweep::summary::Summary;
 use cistern::{Error, InputError};
 use clap::Args;
+use std::path::Path;
 
 /// Combine the shard states written by `cistern sweep --shard I/N` into the summary one
 /// unsharded run writes, byte for byte. Every shard 1/N..N/N of one sweep is needed, once.
@@ -29,15 +31,13 @@ pub struct MergeArgs {
 pub fn run(args: MergeArgs) -> Result<(), Error> {
     let mut merger = Merger::default();
     for path in &args.shards {
-        let text = std::fs::read_to_string(path)
-            .map_err(|e| InputError::in_file(path, format!("cannot read the file as UTF-8 text: {e}")))?;
+        let text = read_text(Path::new(path))?;
         let state = SweepState::parse(&text).map_err(|m| InputError::in_file(path, m))?;
         merger.add(path, state).map_err(Error::Usage)?;
     }
     let merged = merger.finish().map_err(Error::Usage)?;
-    let inputs: Vec<&str> = args.shards.iter().map(String::as_str).collect();
     let format = args.output.format();
-    let mut sink = args.output.sink(&inputs)?;
+    let mut sink = args.output.sink(&mut RunFiles::new(&args.shards))?;
     Summary::of(&merged).write(sink.writer(), format).map_err(io_failure)?;
     args.output.caution_for_csv(format);
     args.output.note(&format!("merged {} shards of {} subjects", args.shards.len(), merged.setup.subjects));
