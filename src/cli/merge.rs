@@ -2,12 +2,15 @@
 //! state that merges again, and join the shards' per-subject files, each checked first.
 
 use super::args::OutputArgs;
-use cistern::io::output::{CAUTION, Sink, io_failure};
+use cistern::error::Origin;
+use cistern::io::input::read_text;
+use cistern::io::output::{CAUTION, RunFiles, io_failure};
 use cistern::sweep::join::join;
 use cistern::sweep::state::{Merger, SweepState};
 use cistern::sweep::summary::Summary;
 use cistern::{Error, InputError};
 use clap::Args;
+use std::path::Path;
 
 /// Combine the states written by `cistern sweep --shard I/N` (or by `merge --state-out`) into
 /// the summary one unsharded run writes, byte for byte; write the merged state, which merges
@@ -49,68 +52,42 @@ pub struct MergeArgs {
 
 /// Run the command.
 pub fn run(args: MergeArgs) -> Result<(), Error> {
+    // The outputs are opened first, so a bad path fails before any state is read; opening
+    // them among the run's files refuses one that is an input or another output.
+    let summary = args.output.output.is_some() || (args.state_out.is_none() && args.per_subject.is_none());
+    let mut files = RunFiles::new(args.states.iter().chain(&args.rows));
+    let mut joined =
+        args.per_subject.as_deref().map(|p| files.open(Origin::Flag("--per-subject".into()), p)).transpose()?;
+    let mut state_sink =
+        args.state_out.as_deref().map(|p| files.open(Origin::Flag("--state-out".into()), p)).transpose()?;
+    let mut summary_sink = if summary { Some(args.output.sink(&mut files)?) } else { None };
+
     let mut merger = Merger::default();
     for path in &args.states {
-        let text = std::fs::read_to_string(path)
-            .map_err(|e| InputError::in_file(path, format!("cannot read the file as UTF-8 text: {e}")))?;
+        let text = read_text(Path::new(path))?;
         let state = SweepState::parse(&text).map_err(|m| InputError::in_file(path, m))?;
         merger.add(path, state).map_err(Error::Usage)?;
     }
     let merged = merger.finish().map_err(Error::Usage)?;
-    let summary = args.output.output.is_some() || (args.state_out.is_none() && args.per_subject.is_none());
     if summary {
         merged.complete().map_err(|m| {
             Error::Usage(format!("{m}; --state-out without -o writes the merged state of some shards"))
         })?;
     }
-    let outputs = [
-        ("-o", summary.then(|| args.output.output.as_deref().unwrap_or("-"))),
-        ("--state-out", args.state_out.as_deref()),
-        ("--per-subject", args.per_subject.as_deref()),
-    ];
-    for (i, (flag, path)) in outputs.iter().enumerate() {
-        if let Some((other, _)) = outputs[..i].iter().find(|(_, p)| p.is_some() && p == path) {
-            return Err(InputError::flag(
-                *flag,
-                format!(
-                    "'{}' is also where {other} goes; give each output its own file",
-                    path.unwrap_or("-")
-                ),
-            )
-            .into());
-        }
+    if let Some(sink) = joined.as_mut() {
+        join(&merged, &args.rows, sink.writer())?;
     }
-
-    let inputs: Vec<&str> = args.states.iter().chain(&args.rows).map(String::as_str).collect();
-    let mut joined = match &args.per_subject {
-        Some(path) => {
-            let mut sink = Sink::open(Some(path), &inputs)?;
-            join(&merged, &args.rows, sink.writer())?;
-            Some(sink)
-        }
-        None => None,
-    };
-    let mut state_sink = match &args.state_out {
-        Some(path) => {
-            let mut sink = Sink::open(Some(path), &inputs)?;
-            merged.write(sink.writer()).map_err(io_failure)?;
-            Some(sink)
-        }
-        None => None,
-    };
-    let mut summary_sink = match summary {
-        true => {
+    if let Some(sink) = state_sink.as_mut() {
+        merged.write(sink.writer()).map_err(io_failure)?;
+    }
+    match summary_sink.as_mut() {
+        Some(sink) => {
             let format = args.output.format();
-            let mut sink = args.output.sink(&inputs)?;
             Summary::of(&merged).write(sink.writer(), format).map_err(io_failure)?;
             args.output.caution_for_csv(format);
-            Some(sink)
         }
-        false => None,
-    };
-    if summary_sink.is_none() {
         // States and per-subject rows cannot carry the caution themselves.
-        eprintln!("caution: {CAUTION}");
+        None => eprintln!("caution: {CAUTION}"),
     }
     let covered: u64 = merged.parts.iter().map(|p| p.subjects_to - p.subjects_from).sum();
     args.output.note(&format!(
@@ -119,7 +96,7 @@ pub fn run(args: MergeArgs) -> Result<(), Error> {
         merged.shards,
         merged.setup.subjects
     ));
-    for sink in [joined.take(), state_sink.take(), summary_sink.take()].into_iter().flatten() {
+    for sink in [joined, state_sink, summary_sink].into_iter().flatten() {
         sink.finish()?;
     }
     Ok(())

@@ -8,6 +8,7 @@ mod merge;
 mod plan;
 mod regimen_grid;
 mod report;
+mod signals;
 mod simulate;
 mod study;
 mod sweep;
@@ -59,6 +60,7 @@ pub fn run() -> ExitCode {
             return ExitCode::from(if e.use_stderr() { 2 } else { 0 });
         }
     };
+    signals::remove_unfinished_outputs_on_interrupt();
     let outcome = match cli.command {
         Command::Simulate(a) => simulate::run(a),
         Command::Exposure(a) => exposure::run(a),

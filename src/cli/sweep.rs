@@ -6,7 +6,7 @@ use super::regimen_grid::GridArgs;
 use cistern::dosing::Route;
 use cistern::engine::validate_absorption;
 use cistern::error::Problems;
-use cistern::io::output::{CAUTION, Format, Sink, io_failure};
+use cistern::io::output::{CAUTION, Format, RunFiles, io_failure};
 use cistern::spec::{Grid, Needs, Setting, Spec, Stated, SweepSpec};
 use cistern::sweep::Sweep;
 use cistern::sweep::sketch::RELATIVE_ERROR;
@@ -18,7 +18,7 @@ use cistern::{Error, InputError, Origin, case};
 use clap::Args;
 use indicatif::{ProgressBar, ProgressStyle};
 use std::io::IsTerminal;
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 /// Sweep candidate regimens over a virtual population: for each regimen the probability of
 /// target attainment (PTA), the probability of breaking each exposure limit, and the 5th,
@@ -147,15 +147,6 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
     if args.shard.is_some() && args.output.format.is_some_and(|f| f != Format::Json) {
         problems.push(InputError::flag("--format", "a shard writes its state as JSON; leave out --format"));
     }
-    if let Some(rows) = &args.per_subject {
-        let summary = args.output.output.as_deref().unwrap_or("-");
-        if rows == summary {
-            problems.push(InputError::flag(
-                "--per-subject",
-                format!("'{rows}' is also where the summary goes (-o); give them different files"),
-            ));
-        }
-    }
     let ((grid, shard), virtual_population) = problems.finish_with(grid.zip(shard).zip(population))?;
     let VirtualPopulation { population, subjects, described, notes } = virtual_population;
     notes.iter().for_each(|n| args.output.note(n));
@@ -167,13 +158,15 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
     let setup = Setup::new(described, seed, subjects, &candidates, &targets, &limits);
     let span = shard.span(subjects);
 
-    let files = spec.files();
-    let inputs: Vec<&str> = files.iter().filter_map(|p| p.to_str()).chain(args.params.as_deref()).collect();
-    let mut per_subject = match &args.per_subject {
-        Some(path) => Some(Sink::open(Some(path), &inputs)?),
-        None => None,
-    };
-    let mut sink = args.output.sink(&inputs)?;
+    // The outputs are opened before the work, so a bad path fails first.
+    let mut files =
+        RunFiles::new(spec.files().iter().map(PathBuf::as_path).chain(args.params.as_deref().map(Path::new)));
+    let mut sink = args.output.sink(&mut files)?;
+    let mut per_subject = args
+        .per_subject
+        .as_deref()
+        .map(|p| files.open(Origin::Flag("--per-subject".into()), p))
+        .transpose()?;
     let where_ = if args.shard.is_some() {
         format!(", shard {}/{}: subjects {}–{}", shard.index, shard.count, span.start + 1, span.end)
     } else {

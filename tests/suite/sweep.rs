@@ -730,7 +730,7 @@ fn catalog() -> Vec<Bad> {
         bad(&with(&format!("{grid} --shard 1/0")), "--shard: the number of shards N must be at least 1"),
         bad(&with(&format!("{grid} --shard a/b")), "--shard: expected I/N with whole numbers"),
         bad(&with(&format!("{grid} --shard 2/4 --format csv")), "--format: a shard writes its state as JSON"),
-        bad(&with(&format!("{grid} --per-subject out.csv")), "--per-subject: 'out.csv' is also where the summary goes"),
+        bad(&with(&format!("{grid} --per-subject out.csv")), "--per-subject: 'out.csv' is also where -o writes ('out.csv'); give each output its own file"),
         // The population.
         bad(&model(&format!("--subjects 100 {grid}")), "the model uses the covariates crcl_ml_min, weight_kg"),
         bad(&model(&format!("{grid} --draw weight_kg=70")), "--subjects: give the number of subjects"),
