@@ -6,6 +6,7 @@ use cistern::dosing::Regimen;
 use cistern::engine::steady::{SteadyCurve, SteadyState};
 use cistern::error::Problems;
 use cistern::io::output::{CAUTION, CsvWriter, Format, io_failure, readable, render_table, write_json};
+use cistern::limits::reported_conc;
 use clap::Args;
 use serde::Serialize;
 use serde::ser::{SerializeStruct, Serializer};
@@ -72,7 +73,10 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
     };
     let regimen = schedule.regimen;
     // Each flag's value was checked above; what is left is how they combine.
-    let ss = SteadyCurve::new(&params, regimen).map_err(invalid_flag)?.metrics();
+    let mut ss = SteadyCurve::new(&params, regimen).map_err(invalid_flag)?.metrics();
+    for c in [&mut ss.exposure.peak_mg_l, &mut ss.exposure.trough_mg_l, &mut ss.exposure.cavg_mg_l] {
+        *c = reported_conc(*c);
+    }
     let k = params.k_per_h();
     let doc = ExposureJson {
         parameters: ParametersJson {
