@@ -38,7 +38,7 @@ pub fn run(args: MergeArgs) -> Result<(), Error> {
     let inputs: Vec<&str> = args.shards.iter().map(String::as_str).collect();
     let format = args.output.format();
     let mut sink = args.output.sink(&inputs)?;
-    Summary::of(&merged).write(sink.writer(), format).map_err(io_failure)?;
+    Summary::of(&merged).write(sink.writer(), format, args.output.table_width()).map_err(io_failure)?;
     args.output.caution_for_csv(format);
     args.output.note(&format!("merged {} shards of {} subjects", args.shards.len(), merged.setup.subjects));
     sink.finish()

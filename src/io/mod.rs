@@ -2,6 +2,7 @@
 
 pub(crate) mod digest;
 pub mod doses;
+pub mod labels;
 pub mod levels;
 pub mod output;
 pub mod table;

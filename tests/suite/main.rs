@@ -21,4 +21,5 @@ mod published_fit;
 mod report;
 mod report_render;
 mod sweep;
+mod tables;
 mod verify;
