@@ -51,7 +51,7 @@ fn sweep(c: &mut Criterion) {
         let setup = Setup::new(serde_json::json!("bench"), 1, SUBJECTS, &candidates, &targets, &limits);
         let mut csv = Vec::new();
         Summary::of(&SweepState::new(setup, Shard::WHOLE, tallies, None))
-            .write(&mut csv, Format::Csv)
+            .write(&mut csv, Format::Csv, None)
             .unwrap();
         csv
     };

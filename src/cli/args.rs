@@ -51,6 +51,25 @@ impl OutputArgs {
         files.open(Origin::Flag("-o".into()), self.output.as_deref().unwrap_or("-"))
     }
 
+    /// The width a table should fit, in characters: none for a file (`-o FILE`); else the
+    /// COLUMNS environment variable when it holds a positive number, else the terminal's
+    /// width when stdout is one, else none (a pipe takes the whole table).
+    pub fn table_width(&self) -> Option<usize> {
+        if self.output.as_deref().is_some_and(|o| o != "-") {
+            return None;
+        }
+        let columns = std::env::var("COLUMNS").ok().and_then(|c| c.trim().parse::<usize>().ok());
+        columns.filter(|&c| c > 0).or_else(|| {
+            terminal_size::terminal_size_of(std::io::stdout())
+                .map(|(terminal_size::Width(w), _)| usize::from(w))
+        })
+    }
+
+    /// Whether long work shows a progress bar: on a terminal (stderr), unless `--quiet`.
+    pub fn progress(&self) -> bool {
+        std::io::stderr().is_terminal() && !self.quiet
+    }
+
     /// A note for the user on stderr, unless `--quiet`.
     pub fn note(&self, text: &str) {
         if !self.quiet {

@@ -5,8 +5,10 @@ use cistern::Error;
 use cistern::dosing::Regimen;
 use cistern::engine::steady::{SteadyCurve, SteadyState};
 use cistern::error::Problems;
+use cistern::io::labels::label;
 use cistern::io::output::{
-    CAUTION, CsvWriter, Format, RunFiles, io_failure, readable, render_table, write_json,
+    CAUTION, Column, CsvWriter, Format, RunFiles, fit_to_width, io_failure, readable, render_table,
+    write_json,
 };
 use cistern::limits::reported_conc;
 use clap::Args;
@@ -111,49 +113,53 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
             w.finish().map_err(io_failure)?;
         }
         Format::Table => {
+            // Each row is its own quantity and unit: five significant digits each.
             let table: Vec<Vec<String>> = rows(&doc)
                 .into_iter()
-                .map(|(name, value, label)| vec![label.to_string(), readable(value, 5), name.to_string()])
+                .map(|(key, value)| vec![label(key).to_string(), readable(value, 5), key.to_string()])
                 .collect();
-            write!(out, "{}", render_table(&["quantity", "value", "key"], &table, &[]))
-                .map_err(io_failure)?;
-            writeln!(out, "\n{CAUTION}").map_err(io_failure)?;
+            let columns =
+                [Column::text("quantity"), Column::number("value"), Column::text("key").optional(1)];
+            let width = args.output.table_width();
+            let text = format!("{}\n{CAUTION}\n", render_table(&columns, &table, width));
+            write!(out, "{}", fit_to_width(&text, width)).map_err(io_failure)?;
         }
     }
     args.output.caution_for_csv(format);
     sink.finish()
 }
 
-/// Every number of the output as (key, value, label), in a fixed order.
-fn rows(doc: &ExposureJson) -> Vec<(&'static str, f64, &'static str)> {
+/// Every number of the output as (key, value), in a fixed order; tables label the keys with
+/// [`label`].
+fn rows(doc: &ExposureJson) -> Vec<(&'static str, f64)> {
     let p = &doc.parameters;
     let (s, e) = (&doc.steady_state, &doc.steady_state.exposure);
     let mut rows = vec![
-        ("cl_l_h", p.cl_l_h, "clearance (L/h)"),
-        ("v_l", p.v_l, "volume (L)"),
-        ("k_per_h", p.k_per_h, "elimination rate constant (1/h)"),
-        ("half_life_h", p.half_life_h, "half-life (h)"),
-        ("time_constant_h", p.time_constant_h, "time constant V/CL (h)"),
-        ("steady_state_gain_h_l", p.steady_state_gain_h_l, "steady-state gain 1/CL (mg/L per mg/h)"),
+        ("cl_l_h", p.cl_l_h),
+        ("v_l", p.v_l),
+        ("k_per_h", p.k_per_h),
+        ("half_life_h", p.half_life_h),
+        ("time_constant_h", p.time_constant_h),
+        ("steady_state_gain_h_l", p.steady_state_gain_h_l),
     ];
     if let Some(ka) = p.ka_per_h {
-        rows.push(("ka_per_h", ka, "absorption rate constant (1/h)"));
+        rows.push(("ka_per_h", ka));
     }
     rows.extend([
-        ("amount_mg", doc.regimen.amount_mg, "dose (mg)"),
-        ("every_h", doc.regimen.every_h, "interval (h)"),
-        ("duration_h", doc.regimen.duration_h, "infusion duration (h)"),
-        ("peak_mg_l", e.peak_mg_l, "steady-state peak (mg/L)"),
-        ("peak_time_h", e.peak_time_h, "peak time after dose (h)"),
-        ("trough_mg_l", e.trough_mg_l, "steady-state trough (mg/L)"),
-        ("auc_tau_mg_h_l", e.auc_tau_mg_h_l, "AUC over one interval (mg·h/L)"),
-        ("auc24_mg_h_l", e.auc24_mg_h_l, "AUC over 24 h (mg·h/L)"),
-        ("cavg_mg_l", e.cavg_mg_l, "average concentration (mg/L)"),
-        ("accumulation_ratio", s.accumulation_ratio, "accumulation ratio"),
-        ("fluctuation_pct", s.fluctuation_pct, "peak-trough fluctuation (% of average)"),
-        ("time_to_90pct_h", s.time_to_90pct_h, "time to 90 % of steady state (h)"),
-        ("time_to_95pct_h", s.time_to_95pct_h, "time to 95 % of steady state (h)"),
-        ("loading_dose_mg", s.loading_dose_mg, "loading dose (mg)"),
+        ("amount_mg", doc.regimen.amount_mg),
+        ("every_h", doc.regimen.every_h),
+        ("duration_h", doc.regimen.duration_h),
+        ("peak_mg_l", e.peak_mg_l),
+        ("peak_time_h", e.peak_time_h),
+        ("trough_mg_l", e.trough_mg_l),
+        ("auc_tau_mg_h_l", e.auc_tau_mg_h_l),
+        ("auc24_mg_h_l", e.auc24_mg_h_l),
+        ("cavg_mg_l", e.cavg_mg_l),
+        ("accumulation_ratio", s.accumulation_ratio),
+        ("fluctuation_pct", s.fluctuation_pct),
+        ("time_to_90pct_h", s.time_to_90pct_h),
+        ("time_to_95pct_h", s.time_to_95pct_h),
+        ("loading_dose_mg", s.loading_dose_mg),
     ]);
     rows
 }

@@ -5,15 +5,18 @@ use super::study::StudyArgs;
 use cistern::engine::validate_absorption;
 use cistern::error::Problems;
 use cistern::fit::objective::Weighting;
-use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, fit_all};
+use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, fit_all_reporting};
+use cistern::io::labels::label;
 use cistern::io::output::{
-    CAUTION, CsvWriter, Format, RunFiles, full, io_failure, readable, render_table, write_json,
+    CAUTION, Column, CsvWriter, Format, RunFiles, column_decimals, fit_to_width, fixed, full, io_failure,
+    number_column, readable, render_table, write_json,
 };
 use cistern::spec::{DRAWS, Needs};
 use cistern::units::Kind;
 use cistern::workflow::{Required, Study};
-use cistern::{Error, InputError};
+use cistern::{Error, InputError, Origin};
 use clap::Args;
+use indicatif::{ProgressBar, ProgressStyle};
 use serde::Serialize;
 
 /// Estimate each subject's clearance and volume, with 95 % intervals, from sparse levels.
@@ -65,6 +68,14 @@ pub struct FitArgs {
     /// Oral lag time when the model gives none, e.g. 30min [default: 0]
     #[arg(long, value_name = "TIME", allow_hyphen_values = true)]
     tlag: Option<String>,
+    /// Print each subject's estimates and levels in full in the table, instead of one line
+    /// per subject
+    #[arg(long)]
+    details: bool,
+    /// Also write every level with its prediction and residuals to FILE (CSV, one row per
+    /// subject and level)
+    #[arg(long, value_name = "FILE")]
+    levels_out: Option<String>,
     #[command(flatten)]
     output: OutputArgs,
 }
@@ -110,8 +121,11 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
         args.output
             .note("the model's [absorption] table gives F and the lag time: --f and --tlag are not used");
     }
-    // The output is opened before the work, so a bad path fails first.
-    let mut sink = args.output.sink(&mut RunFiles::new(spec.files()))?;
+    // The outputs are opened before the work, so a bad path fails first.
+    let mut files = RunFiles::new(spec.files());
+    let mut sink = args.output.sink(&mut files)?;
+    let mut levels_sink =
+        args.levels_out.as_deref().map(|p| files.open(Origin::Flag("--levels-out".into()), p)).transpose()?;
     let options = FitOptions {
         method,
         intervals: args.intervals,
@@ -127,7 +141,18 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     // the failures reported after them.
     let mut fits = Vec::with_capacity(subjects.len());
     let mut failures = Vec::new();
-    for (s, outcome) in subjects.iter().zip(fit_all(&subjects, model.as_ref(), &options)) {
+    let bar = if args.output.progress() && subjects.len() > 1 {
+        let bar = ProgressBar::new(subjects.len() as u64);
+        if let Ok(style) = ProgressStyle::with_template("{bar:40} {pos}/{len} subjects fitted, {eta} left") {
+            bar.set_style(style);
+        }
+        bar
+    } else {
+        ProgressBar::hidden()
+    };
+    let outcomes = fit_all_reporting(&subjects, model.as_ref(), &options, &|| bar.inc(1));
+    bar.finish_and_clear();
+    for (s, outcome) in subjects.iter().zip(outcomes) {
         match outcome {
             Ok(r) => fits.push(r),
             Err(e) => failures.push(match &s.id {
@@ -145,12 +170,22 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
         Format::Json => write_json(out, &FitJson { subjects: &fits }).map_err(io_failure)?,
         Format::Csv => write_csv(out, &fits).map_err(io_failure)?,
         Format::Table => {
-            write!(out, "{}", table(&fits)).map_err(io_failure)?;
-            writeln!(out, "\n{CAUTION}").map_err(io_failure)?;
+            let width = args.output.table_width();
+            let text = if args.details { details(&fits, width) } else { summary(&fits, width) };
+            write!(out, "{}", fit_to_width(&format!("{text}\n{CAUTION}\n"), width)).map_err(io_failure)?;
         }
     }
-    args.output.caution_for_csv(format);
+    if let Some(levels) = levels_sink.as_mut() {
+        write_levels(levels.writer(), &fits).map_err(io_failure)?;
+    }
+    // The levels file is CSV: pure data, its caution on stderr.
+    if format == Format::Csv || levels_sink.is_some() {
+        eprintln!("caution: {CAUTION}");
+    }
     sink.finish()?;
+    if let Some(levels) = levels_sink {
+        levels.finish()?;
+    }
     if failures.is_empty() {
         Ok(())
     } else {
@@ -163,38 +198,55 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     }
 }
 
-fn estimate_cells(e: Option<&Estimate>) -> [String; 4] {
+fn estimate_cells(e: Option<&Estimate>, typical: Option<f64>) -> [String; 5] {
     let opt = |x: Option<f64>| x.map(full).unwrap_or_default();
     match e {
-        Some(e) => [full(e.value), opt(e.se), opt(e.ci95.map(|c| c[0])), opt(e.ci95.map(|c| c[1]))],
+        Some(e) => {
+            [full(e.value), opt(e.se), opt(e.ci95.map(|c| c[0])), opt(e.ci95.map(|c| c[1])), opt(typical)]
+        }
         None => Default::default(),
     }
 }
 
+fn method_name(r: &FitResult) -> String {
+    serde_json::to_value(r.method).ok().and_then(|v| v.as_str().map(str::to_string)).unwrap_or_default()
+}
+
 fn write_csv(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std::io::Result<()> {
     let names = ["cl_l_h", "v_l", "k_per_h", "half_life_h", "ka_per_h"];
-    let mut header = vec!["subject".to_string(), "method".into(), "converged".into(), "objective".into()];
+    let mut header = vec![
+        "subject".to_string(),
+        "method".into(),
+        "converged".into(),
+        "objective".into(),
+        "effective_draws".into(),
+    ];
     for n in names {
-        header.extend([n.to_string(), format!("{n}_se"), format!("{n}_ci95_lo"), format!("{n}_ci95_hi")]);
+        header.extend([
+            n.to_string(),
+            format!("{n}_se"),
+            format!("{n}_ci95_lo"),
+            format!("{n}_ci95_hi"),
+            format!("{n}_typical"),
+        ]);
     }
     header.push("warnings".into());
     let mut w = CsvWriter::new(out);
     w.row(&header)?;
     for r in fits {
-        let e = &r.estimates;
         let mut row = vec![
             r.subject.clone().unwrap_or_default(),
-            serde_json::to_value(r.method)
-                .ok()
-                .and_then(|v| v.as_str().map(str::to_string))
-                .unwrap_or_default(),
+            method_name(r),
             r.converged.to_string(),
             full(r.objective),
+            r.effective_draws.map(full).unwrap_or_default(),
         ];
-        for est in
-            [Some(&e.cl_l_h), Some(&e.v_l), Some(&e.k_per_h), Some(&e.half_life_h), e.ka_per_h.as_ref()]
-        {
-            row.extend(estimate_cells(est));
+        // named_estimates lists cl, v, k, half-life and (when estimated) ka, with the
+        // typical value for this subject's covariates.
+        let named = r.named_estimates();
+        for i in 0..names.len() {
+            let found = named.get(i);
+            row.extend(estimate_cells(found.map(|n| n.2), found.and_then(|n| n.3)));
         }
         row.push(r.warnings.join("; "));
         w.row(&row)?;
@@ -202,52 +254,174 @@ fn write_csv(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std::io::Resul
     w.finish().map(drop)
 }
 
-fn table(fits: &[FitResult]) -> String {
+/// The `--levels-out` CSV: every subject's levels with their predictions and residuals.
+fn write_levels(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std::io::Result<()> {
+    let mut w = CsvWriter::new(out);
+    w.row([
+        "subject",
+        "time_h",
+        "observed_mg_l",
+        "lloq_mg_l",
+        "blq",
+        "predicted_mg_l",
+        "residual_mg_l",
+        "weighted_residual",
+    ])?;
+    for r in fits {
+        for l in &r.levels {
+            w.text(r.subject.as_deref().unwrap_or(""))?;
+            w.number(l.time_h)?;
+            for x in [l.observed_mg_l, l.lloq_mg_l] {
+                match x {
+                    Some(x) => w.number(x)?,
+                    None => w.text("")?,
+                }
+            }
+            w.text(if l.blq { "true" } else { "false" })?;
+            w.number(l.predicted_mg_l)?;
+            for x in [l.residual_mg_l, l.weighted_residual] {
+                match x {
+                    Some(x) => w.number(x)?,
+                    None => w.text("")?,
+                }
+            }
+            w.end_row()?;
+        }
+    }
+    w.finish().map(drop)
+}
+
+/// The study at a glance: one line per subject with the clearance and volume, their 95 %
+/// intervals and typical values, the half-life, convergence and warnings.
+fn summary(fits: &[FitResult], width: Option<usize>) -> String {
+    // Positions in FitResult::named_estimates (clearance, volume, k, half-life, ka), a short
+    // name, and how readily the estimate and its interval are left out on a narrow terminal.
+    let mut estimates = vec![
+        ("cl_l_h", 0, "clearance", 0, 2),
+        ("v_l", 1, "volume", 0, 2),
+        ("half_life_h", 3, "half-life", 3, 4),
+    ];
+    if fits.iter().any(|r| r.estimates.ka_per_h.is_some()) {
+        estimates.push(("ka_per_h", 4, "ka", 0, 4));
+    }
+    let mut columns = vec![Column::text("subject")];
+    let mut cells: Vec<Vec<String>> = Vec::new();
+    for &(key, position, name, rank, interval_rank) in &estimates {
+        let unit = cistern::io::labels::name_and_unit(key).1;
+        let value = |f: &dyn Fn(&Estimate) -> Option<f64>| -> Vec<Option<f64>> {
+            fits.iter().map(|r| r.named_estimates().get(position).and_then(|n| f(n.2))).collect()
+        };
+        let (estimate, lo, hi) =
+            (value(&|e| Some(e.value)), value(&|e| e.ci95.map(|c| c[0])), value(&|e| e.ci95.map(|c| c[1])));
+        let typical: Vec<Option<f64>> =
+            fits.iter().map(|r| r.named_estimates().get(position).and_then(|n| n.3)).collect();
+        // The estimate, its interval and the typical value share one number of decimals.
+        let d = column_decimals([&estimate, &lo, &hi, &typical].into_iter().flatten().flatten().copied(), 3);
+        let cell = |x: &Option<f64>| x.map_or_else(|| "—".to_string(), |x| fixed(x, d));
+        columns.push(Column::number(format!("{name}\n({unit})")).optional(rank));
+        cells.push(estimate.iter().map(cell).collect());
+        columns.push(Column::number("95 %\ninterval").optional(interval_rank));
+        cells.push(
+            lo.iter()
+                .zip(&hi)
+                .map(|(a, b)| match (a, b) {
+                    (Some(_), Some(_)) => format!("{}–{}", cell(a), cell(b)),
+                    _ => "—".into(),
+                })
+                .collect(),
+        );
+        if position < 2 {
+            columns.push(Column::number(format!("typical\n({unit})")).optional(1));
+            cells.push(typical.iter().map(cell).collect());
+        }
+    }
+    columns.push(Column::text("converged"));
+    columns.push(Column::number("warnings"));
+    let rows: Vec<Vec<String>> = fits
+        .iter()
+        .enumerate()
+        .map(|(i, r)| {
+            let mut row = vec![r.subject.clone().unwrap_or_else(|| "—".into())];
+            row.extend(cells.iter().map(|c| c[i].clone()));
+            row.push(if r.converged { "yes".into() } else { "NO".into() });
+            row.push(r.warnings.len().to_string());
+            row
+        })
+        .collect();
+    let methods: Vec<String> = {
+        let mut m: Vec<String> = fits.iter().map(method_name).collect();
+        m.dedup();
+        m
+    };
+    let mut text = format!("{} subjects fitted, method {}\n", fits.len(), methods.join(", "));
+    text += &render_table(&columns, &rows, width);
+    text += "Typical: the population's value for the subject's covariates. --details shows each \
+             subject's levels; --format csv or json has every number.\n";
+    for r in fits {
+        for w in &r.warnings {
+            text += &format!("{}: warning: {w}\n", r.subject.as_deref().unwrap_or("subject"));
+        }
+    }
+    text
+}
+
+/// Each subject in full: the estimates with their se, interval and typical value, and the
+/// levels with their predictions.
+fn details(fits: &[FitResult], width: Option<usize>) -> String {
     let mut text = String::new();
     for r in fits {
         let name = r.subject.as_deref().unwrap_or("subject");
-        let method = serde_json::to_value(r.method)
-            .ok()
-            .and_then(|v| v.as_str().map(str::to_string))
-            .unwrap_or_default();
         text += &format!(
-            "{name} — method {method}, {}, objective {}\n",
+            "{name} — method {}, {}, objective {}\n",
+            method_name(r),
             if r.converged { "converged" } else { "NOT converged" },
             readable(r.objective, 6)
         );
         let mut rows = Vec::new();
         for (name, unit, est, typical) in r.named_estimates() {
-            let label = format!("{name} ({unit})");
-            let ci = est
-                .ci95
-                .map(|c| format!("{} – {}", readable(c[0], 4), readable(c[1], 4)))
-                .unwrap_or_else(|| "—".into());
+            // One row's numbers share one unit: one number of decimals for them all.
+            let values = [Some(est.value), est.se, est.ci95.map(|c| c[0]), est.ci95.map(|c| c[1]), typical];
+            let cells = number_column(&values, 4);
             rows.push(vec![
-                label,
-                readable(est.value, 4),
-                est.se.map(|s| readable(s, 3)).unwrap_or_else(|| "—".into()),
-                ci,
-                typical.map(|t| readable(t, 4)).unwrap_or_default(),
+                format!("{name} ({unit})"),
+                cells[0].clone(),
+                cells[1].clone(),
+                if est.ci95.is_some() { format!("{} – {}", cells[2], cells[3]) } else { "—".into() },
+                if typical.is_some() { cells[4].clone() } else { String::new() },
             ]);
         }
-        text += &render_table(&["parameter", "estimate", "se", "95% interval", "typical"], &rows, &[]);
-        let lv: Vec<Vec<String>> = r
-            .levels
+        let columns = [
+            Column::text("parameter"),
+            Column::number("estimate"),
+            Column::number("SE").optional(1),
+            Column::number("95 % interval"),
+            Column::number("typical"),
+        ];
+        text += &render_table(&columns, &rows, width);
+        let levels = &r.levels;
+        let times = number_column(&levels.iter().map(|l| Some(l.time_h)).collect::<Vec<_>>(), 5);
+        let observed = number_column(&levels.iter().map(|l| l.observed_mg_l).collect::<Vec<_>>(), 4);
+        let predicted = number_column(&levels.iter().map(|l| Some(l.predicted_mg_l)).collect::<Vec<_>>(), 4);
+        let weighted = number_column(&levels.iter().map(|l| l.weighted_residual).collect::<Vec<_>>(), 3);
+        let lv: Vec<Vec<String>> = levels
             .iter()
-            .map(|l| {
+            .enumerate()
+            .map(|(i, l)| {
                 vec![
-                    readable(l.time_h, 5),
+                    times[i].clone(),
                     match (l.observed_mg_l, l.lloq_mg_l) {
-                        (Some(y), _) => readable(y, 4),
+                        (Some(_), _) => observed[i].clone(),
                         (None, Some(q)) => format!("<{}", readable(q, 3)),
                         (None, None) => "BLQ".into(),
                     },
-                    readable(l.predicted_mg_l, 4),
-                    l.weighted_residual.map(|w| readable(w, 3)).unwrap_or_default(),
+                    predicted[i].clone(),
+                    if l.weighted_residual.is_some() { weighted[i].clone() } else { String::new() },
                 ]
             })
             .collect();
-        text += &render_table(&["time_h", "observed_mg_l", "predicted_mg_l", "weighted_residual"], &lv, &[]);
+        let columns = ["time_h", "observed_mg_l", "predicted_mg_l", "weighted_residual"]
+            .map(|k| Column::number(label(k).replacen(" (", "\n(", 1)));
+        text += &render_table(&columns, &lv, width);
         for d in &r.derived_covariates {
             text += &format!("derived: {d}\n");
         }

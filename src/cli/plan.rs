@@ -12,8 +12,10 @@ use cistern::{Origin, Seeds};
 use std::path::PathBuf;
 
 use cistern::Error;
+use cistern::io::labels::{name_and_unit, percent};
 use cistern::io::output::{
-    CAUTION, CsvWriter, Format, RunFiles, full, io_failure, readable, render_table, write_json,
+    CAUTION, Column, CsvWriter, Format, RunFiles, column_decimals, fit_to_width, fixed, full, io_failure,
+    number_column, readable, render_table, write_json,
 };
 use cistern::plan::advisor::Advice;
 use cistern::plan::recommend::Plan;
@@ -148,9 +150,9 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
         }
         Format::Csv => write_csv(out, &result).map_err(io_failure)?,
         Format::Table => {
-            write!(out, "{}", table(&subject, targets, &result, advice.as_ref(), start_h))
-                .map_err(io_failure)?;
-            writeln!(out, "\n{CAUTION}").map_err(io_failure)?;
+            let width = args.output.table_width();
+            let text = table(&subject, targets, &result, advice.as_ref(), start_h, width);
+            write!(out, "{}", fit_to_width(&format!("{text}\n{CAUTION}\n"), width)).map_err(io_failure)?;
         }
     }
     args.output.caution_for_csv(format);
@@ -210,11 +212,18 @@ fn write_csv(out: &mut dyn std::io::Write, plan: &Plan) -> std::io::Result<()> {
     w.finish().map(drop)
 }
 
-fn band(b: &cistern::plan::recommend::Band, digits: usize) -> String {
-    format!("{} ({}–{})", readable(b.median, digits), readable(b.p05, digits), readable(b.p95, digits))
-}
+/// Candidates the table shows (CSV and JSON list all).
+const SHOWN: usize = 15;
 
-fn table(post: &PlanSubject, targets: &[Target], plan: &Plan, advice: Option<&Advice>, start: f64) -> String {
+fn table(
+    post: &PlanSubject,
+    targets: &[Target],
+    plan: &Plan,
+    advice: Option<&Advice>,
+    start: f64,
+    width: Option<usize>,
+) -> String {
+    use cistern::plan::recommend::{Assessment, Band};
     let mut text = String::new();
     let who = post.id.as_deref().unwrap_or("the subject");
     let goals: Vec<String> = targets.iter().map(Target::to_string).collect();
@@ -223,52 +232,57 @@ fn table(post: &PlanSubject, targets: &[Target], plan: &Plan, advice: Option<&Ad
         goals.join(", "),
         readable(start, 5)
     );
-    let rows: Vec<Vec<String>> = plan
-        .candidates
+    let shown: Vec<&Assessment> = plan.candidates.iter().take(SHOWN).collect();
+    // One number of decimals per metric, for its medians and its 90 % ranges alike.
+    let metrics: [fn(&Assessment) -> &Band; 3] =
+        [|a| &a.predicted.peak_mg_l, |a| &a.predicted.trough_mg_l, |a| &a.predicted.auc24_mg_h_l];
+    let decimals =
+        metrics.map(|m| column_decimals(shown.iter().flat_map(|a| [m(a).p05, m(a).median, m(a).p95]), 3));
+    let rows: Vec<Vec<String>> = shown
         .iter()
-        .take(15)
         .enumerate()
         .map(|(i, a)| {
-            vec![
-                (i + 1).to_string(),
-                a.regimen.describe(),
-                format!("{:.1} %", 100.0 * a.pta),
-                band(&a.predicted.peak_mg_l, 3),
-                band(&a.predicted.trough_mg_l, 3),
-                band(&a.predicted.auc24_mg_h_l, 3),
-                if a.limits_broken.is_empty() {
-                    "ok".into()
-                } else {
-                    format!("{} broken", a.limits_broken.len())
-                },
-            ]
+            let mut row = vec![(i + 1).to_string(), a.regimen.describe(), fixed(100.0 * a.pta, 1)];
+            for (m, d) in metrics.iter().zip(decimals) {
+                let b = m(a);
+                row.push(fixed(b.median, d));
+                row.push(format!("{}–{}", fixed(b.p05, d), fixed(b.p95, d)));
+            }
+            row.push(if a.limits_broken.is_empty() {
+                "ok".into()
+            } else {
+                format!("{} broken", a.limits_broken.len())
+            });
+            row
         })
         .collect();
-    text += &render_table(
-        &[
-            "rank",
-            "regimen",
-            "PTA",
-            "peak mg/L (90 %)",
-            "trough mg/L (90 %)",
-            "AUC24 mg·h/L (90 %)",
-            "limits",
-        ],
-        &rows,
-        &[],
-    );
-    if plan.candidates.len() > 15 {
-        text += &format!("… and {} more candidates (--format csv lists all)\n", plan.candidates.len() - 15);
+    let columns = [
+        Column::number("rank"),
+        Column::text("regimen"),
+        Column::number("PTA\n(%)"),
+        Column::number("peak\n(mg/L)").optional(1),
+        Column::number("peak\n90 %").optional(2),
+        Column::number("trough\n(mg/L)"),
+        Column::number("trough\n90 %").optional(2),
+        Column::number("AUC24\n(mg·h/L)"),
+        Column::number("AUC24\n90 %").optional(2),
+        Column::text("limits"),
+    ];
+    text += &render_table(&columns, &rows, width);
+    text += "Medians over the posterior draws, with their 5th to 95th percentiles (90 %).\n";
+    if plan.candidates.len() > SHOWN {
+        text +=
+            &format!("… and {} more candidates (--format csv lists all)\n", plan.candidates.len() - SHOWN);
     }
     text.push('\n');
     match &plan.recommended {
         Some(r) => {
             let a = &r.assessment;
             text += &format!(
-                "Recommended: {} from {} h — PTA {:.1} %",
+                "Recommended: {} from {} h — PTA {}",
                 a.regimen.describe(),
                 readable(r.start_h, 5),
-                100.0 * a.pta
+                percent(a.pta)
             );
             if let Some(t) = a.time_to_target_h {
                 text += &format!(
@@ -290,31 +304,36 @@ fn table(post: &PlanSubject, targets: &[Target], plan: &Plan, advice: Option<&Ad
     for n in &plan.notes {
         text += &format!("note: {n}\n");
     }
-    for (i, a) in plan.candidates.iter().take(15).enumerate() {
+    for (i, a) in plan.candidates.iter().take(SHOWN).enumerate() {
         for why in &a.limits_broken {
             text += &format!("rank {}: {why}\n", i + 1);
         }
     }
     if let Some(adv) = advice {
+        let (exposure, unit) = name_and_unit(&adv.exposure);
         text += &format!(
-            "\nNext level: to pin down {} (90 % interval now {} wide), draw it at\n",
-            adv.exposure,
+            "\nNext level: to pin down {exposure} (its 90 % interval is now {} {unit} wide), draw it at\n",
             readable(adv.current_ci90_width, 3)
         );
-        let rows: Vec<Vec<String>> = adv
-            .times
-            .iter()
-            .take(5)
-            .map(|s| {
-                vec![
-                    readable(s.time_h, 5),
-                    readable(s.after_dose_h, 3),
-                    readable(s.expected_ci90_width, 3),
-                    format!("{:.0} %", s.shrinkage_pct),
-                ]
-            })
-            .collect();
-        text += &render_table(&["time_h", "h after dose", "expected 90 % width", "shrinkage"], &rows, &[]);
+        let times: Vec<_> = adv.times.iter().take(5).collect();
+        let column = |f: &dyn Fn(&cistern::plan::advisor::SampleValue) -> f64, digits| {
+            number_column(&times.iter().map(|s| Some(f(s))).collect::<Vec<_>>(), digits)
+        };
+        let cells = [
+            column(&|s| s.time_h, 5),
+            column(&|s| s.after_dose_h, 3),
+            column(&|s| s.expected_ci90_width, 3),
+            column(&|s| s.shrinkage_pct, 2),
+        ];
+        let rows: Vec<Vec<String>> =
+            (0..times.len()).map(|i| cells.iter().map(|c| c[i].clone()).collect()).collect();
+        let columns = [
+            Column::number("time (h)"),
+            Column::number("after the\ndose (h)"),
+            Column::number(format!("expected 90 %\nwidth ({unit})")),
+            Column::number("narrower\nby (%)"),
+        ];
+        text += &render_table(&columns, &rows, width);
     }
     text
 }

@@ -3,14 +3,17 @@
 use super::args::{OutputArgs, ParamArgs, RegimenArgs, flag_value, invalid_flag};
 use cistern::dosing::Dose;
 use cistern::engine;
+use cistern::engine::Params;
 use cistern::error::Problems;
 use cistern::io::doses::{DoseFile, parse_doses};
+use cistern::io::labels::label;
 use cistern::io::output::{
-    CAUTION, CsvWriter, Format, RunFiles, full, io_failure, readable, render_table, write_json,
+    CAUTION, Column, CsvWriter, Format, RunFiles, fit_to_width, full, io_failure, number_column, readable,
+    render_table, write_json,
 };
 use cistern::io::table::Table;
 use cistern::limits::{check_output_size, reported_conc};
-use cistern::report::layout::{PlotSpec, Series, Stroke};
+use cistern::report::layout::{DoseTick, PlotSpec, Series, Stroke};
 use cistern::report::svg;
 use cistern::units::Kind;
 use cistern::{Error, InputError, Origin};
@@ -213,33 +216,38 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
             }
         }
         Format::Table => {
-            let mut headers = vec!["time_h", "conc_mg_l"];
+            let mut columns = vec![Column::number(label("time_h")), Column::number(label("conc_mg_l"))];
             if with_subject {
-                headers.insert(0, "subject");
+                columns.insert(0, Column::text("subject"));
             }
-            let mut rows = Vec::new();
-            for ((who, _), (conc, _)) in subjects.iter().zip(&curves) {
-                for (t, c) in times.iter().zip(conc) {
-                    let mut row = vec![readable(*t, 6), readable(*c, 5)];
-                    if with_subject {
-                        row.insert(0, who.clone().unwrap_or_default());
-                    }
-                    rows.push(row);
-                }
-            }
-            write!(out, "{}", render_table(&headers, &rows, &[])).map_err(io_failure)?;
-            writeln!(out).map_err(io_failure)?;
+            // One number of decimals per column, over every subject.
+            let all_times: Vec<Option<f64>> =
+                curves.iter().flat_map(|_| times.iter().map(|t| Some(*t))).collect();
+            let all_conc: Vec<Option<f64>> =
+                curves.iter().flat_map(|(c, _)| c.iter().map(|c| Some(*c))).collect();
+            let (time_cells, conc_cells) = (number_column(&all_times, 6), number_column(&all_conc, 4));
+            let who = subjects
+                .iter()
+                .flat_map(|(who, _)| times.iter().map(move |_| who.clone().unwrap_or_default()));
+            let rows: Vec<Vec<String>> = who
+                .zip(time_cells.into_iter().zip(conc_cells))
+                .map(|(who, (t, c))| if with_subject { vec![who, t, c] } else { vec![t, c] })
+                .collect();
+            let width = args.output.table_width();
+            let mut text = render_table(&columns, &rows, width);
+            text.push('\n');
             for ((who, _), (_, auc)) in subjects.iter().zip(&curves) {
                 let name = who.as_deref().map(|s| format!("subject {s}: ")).unwrap_or_default();
-                writeln!(out, "{name}AUC {t_lo}–{t_hi} h = {} mg·h/L (exact integral)", readable(*auc, 5))
-                    .map_err(io_failure)?;
+                text +=
+                    &format!("{name}AUC {t_lo}–{t_hi} h = {} mg·h/L (exact integral)\n", readable(*auc, 5));
             }
-            writeln!(out, "\n{CAUTION}").map_err(io_failure)?;
+            text += &format!("\n{CAUTION}\n");
+            write!(out, "{}", fit_to_width(&text, width)).map_err(io_failure)?;
         }
     }
     args.output.caution_for_csv(format);
     if let Some(mut plot) = svg_sink {
-        let panels = curve_plots(&subjects, &times, &curves);
+        let panels = curve_plots(&params, &subjects, (t_lo, t_hi));
         plot.writer().write_all(svg::render_svg(&panels, CAUTION).as_bytes()).map_err(io_failure)?;
         plot.finish()?;
     }
@@ -270,12 +278,34 @@ fn write_csv(
     w.finish().map(drop)
 }
 
-/// The simulated curves as plot panels, linear and logarithmic, one line per subject.
-fn curve_plots(
-    subjects: &[(Option<String>, Vec<Dose>)],
-    times: &[f64],
-    curves: &[(Vec<f64>, f64)],
-) -> Vec<PlotSpec> {
+/// Points the plot samples between two events, besides its requested times.
+const PLOT_POINTS: usize = 800;
+
+/// The times a plot of the curve over `[lo, hi]` samples: an even grid, every dose start and
+/// infusion end (where the exact curve has its corners: an infusion's peak is at its end), and
+/// a point just before each (so a bolus shows as a jump, not a ramp). The engine is exact at
+/// every time, so the plot is the exact curve at these points, whatever grid the table used.
+fn plot_times(params: &Params, doses: &[Dose], (lo, hi): (f64, f64)) -> Vec<f64> {
+    let span = hi - lo;
+    if span <= 0.0 {
+        return vec![lo];
+    }
+    let mut times: Vec<f64> = (0..=PLOT_POINTS).map(|i| lo + span * i as f64 / PLOT_POINTS as f64).collect();
+    let just_before = span * 1e-9;
+    for d in doses {
+        let start = d.time_h + if d.route == cistern::dosing::Route::Oral { params.tlag_h } else { 0.0 };
+        for corner in [start, start + d.duration_h] {
+            times.extend([corner - just_before, corner].into_iter().filter(|t| (lo..=hi).contains(t)));
+        }
+    }
+    times.sort_by(f64::total_cmp);
+    times.dedup();
+    times
+}
+
+/// The simulated curves as plot panels, linear and logarithmic, one line per subject, each
+/// the exact curve ([`plot_times`]) with its doses ticked in its colour.
+fn curve_plots(params: &Params, subjects: &[(Option<String>, Vec<Dose>)], span: (f64, f64)) -> Vec<PlotSpec> {
     const COLORS: [(f32, f32, f32); 6] = [
         (0.12, 0.35, 0.65),
         (0.80, 0.40, 0.10),
@@ -286,19 +316,23 @@ fn curve_plots(
     ];
     let series: Vec<Series> = subjects
         .iter()
-        .zip(curves)
         .enumerate()
-        .map(|(i, ((who, _), (conc, _)))| Series {
-            label: who.clone().unwrap_or_else(|| "concentration".into()),
-            xs: times.to_vec(),
-            ys: conc.clone(),
-            stroke: Stroke::Solid,
-            color: COLORS[i % COLORS.len()],
+        .map(|(i, (who, doses))| {
+            let xs = plot_times(params, doses, span);
+            Series {
+                label: who.clone().unwrap_or_else(|| "concentration".into()),
+                ys: engine::concentrations(params, doses, &xs),
+                xs,
+                stroke: Stroke::Solid,
+                color: COLORS[i % COLORS.len()],
+            }
         })
         .collect();
-    let mut doses: Vec<f64> = subjects.iter().flat_map(|(_, d)| d.iter().map(|d| d.time_h)).collect();
-    doses.sort_by(f64::total_cmp);
-    doses.dedup();
+    let doses: Vec<DoseTick> = subjects
+        .iter()
+        .zip(&series)
+        .flat_map(|((_, doses), s)| doses.iter().map(|d| DoseTick { x: d.time_h, color: s.color }))
+        .collect();
     [false, true]
         .into_iter()
         .map(|log_y| PlotSpec {

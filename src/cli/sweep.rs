@@ -17,7 +17,6 @@ use cistern::workflow::sweep::{Source, VirtualPopulation, population};
 use cistern::{Error, InputError, Origin, case};
 use clap::Args;
 use indicatif::{ProgressBar, ProgressStyle};
-use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
 
 /// Sweep candidate regimens over a virtual population: for each regimen the probability of
@@ -177,7 +176,7 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
         candidates.len(),
         100.0 * RELATIVE_ERROR
     ));
-    let bar = if std::io::stderr().is_terminal() && !args.output.quiet {
+    let bar = if args.output.progress() {
         let bar = ProgressBar::new(span.end - span.start);
         if let Ok(style) = ProgressStyle::with_template("{bar:40} {pos}/{len} subjects, {eta} left") {
             bar.set_style(style);
@@ -195,7 +194,7 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
     if args.shard.is_some() {
         state.write(out).map_err(io_failure)?;
     } else {
-        Summary::of(&state).write(out, format).map_err(io_failure)?;
+        Summary::of(&state).write(out, format, args.output.table_width()).map_err(io_failure)?;
     }
     // The caution travels on stderr with data that cannot carry it (CSV, shard states,
     // per-subject rows); tables and JSON summaries carry it themselves.

@@ -3,7 +3,8 @@
 use super::args::OutputArgs;
 use cistern::Error;
 use cistern::io::output::{
-    CAUTION, CsvWriter, Format, RunFiles, full, io_failure, readable, render_table, write_json,
+    CAUTION, Column, CsvWriter, Format, RunFiles, fit_to_width, fixed, full, io_failure, render_table,
+    write_json,
 };
 use cistern::verify::{BOURNE_NOTES, Outcome, Tolerance, run_all};
 use clap::Args;
@@ -36,6 +37,21 @@ struct VerifyJson<'a> {
 
 fn result_label(o: &Outcome) -> &'static str {
     if o.passed { "pass" } else { "FAIL" }
+}
+
+/// The decimals a case's expected and computed values both print with: down to the first
+/// significant decimal of the allowed difference, so that the two read at the same precision,
+/// the tolerance's.
+fn decimals(o: &Outcome) -> usize {
+    let allowed = match o.tolerance {
+        Tolerance::Absolute(t) => t,
+        Tolerance::Relative(t) => t * o.expected.abs(),
+    };
+    if allowed > 0.0 && allowed.is_finite() {
+        (-allowed.log10().floor() as i32).clamp(0, 12) as usize
+    } else {
+        6
+    }
 }
 
 fn tolerance_parts(t: Tolerance) -> (&'static str, f64) {
@@ -96,11 +112,12 @@ pub fn run(args: VerifyArgs) -> Result<(), Error> {
             let rows: Vec<Vec<String>> = outcomes
                 .iter()
                 .map(|o| {
+                    let d = decimals(o);
                     vec![
                         result_label(o).to_string(),
                         o.name.to_string(),
-                        full(o.expected),
-                        o.computed.map_or_else(|| "error".to_string(), |c| readable(c, 7)),
+                        fixed(o.expected, d),
+                        o.computed.map_or_else(|| "error".to_string(), |c| fixed(c, d)),
                         o.tolerance.label(),
                         o.unit.to_string(),
                         o.kind.label().to_string(),
@@ -108,19 +125,27 @@ pub fn run(args: VerifyArgs) -> Result<(), Error> {
                     ]
                 })
                 .collect();
-            let headers = ["result", "case", "expected", "computed", "tolerance", "unit", "kind", "source"];
-            writeln!(out, "cistern {version}: installation check, {} cases", outcomes.len())
-                .map_err(io_failure)?;
-            write!(out, "{}", render_table(&headers, &rows, &[1, 5, 6, 7])).map_err(io_failure)?;
+            let columns = [
+                Column::text("result"),
+                Column::text("case").wrapped(),
+                Column::number("expected"),
+                Column::number("computed"),
+                Column::text("tolerance").optional(2),
+                Column::text("unit"),
+                Column::text("kind").optional(3),
+                Column::text("source").optional(4).wrapped(),
+            ];
+            let width = args.output.table_width();
+            let mut text = format!("cistern {version}: installation check, {} cases\n", outcomes.len());
+            text += &render_table(&columns, &rows, width);
             for o in outcomes.iter().filter(|o| o.error.is_some()) {
-                writeln!(out, "{}: {}", o.name, o.error.as_deref().unwrap_or_default())
-                    .map_err(io_failure)?;
+                text += &format!("{}: {}\n", o.name, o.error.as_deref().unwrap_or_default());
             }
-            writeln!(
-                out,
-                "\n{passed} passed, {failed} failed.\n\"Bourne notes\" = {BOURNE_NOTES}.\n{CAUTION}"
-            )
-            .map_err(io_failure)?;
+            text += &format!(
+                "\nExpected and computed values print with the same decimals, enough to show the tolerance.\n\
+                 {passed} passed, {failed} failed.\n\"Bourne notes\" = {BOURNE_NOTES}.\n{CAUTION}\n"
+            );
+            write!(out, "{}", fit_to_width(&text, width)).map_err(io_failure)?;
         }
     }
     args.output.caution_for_csv(format);

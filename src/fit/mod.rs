@@ -238,8 +238,9 @@ impl FitResult {
         let mut rows = vec![
             ("clearance", "L/h", &e.cl_l_h, prior.map(|p| p.cl_l_h)),
             ("volume", "L", &e.v_l, prior.map(|p| p.v_l)),
-            ("k", "1/h", &e.k_per_h, None),
-            ("half-life", "h", &e.half_life_h, None),
+            // The typical k and half-life are those of the typical clearance and volume.
+            ("k", "1/h", &e.k_per_h, prior.map(|p| p.cl_l_h / p.v_l)),
+            ("half-life", "h", &e.half_life_h, prior.map(|p| std::f64::consts::LN_2 * p.v_l / p.cl_l_h)),
         ];
         if let Some(ka) = &e.ka_per_h {
             rows.push(("ka", "1/h", ka, prior.and_then(|p| p.ka_per_h)));
@@ -254,11 +255,26 @@ pub fn fit_all(
     model: Option<&PopulationModel>,
     options: &FitOptions,
 ) -> Vec<Result<FitResult, Error>> {
+    fit_all_reporting(subjects, model, options, &|| ())
+}
+
+/// [`fit_all`], calling `done` as each subject's fit ends (from any thread), so that a caller
+/// can show progress on a long study.
+pub fn fit_all_reporting(
+    subjects: &[SubjectData],
+    model: Option<&PopulationModel>,
+    options: &FitOptions,
+    done: &(dyn Fn() + Sync),
+) -> Vec<Result<FitResult, Error>> {
     let seeds = Seeds(options.seed);
     subjects
         .par_iter()
         .enumerate()
-        .map(|(i, s)| fit_subject(s, model, options, seeds.fit_subject(i as u64)))
+        .map(|(i, s)| {
+            let fit = fit_subject(s, model, options, seeds.fit_subject(i as u64));
+            done();
+            fit
+        })
         .collect()
 }
 

@@ -4,6 +4,7 @@
 pub(crate) mod digest;
 pub mod doses;
 pub mod input;
+pub mod labels;
 pub mod levels;
 pub mod output;
 pub mod table;

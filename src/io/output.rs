@@ -165,30 +165,283 @@ pub fn readable(x: f64, digits: usize) -> String {
     format!("{x:.decimals$}")
 }
 
-/// A plain-text table: columns are right-aligned, as numbers read best, except the
-/// `text_columns` (0-based), which are left-aligned.
-pub fn render_table(headers: &[&str], rows: &[Vec<String>], text_columns: &[usize]) -> String {
-    let mut widths: Vec<usize> = headers.iter().map(|h| h.len()).collect();
-    for r in rows {
-        for (w, cell) in widths.iter_mut().zip(r) {
-            *w = (*w).max(cell.chars().count());
+/// How a table column is aligned: numbers right, as they read best; text left.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Align {
+    /// Left-aligned (text).
+    Left,
+    /// Right-aligned (numbers).
+    Right,
+}
+
+/// A column of a plain-text table: its header (a human label with its unit, never a raw
+/// key; a `\n` in it breaks it over two lines, so a long label takes a narrow column), its
+/// alignment, and how readily it is left out on a narrow terminal.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Column {
+    /// The header.
+    pub header: String,
+    /// The alignment of the header and the cells.
+    pub align: Align,
+    /// 0: always shown. Otherwise the column may be left out when the table is wider than the
+    /// terminal, the highest rank first (and, within a rank, the rightmost first).
+    pub drop_rank: u8,
+    /// A text column whose cells may wrap over several lines when the table is still too
+    /// wide once the optional columns are out.
+    pub wrap: bool,
+}
+
+impl Column {
+    /// A left-aligned column that is always shown.
+    pub fn text(header: impl Into<String>) -> Column {
+        Column { header: header.into(), align: Align::Left, drop_rank: 0, wrap: false }
+    }
+
+    /// A right-aligned column that is always shown.
+    pub fn number(header: impl Into<String>) -> Column {
+        Column { header: header.into(), align: Align::Right, drop_rank: 0, wrap: false }
+    }
+
+    /// The same column, left out on a narrow terminal before those of a lower rank.
+    pub fn optional(self, rank: u8) -> Column {
+        Column { drop_rank: rank, ..self }
+    }
+
+    /// The same column, its cells wrapped over several lines on a narrow terminal.
+    pub fn wrapped(self) -> Column {
+        Column { wrap: true, ..self }
+    }
+}
+
+/// The decimals that print every value of one table column alike: enough for `digits`
+/// significant digits in its largest magnitude and two in its smallest non-zero one, but no
+/// more than any value needs to print exactly, and at most [`MAX_DECIMALS`]; so `2`, `10` and
+/// `0.5` print as `2.0`, `10.0` and `0.5`, and `500` and `1000` as they are.
+pub fn column_decimals(values: impl IntoIterator<Item = f64>, digits: usize) -> usize {
+    let magnitude = |x: f64| x.abs().log10().floor() as i32;
+    let exact = |x: f64| {
+        (0..MAX_DECIMALS).find(|&d| {
+            let scale = 10f64.powi(d as i32);
+            ((x * scale).round() / scale - x).abs() <= 1e-9 * x.abs().max(1.0)
+        })
+    };
+    let (mut big, mut small, mut needed) = (None::<f64>, None::<f64>, 0);
+    for x in values.into_iter().filter(|x| x.is_finite() && *x != 0.0) {
+        big = Some(big.map_or(x.abs(), |b| b.max(x.abs())));
+        small = Some(small.map_or(x.abs(), |s| s.min(x.abs())));
+        needed = needed.max(exact(x).unwrap_or(MAX_DECIMALS));
+    }
+    let (Some(big), Some(small)) = (big, small) else { return 0 };
+    let for_big = digits as i32 - 1 - magnitude(big);
+    let for_small = 1 - magnitude(small);
+    (for_big.max(for_small).clamp(0, MAX_DECIMALS as i32) as usize).min(needed)
+}
+
+/// The most decimals a table column prints (CSV and JSON carry full precision).
+pub const MAX_DECIMALS: usize = 4;
+
+/// `x` with `decimals` decimals (`-0.000` prints as `0.000`).
+pub fn fixed(x: f64, decimals: usize) -> String {
+    let text = format!("{x:.decimals$}");
+    if text.starts_with('-') && text[1..].chars().all(|c| c == '0' || c == '.') {
+        text[1..].into()
+    } else {
+        text
+    }
+}
+
+/// One table column's numbers with the same decimals ([`column_decimals`]); a missing value
+/// prints as `—`.
+pub fn number_column(values: &[Option<f64>], digits: usize) -> Vec<String> {
+    let decimals = column_decimals(values.iter().flatten().copied(), digits);
+    values.iter().map(|x| x.map_or_else(|| "—".into(), |x| fixed(x, decimals))).collect()
+}
+
+/// The narrowest a wrapped column becomes before a table turns to its long form.
+const MIN_WRAPPED: usize = 12;
+
+/// A plain-text table of `columns` and `rows` (cells already formatted), within `width`
+/// characters when given (a terminal's; `None` for files and pipes). A table too wide leaves
+/// out its optional columns, highest rank first, and says which; then wraps the cells of its
+/// wrapped columns; a table still too wide prints in long form, one `header  value` line per
+/// cell.
+pub fn render_table(columns: &[Column], rows: &[Vec<String>], width: Option<usize>) -> String {
+    let chars = |s: &str| s.chars().count();
+    let mut widths: Vec<usize> = columns
+        .iter()
+        .enumerate()
+        .map(|(i, c)| {
+            let header = c.header.lines().map(chars).max().unwrap_or(0);
+            rows.iter().filter_map(|r| r.get(i)).map(|s| chars(s)).fold(header, usize::max)
+        })
+        .collect();
+    let total = |shown: &[usize], widths: &[usize]| {
+        shown.iter().map(|&i| widths[i] + 2).sum::<usize>().saturating_sub(2)
+    };
+    let mut shown: Vec<usize> = (0..columns.len()).collect();
+    let limit = width.unwrap_or(usize::MAX);
+    while total(&shown, &widths) > limit {
+        // The rightmost column of the highest rank goes first.
+        let Some(pos) = shown
+            .iter()
+            .enumerate()
+            .filter(|&(_, &i)| columns[i].drop_rank > 0)
+            .max_by_key(|&(p, &i)| (columns[i].drop_rank, p))
+            .map(|(p, _)| p)
+        else {
+            break;
+        };
+        shown.remove(pos);
+    }
+    // Still too wide: the wrapped columns share what is left, each down to MIN_WRAPPED.
+    let wrapped: Vec<usize> = shown.iter().copied().filter(|&i| columns[i].wrap).collect();
+    let excess = total(&shown, &widths).saturating_sub(limit);
+    if excess > 0 {
+        let room: usize = wrapped.iter().map(|&i| widths[i].saturating_sub(MIN_WRAPPED)).sum();
+        if room < excess {
+            return long_form(columns, rows, limit);
+        }
+        let mut left = excess;
+        // The widest give first, one character at a time.
+        while left > 0 {
+            let Some(&i) = wrapped.iter().max_by_key(|&&i| widths[i]) else { break };
+            widths[i] -= 1;
+            left -= 1;
         }
     }
+    let cell_lines = |i: usize, cell: &str| -> Vec<String> {
+        if columns[i].wrap && chars(cell) > widths[i] {
+            wrap(cell, widths[i])
+        } else {
+            vec![cell.to_string()]
+        }
+    };
     let mut out = String::new();
-    let line = |cells: &mut dyn Iterator<Item = &str>, out: &mut String| {
+    let line = |cells: &[(usize, &str)], out: &mut String| {
         let parts: Vec<String> = cells
-            .zip(&widths)
-            .enumerate()
-            .map(
-                |(i, (c, w))| if text_columns.contains(&i) { format!("{c:<w$}") } else { format!("{c:>w$}") },
-            )
+            .iter()
+            .map(|&(i, c)| {
+                let w = widths[i];
+                match columns[i].align {
+                    Align::Left => format!("{c:<w$}"),
+                    Align::Right => format!("{c:>w$}"),
+                }
+            })
             .collect();
         out.push_str(parts.join("  ").trim_end());
         out.push('\n');
     };
-    line(&mut headers.iter().copied(), &mut out);
+    // Headers of fewer lines stand at the bottom of the header.
+    let header_lines = columns.iter().map(|c| c.header.lines().count()).max().unwrap_or(1);
+    for n in 0..header_lines {
+        let cells: Vec<(usize, &str)> = shown
+            .iter()
+            .map(|&i| {
+                let lines: Vec<&str> = columns[i].header.lines().collect();
+                let k = (n + lines.len()).checked_sub(header_lines);
+                (i, k.and_then(|k| lines.get(k).copied()).unwrap_or(""))
+            })
+            .collect();
+        line(&cells, &mut out);
+    }
     for r in rows {
-        line(&mut r.iter().map(String::as_str), &mut out);
+        let cells: Vec<(usize, Vec<String>)> =
+            shown.iter().map(|&i| (i, cell_lines(i, r.get(i).map_or("", String::as_str)))).collect();
+        let height = cells.iter().map(|(_, l)| l.len()).max().unwrap_or(1);
+        for n in 0..height {
+            let parts: Vec<(usize, &str)> =
+                cells.iter().map(|(i, l)| (*i, l.get(n).map_or("", String::as_str))).collect();
+            line(&parts, &mut out);
+        }
+    }
+    if shown.len() < columns.len() {
+        let left_out: Vec<String> = (0..columns.len())
+            .filter(|i| !shown.contains(i))
+            .map(|i| columns[i].header.replace('\n', " "))
+            .collect();
+        let note = format!(
+            "Left out to fit {limit} columns: {}. A wider terminal (or COLUMNS), --format csv or -o FILE \
+             shows them.",
+            left_out.join(", ")
+        );
+        for l in wrap(&note, limit) {
+            out.push_str(&l);
+            out.push('\n');
+        }
+    }
+    out
+}
+
+/// The long form of a table too wide for `width`: each row as `header  value` lines, values
+/// wrapped to the width, a blank line between rows.
+fn long_form(columns: &[Column], rows: &[Vec<String>], width: usize) -> String {
+    let headers: Vec<String> = columns.iter().map(|c| c.header.replace('\n', " ")).collect();
+    let key = headers.iter().map(|h| h.chars().count()).max().unwrap_or(0).min(width / 2);
+    let value_width = width.saturating_sub(key + 2).max(1);
+    let mut out = String::new();
+    for (n, r) in rows.iter().enumerate() {
+        if n > 0 {
+            out.push('\n');
+        }
+        for (header, cell) in headers.iter().zip(r) {
+            for (i, part) in wrap(cell, value_width).into_iter().enumerate() {
+                let label = if i == 0 { wrap(header, key).remove(0) } else { String::new() };
+                out.push_str(format!("{label:<key$}  {part}").trim_end());
+                out.push('\n');
+            }
+        }
+    }
+    out
+}
+
+/// `text` in lines of at most `width` characters, broken between words (and inside a word
+/// longer than a line). Never empty: an empty text is one empty line.
+pub fn wrap(text: &str, width: usize) -> Vec<String> {
+    let width = width.max(1);
+    let mut lines = Vec::new();
+    let mut line = String::new();
+    for word in text.split_whitespace() {
+        let mut word: Vec<char> = word.chars().collect();
+        let used = line.chars().count();
+        if used > 0 && used + 1 + word.len() <= width {
+            line.push(' ');
+            line.extend(&word);
+            continue;
+        }
+        if used > 0 {
+            lines.push(std::mem::take(&mut line));
+        }
+        while word.len() > width {
+            lines.push(word.drain(..width).collect());
+        }
+        line.extend(&word);
+    }
+    if !line.is_empty() || lines.is_empty() {
+        lines.push(line);
+    }
+    lines
+}
+
+/// `text` with every line longer than `width` (when given) wrapped between words, its
+/// continuation lines indented by two spaces; shorter lines (a table's) are kept as they are.
+/// What a table-format output prints around its tables (notes, the caution) goes through it.
+pub fn fit_to_width(text: &str, width: Option<usize>) -> String {
+    let Some(width) = width else { return text.to_string() };
+    let mut out = String::with_capacity(text.len());
+    for line in text.split_inclusive('\n') {
+        let (body, end) = line.strip_suffix('\n').map_or((line, ""), |b| (b, "\n"));
+        if body.chars().count() <= width {
+            out.push_str(line);
+            continue;
+        }
+        let mut parts = wrap(body, width).into_iter();
+        out.push_str(&parts.next().unwrap_or_default());
+        let rest: Vec<String> = parts.collect();
+        for part in wrap(&rest.join(" "), width.saturating_sub(2)) {
+            out.push_str("\n  ");
+            out.push_str(&part);
+        }
+        out.push_str(end);
     }
     out
 }
@@ -248,14 +501,61 @@ mod tests {
         assert_eq!(String::from_utf8(out).unwrap(), expected);
     }
 
+    fn cols() -> Vec<Column> {
+        vec![Column::text("name"), Column::number("value").optional(1), Column::text("note").optional(2)]
+    }
+
     #[test]
     fn tables_right_align_numbers_and_left_align_text_columns() {
         let rows = vec![
             vec!["a".to_string(), "1.5".into(), "xyz".into()],
             vec!["bcd".into(), "10".into(), "q".into()],
         ];
-        let text = render_table(&["name", "value", "note"], &rows, &[0, 2]);
+        let text = render_table(&cols(), &rows, None);
         assert_eq!(text, "name  value  note\na       1.5  xyz\nbcd      10  q\n");
+    }
+
+    #[test]
+    fn a_table_too_wide_leaves_out_its_highest_ranked_columns_and_says_so() {
+        let rows = vec![vec!["a".to_string(), "1.5".into(), "a long note here".into()]];
+        let text = render_table(&cols(), &rows, Some(12));
+        let lines: Vec<&str> = text.lines().collect();
+        assert_eq!(lines[..2], ["name  value", "a       1.5"]);
+        assert!(text.contains("note"), "{text}");
+        assert!(text.lines().all(|l| l.chars().count() <= 12), "{text}");
+    }
+
+    #[test]
+    fn a_table_too_wide_wraps_the_cells_of_its_wrapped_columns() {
+        let columns = [Column::number("n"), Column::text("description").wrapped()];
+        let rows = vec![vec!["1".to_string(), "words that do not fit in one line".into()]];
+        let text = render_table(&columns, &rows, Some(18));
+        assert_eq!(text, "n  description\n1  words that do\n   not fit in one\n   line\n");
+    }
+
+    #[test]
+    fn a_table_too_wide_without_optional_columns_prints_in_long_form() {
+        let columns = [Column::text("name"), Column::text("description")];
+        let rows = vec![vec!["a".to_string(), "words that do not fit in one line".into()]];
+        let text = render_table(&columns, &rows, Some(24));
+        assert!(text.lines().all(|l| l.chars().count() <= 24), "{text}");
+        assert!(text.starts_with("name         a\ndescription  words that\n"), "{text}");
+    }
+
+    #[test]
+    fn long_lines_wrap_to_the_width_and_short_ones_stay() {
+        let text = "a  b\none two three four five six\n";
+        assert_eq!(fit_to_width(text, Some(12)), "a  b\none two\n  three four\n  five six\n");
+        assert_eq!(fit_to_width(text, None), text);
+    }
+
+    #[test]
+    fn a_column_of_numbers_prints_with_one_number_of_decimals() {
+        assert_eq!(number_column(&[Some(2.0), Some(10.0), Some(0.0), None], 3), ["2", "10", "0", "—"]);
+        assert_eq!(number_column(&[Some(2.0), Some(10.0), Some(0.5)], 3), ["2.0", "10.0", "0.5"]);
+        assert_eq!(number_column(&[Some(500.0), Some(1000.0)], 3), ["500", "1000"]);
+        assert_eq!(number_column(&[Some(0.0123), Some(12.5)], 3), ["0.012", "12.500"]);
+        assert_eq!(fixed(-0.0001, 2), "0.00");
     }
 
     #[test]

@@ -1,10 +1,11 @@
 //! What the regimen report says: the analysis turned into a [`Document`] of blocks.
 
-use super::layout::{Band, Block, Document, HLine, Marker, PlotSpec, Series, Stroke, Table};
+use super::layout::{Band, Block, Document, DoseTick, HLine, Marker, PlotSpec, Series, Stroke, Table};
 use crate::covariates::Covariates;
 use crate::dosing::Dose;
 use crate::engine::{self, Params};
 use crate::fit::{Estimate, FitResult};
+use crate::io::labels::{label, name_and_unit};
 use crate::io::levels::Level;
 use crate::io::output::{plain, readable};
 use crate::model::PopulationModel;
@@ -133,9 +134,11 @@ pub fn concentration_plots(a: &Analysis) -> Vec<PlotSpec> {
         hi.push(b.p95);
     }
     let target = a.targets.iter().find_map(|t| match t.metric {
-        Metric::Trough | Metric::Peak | Metric::Cavg => {
-            Some((t.lo.unwrap_or(0.0), t.hi.unwrap_or(f64::INFINITY), format!("target {}", t.name())))
-        }
+        Metric::Trough | Metric::Peak | Metric::Cavg => Some((
+            t.lo.unwrap_or(0.0),
+            t.hi.unwrap_or(f64::INFINITY),
+            format!("{} target: {} mg/L", t.name(), bounds(t)),
+        )),
         Metric::Above { lo_mg_l, hi_mg_l } => Some((lo_mg_l, hi_mg_l, "target window".to_string())),
         _ => None,
     });
@@ -178,7 +181,7 @@ pub fn concentration_plots(a: &Analysis) -> Vec<PlotSpec> {
             },
             markers: markers.clone(),
             markers_label: "observed level (hollow: below LLOQ)".into(),
-            doses: doses.iter().map(|d| d.time_h).collect(),
+            doses: doses.iter().map(|d| DoseTick { x: d.time_h, color: BLUE }).collect(),
             start_x: rec.map(|r| r.start_h),
         })
         .collect()
@@ -208,7 +211,7 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
     // Summary: covariates, doses, levels.
     b.push(Block::Heading("Subject and data".into()));
     let mut cov_rows: Vec<Vec<String>> =
-        a.covariates.iter().map(|(k, v)| vec![k.to_string(), readable(v, 4)]).collect();
+        a.covariates.iter().map(|(k, v)| vec![label(k).to_string(), readable(v, 4)]).collect();
     if let Some(sex) = a.covariates.sex {
         cov_rows.insert(0, vec!["sex".into(), format!("{sex:?}").to_lowercase()]);
     }
@@ -326,9 +329,18 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
                 ("Regimen".to_string(), s.regimen.describe()),
                 ("First dose at".to_string(), format!("{} h", readable(r.start_h, 5))),
                 ("Probability of target attainment".to_string(), format!("{:.1} %", 100.0 * s.pta)),
-                ("Predicted peak, mg/L (90 %)".to_string(), band(&s.predicted.peak_mg_l)),
-                ("Predicted trough, mg/L (90 %)".to_string(), band(&s.predicted.trough_mg_l)),
-                ("Predicted AUC24, mg·h/L (90 %)".to_string(), band(&s.predicted.auc24_mg_h_l)),
+                (
+                    "Predicted peak, mg/L (90 %)".to_string(),
+                    band(&s.predicted.peak_mg_l) + &target_text(a.targets, Metric::Peak),
+                ),
+                (
+                    "Predicted trough, mg/L (90 %)".to_string(),
+                    band(&s.predicted.trough_mg_l) + &target_text(a.targets, Metric::Trough),
+                ),
+                (
+                    "Predicted AUC24, mg·h/L (90 %)".to_string(),
+                    band(&s.predicted.auc24_mg_h_l) + &target_text(a.targets, Metric::Auc24),
+                ),
             ];
             if let Some(t) = s.time_to_target_h {
                 kv.push((
@@ -394,10 +406,10 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
     ));
     if let Some(adv) = a.advice {
         b.push(Block::Heading("When to draw the next level".into()));
+        let (exposure, unit) = name_and_unit(&adv.exposure);
         b.push(Block::Paragraph(format!(
-            "One more level, drawn at the times below, is expected to narrow the 90 % interval of {} \
-             (now {} wide) the most.",
-            adv.exposure,
+            "One more level, drawn at the times below, is expected to narrow the 90 % interval of {exposure} \
+             (now {} {unit} wide) the most.",
             r3(adv.current_ci90_width)
         )));
         let rows = adv
@@ -417,7 +429,7 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
             headers: vec![
                 "time (h)".into(),
                 "after dose (h)".into(),
-                "expected 90 % width".into(),
+                format!("expected 90 % width ({unit})"),
                 "shrinkage".into(),
             ],
             rows,
@@ -433,6 +445,7 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
         caution: a.caution.clone(),
         footer: format!("cistern {} · created {}", a.version, a.created_iso),
         created_iso: a.created_iso.clone(),
+        author: a.author.clone(),
         blocks: b,
     }
 }
@@ -440,28 +453,40 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
 /// Regimens the sweep page shows, best first.
 const SWEEP_ROWS: usize = 20;
 
-/// The sweep's page: PTA by regimen and the exposure percentiles, best regimens first.
+/// The sweep's page: PTA by regimen and the exposure percentiles, best regimens first (the
+/// page says how many of how many it shows), and which limits the starred ones break.
 fn sweep_page(s: &Summary, b: &mut Vec<Block>) {
     let mut rows: Vec<&SummaryRow> = s.regimens.iter().collect();
     rows.sort_by(|a, b| b.pta.total_cmp(&a.pta).then(a.daily_mg.total_cmp(&b.daily_mg)));
     rows.truncate(SWEEP_ROWS);
-    let label = |r: &SummaryRow| {
-        let broken =
-            if r.dose_limits_broken.is_empty() && r.exposure_limits_broken.is_empty() { "" } else { " *" };
-        format!("{}{broken}", r.regimen.describe())
-    };
+    let breaks = |r: &SummaryRow| !(r.dose_limits_broken.is_empty() && r.exposure_limits_broken.is_empty());
+    let label = |r: &SummaryRow| format!("{}{}", r.regimen.describe(), if breaks(r) { " *" } else { "" });
     let cell = |x: Option<f64>| x.map(|v| readable(v, 3)).unwrap_or_default();
-    let headers: Vec<String> =
-        ["regimen", "PTA %", "trough p05", "p50", "p95", "peak p50", "AUC24 p05", "p50", "p95"]
-            .map(String::from)
-            .to_vec();
+    let headers: Vec<String> = [
+        "regimen",
+        "PTA (%)",
+        "trough p05 (mg/L)",
+        "trough p50 (mg/L)",
+        "trough p95 (mg/L)",
+        "peak p50 (mg/L)",
+        "AUC24 p05 (mg·h/L)",
+        "AUC24 p50 (mg·h/L)",
+        "AUC24 p95 (mg·h/L)",
+    ]
+    .map(String::from)
+    .to_vec();
+    let shown = if rows.len() < s.regimens.len() {
+        format!("the best {} of {} regimens", rows.len(), s.regimens.len())
+    } else {
+        format!("all {} regimens", rows.len())
+    };
     b.push(Block::PageBreak);
     b.push(Block::Heading(format!("Virtual population: {} subjects", s.subjects)));
     b.push(Block::Bars(super::layout::BarChart {
-        title: "Probability of target attainment by regimen".into(),
+        title: format!("Probability of target attainment by regimen: {shown}"),
         labels: rows.iter().map(|r| label(r)).collect(),
-        values: rows.iter().map(|r| r.pta).collect(),
-        axis_label: "probability of target attainment".into(),
+        values: rows.iter().map(|r| 100.0 * r.pta).collect(),
+        axis_label: "probability of target attainment (%)".into(),
     }));
     b.push(Block::Table(Table {
         right: headers.iter().map(|h| h != "regimen").collect(),
@@ -483,11 +508,31 @@ fn sweep_page(s: &Summary, b: &mut Vec<Block>) {
             })
             .collect(),
     }));
-    b.push(Block::Note(
-        "Regimens marked * break a stated limit. PTA: share of the virtual subjects meeting every target; \
-         troughs and peaks in mg/L, AUC24 in mg·h/L, at steady state."
-            .into(),
-    ));
+    b.push(Block::Note(format!(
+        "Best first: {shown}, by PTA, then the lower daily dose. PTA: share of the virtual subjects meeting \
+         every target; p05, p50 and p95: the 5th, 50th and 95th percentiles over the subjects, at steady state."
+    )));
+    for r in rows.iter().filter(|r| breaks(r)) {
+        let why: Vec<&str> =
+            r.dose_limits_broken.iter().chain(&r.exposure_limits_broken).map(String::as_str).collect();
+        b.push(Block::Note(format!("* {}: {}.", r.regimen.describe(), why.join("; "))));
+    }
+}
+
+/// The stated target on `metric`, after a predicted value: `; target 400–600`, `; target at
+/// most 15`, or nothing when there is none.
+fn target_text(targets: &[Target], metric: Metric) -> String {
+    targets.iter().find(|t| t.metric == metric).map(|t| format!("; target {}", bounds(t))).unwrap_or_default()
+}
+
+/// A target's bounds for reading: `400–600`, `at most 15`, `at least 10`.
+fn bounds(t: &Target) -> String {
+    match (t.lo, t.hi) {
+        (Some(lo), Some(hi)) => format!("{}–{}", plain(lo), plain(hi)),
+        (None, Some(hi)) => format!("at most {}", plain(hi)),
+        (Some(lo), None) => format!("at least {}", plain(lo)),
+        (None, None) => String::new(),
+    }
 }
 
 fn limits_text(l: &Limits) -> String {

@@ -16,6 +16,8 @@ pub struct Document {
     pub footer: String,
     /// Creation time as ISO 8601 (UTC), for the PDF metadata.
     pub created_iso: String,
+    /// Who prepared the report (the case's author), for the PDF metadata.
+    pub author: Option<String>,
     /// The content, in reading order.
     pub blocks: Vec<Block>,
 }
@@ -113,6 +115,15 @@ pub struct Marker {
     pub hollow: bool,
 }
 
+/// A dose marked on a plot's time axis.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct DoseTick {
+    /// Time (the x value).
+    pub x: f64,
+    /// Colour: that of the curve the dose belongs to.
+    pub color: Rgb,
+}
+
 /// One plot panel.
 #[derive(Debug, Clone, PartialEq)]
 pub struct PlotSpec {
@@ -136,21 +147,21 @@ pub struct PlotSpec {
     pub markers: Vec<Marker>,
     /// Legend label of the observed levels.
     pub markers_label: String,
-    /// x positions of doses (small ticks along the bottom).
-    pub doses: Vec<f64>,
+    /// Doses: small ticks along the bottom, each in the colour of the curve it belongs to.
+    pub doses: Vec<DoseTick>,
     /// A vertical line marking where the proposed regimen starts, if any.
     pub start_x: Option<f64>,
 }
 
-/// A horizontal bar chart of values in [0, 1].
+/// A horizontal bar chart of percentages (0–100), as the report's tables print them.
 #[derive(Debug, Clone, PartialEq)]
 pub struct BarChart {
     /// Chart title.
     pub title: String,
     /// One label per bar.
     pub labels: Vec<String>,
-    /// One value per bar, 0–1.
+    /// One value per bar, in percent (0–100).
     pub values: Vec<f64>,
-    /// Axis label (e.g. "probability of target attainment").
+    /// Axis label with its unit (e.g. "probability of target attainment (%)").
     pub axis_label: String,
 }

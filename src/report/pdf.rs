@@ -69,7 +69,8 @@ pub fn render_pdf(doc: &Document) -> Result<Vec<u8>, String> {
             Block::Paragraph(s) => flow.paragraph(s, BODY_SIZE, INK, 6.0),
             Block::Note(s) => flow.paragraph(s, NOTE_SIZE, GREY, 5.0),
             Block::KeyValues(pairs) => flow.key_values(pairs),
-            Block::Table(table) => flow.table(table),
+            // The notes under a table (its footnotes) start on the page of its last row.
+            Block::Table(table) => flow.table(table, doc.blocks.get(i + 1).map_or(0.0, footnote_height)),
             Block::Plot(spec) => flow.scene(&plot::plot_scene(spec, CONTENT_W, PLOT_H)),
             Block::Bars(chart) => flow.scene(&plot::bars_scene(chart, CONTENT_W)),
             Block::PageBreak => {
@@ -88,6 +89,7 @@ pub fn render_pdf(doc: &Document) -> Result<Vec<u8>, String> {
     info.modification_date = created;
     info.metadata_date = created;
     info.creator = "cistern".into();
+    info.author = doc.author.clone().unwrap_or_default();
     pdf.with_pages(pages.into_iter().map(|ops| PdfPage::new(Mm(210.0), Mm(297.0), ops)).collect());
 
     let mut warnings = Vec::new();
@@ -490,6 +492,14 @@ fn lead_height(block: &Block) -> f64 {
     }
 }
 
+/// Height of the start of a footnote: the first lines of a note (nothing for other blocks).
+fn footnote_height(block: &Block) -> f64 {
+    match block {
+        Block::Note(_) => lead_height(block),
+        _ => 0.0,
+    }
+}
+
 /// Places blocks down the pages.
 struct Flow {
     pages: Vec<Vec<Op>>,
@@ -654,16 +664,21 @@ impl Flow {
         self.y += 6.0;
     }
 
-    fn table(&mut self, table: &Table) {
+    /// A table; its last row moves to the next page with the header when `footnote` more
+    /// points (the start of the note under it) would not fit after it.
+    fn table(&mut self, table: &Table, footnote: f64) {
         let layout = TableLayout::new(table);
         let total: f64 = layout.widths.iter().sum();
         let header_h = layout.height(&layout.header);
         let first_h = layout.rows.first().map(|r| layout.height(r)).unwrap_or(0.0);
-        self.ensure(header_h + first_h);
+        let single = if layout.rows.len() == 1 { 10.0 + footnote } else { 0.0 };
+        self.ensure(header_h + first_h + single);
         self.table_header(&layout, &table.right);
         for (i, row) in layout.rows.iter().enumerate() {
             let h = layout.height(row);
-            if self.y + h > BODY_BOTTOM {
+            let last = i + 1 == layout.rows.len();
+            let needed = if last { h + 10.0 + footnote } else { h };
+            if self.y + needed > BODY_BOTTOM && i > 0 {
                 self.rule(total);
                 self.new_page();
                 self.table_header(&layout, &table.right);

@@ -355,6 +355,9 @@ const MUTED: Rgb = (0.35, 0.35, 0.35);
 const MARKER: Rgb = (0.05, 0.05, 0.05);
 const DOSE: Rgb = (0.45, 0.15, 0.55);
 const TARGET: Rgb = (0.80, 0.92, 0.80);
+const TARGET_EDGE: Rgb = (0.30, 0.60, 0.30);
+/// Height of the shade on the meeting side of a one-sided target (points).
+const ONE_SIDED_SHADE: f64 = 10.0;
 #[cfg(feature = "pdf")]
 pub(crate) const WHITE: Rgb = (1.0, 1.0, 1.0);
 /// How much band colours are lightened.
@@ -378,8 +381,8 @@ pub enum Swatch {
     Fill(Rgb),
     /// A dot, filled or hollow.
     Dot(bool),
-    /// A short vertical tick (a dose).
-    Tick,
+    /// A short vertical tick (a dose), in its colour.
+    Tick(Rgb),
 }
 
 /// One legend entry.
@@ -418,14 +421,24 @@ pub fn legend(spec: &PlotSpec) -> Vec<LegendEntry> {
     if spec.markers.iter().any(|m| m.hollow) {
         push("below the quantification limit (drawn at the limit)", Swatch::Dot(true));
     }
-    if !spec.doses.is_empty() {
-        push("dose", Swatch::Tick);
+    if let Some(first) = spec.doses.first() {
+        if spec.doses.iter().all(|d| d.color == first.color) {
+            push("dose", Swatch::Tick(first.color));
+        } else {
+            push("dose (in the colour of its curve)", Swatch::Tick(DOSE));
+        }
     }
     if spec.start_x.is_some() {
         push("start of the proposed regimen", Swatch::Line(MUTED, Some(START_DASH)));
     }
     entries
 }
+
+/// How much wider than Helvetica a viewer's substitute font may set a text: an SVG viewer
+/// without Helvetica (or Arial) uses its own sans-serif (DejaVu Sans is about 10 % wider), and
+/// not every viewer fits a text to its `textLength`. Legends and the SVG's caution leave this
+/// much room, so that nothing runs past the right edge.
+pub const SUBSTITUTE_FONT_SLACK: f64 = 1.15;
 
 /// Width of a legend entry's sample.
 const SWATCH_WIDTH: f64 = 16.0;
@@ -436,7 +449,9 @@ fn legend_rows(entries: &[LegendEntry], width: f64) -> (Vec<(f64, usize)>, usize
     let mut places = Vec::new();
     let (mut x, mut row) = (0.0, 0);
     for entry in entries {
-        let w = SWATCH_WIDTH + 4.0 + text::width(&entry.label, Face::Regular, LEGEND_SIZE);
+        let w = SWATCH_WIDTH
+            + 4.0
+            + SUBSTITUTE_FONT_SLACK * text::width(&entry.label, Face::Regular, LEGEND_SIZE);
         if x > 0.0 && x + w > width {
             x = 0.0;
             row += 1;
@@ -474,7 +489,7 @@ fn axes(spec: &PlotSpec) -> (Axis, Axis) {
         xs.push(m.x);
         ys.push(m.y);
     }
-    xs.extend(&spec.doses);
+    xs.extend(spec.doses.iter().map(|d| d.x));
     xs.extend(spec.start_x);
     ys.extend(spec.hlines.iter().map(|h| h.y));
     if let Some((lo, hi, _)) = &spec.target {
@@ -520,12 +535,32 @@ pub fn plot_scene(spec: &PlotSpec, width: f64, height: f64) -> Scene {
     if !spec.title.is_empty() {
         shapes.push(text((0.0, 12.0), &spec.title, TITLE_SIZE, Face::Bold, Anchor::Start, INK));
     }
-    // Filled regions first: the target stripe, then the bands.
+    // Filled regions first: the target, then the bands. A two-sided target is a stripe; a
+    // one-sided one (`trough ≤ 15`) a line at its bound with a narrow shade on the side that
+    // meets it, since a stripe down to zero would fill most of a logarithmic panel.
+    let mut target_line = None;
     if let Some((lo, hi, _)) = &spec.target {
-        let (a, b) = (map.map_floor(map.x.lo, *lo), map.map_floor(map.x.hi, *hi));
-        let stripe = clip_polygon(&[(a.0, a.1), (b.0, a.1), (b.0, b.1), (a.0, b.1)], &frame);
-        if stripe.len() >= 3 {
-            shapes.push(Shape::Fill { points: stripe, color: TARGET });
+        let (lo, hi) = (*lo, *hi);
+        // The stripe's top and bottom edges in scene coordinates (y grows downwards).
+        let (top, bottom) = match (lo > 0.0, hi.is_finite()) {
+            (true, true) => (map.map_floor(map.x.lo, hi).1, map.map_floor(map.x.lo, lo).1),
+            (false, true) => {
+                target_line = Some(hi);
+                let y = map.map(map.x.lo, hi).1;
+                (y, y + ONE_SIDED_SHADE)
+            }
+            (true, false) => {
+                target_line = Some(lo);
+                let y = map.map(map.x.lo, lo).1;
+                (y - ONE_SIDED_SHADE, y)
+            }
+            (false, false) => (f64::NAN, f64::NAN),
+        };
+        if top.is_finite() && bottom.is_finite() {
+            let stripe = clip_polygon(&[(x0, top), (x1, top), (x1, bottom), (x0, bottom)], &frame);
+            if stripe.len() >= 3 {
+                shapes.push(Shape::Fill { points: stripe, color: TARGET });
+            }
         }
     }
     for band in &spec.bands {
@@ -548,6 +583,12 @@ pub fn plot_scene(spec: &PlotSpec, width: f64, height: f64) -> Scene {
         grid.push(vec![(x0, py), (x1, py)]);
     }
     shapes.push(line("grid", grid, GRID, 0.4, None));
+    if let Some(y) = target_line {
+        let runs = clip_polyline(&[map.map(map.x.lo, y), map.map(map.x.hi, y)], &frame);
+        if !runs.is_empty() {
+            shapes.push(line("target", runs, TARGET_EDGE, 1.0, None));
+        }
+    }
     for h in &spec.hlines {
         let runs = clip_polyline(&[map.map(map.x.lo, h.y), map.map(map.x.hi, h.y)], &frame);
         if !runs.is_empty() {
@@ -565,15 +606,25 @@ pub fn plot_scene(spec: &PlotSpec, width: f64, height: f64) -> Scene {
         let dash = (s.stroke == Stroke::Dashed).then_some(SERIES_DASH);
         shapes.push(line("series", clip_polyline(&points, &frame), s.color, 1.2, dash));
     }
-    let doses: Vec<Vec<Pos>> = spec
-        .doses
-        .iter()
-        .map(|d| map.map(*d, map.y.lo).0)
-        .filter(|px| (x0 - 1e-9..=x1 + 1e-9).contains(px))
-        .map(|px| vec![(px, y1), (px, y1 - 6.0)])
-        .collect();
-    if !doses.is_empty() {
-        shapes.push(line("dose", doses, DOSE, 1.2, None));
+    // The ticks of each colour as one line, in the order the colours first appear.
+    let mut colors: Vec<Rgb> = Vec::new();
+    for d in &spec.doses {
+        if !colors.contains(&d.color) {
+            colors.push(d.color);
+        }
+    }
+    for color in colors {
+        let ticks: Vec<Vec<Pos>> = spec
+            .doses
+            .iter()
+            .filter(|d| d.color == color)
+            .map(|d| map.map(d.x, map.y.lo).0)
+            .filter(|px| (x0 - 1e-9..=x1 + 1e-9).contains(px))
+            .map(|px| vec![(px, y1), (px, y1 - 6.0)])
+            .collect();
+        if !ticks.is_empty() {
+            shapes.push(line("dose", ticks, color, 1.2, None));
+        }
     }
     for m in &spec.markers {
         let center = map.map(m.x, m.y);
@@ -650,10 +701,10 @@ pub fn plot_scene(spec: &PlotSpec, width: f64, height: f64) -> Scene {
                 color: MARKER,
                 hollow,
             }),
-            Swatch::Tick => shapes.push(line(
+            Swatch::Tick(color) => shapes.push(line(
                 "legend",
                 vec![vec![(sx + SWATCH_WIDTH / 2.0, mid + 3.0), (sx + SWATCH_WIDTH / 2.0, mid - 3.0)]],
-                DOSE,
+                color,
                 1.2,
                 None,
             )),
@@ -688,7 +739,7 @@ pub fn bars_scene(chart: &super::layout::BarChart, width: f64) -> Scene {
     let x1 = width - 12.0;
     let (y0, y1) = (20.0, height - 32.0);
     let frame = Frame { x0, y0, x1, y1 };
-    let map = Mapping { x: Axis::linear(0.0, 1.0, false), y: Axis::linear(0.0, 1.0, false), frame };
+    let map = Mapping { x: Axis::linear(0.0, 100.0, false), y: Axis::linear(0.0, 1.0, false), frame };
     let mut shapes = Vec::new();
     if !chart.title.is_empty() {
         shapes.push(text((0.0, 12.0), &chart.title, TITLE_SIZE, Face::Bold, Anchor::Start, INK));
@@ -698,7 +749,7 @@ pub fn bars_scene(chart: &super::layout::BarChart, width: f64) -> Scene {
     shapes.push(line("grid", grid, GRID, 0.4, None));
     for (i, (label, value)) in labels.iter().zip(&chart.values).enumerate() {
         let top = y0 + 3.0 + i as f64 * 14.0;
-        let end = map.map(value.clamp(0.0, 1.0), 0.0).0;
+        let end = map.map(value.clamp(0.0, 100.0), 0.0).0;
         if end > x0 {
             shapes.push(Shape::Fill {
                 points: vec![(x0, top), (end, top), (end, top + 9.0), (x0, top + 9.0)],
@@ -722,7 +773,7 @@ pub fn bars_scene(chart: &super::layout::BarChart, width: f64) -> Scene {
             color: INK,
         });
         // The value inside the bar's end when it fits there, else just after it.
-        let value_text = if value.is_finite() { format!("{value:.2}") } else { "–".into() };
+        let value_text = if value.is_finite() { format!("{value:.1}") } else { "–".into() };
         let value_w = text::width(&value_text, Face::Bold, TICK_SIZE);
         let (at, anchor, ink) = if end - x0 > value_w + 6.0 {
             ((end - 3.0, baseline), Anchor::End, WHITE)

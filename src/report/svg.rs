@@ -47,7 +47,8 @@ const CAUTION_LINE: f64 = 9.0;
 /// Renders the panels as one SVG document, with `caution` in small print under them (the
 /// figure may travel without the report around it).
 pub fn render_svg(panels: &[PlotSpec], caution: &str) -> String {
-    let caution_lines = text::wrap(caution, Face::Regular, CAUTION_SIZE, PANEL_W - 8.0);
+    let caution_lines =
+        text::wrap(caution, Face::Regular, CAUTION_SIZE, (PANEL_W - 8.0) / plot::SUBSTITUTE_FONT_SLACK);
     let panels_h = PANEL_H * panels.len() as f64;
     let height = panels_h + CAUTION_LINE * caution_lines.len() as f64 + 6.0;
     let mut out = String::new();
@@ -132,10 +133,11 @@ pub fn render_svg(panels: &[PlotSpec], caution: &str) -> String {
     for (i, line) in caution_lines.iter().enumerate() {
         let _ = writeln!(
             out,
-            r#"<text x="4" y="{}" font-size="{}" fill="{}">{}</text>"#,
+            r#"<text x="4" y="{}" font-size="{}" fill="{}" textLength="{}" lengthAdjust="spacingAndGlyphs">{}</text>"#,
             num(panels_h + 4.0 + CAUTION_LINE * (i as f64 + 0.8)),
             num(CAUTION_SIZE),
             rgb((0.45, 0.1, 0.1)),
+            num(text::width(line, Face::Regular, CAUTION_SIZE)),
             esc(line)
         );
     }

@@ -3,7 +3,10 @@
 
 use super::state::{SweepState, SweptRegimen};
 use crate::dosing::{Regimen, Route};
-use crate::io::output::{CAUTION, CsvWriter, Format, full, readable, render_table, write_json};
+use crate::io::labels::percent;
+use crate::io::output::{
+    CAUTION, Column, CsvWriter, Format, column_decimals, fit_to_width, fixed, full, render_table, write_json,
+};
 use serde::Serialize;
 use std::io::Write;
 
@@ -59,6 +62,9 @@ pub struct SummaryRow {
     pub auc24_mg_h_l: Percentiles,
 }
 
+/// One exposure's percentiles of a row (the table's columns are made per exposure).
+type MetricOf = fn(&SummaryRow) -> &Percentiles;
+
 /// The summary of a whole sweep.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Summary {
@@ -113,9 +119,9 @@ impl Summary {
                     let (p, limit) = (share(over?, t.subjects), limit?);
                     (p > l.max_risk).then(|| {
                         format!(
-                            "{what} above {limit} mg/L in {:.1} % of subjects, more than the acceptable risk of {}",
-                            100.0 * p,
-                            l.max_risk
+                            "{what} above {limit} mg/L in {} of subjects, more than the acceptable risk of {}",
+                            percent(p),
+                            percent(l.max_risk)
                         )
                     })
                 })
@@ -152,14 +158,14 @@ impl Summary {
     }
 
     /// Print in `format`: CSV with full precision (the caller prints the caution on stderr),
-    /// JSON with a `caution` field, or a table for reading with the caution below.
-    pub fn write(&self, out: &mut dyn Write, format: Format) -> std::io::Result<()> {
+    /// JSON with a `caution` field, or a table for reading within `width` characters when
+    /// given (a terminal's), with the caution below.
+    pub fn write(&self, out: &mut dyn Write, format: Format, width: Option<usize>) -> std::io::Result<()> {
         match format {
             Format::Csv => self.write_csv(out),
             Format::Json => write_json(out, self),
             Format::Table => {
-                write!(out, "{}", self.table())?;
-                writeln!(out, "\n{CAUTION}")
+                write!(out, "{}", fit_to_width(&format!("{}\n{CAUTION}\n", self.table(width)), width))
             }
         }
     }
@@ -191,57 +197,77 @@ impl Summary {
         w.finish().map(drop)
     }
 
-    fn table(&self) -> String {
-        let range = |p: &Percentiles| match (p.p05, p.p50, p.p95) {
-            (Some(a), Some(b), Some(c)) => {
-                format!("{} ({}–{})", readable(b, 4), readable(a, 3), readable(c, 3))
-            }
-            _ => String::new(),
-        };
-        let share = |x: Option<f64>| x.map(|p| format!("{:.1}", 100.0 * p)).unwrap_or_else(|| "—".into());
-        let rows: Vec<Vec<String>> = self
-            .regimens
+    fn table(&self, width: Option<usize>) -> String {
+        let rs = &self.regimens;
+        // One number of decimals per column, the same for a metric's median and its range.
+        let decimals = |values: &mut dyn Iterator<Item = f64>, digits| column_decimals(values, digits);
+        let regimen = |f: fn(&Regimen) -> f64| decimals(&mut rs.iter().map(|r| f(&r.regimen)), 3);
+        let (amount, every, infusion) = (
+            regimen(|r| r.amount_mg),
+            regimen(|r| r.every_h),
+            decimals(
+                &mut rs.iter().filter(|r| r.regimen.route == Route::Infusion).map(|r| r.regimen.duration_h),
+                3,
+            ),
+        );
+        let metric =
+            |p: MetricOf| decimals(&mut rs.iter().flat_map(|r| [p(r).p05, p(r).p50, p(r).p95]).flatten(), 3);
+        let metrics: [(MetricOf, usize); 3] = [
+            (|r| &r.trough_mg_l, metric(|r| &r.trough_mg_l)),
+            (|r| &r.peak_mg_l, metric(|r| &r.peak_mg_l)),
+            (|r| &r.auc24_mg_h_l, metric(|r| &r.auc24_mg_h_l)),
+        ];
+        let share = |x: Option<f64>| x.map(|p| fixed(100.0 * p, 1)).unwrap_or_else(|| "—".into());
+        let rows: Vec<Vec<String>> = rs
             .iter()
             .map(|r| {
-                vec![
+                let mut row = vec![
                     r.index.to_string(),
-                    readable(r.regimen.amount_mg, 4),
-                    readable(r.regimen.every_h, 4),
+                    fixed(r.regimen.amount_mg, amount),
+                    fixed(r.regimen.every_h, every),
                     if r.regimen.route == Route::Infusion {
-                        readable(r.regimen.duration_h, 3)
+                        fixed(r.regimen.duration_h, infusion)
                     } else {
                         r.regimen.route.to_string()
                     },
-                    format!("{:.1}", 100.0 * r.pta),
+                    fixed(100.0 * r.pta, 1),
                     share(r.p_over_peak),
                     share(r.p_over_trough),
-                    range(&r.trough_mg_l),
-                    range(&r.peak_mg_l),
-                    range(&r.auc24_mg_h_l),
-                    if r.dose_limits_broken.is_empty() && r.exposure_limits_broken.is_empty() {
-                        String::new()
-                    } else {
-                        "breaks limits".into()
-                    },
-                ]
+                ];
+                for (p, d) in metrics {
+                    let p = p(r);
+                    let cell = |x: Option<f64>| x.map(|x| fixed(x, d)).unwrap_or_default();
+                    row.push(cell(p.p50));
+                    row.push(match (p.p05, p.p95) {
+                        (Some(a), Some(b)) => format!("{}–{}", fixed(a, d), fixed(b, d)),
+                        _ => String::new(),
+                    });
+                }
+                let broken = !(r.dose_limits_broken.is_empty() && r.exposure_limits_broken.is_empty());
+                row.push(if broken { "broken".into() } else { String::new() });
+                row
             })
             .collect();
-        let headers = [
-            "regimen",
-            "amount_mg",
-            "every_h",
-            "infusion_h",
-            "pta_%",
-            "over_peak_%",
-            "over_trough_%",
-            "trough_mg_l median (5–95 %)",
-            "peak_mg_l median (5–95 %)",
-            "auc24_mg_h_l median (5–95 %)",
-            "limits",
+        let columns = [
+            Column::number("#"),
+            Column::number("dose\n(mg)"),
+            Column::number("every\n(h)"),
+            Column::number("infusion\n(h)"),
+            Column::number("PTA\n(%)"),
+            Column::number("peak over\nlimit (%)").optional(2),
+            Column::number("trough over\nlimit (%)").optional(2),
+            Column::number("trough\n(mg/L)"),
+            Column::number("trough\n5–95 %").optional(3),
+            Column::number("peak\n(mg/L)").optional(1),
+            Column::number("peak\n5–95 %").optional(3),
+            Column::number("AUC24\n(mg·h/L)"),
+            Column::number("AUC24\n5–95 %").optional(3),
+            Column::text("limits"),
         ];
         let mut text =
             format!("{} subjects, seed {}; targets: {}\n", self.subjects, self.seed, self.targets.join(", "));
-        text += &render_table(&headers, &rows, &[]);
+        text += &render_table(&columns, &rows, width);
+        text += "Medians over the subjects, with their 5th to 95th percentiles; at steady state.\n";
         for r in &self.regimens {
             for reason in r.dose_limits_broken.iter().chain(&r.exposure_limits_broken) {
                 text += &format!("regimen {}: {reason}\n", r.index);

@@ -23,4 +23,5 @@ mod published_fit;
 mod report;
 mod report_render;
 mod sweep;
+mod tables;
 mod verify;

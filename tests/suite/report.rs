@@ -154,9 +154,10 @@ fn the_report_prints_the_numbers_of_plan_and_sweep() {
     has(
         "advice",
         &format!(
-            "the 90 % interval of {} (now {} wide)",
-            advice["exposure"].as_str().unwrap(),
-            sig(num(&advice["current_ci90_width"]), 3)
+            "the 90 % interval of {} (now {} {} wide)",
+            cistern::io::labels::name_and_unit(advice["exposure"].as_str().unwrap()).0,
+            sig(num(&advice["current_ci90_width"]), 3),
+            cistern::io::labels::name_and_unit(advice["exposure"].as_str().unwrap()).1
         ),
     );
     let best = &advice["times"][0];
@@ -293,4 +294,53 @@ fn poppler_opens_the_report_and_its_pages_and_plots_are_drawn() {
         }
     }
     assert_eq!(panels, 2, "both concentration panels are in the report");
+}
+
+/// The PDF's metadata names the case's author (`[report] author` in p01.toml), as lopdf (an
+/// independent reader) reads the document information dictionary.
+#[test]
+fn the_pdf_author_field_is_the_case_author() {
+    let (_dir, pdf) = report(&[]);
+    let doc = lopdf::Document::load_mem(&pdf).expect("lopdf parses the PDF");
+    let info = doc.trailer.get(b"Info").and_then(|o| o.as_reference()).expect("an Info dictionary");
+    let info = doc.get_object(info).and_then(|o| o.as_dict()).expect("the Info dictionary");
+    let author = info.get(b"Author").and_then(|a| a.as_str()).expect("an Author entry");
+    // A PDF text string is UTF-16BE after a byte-order mark, or PDFDocEncoding (ASCII here).
+    let author = match author.strip_prefix(&[0xFE, 0xFF]) {
+        Some(utf16) => String::from_utf16(
+            &utf16.chunks(2).map(|b| u16::from_be_bytes([b[0], b[1]])).collect::<Vec<u16>>(),
+        )
+        .expect("UTF-16"),
+        None => String::from_utf8(author.to_vec()).expect("ASCII"),
+    };
+    assert_eq!(author, "cistern demonstration");
+}
+
+/// The sweep page says how many of the swept regimens it shows, and each starred regimen has
+/// a note saying which limits it breaks (the reasons of the sweep's JSON).
+#[test]
+fn the_sweep_page_says_what_it_shows_and_why_a_regimen_is_starred() {
+    let (dir, pdf) = report(&[]);
+    let text = squeeze(&page_texts(&pdf).concat());
+    let sweep = json(dir.path(), &["sweep", "--case", "p01.toml", "--format", "json"]);
+    let all = sweep["regimens"].as_array().unwrap();
+    assert!(all.len() > 20, "the demo sweeps more regimens than the page shows");
+    assert!(text.contains(&squeeze(&format!("the best 20 of {} regimens", all.len()))), "no count");
+    let mut rows: Vec<&Value> = all.iter().collect();
+    rows.sort_by(|a, b| {
+        num(&b["pta"]).total_cmp(&num(&a["pta"])).then(num(&a["daily_mg"]).total_cmp(&num(&b["daily_mg"])))
+    });
+    let mut starred = 0;
+    for r in rows.iter().take(20) {
+        let reasons: Vec<&str> = ["dose_limits_broken", "exposure_limits_broken"]
+            .iter()
+            .flat_map(|k| r[*k].as_array().unwrap().iter().map(|m| m.as_str().unwrap()))
+            .collect();
+        if !reasons.is_empty() {
+            starred += 1;
+            let note = format!("* {}: {}.", regimen(r), reasons.join("; "));
+            assert!(text.contains(&squeeze(&note)), "'{note}' not in the report");
+        }
+    }
+    assert!(starred > 0, "the demo's sweep page has starred regimens");
 }

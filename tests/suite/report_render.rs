@@ -10,7 +10,7 @@ use crate::common::{
 };
 use cistern::io::output::CAUTION;
 use cistern::report::layout::{
-    Band, BarChart, Block, Document, HLine, Marker, PlotSpec, Series, Stroke, Table,
+    Band, BarChart, Block, Document, DoseTick, HLine, Marker, PlotSpec, Series, Stroke, Table,
 };
 use cistern::report::pdf::render_pdf;
 use cistern::report::svg::render_svg;
@@ -70,7 +70,7 @@ fn panel(log_y: bool) -> PlotSpec {
             Marker { x: 40.0, y: 0.5, hollow: true },
         ],
         markers_label: "observed level".into(),
-        doses: (0..8).map(|k| 12.0 * k as f64).collect(),
+        doses: (0..8).map(|k| DoseTick { x: 12.0 * k as f64, color: (0.45, 0.15, 0.55) }).collect(),
         start_x: Some(48.0),
     }
 }
@@ -111,6 +111,7 @@ fn document() -> Document {
         caution: CAUTION.into(),
         footer: FOOTER.into(),
         created_iso: "2025-03-01T14:05:09Z".into(),
+        author: Some("An Invented Author".into()),
         blocks: vec![
             Block::Heading("Summary".into()),
             Block::Paragraph(
@@ -139,8 +140,8 @@ fn document() -> Document {
             Block::Bars(BarChart {
                 title: "Probability of target attainment".into(),
                 labels: (0..5).map(|i| format!("{} mg q12h", 500 + 250 * i)).collect(),
-                values: vec![0.31, 0.55, 0.78, 0.9, 0.97],
-                axis_label: "probability of target attainment".into(),
+                values: vec![31.0, 55.0, 78.0, 90.0, 97.0],
+                axis_label: "probability of target attainment (%)".into(),
             }),
             Block::PageBreak,
             Block::Heading("All candidates".into()),

@@ -189,7 +189,7 @@ fn output_is_identical_at_one_and_two_threads() {
         pool.install(|| {
             let (summary, rows) = sweep_summary(&population, &many, 3_000, "trough=10..20");
             let mut csv = Vec::new();
-            summary.write(&mut csv, Format::Csv).unwrap();
+            summary.write(&mut csv, Format::Csv, None).unwrap();
             (csv, rows)
         })
     };
