@@ -249,17 +249,14 @@ impl FitResult {
 }
 
 /// Fit every subject in parallel; results are in input order and independent of thread count.
+/// Each subject draws from its own stream, keyed by its identifier ([`Seeds::subject`]).
 pub fn fit_all(
     subjects: &[SubjectData],
     model: Option<&PopulationModel>,
     options: &FitOptions,
 ) -> Vec<Result<FitResult, Error>> {
     let seeds = Seeds(options.seed);
-    subjects
-        .par_iter()
-        .enumerate()
-        .map(|(i, s)| fit_subject(s, model, options, seeds.fit_subject(i as u64)))
-        .collect()
+    subjects.par_iter().map(|s| fit_subject(s, model, options, seeds.subject(s.id.as_deref()))).collect()
 }
 
 /// How ka, F and the lag time are handled for one subject.
