@@ -7,8 +7,9 @@ use cistern::engine::steady::{SingleDose, SteadyCurve, SteadyState};
 use cistern::engine::{self, Params};
 use cistern::error::Problems;
 use cistern::io::output::{
-    CAUTION, CsvWriter, Format, io_failure, plain, readable, render_table, write_json,
+    CAUTION, CsvWriter, Format, RunFiles, io_failure, plain, readable, render_table, write_json,
 };
+use cistern::limits::reported_conc;
 use cistern::units::Kind;
 use cistern::{Error, InputError};
 use clap::Args;
@@ -146,15 +147,20 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
     let (Some(params), Some(dosing)) = (params, dosing) else {
         return Err(Error::Usage("the arguments could not be read".into()));
     };
+    let mut sink = args.output.sink(&mut RunFiles::default())?;
     // Each flag's value was checked above; what is left is how they combine.
     let (table_rows, doc) = match dosing {
         Dosing::Repeated { regimen, .. } => {
-            let ss = SteadyCurve::new(&params, regimen).map_err(invalid_flag)?.metrics();
+            let mut ss = SteadyCurve::new(&params, regimen).map_err(invalid_flag)?.metrics();
+            for c in [&mut ss.exposure.peak_mg_l, &mut ss.exposure.trough_mg_l, &mut ss.exposure.cavg_mg_l] {
+                *c = reported_conc(*c);
+            }
             let doc = ExposureJson { parameters: parameters_json(&params), regimen, steady_state: ss };
             (rows(&doc.parameters, &steady_rows(&doc)), Doc::Repeated(doc))
         }
         Dosing::Single(dose) => {
-            let metrics = SingleDose::new(&params, dose).map_err(invalid_flag)?;
+            let mut metrics = SingleDose::new(&params, dose).map_err(invalid_flag)?;
+            metrics.cmax_mg_l = reported_conc(metrics.cmax_mg_l);
             let at_zero = Dose { time_h: 0.0, ..dose };
             let levels = engine::concentrations(&params, &[at_zero], &at);
             let doc = SingleJson {
@@ -165,7 +171,7 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
                     at: at
                         .iter()
                         .zip(levels)
-                        .map(|(&time_h, conc_mg_l)| LevelAt { time_h, conc_mg_l })
+                        .map(|(&time_h, c)| LevelAt { time_h, conc_mg_l: reported_conc(c) })
                         .collect(),
                 },
             };
@@ -173,7 +179,6 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
         }
     };
     let format = args.output.format();
-    let mut sink = args.output.sink(&[])?;
     let out = sink.writer();
     match format {
         Format::Json => write_json(out, &doc).map_err(io_failure)?,
