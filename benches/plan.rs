@@ -15,7 +15,9 @@ use cistern::plan::Course;
 use cistern::plan::advisor::{Question, advise};
 use cistern::plan::candidates::{Durations, amount_step, grid, parse_amounts};
 use cistern::plan::recommend::{PlanInput, plan};
-use cistern::plan::session::{Posterior, Settings, plan_subject, sampling_times};
+use cistern::plan::session::{
+    DEFAULT_SAMPLE_AFTER_H, Posterior, Record, Settings, plan_subject, sampling_times,
+};
 use cistern::plan::targets::{Limits, Target, parse_target};
 use criterion::{Criterion, criterion_group, criterion_main};
 use rand::SeedableRng;
@@ -81,6 +83,7 @@ fn benches(c: &mut Criterion) {
     let posterior =
         Posterior { point: Params::iv(4.0, 50.0), draws: draws.clone(), residual: Some(RESIDUAL) };
     let course = Course { history: &history, start_h: 48.5, therapy_start_h: 0.0 };
+    let record = Record { history: &history, last_level_h: None };
     let mut group = c.benchmark_group("plan_2000_draws_198_candidates");
     group.sample_size(20).measurement_time(Duration::from_secs(8));
     for (name, specs) in [
@@ -95,10 +98,11 @@ fn benches(c: &mut Criterion) {
             start_h: Some(48.5),
             advise_on: None,
             advise_intervals: 2,
+            sample_after_h: DEFAULT_SAMPLE_AFTER_H,
             seed: 1,
         };
         group.bench_function(format!("{name}/ranking_and_advice"), |b| {
-            b.iter(|| plan_subject(black_box(&history), black_box(&posterior), &settings).expect("plan"))
+            b.iter(|| plan_subject(black_box(&record), black_box(&posterior), &settings).expect("plan"))
         });
         let input = PlanInput {
             draws: &draws,
@@ -112,14 +116,14 @@ fn benches(c: &mut Criterion) {
         group
             .bench_function(format!("{name}/ranking"), |b| b.iter(|| plan(black_box(&input)).expect("plan")));
     }
-    // The advisor alone, for 1 g over 1 h every 12 h: 26 candidate times over two intervals,
+    // The advisor alone, for 1 g over 1 h every 12 h: 22 candidate times over two intervals,
     // 200 simulated levels each (what the command uses).
     let regimen = Regimen { amount_mg: 1000.0, every_h: 12.0, duration_h: 1.0, route: Route::Infusion };
     let exposure: Vec<f64> = draws
         .iter()
         .map(|p| SteadyCurve::new(p, regimen).expect("steady state").metrics().exposure.auc24_mg_h_l)
         .collect();
-    let times = sampling_times(&regimen, 48.5, 2);
+    let times = sampling_times(&regimen, 48.5, 2, regimen.duration_h + DEFAULT_SAMPLE_AFTER_H);
     let doses = course.continued(&regimen, None, 48.5 + 36.0);
     let question = Question {
         draws: &draws,

@@ -14,7 +14,7 @@ fn main() -> Result<(), Error> {
     let path = std::env::args().nth(1).unwrap_or_else(|| "demo-regimens/p01.toml".into());
     let spec = case::read(&path)?;
     let settings = spec.resolve(Needs { grid: true })?;
-    let study = Study::load(&spec.inputs, Required { model: true })?;
+    let study = Study::load(&spec.inputs, Required { model: true, levels: true })?;
     let model = study.model.as_ref().ok_or_else(|| Error::Usage("the case names no model".into()))?;
     let seeds = Seeds(settings.seed);
     let (subject, fit) = PlanSubject::fitted(study.subject(&spec.subject)?, model, seeds, settings.draws)?;

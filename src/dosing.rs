@@ -57,6 +57,15 @@ pub struct Dose {
 }
 
 impl Dose {
+    /// Check the dose's values, returning what is wrong.
+    pub fn validate(&self) -> Result<(), InputError> {
+        validate_dose(self.amount_mg, self.route, self.duration_h)?;
+        if !self.time_h.is_finite() {
+            return Err(InputError::field("start_h", "the dose time must be a finite number"));
+        }
+        Ok(())
+    }
+
     /// An infusion's constant input rate (mg/h).
     pub fn rate_mg_h(&self) -> f64 {
         self.amount_mg / self.duration_h

@@ -10,7 +10,7 @@
 //!
 //! let spec = cistern::case::read("demo-regimens/p01.toml")?;
 //! let settings = spec.resolve(Needs { grid: true })?;
-//! let study = Study::load(&spec.inputs, Required { model: true })?;
+//! let study = Study::load(&spec.inputs, Required { model: true, levels: true })?;
 //! let (model, grid) = (study.model.as_ref().unwrap(), settings.grid.as_ref().unwrap());
 //! let seeds = Seeds(settings.seed);
 //! let (subject, fit) = PlanSubject::fitted(study.subject(&spec.subject)?, model, seeds, 200)?;

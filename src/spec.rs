@@ -9,8 +9,11 @@
 //! the place where it would be given, so "missing" messages point there too.
 
 use crate::dosing::{Regimen, Route};
+use crate::engine::Params;
 use crate::error::{Error, InputError, Origin, Problems, Result};
-use crate::plan::candidates::{Durations, grid, parse_amounts, positive_list};
+use crate::plan::candidates::{
+    DEFAULT_DURATION_H, DEFAULT_EVERY_H, Durations, default_amounts, grid, parse_amounts, positive_list,
+};
 use crate::plan::targets::{DEFAULT_MAX_RISK, Limits, Metric, Target, parse_target};
 use crate::units::{Kind, parse_value};
 use std::ops::RangeInclusive;
@@ -268,6 +271,21 @@ pub struct Grid {
     pub targets: Vec<Target>,
     /// The limits.
     pub limits: Limits,
+    /// How the candidates not given were derived, for the output.
+    pub notes: Vec<String>,
+}
+
+/// Where the candidates not given (amounts, intervals, infusion durations) come from.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Fallback<'a> {
+    /// Nowhere: a required grid must give them.
+    None,
+    /// Derived for these parameters (a subject's point estimate): the usual intervals, 1-h
+    /// infusions, and amounts from the targets ([`default_amounts`]).
+    Derived(&'a Params),
+    /// Derived, but the parameters are unknown (they have a problem of their own): no grid, and
+    /// no problem for the missing candidates.
+    Unknown,
 }
 
 impl LimitSpec {
@@ -349,10 +367,20 @@ impl GridSpec {
     /// # Ok::<(), cistern::Error>(())
     /// ```
     pub fn resolve(&self, required: bool) -> Result<Option<Grid>> {
+        self.resolve_with(required, Fallback::None)
+    }
+
+    /// [`GridSpec::resolve`], with the candidates not given taken from `fallback`.
+    pub fn resolve_with(&self, required: bool, fallback: Fallback) -> Result<Option<Grid>> {
         let mut problems = Problems::new();
         let missing = |problems: &mut Problems, e: InputError| {
             if required {
                 problems.push(e);
+            }
+        };
+        let candidate_missing = |problems: &mut Problems, e: InputError| {
+            if fallback == Fallback::None {
+                missing(problems, e);
             }
         };
         let mut targets = Vec::new();
@@ -380,8 +408,10 @@ impl GridSpec {
                 .push(self.route.problem(format!("expected bolus, infusion or oral, found '{route_text}'")));
         }
         type Parse<'a> = &'a dyn Fn(&str) -> std::result::Result<Vec<f64>, String>;
+        // Some(None): not given, to be derived; None: a problem.
         let list = |problems: &mut Problems, s: &Setting<String>, what: &str, parse: Parse| match &s.value {
-            Some(text) => problems.take(parse(text).map_err(|m| s.problem(m))),
+            Some(text) => problems.take(parse(text).map_err(|m| s.problem(m))).map(Some),
+            None if fallback != Fallback::None => Some(None),
             None => {
                 missing(problems, s.problem(format!("the candidate grid needs {what}")));
                 None
@@ -403,8 +433,9 @@ impl GridSpec {
                     step_h: DERIVED_STEP_H,
                 }),
                 None if self.limits.max_rate.value.is_some() => None,
+                None if fallback != Fallback::None => Some(Durations::Fixed(vec![DEFAULT_DURATION_H])),
                 None => {
-                    missing(
+                    candidate_missing(
                         &mut problems,
                         self.durations.problem(
                             "infusions need their durations (e.g. 1h,2h) or a rate limit to derive them \
@@ -431,6 +462,36 @@ impl GridSpec {
         else {
             return Ok(None);
         };
+        let mut notes = Vec::new();
+        let every = every.unwrap_or_else(|| {
+            let usual: Vec<f64> =
+                DEFAULT_EVERY_H.into_iter().filter(|&t| limits.min_every_h.is_none_or(|m| t >= m)).collect();
+            let list = if usual.is_empty() { limits.min_every_h.into_iter().collect() } else { usual };
+            let text: Vec<String> = list.iter().map(|t| format!("{t}h")).collect();
+            notes.push(format!(
+                "intervals {}: the usual ones{}; give --every to choose",
+                text.join(","),
+                if limits.min_every_h.is_some() { " from the shortest allowed" } else { "" }
+            ));
+            list
+        });
+        if let (Durations::Fixed(d), None, Route::Infusion) = (&durations, &self.durations.value, route) {
+            notes.push(format!("infusions over {} h; give --durations to choose", d[0]));
+        }
+        let amounts = match (amounts, fallback) {
+            (Some(a), _) => a,
+            (None, Fallback::Derived(point)) => {
+                let duration = |amount: f64| match &durations {
+                    Durations::Fixed(d) => d.first().copied().unwrap_or(0.0),
+                    Durations::FromRate { max_rate_mg_h, min_h, .. } => (amount / max_rate_mg_h).max(*min_h),
+                };
+                let (a, what) = default_amounts(point, &targets, &every, route, duration, limits.max_dose_mg)
+                    .map_err(|m| Error::from(self.amounts.problem(m)))?;
+                notes.push(what);
+                a
+            }
+            (None, _) => return Ok(None),
+        };
         let candidates =
             grid(&amounts, &every, route, &durations).map_err(|m| Error::from(self.amounts.problem(m)))?;
         // A target over day N continues each candidate to that day: bound the doses it adds.
@@ -448,7 +509,7 @@ impl GridSpec {
                     )))
                 })?;
         }
-        Ok(Some(Grid { candidates, targets, limits }))
+        Ok(Some(Grid { candidates, targets, limits, notes }))
     }
 }
 
@@ -478,10 +539,15 @@ impl Spec {
     /// Read and check every value given, and those `needs` asks for: every problem at once,
     /// each at its origin.
     pub fn resolve(&self, needs: Needs) -> Result<Resolved> {
+        self.resolve_with(needs, Fallback::None)
+    }
+
+    /// [`Spec::resolve`], with the candidates not given taken from `fallback`.
+    pub fn resolve_with(&self, needs: Needs, fallback: Fallback) -> Result<Resolved> {
         let mut problems = Problems::new();
         let draws = problems.take(self.draws());
         let start_h = problems.take(self.start_h());
-        let grid = problems.take_all(self.grid.resolve(needs.grid));
+        let grid = problems.take_all(self.grid.resolve_with(needs.grid, fallback));
         let sweep_subjects = match &self.sweep {
             Some(s) => problems.take(s.subjects()).map(Some),
             None => Some(None),

@@ -179,6 +179,17 @@ pub fn parse_name<'a>(name: &'a str, known: &[(&str, Kind)]) -> Result<Option<Na
     Ok(None)
 }
 
+/// The smallest practical step of the form 1, 2, 2.5 or 5 × 10ⁿ that is at least `x` (> 0): the
+/// rounding of default amounts (mg) and default time grids (h).
+pub fn round_step(x: f64) -> f64 {
+    let scale = 10f64.powf(x.log10().floor());
+    [1.0, 2.0, 2.5, 5.0, 10.0]
+        .into_iter()
+        .map(|m| m * scale)
+        .find(|s| *s >= x * (1.0 - 1e-12))
+        .unwrap_or(10.0 * scale)
+}
+
 #[cfg(test)]
 #[allow(clippy::float_cmp)] // these values are exact in binary floating point
 mod tests {

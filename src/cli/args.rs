@@ -4,7 +4,7 @@
 //! negative `--every -5h` reaches our own check, whose message names the flag.
 
 use cistern::choice::Choice;
-use cistern::dosing::{Regimen, Route, Schedule};
+use cistern::dosing::{Dose, Regimen, Route, Schedule};
 use cistern::engine::Params;
 use cistern::error::Problems;
 use cistern::io::output::{CAUTION, Format, RunFiles, Sink};
@@ -234,16 +234,16 @@ impl ParamArgs {
 /// A year in hours (365.25 days): a half-life or an infusion longer than this is a warning.
 const YEAR_H: f64 = 8766.0;
 
-/// A repeated regimen given by flags.
+/// A dose, or a regimen, given by flags.
 #[derive(Args, Debug, Clone)]
 pub struct RegimenArgs {
     /// Amount of each dose, e.g. 1g, 750mg, 750
     #[arg(long, value_name = "AMOUNT", allow_hyphen_values = true)]
     pub dose: Option<String>,
-    /// Dosing interval, e.g. 12h, 720min, 1d
+    /// Dosing interval, e.g. 12h, 720min, 1d [default: none, a single dose]
     #[arg(long, value_name = "TIME", allow_hyphen_values = true)]
     pub every: Option<String>,
-    /// Number of doses
+    /// Number of doses (with --every) [default: 1]
     #[arg(long, value_name = "N", allow_hyphen_values = true)]
     pub count: Option<u32>,
     /// Route: bolus, infusion or oral
@@ -257,14 +257,31 @@ pub struct RegimenArgs {
     pub start: String,
 }
 
+/// What the regimen flags describe.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Dosing {
+    /// One dose: no --every, and --count 1 or none.
+    Single(Dose),
+    /// A dose repeated every interval from a start: --count times when given.
+    Repeated {
+        /// The repeated dose.
+        regimen: Regimen,
+        /// The number of doses, when given.
+        count: Option<u32>,
+        /// Time of the first dose (h).
+        start_h: f64,
+    },
+}
+
 impl RegimenArgs {
     /// True when any regimen flag other than the defaults was given.
     pub fn given(&self) -> bool {
         self.dose.is_some() || self.every.is_some() || self.count.is_some() || self.duration.is_some()
     }
 
-    /// The schedule, with every problem reported. `count` defaults to `default_count`.
-    pub fn schedule(&self, problems: &mut Problems, default_count: Option<u32>) -> Option<Schedule> {
+    /// The dose or regimen the flags describe, with every problem reported: one dose unless
+    /// --every is given (a single dose needs no interval).
+    pub fn dosing(&self, problems: &mut Problems) -> Option<Dosing> {
         let amount = match &self.dose {
             Some(t) => problems.take(flag_value("--dose", Kind::Amount, t)),
             None => {
@@ -272,14 +289,16 @@ impl RegimenArgs {
                 None
             }
         };
-        let every = match &self.every {
-            Some(t) => problems.take(flag_value("--every", Kind::Time, t)),
-            None if self.count == Some(1) => Some(24.0),
-            None => {
-                problems
-                    .push(InputError::flag("--every", "the dosing interval is required, e.g. --every 12h"));
+        let every = match (&self.every, self.count) {
+            (Some(t), _) => problems.take(flag_value("--every", Kind::Time, t)).map(Some),
+            (None, Some(n)) if n > 1 => {
+                problems.push(InputError::flag(
+                    "--every",
+                    format!("{n} doses need the dosing interval, e.g. --every 12h"),
+                ));
                 None
             }
+            (None, _) => Some(None),
         };
         let route = Route::parse(&self.route);
         if route.is_none() {
@@ -299,35 +318,45 @@ impl RegimenArgs {
             }
             (None, _) => Some(0.0),
         };
-        let count = match self.count.or(default_count) {
-            Some(c) => Some(c),
+        let start = problems.take(flag_value("--start", Kind::Time, &self.start));
+        let (amount_mg, route, duration_h, start_h) = (amount?, route?, duration?, start?);
+        let dosing = match every? {
             None => {
-                problems.push(InputError::flag("--count", "the number of doses is required, e.g. --count 6"));
-                None
+                let dose = Dose { time_h: start_h, amount_mg, route, duration_h };
+                dose.validate().map(|()| Dosing::Single(dose))
+            }
+            Some(every_h) => {
+                let regimen = Regimen { amount_mg, every_h, duration_h, route };
+                if route == Route::Infusion && duration_h > every_h && self.count.is_some_and(|n| n > 1) {
+                    let text = self.duration.as_deref().unwrap_or_default();
+                    warn(&format!(
+                        "the infusion (--duration {}, {} h) lasts longer than the dosing interval ({} h), so \
+                         infusions overlap{}",
+                        text.trim(),
+                        limits::number(duration_h),
+                        limits::number(every_h),
+                        bare_unit(Kind::Time, text)
+                    ));
+                }
+                let check = match self.count {
+                    Some(count) => Schedule { regimen, count, start_h }.validate(),
+                    None => regimen.validate(),
+                };
+                check.map(|()| Dosing::Repeated { regimen, count: self.count, start_h })
             }
         };
-        let start = problems.take(flag_value("--start", Kind::Time, &self.start));
-        let schedule = Schedule {
-            regimen: Regimen { amount_mg: amount?, every_h: every?, duration_h: duration?, route: route? },
-            count: count?,
-            start_h: start?,
-        };
-        let r = schedule.regimen;
-        if r.route == Route::Infusion && r.duration_h > r.every_h && schedule.count > 1 {
-            let text = self.duration.as_deref().unwrap_or_default();
-            warn(&format!(
-                "the infusion (--duration {}, {} h) lasts longer than the dosing interval ({} h), so \
-                 infusions overlap{}",
-                text.trim(),
-                limits::number(r.duration_h),
-                limits::number(r.every_h),
-                bare_unit(Kind::Time, text)
-            ));
-        }
-        match schedule.validate() {
-            Ok(()) => Some(schedule),
-            Err(invalid) => {
-                problems.push(invalid_flag(invalid));
+        dosing.map_err(|invalid| problems.push(invalid_flag(invalid))).ok()
+    }
+
+    /// The dose history the flags describe: one dose, or --count doses every --every hours.
+    pub fn history(&self, problems: &mut Problems) -> Option<Vec<Dose>> {
+        match self.dosing(problems)? {
+            Dosing::Single(dose) => Some(vec![dose]),
+            Dosing::Repeated { regimen, count: Some(count), start_h } => {
+                Some(Schedule { regimen, count, start_h }.doses())
+            }
+            Dosing::Repeated { count: None, .. } => {
+                problems.push(InputError::flag("--count", "give the number of doses, e.g. --count 6"));
                 None
             }
         }

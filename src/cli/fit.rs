@@ -109,8 +109,10 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
         ));
     }
     let settings = problems.take_all(spec.resolve(Needs::default()));
-    let study =
-        problems.take_all(Study::load(&spec.inputs, Required { model: args.method == Some(Method::Map) }));
+    let study = problems.take_all(Study::load(
+        &spec.inputs,
+        Required { model: args.method == Some(Method::Map), levels: true },
+    ));
     let (((Study { model, subjects, notes }, settings), (ka, f)), tlag) =
         problems.finish_with(study.zip(settings).zip(ka.zip(f)).zip(tlag))?;
     let method = args.method.unwrap_or(if model.is_some() { Method::Map } else { Method::Wls });

@@ -2,13 +2,13 @@
 //! attainment over the posterior, recommend one that respects every limit, and advise when to
 //! draw the next level.
 
-use super::args::{OutputArgs, choice};
+use super::args::{OutputArgs, choice, flag_value};
 use super::regimen_grid::GridArgs;
 use super::study::StudyArgs;
 use cistern::error::Problems;
-use cistern::spec::{DEFAULT_DRAWS, Needs, Stated};
+use cistern::spec::{DEFAULT_DRAWS, Fallback, Needs, Stated};
 use cistern::workflow::{NextLevel, PlanSubject, Required, Study, plan};
-use cistern::{Origin, Seeds};
+use cistern::{InputError, Origin, Seeds};
 use std::path::PathBuf;
 
 use cistern::Error;
@@ -19,8 +19,9 @@ use cistern::io::output::{
 };
 use cistern::plan::advisor::Advice;
 use cistern::plan::recommend::Plan;
-use cistern::plan::session::{Exposure, Outcome};
+use cistern::plan::session::{DEFAULT_SAMPLE_AFTER_H, Exposure, Outcome};
 use cistern::plan::targets::{Limits, Target};
+use cistern::units::Kind;
 use clap::Args;
 use serde::Serialize;
 
@@ -38,6 +39,11 @@ Examples:
   cistern plan --fit fit.json --doses demo-regimens/doses.csv --subject P02 --target trough=10..20 \\
       --amounts 500..1500/250 --every 12h --max-rate 10mg/min
 
+  # a priori, for a new patient: no doses or levels, the model and the covariates alone
+  cistern plan --model demo-regimens/model.toml --covariate age_y=60 --covariate sex=F \\
+      --covariate weight_kg=70 --covariate height_cm=168 --covariate scr_mg_dl=0.9 \\
+      --target auc24=400..600 --amounts 500..2000/250 --every 8h,12h,24h --durations 1h
+
 Targets: auc24, auc_day<N> (AUC over day N of therapy), trough, peak, cavg, and
 above=LO..HI[@PCT%] (share of the interval with the level in the window). Exposure limits
 (--max-peak, --max-trough) are broken when the chance of exceeding them is above --max-risk.")]
@@ -50,7 +56,8 @@ pub struct PlanArgs {
     /// The subject to plan for (needed when the files hold several)
     #[arg(long, value_name = "ID")]
     subject: Option<String>,
-    /// Posterior draws to plan over [default: the case's, else 2000]
+    /// Posterior draws to plan over (prior draws when planning a priori) [default: the case's,
+    /// else 2000]
     #[arg(long)]
     draws: Option<u32>,
     /// Seed for the posterior draws and the advisor's simulations [default: the case's, else 1]
@@ -67,6 +74,11 @@ pub struct PlanArgs {
     /// Dosing intervals of the new regimen searched for the next sampling time
     #[arg(long, default_value_t = 2, value_parser = clap::value_parser!(u32).range(1..=20))]
     advise_intervals: u32,
+    /// Earliest sampling time the advice proposes after the end of an infusion or bolus, to
+    /// leave out the distribution phase [default: 1h, common practice]. After an oral dose,
+    /// when the advice is about the trough, no time before the expected peak is proposed
+    #[arg(long, value_name = "TIME", allow_hyphen_values = true)]
+    sample_after: Option<String>,
     /// Leave out the next-level advice
     #[arg(long)]
     no_advice: bool,
@@ -78,6 +90,7 @@ pub struct PlanArgs {
 #[derive(Serialize)]
 struct PlanJson<'a> {
     subject: Option<&'a str>,
+    a_priori: bool,
     start_h: f64,
     targets: &'a [Target],
     limits: &'a Limits,
@@ -95,7 +108,16 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
     spec.start.set("--start", args.start.clone());
     let mut problems = Problems::new();
     args.grid.apply(&mut spec, &mut problems);
-    let settings = problems.take_all(spec.resolve(Needs { grid: true }));
+    let sample_after_h = match &args.sample_after {
+        Some(t) => problems.take(flag_value("--sample-after", Kind::Time, t).and_then(|h| {
+            if h >= 0.0 {
+                Ok(h)
+            } else {
+                Err(InputError::flag("--sample-after", format!("expected a time of 0 or more, found '{t}'")))
+            }
+        })),
+        None => Some(DEFAULT_SAMPLE_AFTER_H),
+    };
     let seeds = Seeds(spec.seed());
     // The output is opened before the fit and the plan, so a bad path fails first.
     let inputs = spec.files().into_iter().chain(args.fit.as_ref().map(PathBuf::from));
@@ -106,26 +128,39 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
             problems.take_all(PlanSubject::saved(&saved, &spec.inputs.doses, &spec.subject))
         }
         None => {
-            let draws = settings.as_ref().map_or(DEFAULT_DRAWS as usize, |s| s.draws);
-            problems.take_all(Study::load(&spec.inputs, Required { model: true }).and_then(|study| {
+            // A bad --draws is reported by the spec's resolution below.
+            let draws = spec.draws().unwrap_or(DEFAULT_DRAWS as usize);
+            let required = Required { model: true, levels: false };
+            problems.take_all(Study::load(&spec.inputs, required).and_then(|study| {
                 for n in &study.notes {
                     args.output.note(n);
                 }
                 let model = study.model.as_ref().ok_or_else(|| Error::Usage("no population model".into()))?;
-                PlanSubject::fitted(study.subject(&spec.subject)?, model, seeds, draws).map(|(s, _)| s)
+                PlanSubject::of(study.subject(&spec.subject)?, model, seeds, draws).map(|(s, _)| s)
             }))
         }
     };
-    let (settings, subject) = problems.finish_with(settings.zip(subject))?;
+    // Candidates not given are derived for the subject's point estimate.
+    let fallback = subject.as_ref().map_or(Fallback::Unknown, |s| Fallback::Derived(&s.posterior.point));
+    let settings = problems.take_all(spec.resolve_with(Needs { grid: true }, fallback));
+    let ((settings, subject), sample_after_h) =
+        problems.finish_with(settings.zip(subject).zip(sample_after_h))?;
     let Some(grid) = &settings.grid else {
         return Err(Error::Usage("the candidate grid is incomplete".into()));
     };
     for w in &subject.warnings {
         args.output.note(&format!("fit: {w}"));
     }
+    if subject.a_priori {
+        args.output.note(&a_priori_text(&subject));
+    }
+    for n in &grid.notes {
+        args.output.note(&format!("candidates: {n}"));
+    }
     let next_level = NextLevel {
         exposure: args.advise_on,
         intervals: if args.no_advice { 0 } else { args.advise_intervals },
+        sample_after_h,
     };
     let Outcome { start_h, plan: result, advice, notes } =
         plan(&subject, grid, settings.start_h, next_level, seeds)?;
@@ -140,6 +175,7 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
         Format::Json => {
             let doc = PlanJson {
                 subject: subject.id.as_deref(),
+                a_priori: subject.a_priori,
                 start_h,
                 targets,
                 limits,
@@ -157,6 +193,17 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
     }
     args.output.caution_for_csv(format);
     sink.finish()
+}
+
+/// What an a priori plan rests on, for the note and the table.
+fn a_priori_text(subject: &PlanSubject) -> String {
+    format!(
+        "a priori: no levels, so the plan is over {} draws from the population model for the \
+         subject's covariates (typical CL {} L/h, V {} L), not over a posterior",
+        subject.posterior.draws.len(),
+        readable(subject.posterior.point.cl_l_h, 4),
+        readable(subject.posterior.point.v_l, 4)
+    )
 }
 
 fn write_csv(out: &mut dyn std::io::Write, plan: &Plan) -> std::io::Result<()> {
@@ -227,11 +274,12 @@ fn table(
     let mut text = String::new();
     let who = post.id.as_deref().unwrap_or("the subject");
     let goals: Vec<String> = targets.iter().map(Target::to_string).collect();
-    text += &format!(
-        "Plan for {who}: targets {}; new regimen from {} h\n\n",
-        goals.join(", "),
-        readable(start, 5)
-    );
+    text +=
+        &format!("Plan for {who}: targets {}; new regimen from {} h\n", goals.join(", "), readable(start, 5));
+    if post.a_priori {
+        text += &format!("{}\n", a_priori_text(post));
+    }
+    text.push('\n');
     let shown: Vec<&Assessment> = plan.candidates.iter().take(SHOWN).collect();
     // One number of decimals per metric, for its medians and its 90 % ranges alike.
     let metrics: [fn(&Assessment) -> &Band; 3] =
@@ -323,7 +371,7 @@ fn table(
             column(&|s| s.time_h, 5),
             column(&|s| s.after_dose_h, 3),
             column(&|s| s.expected_ci90_width, 3),
-            column(&|s| s.shrinkage_pct, 2),
+            column(&|s| s.interval_narrowing_pct, 2),
         ];
         let rows: Vec<Vec<String>> =
             (0..times.len()).map(|i| cells.iter().map(|c| c[i].clone()).collect()).collect();

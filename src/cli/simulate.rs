@@ -1,9 +1,8 @@
 //! `cistern simulate`: concentrations over a dose history at requested times, and the exact AUC.
 
 use super::args::{OutputArgs, ParamArgs, RegimenArgs, flag_value, invalid_flag};
-use cistern::dosing::Dose;
-use cistern::engine;
-use cistern::engine::Params;
+use cistern::dosing::{Dose, Route};
+use cistern::engine::{self, Params};
 use cistern::error::Problems;
 use cistern::io::doses::{DoseFile, parse_doses};
 use cistern::io::labels::label;
@@ -24,6 +23,9 @@ use serde::Serialize;
 #[derive(Args, Debug)]
 #[command(after_help = "\
 Examples:
+  # one 1 g dose infused over 1 h; CL 4 L/h, V 40 L; times to five half-lives after it
+  cistern simulate --dose 1g --route infusion --duration 1h --cl 4 --v 40
+
   # 1 g infused over 1 h every 12 h, 6 doses; CL 4.2 L/h, V 48 L; every 30 min for 3 days
   cistern simulate --dose 1g --route infusion --duration 1h --every 12h --count 6 \\
       --cl 4.2 --v 48 --times 0:72h:30min
@@ -44,7 +46,8 @@ pub struct SimulateArgs {
     regimen: RegimenArgs,
     #[command(flatten)]
     params: ParamArgs,
-    /// Time grid START:END:STEP, e.g. 0:48h:15min (START + i·STEP up to END)
+    /// Time grid START:END:STEP, e.g. 0:48h:15min (START + i·STEP up to END) [default: from
+    /// the first dose to five half-lives after the last dose ends, about 100 points]
     #[arg(long, value_name = "GRID", conflicts_with = "at", allow_hyphen_values = true)]
     times: Option<String>,
     /// Explicit times, comma-separated, e.g. 0.5,1,2h,90min
@@ -105,21 +108,47 @@ pub fn parse_grid(text: &str) -> Result<Vec<f64>, InputError> {
     Ok((0..points).map(|i| start + i as f64 * step).collect())
 }
 
-fn times_of(args: &SimulateArgs, problems: &mut Problems) -> Option<Vec<f64>> {
+/// The times asked for, or `None` for the default grid (not an error).
+fn times_of(args: &SimulateArgs, problems: &mut Problems) -> Option<Option<Vec<f64>>> {
     match (&args.times, args.at.is_empty()) {
-        (Some(grid), _) => problems.take(parse_grid(grid)),
+        (Some(grid), _) => problems.take(parse_grid(grid)).map(Some),
         (None, false) => {
             let mut out = Vec::with_capacity(args.at.len());
             for t in &args.at {
                 out.push(problems.take(flag_value("--at", Kind::Time, t))?);
             }
-            Some(out)
+            Some(Some(out))
         }
-        (None, true) => {
-            problems.push(InputError::flag("--times", "give the times: --times 0:48h:30min or --at 1,2,6"));
-            None
-        }
+        (None, true) => Some(None),
     }
+}
+
+/// Points of the default time grid, about.
+const DEFAULT_POINTS: f64 = 100.0;
+
+/// The default time grid: from the first dose to five half-lives after the end of the last
+/// (the half-life of the slower of elimination and absorption when a dose is oral: about 97 %
+/// of the last dose is then eliminated), in a round step (1, 2, 2.5 or 5 × 10ⁿ h) giving at most 100 intervals; with
+/// its description for the note.
+fn default_grid(params: &Params, subjects: &[(Option<String>, Vec<Dose>)]) -> (Vec<f64>, String) {
+    let doses = || subjects.iter().flat_map(|(_, d)| d);
+    let first = doses().map(|d| d.time_h).fold(f64::INFINITY, f64::min);
+    let last_end = doses().map(|d| d.time_h + d.duration_h).fold(f64::NEG_INFINITY, f64::max);
+    let oral = doses().any(|d| d.route == Route::Oral);
+    let half_life = params.terminal_half_life_h(oral);
+    let (first, last_end) = if first.is_finite() { (first, last_end) } else { (0.0, 0.0) };
+    let lag = if oral { params.tlag_h } else { 0.0 };
+    let end = last_end + lag + 5.0 * half_life;
+    let step = cistern::units::round_step((end - first) / DEFAULT_POINTS);
+    let n = ((end - first) / step).ceil() as u64;
+    let times = (0..=n).map(|i| first + i as f64 * step).collect::<Vec<_>>();
+    let to = times.last().copied().unwrap_or(first);
+    let what = format!(
+        "times {first} h to {to} h every {step} h: five half-lives ({} h) after the last dose ends; \
+         choose others with --times or --at",
+        readable(half_life, 4)
+    );
+    (times, what)
 }
 
 fn histories(args: &SimulateArgs, problems: &mut Problems) -> Option<DoseFile> {
@@ -135,8 +164,8 @@ fn histories(args: &SimulateArgs, problems: &mut Problems) -> Option<DoseFile> {
             Some(file)
         }
         (None, _) => {
-            let schedule = args.regimen.schedule(problems, None)?;
-            Some(DoseFile { subjects: vec![(None, schedule.doses())], ignored_columns: Vec::new() })
+            let doses = args.regimen.history(problems)?;
+            Some(DoseFile { subjects: vec![(None, doses)], ignored_columns: Vec::new() })
         }
     }
 }
@@ -165,6 +194,11 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
     if !ignored.is_empty() {
         args.output.note(&format!("ignored columns in the doses file: {}", ignored.join(", ")));
     }
+    let times = times.unwrap_or_else(|| {
+        let (times, what) = default_grid(&params, &subjects);
+        args.output.note(&what);
+        times
+    });
     let values = (times.len() as u64).saturating_mul(subjects.len() as u64);
     check_output_size(values, args.allow_large).map_err(|m| {
         let flag = if args.times.is_some() { "--times" } else { "--at" };

@@ -149,7 +149,7 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
     let ((grid, shard), virtual_population) = problems.finish_with(grid.zip(shard).zip(population))?;
     let VirtualPopulation { population, subjects, described, notes } = virtual_population;
     notes.iter().for_each(|n| args.output.note(n));
-    let Grid { candidates, targets, limits } = grid;
+    let Grid { candidates, targets, limits, .. } = grid;
     let seed = spec.seed();
     let sweep =
         Sweep { population: &population, candidates: &candidates, targets: &targets, limits: &limits, seed };

@@ -50,6 +50,17 @@ impl Params {
         std::f64::consts::LN_2 / self.k_per_h()
     }
 
+    /// The half-life of the curve's final decline (h): elimination's, or after an oral dose the
+    /// slower of elimination and absorption (when absorption is slower, "flip-flop" kinetics,
+    /// it sets the decline).
+    pub fn terminal_half_life_h(&self, oral: bool) -> f64 {
+        let slowest = match self.ka_per_h {
+            Some(ka) if oral => self.k_per_h().min(ka),
+            _ => self.k_per_h(),
+        };
+        std::f64::consts::LN_2 / slowest
+    }
+
     /// Check the values, and that oral doses have what they need. Returns what is wrong.
     pub fn validate(&self, doses: &[Dose]) -> Result<(), InputError> {
         let positive = |x: f64| x.is_finite() && x > 0.0;

@@ -15,7 +15,7 @@
 
 use super::kernel::{State, depot_to_central};
 use super::{Events, Kinetics, Params, Walker};
-use crate::dosing::{Regimen, Route};
+use crate::dosing::{Dose, Regimen, Route};
 use crate::error::InputError;
 use serde::Serialize;
 
@@ -266,6 +266,51 @@ impl SteadyCurve {
             t = next;
         }
         t + self.kin.tlag_h
+    }
+}
+
+/// The metrics of one dose given to a subject with no drug on board.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct SingleDose {
+    /// Highest concentration (mg/L): the bolus instant, the end of the infusion, or the exact
+    /// oral maximum.
+    pub cmax_mg_l: f64,
+    /// Its time after the dose is given (h).
+    pub tmax_h: f64,
+    /// AUC from the dose to infinity (mg·h/L).
+    pub auc_inf_mg_h_l: f64,
+}
+
+impl SingleDose {
+    /// The metrics of `dose` (its time is ignored). Returns what is wrong with the inputs.
+    ///
+    /// One dose from no drug is the periodic curve of an endless interval: the state before
+    /// the dose is empty, and the peak search of [`SteadyCurve`] applies unchanged. The AUC to
+    /// infinity is the exact integral up to the peak plus the drug left in the body then
+    /// (central and depot), which is all eliminated at clearance CL: AUC = ∫₀ᵀC dt + A(T)/CL.
+    pub fn new(params: &Params, dose: Dose) -> Result<SingleDose, InputError> {
+        let at_zero = Dose { time_h: 0.0, ..dose };
+        params.validate(&[at_zero])?;
+        at_zero.validate()?;
+        let regimen = Regimen {
+            amount_mg: dose.amount_mg,
+            every_h: f64::INFINITY,
+            duration_h: dose.duration_h,
+            route: dose.route,
+        };
+        let curve = SteadyCurve {
+            kin: Kinetics::from(params),
+            regimen,
+            events: Events::new(&[at_zero], 0.0),
+            before_dose: State::empty(),
+        };
+        let (cmax, entry) = curve.peak();
+        let mut w = curve.walker();
+        w.run_to(entry);
+        let left = w.state();
+        let auc_inf = w.auc() + (left.central + left.depot) / params.cl_l_h;
+        let lag = if dose.route == Route::Oral { params.tlag_h } else { 0.0 };
+        Ok(SingleDose { cmax_mg_l: cmax, tmax_h: entry + lag, auc_inf_mg_h_l: auc_inf })
     }
 }
 

@@ -250,6 +250,7 @@ impl FitResult {
 }
 
 /// Fit every subject in parallel; results are in input order and independent of thread count.
+/// Each subject draws from its own stream, keyed by its identifier ([`Seeds::subject`]).
 pub fn fit_all(
     subjects: &[SubjectData],
     model: Option<&PopulationModel>,
@@ -269,9 +270,8 @@ pub fn fit_all_reporting(
     let seeds = Seeds(options.seed);
     subjects
         .par_iter()
-        .enumerate()
-        .map(|(i, s)| {
-            let fit = fit_subject(s, model, options, seeds.fit_subject(i as u64));
+        .map(|s| {
+            let fit = fit_subject(s, model, options, seeds.subject(s.id.as_deref()));
             done();
             fit
         })

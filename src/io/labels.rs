@@ -40,6 +40,9 @@ const LABELS: &[(&str, &str)] = &[
     ("fluctuation_pct", "peak-trough fluctuation (% of average)"),
     ("time_to_90pct_h", "time to 90 % of steady state (h)"),
     ("time_to_95pct_h", "time to 95 % of steady state (h)"),
+    ("cmax_mg_l", "highest concentration (mg/L)"),
+    ("tmax_h", "its time after the dose (h)"),
+    ("auc_inf_mg_h_l", "AUC from the dose to infinity (mg·h/L)"),
     // Probabilities, printed as percentages.
     ("pta", "PTA (%)"),
     ("p_over_peak", "peak over its limit (%)"),

@@ -43,9 +43,26 @@ pub struct Column {
     pub kind: Option<Kind>,
 }
 
+/// The bytes of a file, or why they cannot be read ([`crate::io::input::read`]).
+fn read_bytes(path: &str) -> Result<Vec<u8>, Vec<InputError>> {
+    crate::io::input::read(std::path::Path::new(path)).map_err(|e| vec![e])
+}
+
 impl Table {
     /// Parse CSV bytes. Every problem found is returned, not only the first.
     pub fn parse(source: &str, bytes: &[u8]) -> Result<Table, Vec<InputError>> {
+        let table = Table::parse_maybe_empty(source, bytes)?;
+        if table.rows.is_empty() {
+            return Err(vec![
+                InputError::in_file(source, "the file has a header but no data rows")
+                    .at_line(table.header_line),
+            ]);
+        }
+        Ok(table)
+    }
+
+    /// [`Table::parse`], but a header without data rows is a table with no rows.
+    pub fn parse_maybe_empty(source: &str, bytes: &[u8]) -> Result<Table, Vec<InputError>> {
         let bytes = bytes.strip_prefix(b"\xef\xbb\xbf").unwrap_or(bytes);
         // Line ends may also be a lone CR (old spreadsheet exports). The reader ends a comment
         // only at LF, so such a file would silently lose every row after a comment: read each
@@ -141,11 +158,6 @@ impl Table {
                 Err(e) => errors.push(located(e.position(), csv_message(&e))),
             }
         }
-        if errors.is_empty() && rows.is_empty() {
-            errors.push(
-                InputError::in_file(source, "the file has a header but no data rows").at_line(header_line),
-            );
-        }
         if errors.is_empty() {
             Ok(Table { source: source.to_string(), headers, header_line, rows })
         } else {
@@ -155,8 +167,12 @@ impl Table {
 
     /// Read and parse a CSV file.
     pub fn read(path: &str) -> Result<Table, Vec<InputError>> {
-        let bytes = crate::io::input::read(std::path::Path::new(path)).map_err(|e| vec![e])?;
-        Table::parse(path, &bytes)
+        Table::parse(path, &read_bytes(path)?)
+    }
+
+    /// Read and parse a CSV file that may hold a header and no data rows.
+    pub fn read_maybe_empty(path: &str) -> Result<Table, Vec<InputError>> {
+        Table::parse_maybe_empty(path, &read_bytes(path)?)
     }
 
     /// Find a plain column (no unit) by exact name.

@@ -10,7 +10,9 @@
 //! 3. record the weighted variance and 90 % interval width of the exposure m(θᵢ);
 //! 4. average over many simulated levels.
 //!
-//! The expected shrinkage is 1 − E[width after] / width now. The level is taken as quantified.
+//! The expected narrowing of the interval is 1 − E[width after] / width now (not the
+//! "shrinkage" of population analysis, which measures how far individual estimates are pulled
+//! to the typical value). The level is taken as quantified.
 
 use crate::dosing::Dose;
 use crate::engine::{self, Params};
@@ -34,8 +36,8 @@ pub struct SampleValue {
     pub expected_sd: f64,
     /// Expected width of its 90 % interval after the level.
     pub expected_ci90_width: f64,
-    /// Expected shrinkage of the 90 % interval (%).
-    pub shrinkage_pct: f64,
+    /// Expected narrowing of the 90 % interval (%).
+    pub interval_narrowing_pct: f64,
 }
 
 /// The advice: the current uncertainty and each candidate time's value, best first.
@@ -131,10 +133,12 @@ pub fn advise(q: &Question) -> Advice {
                 after_dose_h: t - doses.iter().map(|d| d.time_h).filter(|&d| d <= t).fold(f64::NAN, f64::max),
                 expected_sd: (var_sum / k).sqrt(),
                 expected_ci90_width: width,
-                shrinkage_pct: 100.0 * (1.0 - width / width0),
+                interval_narrowing_pct: 100.0 * (1.0 - width / width0),
             }
         })
         .collect();
-    values.sort_by(|a, b| b.shrinkage_pct.total_cmp(&a.shrinkage_pct).then(a.time_h.total_cmp(&b.time_h)));
+    values.sort_by(|a, b| {
+        b.interval_narrowing_pct.total_cmp(&a.interval_narrowing_pct).then(a.time_h.total_cmp(&b.time_h))
+    });
     Advice { exposure: exposure_name.to_string(), current_sd: sd0, current_ci90_width: width0, times: values }
 }

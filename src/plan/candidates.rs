@@ -99,6 +99,89 @@ pub fn grid(
     Ok(out)
 }
 
+/// Intervals tried when none are given (h): the usual ones of intermittent dosing (common
+/// practice, no source).
+pub const DEFAULT_EVERY_H: [f64; 4] = [6.0, 8.0, 12.0, 24.0];
+
+/// The infusion duration tried when none is given and no rate limit derives one (h): common
+/// practice for intermittent infusions, no source.
+pub const DEFAULT_DURATION_H: f64 = 1.0;
+
+/// The most amounts a default grid holds.
+const MAX_DEFAULT_AMOUNTS: f64 = 40.0;
+
+/// Amounts tried when none are given, with their description.
+///
+/// Every steady-state metric is proportional to the amount (the model is linear), so the amount
+/// per dose that puts the first steady-state target (AUC24, trough, peak or average) at the
+/// middle of its window for the `point` parameters is the window's middle over the metric of a
+/// 1000-mg dose, times 1000 mg. The amounts run from one step to twice the amount needed at the
+/// longest interval, in the step of 1, 2, 2.5 or 5 × 10ⁿ mg nearest above a quarter of the amount
+/// needed at the shortest interval (fewer than 40 amounts), and never above the largest single
+/// dose. A window's middle is (lo + hi)/2; an open lower bound counts as 0 and an open upper
+/// bound as twice the lower. A convention of this project.
+pub fn default_amounts(
+    point: &crate::engine::Params,
+    targets: &[crate::plan::targets::Target],
+    every: &[f64],
+    route: Route,
+    duration_h: impl Fn(f64) -> f64,
+    max_dose_mg: Option<f64>,
+) -> Result<(Vec<f64>, String), String> {
+    use crate::engine::steady::SteadyCurve;
+    use crate::plan::targets::Metric;
+    let (target, middle) = targets
+        .iter()
+        .find_map(|t| {
+            let middle = match (t.lo, t.hi) {
+                (Some(lo), Some(hi)) => (lo + hi) / 2.0,
+                (None, Some(hi)) => hi / 2.0,
+                (Some(lo), None) => 1.5 * lo,
+                (None, None) => return None,
+            };
+            matches!(t.metric, Metric::Auc24 | Metric::Trough | Metric::Peak | Metric::Cavg)
+                .then_some((t, middle))
+        })
+        .ok_or(
+            "no steady-state target (auc24, trough, peak or cavg) to derive the amounts from: give them",
+        )?;
+    let needed = |tau: f64| -> Result<f64, String> {
+        let unit =
+            Regimen { amount_mg: 1000.0, every_h: tau, duration_h: duration_h(1000.0).min(tau), route };
+        let e = SteadyCurve::new(point, unit).map_err(|e| e.message)?.exposure();
+        let per_1000 = match target.metric {
+            Metric::Auc24 => e.auc24_mg_h_l,
+            Metric::Trough => e.trough_mg_l,
+            Metric::Peak => e.peak_mg_l,
+            _ => e.cavg_mg_l,
+        };
+        Ok(1000.0 * middle / per_1000)
+    };
+    let (shortest, longest) =
+        (every.iter().copied().fold(f64::INFINITY, f64::min), every.iter().copied().fold(0.0, f64::max));
+    let top = 2.0 * needed(longest)?;
+    let top = max_dose_mg.map_or(top, |m| top.min(m));
+    let step = crate::units::round_step((needed(shortest)? / 4.0).max(top / MAX_DEFAULT_AMOUNTS));
+    let n = (top / step + 1e-9).floor() as usize;
+    if !(step.is_finite() && n >= 1) {
+        return Err(format!(
+            "the amounts derived from the {} target are below one step: give them",
+            target.name()
+        ));
+    }
+    let amounts: Vec<f64> = (1..=n).map(|i| i as f64 * step).collect();
+    let what = format!(
+        "amounts {}..{}/{} mg: up to twice the amount per dose that puts {} at {middle} for the point \
+         estimate at the longest interval ({} mg every {longest} h); give --amounts to choose",
+        amounts[0],
+        amounts[n - 1],
+        step,
+        target.name(),
+        crate::io::output::readable(needed(longest)?, 4)
+    );
+    Ok((amounts, what))
+}
+
 /// The rounding step the candidates' amounts imply: the smallest gap between two of them, or
 /// the smallest amount when they are all equal (for rounding a loading dose).
 pub fn amount_step(candidates: &[Regimen]) -> f64 {

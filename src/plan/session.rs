@@ -8,7 +8,7 @@ use super::candidates::amount_step;
 use super::recommend::{Plan, PlanInput, plan};
 use super::targets::{Limits, Metric, Target};
 use crate::choice::choice_enum;
-use crate::dosing::{Dose, Regimen};
+use crate::dosing::{Dose, Regimen, Route};
 use crate::engine::Params;
 use crate::engine::steady::SteadyCurve;
 use crate::error::InputError;
@@ -77,8 +77,25 @@ pub struct Settings<'a> {
     pub advise_on: Option<Exposure>,
     /// Intervals of the new regimen searched for the next sampling time; 0 for no advice.
     pub advise_intervals: u32,
+    /// The earliest a level may be drawn after the end of an intravenous dose (h): the
+    /// distribution phase is left out ([`DEFAULT_SAMPLE_AFTER_H`] by default).
+    pub sample_after_h: f64,
     /// Seed of the advisor's simulations.
     pub seed: u64,
+}
+
+/// The earliest a level may be drawn after the end of an infusion or a bolus, 1 h: common
+/// practice (no source), so that a level reflects the elimination phase the one-compartment
+/// model describes, not the distribution that follows the dose.
+pub const DEFAULT_SAMPLE_AFTER_H: f64 = 1.0;
+
+/// What is on record for the subject: the doses given and when the last level was drawn.
+#[derive(Debug, Clone, Copy)]
+pub struct Record<'a> {
+    /// The doses given so far.
+    pub history: &'a [Dose],
+    /// Time of the last level drawn (h), if any.
+    pub last_level_h: Option<f64>,
 }
 
 /// The outcome.
@@ -94,24 +111,71 @@ pub struct Outcome {
     pub notes: Vec<String>,
 }
 
-/// One interval after the last dose (the interval between the last two doses, else 24 h).
-pub(crate) fn default_start(doses: &[Dose]) -> f64 {
-    match doses {
-        [] => 0.0,
-        [only] => only.time_h + 24.0,
-        [.., a, b] => b.time_h + (b.time_h - a.time_h).max(f64::EPSILON),
+/// Where the new regimen starts by default: one interval after the last dose (the interval
+/// between the last two doses, else 24 h), but never before the last level, so that every
+/// recorded observation lies within the history the plan continues; with the reason, for the
+/// note.
+pub(crate) fn default_start(record: &Record) -> (f64, String) {
+    let after_dose = match record.history {
+        [] => None,
+        [only] => Some(only.time_h + 24.0),
+        [.., a, b] => Some(b.time_h + (b.time_h - a.time_h).max(f64::EPSILON)),
+    };
+    match (after_dose, record.last_level_h) {
+        (Some(t), Some(l)) if l > t => {
+            (l, format!("the last level; one interval after the last dose, {t} h, is before it"))
+        }
+        (Some(t), _) => (t, "one interval after the last dose".into()),
+        (None, Some(l)) => (l, "at the last level".into()),
+        (None, None) => (0.0, "no doses are on record".into()),
+    }
+}
+
+/// A warning when a stated start lies before recorded data: the plan's curves and day-N AUCs
+/// then assume the new regimen was already running when those doses or levels were recorded.
+fn start_before_record(start_h: f64, record: &Record) -> Option<String> {
+    let last_dose = record.history.iter().map(|d| d.time_h).reduce(f64::max);
+    let last = [last_dose.map(|t| (t, "dose")), record.last_level_h.map(|t| (t, "level"))]
+        .into_iter()
+        .flatten()
+        .filter(|(t, _)| *t > start_h)
+        .max_by(|a, b| a.0.total_cmp(&b.0))?;
+    Some(format!(
+        "the new regimen starts at {start_h} h, before the last recorded {} at {} h: the plan \
+         continues the history from {start_h} h as if that {} had not been recorded",
+        last.1, last.0, last.1
+    ))
+}
+
+/// The earliest phase after each dose of `c` at which the advisor may propose a level (h): the
+/// end of an intravenous dose plus `sample_after_h`; after an oral dose, the expected
+/// (steady-state) peak of the point estimate when the exposure is a trough, else any time.
+pub fn earliest_sample_phase(c: &Regimen, point: &Params, metric: Exposure, sample_after_h: f64) -> f64 {
+    match c.route {
+        Route::Oral if metric == Exposure::Trough => {
+            SteadyCurve::new(point, *c).map_or(0.0, |curve| curve.exposure().peak_time_h)
+        }
+        Route::Oral => 0.0,
+        _ => c.duration_h + sample_after_h,
     }
 }
 
 /// Candidate sampling times: every twelfth of an interval over the first intervals of the new
-/// regimen, plus the end of each infusion; a time on a dose is read a minute before it.
-pub fn sampling_times(c: &Regimen, start: f64, intervals: u32) -> Vec<f64> {
-    let mut t: Vec<f64> = (1..=12 * intervals).map(|i| start + c.every_h * f64::from(i) / 12.0).collect();
-    if c.duration_h > 0.0 {
-        t.extend((0..intervals).map(|j| start + f64::from(j) * c.every_h + c.duration_h));
+/// regimen at or after `earliest` hours into each interval, plus that earliest time itself;
+/// a time on a dose is read a minute before it (a trough, always allowed).
+pub fn sampling_times(c: &Regimen, start: f64, intervals: u32, earliest: f64) -> Vec<f64> {
+    let tau = c.every_h;
+    let mut t: Vec<f64> = (1..=12 * intervals).map(|i| start + tau * f64::from(i) / 12.0).collect();
+    if earliest < tau {
+        t.extend((0..intervals).map(|j| start + f64::from(j) * tau + earliest));
     }
+    t.retain(|x| {
+        let phase = (*x - start) / tau;
+        let on_dose = (phase - phase.round()).abs() < 1e-12;
+        on_dose || (phase - phase.floor()) * tau >= earliest - 1e-9
+    });
     for x in t.iter_mut() {
-        let phase = (*x - start) / c.every_h;
+        let phase = (*x - start) / tau;
         if (phase - phase.round()).abs() < 1e-12 {
             *x -= 1.0 / 60.0;
         }
@@ -121,16 +185,24 @@ pub fn sampling_times(c: &Regimen, start: f64, intervals: u32) -> Vec<f64> {
     t
 }
 
-/// Plan for one subject with dose history `history`.
-pub fn plan_subject(history: &[Dose], posterior: &Posterior, s: &Settings) -> Result<Outcome, InputError> {
+/// Plan for one subject with what is on `record`.
+pub fn plan_subject(record: &Record, posterior: &Posterior, s: &Settings) -> Result<Outcome, InputError> {
     let Some(first_target) = s.targets.first() else {
         return Err(InputError::field("targets", "planning needs at least one target"));
     };
-    let start_h = s.start_h.unwrap_or_else(|| default_start(history));
+    let history = record.history;
     let mut notes = Vec::new();
-    if s.start_h.is_none() {
-        notes.push(format!("the new regimen starts at {start_h} h (one interval after the last dose)"));
-    }
+    let start_h = match s.start_h {
+        Some(t) => {
+            notes.extend(start_before_record(t, record));
+            t
+        }
+        None => {
+            let (t, why) = default_start(record);
+            notes.push(format!("the new regimen starts at {t} h ({why})"));
+            t
+        }
+    };
     let course = Course { history, start_h, therapy_start_h: history.first().map_or(start_h, |d| d.time_h) };
     let input = PlanInput {
         draws: &posterior.draws,
@@ -151,6 +223,7 @@ pub fn plan_subject(history: &[Dose], posterior: &Posterior, s: &Settings) -> Re
         (Some(r), Some(residual), intervals) => {
             let c = r.assessment.regimen;
             let metric = s.advise_on.unwrap_or_else(|| Exposure::of(first_target));
+            let earliest = earliest_sample_phase(&c, &posterior.point, metric, s.sample_after_h);
             let exposure: Vec<f64> = posterior
                 .draws
                 .iter()
@@ -166,7 +239,7 @@ pub fn plan_subject(history: &[Dose], posterior: &Posterior, s: &Settings) -> Re
                     })
                 })
                 .collect();
-            let times = sampling_times(&c, start_h, intervals);
+            let times = sampling_times(&c, start_h, intervals, earliest);
             let until = start_h + c.every_h * f64::from(intervals + 1);
             let doses = course.continued(&c, r.loading_dose_mg, until);
             Some(advise(&Question {

@@ -36,9 +36,13 @@ pub struct Analysis<'a> {
     pub doses: &'a [Dose],
     /// The levels.
     pub levels: &'a [Level],
-    /// The fit.
-    pub fit: &'a FitResult,
-    /// Posterior draws.
+    /// The subject's identifier.
+    pub subject: Option<&'a str>,
+    /// The fit; `None` when the plan is a priori (no levels).
+    pub fit: Option<&'a FitResult>,
+    /// The point estimate: the fit's, or the typical values for the covariates a priori.
+    pub point: Params,
+    /// Posterior draws (prior draws a priori).
     pub draws: &'a [Params],
     /// Targets and limits.
     pub targets: &'a [Target],
@@ -104,9 +108,9 @@ pub fn concentration_plots(a: &Analysis) -> Vec<PlotSpec> {
     };
     let n = 400;
     let times: Vec<f64> = (0..=n).map(|i| first + (end - first) * i as f64 / n as f64).collect();
-    let point = engine::concentrations(&a.fit.parameters, &doses, &times);
+    let point = engine::concentrations(&a.point, &doses, &times);
     // Prediction band: every draw (up to 400) with residual error, 5th–95th percentile per time.
-    let residual = a.fit.residual.unwrap_or(a.model.residual);
+    let residual = a.fit.and_then(|f| f.residual).unwrap_or(a.model.residual);
     let step = (a.draws.len() / 400).max(1);
     let normal = Normal::new(0.0, 1.0).expect("standard normal");
     let mut rng = StdRng::seed_from_u64(crate::seeds::Seeds(a.seed).report_bands());
@@ -168,7 +172,12 @@ pub fn concentration_plots(a: &Analysis) -> Vec<PlotSpec> {
             }],
             target: target.clone(),
             series: vec![Series {
-                label: "individual prediction".into(),
+                label: if a.fit.is_some() {
+                    "individual prediction"
+                } else {
+                    "typical prediction (a priori)"
+                }
+                .into(),
                 xs: times.clone(),
                 ys: point.clone(),
                 stroke: Stroke::Solid,
@@ -191,8 +200,7 @@ pub fn concentration_plots(a: &Analysis) -> Vec<PlotSpec> {
 /// an SVG export can reuse them).
 pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
     let mut b = Vec::new();
-    let fit = a.fit;
-    let who = fit.subject.clone().unwrap_or_else(|| "the subject".into());
+    let who = a.subject.unwrap_or("the subject").to_string();
     let drug = a.model.drug.clone().unwrap_or_else(|| "unnamed drug".into());
     let mut head = vec![
         ("Subject".to_string(), who.clone()),
@@ -242,79 +250,9 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
         rows: dose_rows,
         right: vec![true, true, false, true],
     }));
-    let level_rows = fit
-        .levels
-        .iter()
-        .map(|l| {
-            vec![
-                readable(l.time_h, 5),
-                match (l.observed_mg_l, l.lloq_mg_l) {
-                    (Some(y), _) => readable(y, 4),
-                    (None, Some(q)) => format!("<{} (BLQ)", r3(q)),
-                    (None, None) => "BLQ".into(),
-                },
-                readable(l.predicted_mg_l, 4),
-                l.weighted_residual.map(|w| readable(w, 3)).unwrap_or_default(),
-            ]
-        })
-        .collect();
-    b.push(Block::Table(Table {
-        headers: vec![
-            "level time (h)".into(),
-            "observed (mg/L)".into(),
-            "predicted (mg/L)".into(),
-            "weighted residual".into(),
-        ],
-        rows: level_rows,
-        right: vec![true, true, true, true],
-    }));
-
-    // Estimates.
-    b.push(Block::Heading("Estimates".into()));
-    let mut rows = Vec::new();
-    for (name, unit, est, typical) in fit.named_estimates() {
-        let [v, ci, se] = estimate_cells(est);
-        rows.push(vec![
-            format!("{name} ({unit})"),
-            v,
-            ci,
-            se,
-            typical.map(|t| readable(t, 4)).unwrap_or_default(),
-        ]);
-    }
-    b.push(Block::Table(Table {
-        headers: vec![
-            "parameter".into(),
-            "estimate".into(),
-            "95 % interval".into(),
-            "SE / posterior SD".into(),
-            "population typical".into(),
-        ],
-        rows,
-        right: vec![false, true, true, true, true],
-    }));
-    let method = serde_json::to_value(fit.method)
-        .ok()
-        .and_then(|v| v.as_str().map(str::to_string))
-        .unwrap_or_default();
-    let intervals = serde_json::to_value(fit.intervals)
-        .ok()
-        .and_then(|v| v.as_str().map(str::to_string))
-        .unwrap_or_default();
-    let mut diag = vec![
-        ("Method".to_string(), format!("{method} ({intervals} intervals)")),
-        ("Converged".to_string(), if fit.converged { "yes".into() } else { "NO".into() }),
-        ("Objective (−2 log posterior + const.)".to_string(), readable(fit.objective, 6)),
-    ];
-    if let Some(ess) = fit.effective_draws {
-        diag.push(("Effective posterior draws".into(), format!("{ess:.0}")));
-    }
-    b.push(Block::KeyValues(diag));
-    if fit.warnings.is_empty() {
-        b.push(Block::Note("No warnings from the fit.".into()));
-    }
-    for w in &fit.warnings {
-        b.push(Block::Note(format!("Warning: {w}.")));
+    match a.fit {
+        Some(fit) => fit_section(fit, &mut b),
+        None => a_priori_section(a, &mut b),
     }
     b.extend(plots.iter().cloned().map(Block::Plot));
 
@@ -421,7 +359,7 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
                     readable(s.time_h, 5),
                     r3(s.after_dose_h),
                     r3(s.expected_ci90_width),
-                    format!("{:.0} %", s.shrinkage_pct),
+                    format!("{:.0} %", s.interval_narrowing_pct),
                 ]
             })
             .collect();
@@ -430,7 +368,7 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
                 "time (h)".into(),
                 "after dose (h)".into(),
                 format!("expected 90 % width ({unit})"),
-                "shrinkage".into(),
+                "narrower by (%)".into(),
             ],
             rows,
             right: vec![true, true, true, true],
@@ -448,6 +386,98 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
         author: a.author.clone(),
         blocks: b,
     }
+}
+
+/// The levels against the fit, the estimates and the fit's diagnostics.
+fn fit_section(fit: &FitResult, b: &mut Vec<Block>) {
+    let level_rows = fit
+        .levels
+        .iter()
+        .map(|l| {
+            vec![
+                readable(l.time_h, 5),
+                match (l.observed_mg_l, l.lloq_mg_l) {
+                    (Some(y), _) => readable(y, 4),
+                    (None, Some(q)) => format!("<{} (BLQ)", r3(q)),
+                    (None, None) => "BLQ".into(),
+                },
+                readable(l.predicted_mg_l, 4),
+                l.weighted_residual.map(|w| readable(w, 3)).unwrap_or_default(),
+            ]
+        })
+        .collect();
+    b.push(Block::Table(Table {
+        headers: vec![
+            "level time (h)".into(),
+            "observed (mg/L)".into(),
+            "predicted (mg/L)".into(),
+            "weighted residual".into(),
+        ],
+        rows: level_rows,
+        right: vec![true, true, true, true],
+    }));
+
+    // Estimates.
+    b.push(Block::Heading("Estimates".into()));
+    let mut rows = Vec::new();
+    for (name, unit, est, typical) in fit.named_estimates() {
+        let [v, ci, se] = estimate_cells(est);
+        rows.push(vec![
+            format!("{name} ({unit})"),
+            v,
+            ci,
+            se,
+            typical.map(|t| readable(t, 4)).unwrap_or_default(),
+        ]);
+    }
+    b.push(Block::Table(Table {
+        headers: vec![
+            "parameter".into(),
+            "estimate".into(),
+            "95 % interval".into(),
+            "SE / posterior SD".into(),
+            "population typical".into(),
+        ],
+        rows,
+        right: vec![false, true, true, true, true],
+    }));
+    let method = serde_json::to_value(fit.method)
+        .ok()
+        .and_then(|v| v.as_str().map(str::to_string))
+        .unwrap_or_default();
+    let intervals = serde_json::to_value(fit.intervals)
+        .ok()
+        .and_then(|v| v.as_str().map(str::to_string))
+        .unwrap_or_default();
+    let mut diag = vec![
+        ("Method".to_string(), format!("{method} ({intervals} intervals)")),
+        ("Converged".to_string(), if fit.converged { "yes".into() } else { "NO".into() }),
+        ("Objective (−2 log posterior + const.)".to_string(), readable(fit.objective, 6)),
+    ];
+    if let Some(ess) = fit.effective_draws {
+        diag.push(("Effective posterior draws".into(), format!("{ess:.0}")));
+    }
+    b.push(Block::KeyValues(diag));
+    if fit.warnings.is_empty() {
+        b.push(Block::Note("No warnings from the fit.".into()));
+    }
+    for w in &fit.warnings {
+        b.push(Block::Note(format!("Warning: {w}.")));
+    }
+}
+
+/// What an a priori plan rests on, in place of a fit: no levels, draws from the prior.
+fn a_priori_section(a: &Analysis, b: &mut Vec<Block>) {
+    b.push(Block::Heading("A priori".into()));
+    b.push(Block::Paragraph(format!(
+        "No levels are on record, so nothing is fitted: the plan is a priori, over {} parameter sets \
+         drawn from the population model for this subject's covariates (typical clearance {} L/h, \
+         volume {} L, with the model's between-subject variability), not over a posterior. A level \
+         drawn under the new regimen would narrow these predictions.",
+        a.draws.len(),
+        readable(a.point.cl_l_h, 4),
+        readable(a.point.v_l, 4)
+    )));
 }
 
 /// Regimens the sweep page shows, best first.

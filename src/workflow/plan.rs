@@ -4,20 +4,25 @@
 use super::study::pick;
 use crate::dosing::Dose;
 use crate::engine::Params;
-use crate::error::{InputError, Origin, Result};
+use crate::error::{Error, InputError, Origin, Result};
 use crate::fit::{FitOptions, FitResult, Intervals, Method, SubjectData, fit_subject};
 use crate::io::doses::parse_doses;
 use crate::io::input;
 use crate::io::table::Table;
 use crate::model::{PopulationModel, Residual};
-use crate::plan::session::{Exposure, Outcome, Posterior, Settings, plan_subject};
+use crate::plan::session::{
+    DEFAULT_SAMPLE_AFTER_H, Exposure, Outcome, Posterior, Record, Settings, plan_subject,
+};
 use crate::seeds::Seeds;
 use crate::spec::{Grid, Setting, Stated};
+use crate::sweep::population::{CovariateSource, Population};
 use serde::Deserialize;
 use std::path::PathBuf;
 
 /// The fit planning starts from: MAP against the model, with `draws` equal-weight posterior
-/// draws kept. `plan` and `report` both start here, so both plan from the same posterior.
+/// draws kept. `plan` and `report` both start here, so both plan from the same posterior; the
+/// subject's stream is the one `cistern fit` uses for it ([`Seeds::subject`]), so a saved fit
+/// with `--draws N --keep-draws N` holds the same draws.
 pub fn planning_fit(
     subject: &SubjectData,
     model: &PopulationModel,
@@ -32,7 +37,7 @@ pub fn planning_fit(
         keep_draws: draws,
         ..FitOptions::default()
     };
-    fit_subject(subject, Some(model), &options, seeds.planning_fit())
+    fit_subject(subject, Some(model), &options, seeds.subject(subject.id.as_deref()))
 }
 
 /// One subject to plan for.
@@ -42,10 +47,15 @@ pub struct PlanSubject {
     pub id: Option<String>,
     /// The doses given so far.
     pub history: Vec<Dose>,
+    /// Time of the last level drawn (h), if any: the default start is not before it.
+    pub last_level_h: Option<f64>,
     /// The posterior to plan over.
     pub posterior: Posterior,
     /// The fit's warnings.
     pub warnings: Vec<String>,
+    /// Planned a priori: no levels, the draws are from the population model for the subject's
+    /// covariates (the prior), not from a posterior.
+    pub a_priori: bool,
 }
 
 /// The parts of a saved fit (`fit --format json --keep-draws N`) that planning reads.
@@ -57,11 +67,24 @@ struct SavedFit {
 #[derive(Deserialize)]
 struct SavedSubject {
     subject: Option<String>,
+    #[serde(default)]
+    levels: Vec<SavedLevel>,
     parameters: Params,
     #[serde(default)]
     residual: Option<Residual>,
     #[serde(default)]
     draws: Vec<Params>,
+}
+
+/// A level of a saved fit: only its time matters to planning.
+#[derive(Deserialize)]
+struct SavedLevel {
+    time_h: f64,
+}
+
+/// The latest of some times, if any.
+fn latest(times: impl Iterator<Item = f64>) -> Option<f64> {
+    times.reduce(f64::max)
 }
 
 impl PlanSubject {
@@ -77,10 +100,66 @@ impl PlanSubject {
         let planned = PlanSubject {
             id: subject.id.clone(),
             history: subject.doses.clone(),
+            last_level_h: latest(subject.levels.iter().map(|l| l.time_h)),
             posterior: Posterior { point: fit.parameters, draws: fit.draws.clone(), residual: fit.residual },
             warnings: fit.warnings.clone(),
+            a_priori: false,
         };
         Ok((planned, fit))
+    }
+
+    /// A subject with levels fitted as [`PlanSubject::fitted`] does; one without levels planned
+    /// [`PlanSubject::a_priori`] (no fit then).
+    pub fn of(
+        subject: &SubjectData,
+        model: &PopulationModel,
+        seeds: Seeds,
+        draws: usize,
+    ) -> Result<(PlanSubject, Option<FitResult>)> {
+        if subject.levels.is_empty() {
+            Ok((PlanSubject::a_priori(subject, model, seeds, draws)?, None))
+        } else {
+            PlanSubject::fitted(subject, model, seeds, draws).map(|(s, fit)| (s, Some(fit)))
+        }
+    }
+
+    /// A subject without levels: `draws` parameter sets from the population model for its
+    /// covariates (the between-subject variability of the model, as a sweep's virtual subjects
+    /// with these covariates are drawn), the typical values as the point, the model's residual
+    /// error for the advice. Draws come from the subject's own stream ([`Seeds::subject`]).
+    pub fn a_priori(
+        subject: &SubjectData,
+        model: &PopulationModel,
+        seeds: Seeds,
+        draws: usize,
+    ) -> Result<PlanSubject> {
+        let fail = |m: String| Error::Usage(format!("a priori draws: {m}"));
+        let cov = &subject.covariates;
+        let absorption = model.absorption.as_ref();
+        let point = Params {
+            cl_l_h: model.clearance.typical_for(cov).map_err(fail)?,
+            v_l: model.volume.typical_for(cov).map_err(fail)?,
+            ka_per_h: absorption.map(|a| a.ka.typical),
+            f: absorption.map_or(1.0, |a| a.f),
+            tlag_h: absorption.map_or(0.0, |a| a.tlag_h),
+        };
+        let name = subject.id.clone().unwrap_or_default();
+        let population =
+            Population::from_model(model.clone(), CovariateSource::Pool(vec![(name, cov.clone())]))
+                .map_err(fail)?;
+        let stream = seeds.subject(subject.id.as_deref());
+        let draws = (0..draws as u64)
+            .map(|i| population.subject(stream, i).map(|s| s.params))
+            .collect::<std::result::Result<Vec<_>, _>>()
+            .map_err(fail)?;
+        Ok(PlanSubject {
+            id: subject.id.clone(),
+            history: subject.doses.clone(),
+            last_level_h: None,
+            posterior: Posterior { point, draws, residual: Some(model.residual) },
+            warnings: Vec::new(),
+            a_priori: true,
+        })
     }
 
     /// The wanted subject of a saved fit with posterior draws, and its dose history from the
@@ -111,30 +190,34 @@ impl PlanSubject {
         Ok(PlanSubject {
             id: s.subject.clone(),
             history: history.clone(),
+            last_level_h: latest(s.levels.iter().map(|l| l.time_h)),
             posterior: Posterior { point: s.parameters, draws: s.draws.clone(), residual: s.residual },
             warnings: Vec::new(),
+            a_priori: false,
         })
     }
 }
 
 /// Whether to advise on the next level, and how.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq)]
 pub struct NextLevel {
     /// The exposure to pin down; by default that of the first target.
     pub exposure: Option<Exposure>,
     /// Intervals of the new regimen searched for the sampling time; 0 for no advice.
     pub intervals: u32,
+    /// The earliest a level may be drawn after the end of an intravenous dose (h).
+    pub sample_after_h: f64,
 }
 
 impl Default for NextLevel {
     fn default() -> Self {
-        NextLevel { exposure: None, intervals: 2 }
+        NextLevel { exposure: None, intervals: 2, sample_after_h: DEFAULT_SAMPLE_AFTER_H }
     }
 }
 
 /// Rank the grid's candidates for the subject, recommend one within every limit, and advise
 /// on the next level. The new regimen starts at `start_h`, by default one interval after the
-/// last dose.
+/// last dose but not before the last level.
 pub fn plan(
     subject: &PlanSubject,
     grid: &Grid,
@@ -149,7 +232,9 @@ pub fn plan(
         start_h,
         advise_on: next_level.exposure,
         advise_intervals: next_level.intervals,
+        sample_after_h: next_level.sample_after_h,
         seed: seeds.plan(),
     };
-    Ok(plan_subject(&subject.history, &subject.posterior, &settings)?)
+    let record = Record { history: &subject.history, last_level_h: subject.last_level_h };
+    Ok(plan_subject(&record, &subject.posterior, &settings)?)
 }

@@ -48,7 +48,8 @@ impl Report {
     }
 }
 
-/// Fit the spec's subject against its model, plan over the grid, sweep the grid over a
+/// Fit the spec's subject against its model (or, without levels, draw from the model's prior
+/// for its covariates), plan over the grid, sweep the grid over a
 /// virtual population when the spec asks, and lay out the report.
 ///
 /// ```
@@ -68,14 +69,14 @@ impl Report {
 pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
     let mut problems = Problems::new();
     let settings = problems.take_all(spec.resolve(Needs { grid: true }));
-    let study = problems.take_all(Study::load(&spec.inputs, Required { model: true }));
+    let study = problems.take_all(Study::load(&spec.inputs, Required { model: true, levels: false }));
     let (settings, study) = problems.finish_with(settings.zip(study))?;
     let (Some(grid), Some(model)) = (&settings.grid, &study.model) else {
         return Err(Error::Usage("the report needs a population model and a candidate grid".into()));
     };
     let seeds = Seeds(settings.seed);
     let data = study.subject(&spec.subject)?;
-    let (subject, fit) = PlanSubject::fitted(data, model, seeds, settings.draws)?;
+    let (subject, fit) = PlanSubject::of(data, model, seeds, settings.draws)?;
     let Outcome { start_h, plan: planned, advice, notes } =
         plan(&subject, grid, settings.start_h, NextLevel::default(), seeds)?;
     let sweep = match (&spec.sweep, settings.sweep_subjects) {
@@ -102,8 +103,10 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
         covariates: &data.covariates,
         doses: &data.doses,
         levels: &data.levels,
-        fit: &fit,
-        draws: &fit.draws,
+        subject: data.id.as_deref(),
+        fit: fit.as_ref(),
+        point: subject.posterior.point,
+        draws: &subject.posterior.draws,
         targets: &grid.targets,
         limits: &grid.limits,
         course: Course {

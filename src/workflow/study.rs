@@ -2,9 +2,10 @@
 //! by subject, with the covariates the model needs derived.
 
 use crate::covariates::{Covariates, parse_assignment, parse_covariates};
+use crate::dosing::Dose;
 use crate::error::{InputError, Origin, Problems, Result};
 use crate::fit::SubjectData;
-use crate::io::doses::parse_doses;
+use crate::io::doses::{DoseFile, parse_doses};
 use crate::io::levels::parse_levels;
 use crate::io::table::Table;
 use crate::model::PopulationModel;
@@ -28,6 +29,10 @@ pub struct Study {
 pub struct Required {
     /// The population model.
     pub model: bool,
+    /// Levels (and so doses). Without them (no levels file, or one with no rows) the subjects
+    /// are those of the doses file, else of the covariates file, else one unnamed subject
+    /// with the covariates given for all: planning then starts from the model's prior.
+    pub levels: bool,
 }
 
 fn text(p: &Path) -> String {
@@ -54,8 +59,13 @@ impl Study {
     /// ```
     pub fn load(inputs: &Inputs, required: Required) -> Result<Study> {
         let mut problems = Problems::new();
-        let doses = problems.take(inputs.doses.required("the doses file is required"));
-        let levels = problems.take(inputs.levels.required("the levels file is required"));
+        let (doses, levels) = if required.levels {
+            let doses = problems.take(inputs.doses.required("the doses file is required"));
+            let levels = problems.take(inputs.levels.required("the levels file is required"));
+            (doses.map(|p| Some(p.as_path())), levels.map(|p| Some(p.as_path())))
+        } else {
+            (Some(inputs.doses.value.as_deref()), Some(inputs.levels.value.as_deref()))
+        };
         let model = match &inputs.model.value {
             Some(path) => problems.take_all(PopulationModel::read(&text(path)).map_err(Into::into)),
             None if required.model => {
@@ -74,7 +84,12 @@ impl Study {
 
     /// The subject a spec asks for, or the only one.
     pub fn subject(&self, wanted: &Setting<String>) -> std::result::Result<&SubjectData, InputError> {
-        pick(&self.subjects, |s| s.id.as_deref(), wanted, "the levels file")
+        let holder = if self.subjects.iter().any(|s| !s.levels.is_empty()) {
+            "the levels file"
+        } else {
+            "the doses and covariates files"
+        };
+        pick(&self.subjects, |s| s.id.as_deref(), wanted, holder)
     }
 }
 
@@ -122,15 +137,28 @@ fn covariates_origin(inputs: &Inputs) -> Origin {
 /// Match doses, levels and covariates by subject, and derive the covariates the model needs.
 fn assemble(
     inputs: &Inputs,
-    doses_path: &Path,
-    levels_path: &Path,
+    doses_path: Option<&Path>,
+    levels_path: Option<&Path>,
     model: Option<&PopulationModel>,
     problems: &mut Problems,
 ) -> Option<(Vec<SubjectData>, Vec<String>)> {
-    let (doses_path, levels_path) = (text(doses_path), text(levels_path));
-    let doses = problems.take_all(Table::read(&doses_path).and_then(|t| parse_doses(&t)).map_err(Into::into));
-    let levels =
-        problems.take_all(Table::read(&levels_path).and_then(|t| parse_levels(&t)).map_err(Into::into));
+    let doses = match doses_path.map(text) {
+        Some(path) => {
+            problems.take_all(Table::read(&path).and_then(|t| parse_doses(&t)).map_err(Into::into)).map(Some)
+        }
+        None => Some(None),
+    };
+    // A levels file with a header and no rows is no levels, as is no file.
+    let levels = match levels_path.map(text) {
+        Some(path) => problems
+            .take_all(
+                Table::read_maybe_empty(&path)
+                    .and_then(|t| if t.rows.is_empty() { Ok(None) } else { parse_levels(&t).map(Some) })
+                    .map_err(Into::into),
+            )
+            .map(|l| l.map(|l| (path, l))),
+        None => Some(None),
+    };
     let covariates = match &inputs.covariates.value {
         Some(path) => {
             problems.take_all(Table::read(&text(path)).and_then(|t| parse_covariates(&t)).map_err(Into::into))
@@ -138,7 +166,16 @@ fn assemble(
         None => Some(Vec::new()),
     };
     let common = common_covariates(&inputs.covariate, problems);
-    let (doses, mut levels, covariates) = (doses?, levels?, covariates?);
+    let (doses, levels, covariates) = (doses?, levels?, covariates?);
+    let needed = model.map(|m| m.covariates_needed()).unwrap_or_default();
+    let Some((levels_path, mut levels)) = levels else {
+        return without_levels(inputs, doses, &covariates, &common, &needed, problems);
+    };
+    let Some(doses) = doses else {
+        problems.push(inputs.doses.problem("the doses file is required with levels"));
+        return None;
+    };
+    let doses_path = doses_path.map(text).unwrap_or_default();
     let mut notes = levels.notes.clone();
     if !doses.ignored_columns.is_empty() {
         notes.push(format!("{doses_path}: ignored columns: {}", doses.ignored_columns.join(", ")));
@@ -160,7 +197,6 @@ fn assemble(
     }
     let dose_of: HashMap<&Option<String>, &Vec<_>> = doses.subjects.iter().map(|(s, d)| (s, d)).collect();
     let cov_of: HashMap<&str, &Covariates> = covariates.iter().map(|(s, c)| (s.as_str(), c)).collect();
-    let needed = model.map(|m| m.covariates_needed()).unwrap_or_default();
     let mut subjects = Vec::new();
     for (id, lv) in &levels.subjects {
         let name = id.clone().unwrap_or_else(|| "(single subject)".into());
@@ -192,12 +228,9 @@ fn assemble(
                 .at_line(l.line),
             );
         }
-        let mut cov = id.as_deref().and_then(|s| cov_of.get(s)).map(|c| (*c).clone()).unwrap_or_default();
-        cov.overlay(&common);
-        if let Err(m) = cov.derive(&needed) {
-            problems.push(InputError::at(covariates_origin(inputs), format!("subject {name}: {m}")));
+        let Some(cov) = subject_covariates(inputs, id, &cov_of, &common, &needed, problems) else {
             continue;
-        }
+        };
         subject.covariates = cov;
         subjects.push(subject);
     }
@@ -212,4 +245,56 @@ fn assemble(
         notes.push(format!("subjects with doses but no levels are not fitted: {}", skipped.join(", ")));
     }
     Some((subjects, notes))
+}
+
+/// A subject's covariates: its row of the covariates file with those given for all laid over
+/// it, and the ones the model needs derived; `None` (with the problem) when they cannot be.
+fn subject_covariates(
+    inputs: &Inputs,
+    id: &Option<String>,
+    cov_of: &HashMap<&str, &Covariates>,
+    common: &Covariates,
+    needed: &[&str],
+    problems: &mut Problems,
+) -> Option<Covariates> {
+    let mut cov = id.as_deref().and_then(|s| cov_of.get(s)).map(|c| (*c).clone()).unwrap_or_default();
+    cov.overlay(common);
+    match cov.derive(needed) {
+        Ok(()) => Some(cov),
+        Err(m) => {
+            let name = id.clone().unwrap_or_else(|| "(single subject)".into());
+            problems.push(InputError::at(covariates_origin(inputs), format!("subject {name}: {m}")));
+            None
+        }
+    }
+}
+
+/// The subjects of a study without levels: those of the doses file, else of the covariates
+/// file, else one unnamed subject; each with its doses (none without a doses file).
+fn without_levels(
+    inputs: &Inputs,
+    doses: Option<DoseFile>,
+    covariates: &[(String, Covariates)],
+    common: &Covariates,
+    needed: &[&str],
+    problems: &mut Problems,
+) -> Option<(Vec<SubjectData>, Vec<String>)> {
+    let cov_of: HashMap<&str, &Covariates> = covariates.iter().map(|(s, c)| (s.as_str(), c)).collect();
+    let histories: Vec<(Option<String>, Vec<Dose>)> = match doses {
+        Some(file) => file.subjects,
+        None if covariates.is_empty() => vec![(None, Vec::new())],
+        None => covariates.iter().map(|(id, _)| (Some(id.clone()), Vec::new())).collect(),
+    };
+    let mut subjects = Vec::new();
+    for (id, doses) in histories {
+        // An unnamed history takes the covariates file's only subject.
+        let cov_id = match (&id, covariates) {
+            (None, [(only, _)]) => Some(only.clone()),
+            _ => id.clone(),
+        };
+        if let Some(cov) = subject_covariates(inputs, &cov_id, &cov_of, common, needed, problems) {
+            subjects.push(SubjectData { id, doses, levels: Vec::new(), covariates: cov });
+        }
+    }
+    Some((subjects, Vec::new()))
 }

@@ -122,15 +122,15 @@ fn after_a_lone_trough_a_peak_level_narrows_auc24_more_than_another_trough() {
     let a = advice(&model, &current.draws, 200, 1);
     let (peak, trough) = (at(&a, PEAK_TIME), at(&a, TROUGH_TIME));
     assert!(
-        peak.shrinkage_pct > trough.shrinkage_pct + 10.0,
+        peak.interval_narrowing_pct > trough.interval_narrowing_pct + 10.0,
         "a peak level should narrow AUC24 more: peak {:.1} %, trough {:.1} %",
-        peak.shrinkage_pct,
-        trough.shrinkage_pct
+        peak.interval_narrowing_pct,
+        trough.interval_narrowing_pct
     );
     assert!((a.times[0].time_h - PEAK_TIME).abs() < 1e-12, "the peak is ranked first");
     // Both narrow it (one more level never widens the posterior on average) and neither
     // can remove the uncertainty altogether.
-    assert!(trough.shrinkage_pct > 0.0 && peak.shrinkage_pct < 100.0);
+    assert!(trough.interval_narrowing_pct > 0.0 && peak.interval_narrowing_pct < 100.0);
 }
 
 /// (a) through the command: with only a trough drawn and an AUC24 target, the best time the
@@ -173,7 +173,7 @@ fn the_command_suggests_a_level_early_in_the_interval() {
     let doc: Value = serde_json::from_str(&ran.stdout).unwrap();
     let times = doc["next_level"]["times"].as_array().expect("next-level advice");
     let after = |s: &Value| s["after_dose_h"].as_f64().unwrap();
-    let shrink = |s: &Value| s["shrinkage_pct"].as_f64().unwrap();
+    let shrink = |s: &Value| s["interval_narrowing_pct"].as_f64().unwrap();
     assert!(after(&times[0]) <= 4.0, "best time {} h after a dose", after(&times[0]));
     let late_best = times.iter().filter(|s| after(s) > 11.0).map(shrink).fold(f64::NEG_INFINITY, f64::max);
     assert!(late_best.is_finite(), "the end of an interval was assessed");

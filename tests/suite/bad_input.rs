@@ -138,7 +138,7 @@ fn catalog() -> Vec<Case> {
         flags("time list with an empty value", &format!("simulate {REG} --cl 4.2 --v 48 --at 1,,3"), "--at", "found ''"),
         flags("time overflowing once converted", &format!("simulate {REG} --cl 4.2 --v 48 --at 1,1e307d"), "--at", "'1e307d' is out of range once converted to h"),
         flags("time list with NaN", &format!("simulate {REG} --cl 4.2 --v 48 --at NaN"), "--at", "found 'NaN'"),
-        flags("no times", &format!("simulate {REG} --cl 4.2 --v 48"), "--times", "give the times"),
+        flags("several doses without an interval", "simulate --dose 1g --count 3 --route bolus --cl 4.2 --v 48", "--every", "3 doses need the dosing interval"),
         flags("both a grid and a time list", &format!("simulate {REG} --cl 4.2 --v 48 --times 0:1:1 --at 1"), "the argument '--times <GRID>' cannot be used with '--at <LIST>'", ""),
         with_file(GOOD, flags("both a doses file and a dose", &format!("{SIM} --doses doses.csv --dose 1g"), "--doses", "not both")),
         flags("missing doses file", &sim("--doses missing.csv"), "missing.csv", "cannot read the file"),

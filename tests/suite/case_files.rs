@@ -45,6 +45,8 @@ use Cmd::{Fit, Plan, Report, Sweep};
 const ALL: &[Cmd] = &[Report, Plan, Fit, Sweep];
 /// The commands that read the targets, limits and candidates.
 const GRID: &[Cmd] = &[Report, Plan, Sweep];
+/// The commands that need the candidates stated: `plan` derives those not given (issue 10).
+const STATED_CANDIDATES: &[Cmd] = &[Report, Sweep];
 
 impl Cmd {
     /// The command line for `case`, writing into the working directory.
@@ -132,14 +134,15 @@ fn catalog() -> Vec<Bad> {
         bad("oral route with infusion durations", &[("route = ", Some("route = \"oral\""))], &[(GRID, &["bad.toml: key plan.durations", "infusion"])]),
         bad("max trough above max peak", &[("max_trough = ", Some("max_trough = \"70mg/l\""))], &[(GRID, &["bad.toml: key limits", "70 mg/L"])]),
         bad("target trough above max trough", &[("targets = ", Some("targets = [\"auc24=400..600\", \"trough=25..30\"]"))], &[(GRID, &["bad.toml: key plan.targets", "trough=25..30"])]),
-        bad("infusions with neither durations nor a rate limit", &[("durations = ", None), ("max_rate = ", None)], &[(GRID, &["bad.toml: key plan.durations"])]),
-        bad("no amounts", &[("amounts = ", None)], &[(GRID, &["bad.toml: key plan.amounts"])]),
+        bad("infusions with neither durations nor a rate limit", &[("durations = ", None), ("max_rate = ", None)], &[(STATED_CANDIDATES, &["bad.toml: key plan.durations"])]),
+        bad("no amounts", &[("amounts = ", None)], &[(STATED_CANDIDATES, &["bad.toml: key plan.amounts"])]),
         bad("no targets", &[("targets = ", None)], &[(GRID, &["bad.toml: key plan.targets"])]),
         // The data do not hold what the case asks for.
         bad("subject not in the data", &[("subject = ", Some("subject = \"P99\""))], &[(&[Report], &["bad.toml: line {line}, key case.subject", "'P99'"]), (&[Plan], &["'P99'"])]),
         bad("several subjects, none named", &[("subject = ", None)], &[(&[Report], &["bad.toml: ", "3 subjects", "case.subject"]), (&[Plan], &["3 subjects", "case.subject"])]),
         bad("no model", &[("model = ", None)], &[(&[Report, Plan, Sweep], &["bad.toml: key inputs.model"])]),
-        bad("no levels", &[("levels = ", None)], &[(&[Report, Plan, Fit], &["bad.toml: key inputs.levels"])]),
+        // Without levels `plan` and `report` plan a priori (issue 10); `fit` needs them.
+        bad("no levels", &[("levels = ", None)], &[(&[Fit], &["bad.toml: key inputs.levels"])]),
     ]
 }
 

@@ -37,7 +37,8 @@ fn a_case_value_at_fault_is_reported_at_its_key_and_line_and_a_flag_over_it_at_t
 fn a_missing_setting_is_reported_where_it_would_be_given() {
     let mut spec = Spec::new();
     spec.inputs.doses = Stated { value: Some(demo("doses.csv")), origin: Origin::Flag("--doses".into()) };
-    let Err(Error::Input(problems)) = Study::load(&spec.inputs, Required { model: true }) else {
+    let Err(Error::Input(problems)) = Study::load(&spec.inputs, Required { model: true, levels: true })
+    else {
         panic!("no levels and no model")
     };
     let places: Vec<String> = problems.iter().map(|p| p.origin.to_string()).collect();

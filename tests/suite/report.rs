@@ -168,7 +168,7 @@ fn the_report_prints_the_numbers_of_plan_and_sweep() {
             sig(num(&best["time_h"]), 5),
             sig(num(&best["after_dose_h"]), 3),
             sig(num(&best["expected_ci90_width"]), 3),
-            num(&best["shrinkage_pct"])
+            num(&best["interval_narrowing_pct"])
         ),
     );
 
