@@ -132,7 +132,7 @@ fn histories(args: &SimulateArgs, problems: &mut Problems) -> Option<DoseFile> {
         }
         (None, _) => {
             let schedule = args.regimen.schedule(problems, None)?;
-            Some(DoseFile { subjects: vec![(None, schedule.doses())], ignored_columns: Vec::new() })
+            Some(DoseFile { subjects: vec![(None, schedule.doses())], notices: Default::default() })
         }
     }
 }
@@ -144,9 +144,7 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
     let times = times_of(&args, &mut problems);
     let subjects = histories(&args, &mut problems);
     problems.finish()?;
-    let (Some(params), Some(times), Some(DoseFile { subjects, ignored_columns: ignored })) =
-        (params, times, subjects)
-    else {
+    let (Some(params), Some(times), Some(DoseFile { subjects, notices })) = (params, times, subjects) else {
         return Err(Error::Usage("the arguments could not be read".into()));
     };
     for (who, doses) in &subjects {
@@ -158,9 +156,7 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
             Error::from(e)
         })?;
     }
-    if !ignored.is_empty() {
-        args.output.note(&format!("ignored columns in the doses file: {}", ignored.join(", ")));
-    }
+    args.output.notify.notices(&notices);
     let (t_lo, t_hi) =
         times.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &t| (lo.min(t), hi.max(t)));
     let curves: Vec<(Vec<f64>, f64)> = subjects

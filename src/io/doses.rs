@@ -1,7 +1,7 @@
 //! The doses CSV: `time_<unit>`, `amount_<unit>`, `route`, `duration_<unit>` (infusions),
 //! optional `subject`, optional `every_<unit>` + `count` to repeat a row.
 
-use super::table::{Column, Table};
+use super::table::{Column, Notices, Table};
 use crate::dosing::{Dose, Route, validate_dose};
 use crate::error::InputError;
 use crate::units::Kind;
@@ -15,8 +15,8 @@ pub const MAX_REPEAT: u64 = 1_000_000;
 pub struct DoseFile {
     /// `(subject, doses)`; the subject is `None` when the file has no `subject` column.
     pub subjects: Vec<(Option<String>, Vec<Dose>)>,
-    /// Columns that were ignored, for a note on stderr.
-    pub ignored_columns: Vec<String>,
+    /// What to tell the user about the file (ignored columns).
+    pub notices: Notices,
 }
 
 /// Parse a doses table, reporting every problem found.
@@ -35,7 +35,7 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
     let duration = unit_col("duration", Kind::Time);
     let every = unit_col("every", Kind::Time);
     let route = table.column("route");
-    let subject = table.column("subject");
+    let subject = table.subject_column().map_err(|e| errors.push(e)).ok().flatten();
     let count = table.column("count");
     let header_line = table.header_line;
     let missing = |what: &str, example: &str| {
@@ -75,7 +75,7 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
     .into_iter()
     .flatten()
     .collect();
-    let ignored_columns = table.unused_columns(&used);
+    let notices = table.ignored_columns(&used);
 
     let mut subjects: Vec<(Option<String>, Vec<Dose>)> = Vec::new();
     let mut slot_of: HashMap<Option<String>, usize> = HashMap::new();
@@ -139,7 +139,7 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
         for (_, doses) in &mut subjects {
             doses.sort_by(|x, y| x.time_h.total_cmp(&y.time_h));
         }
-        Ok(DoseFile { subjects, ignored_columns })
+        Ok(DoseFile { subjects, notices })
     } else {
         Err(errors)
     }
@@ -195,7 +195,10 @@ mod tests {
              a,0,0.5,bolus,,,,\n",
         )
         .unwrap();
-        assert_eq!(f.ignored_columns, ["site"]);
+        assert_eq!(
+            f.notices.warnings,
+            ["d.csv: column 'site' is ignored, though its rows differ ('left arm' on line 2, '' on line 3)"]
+        );
         assert_eq!(f.subjects[0].0.as_deref(), Some("b"));
         let b = &f.subjects[0].1;
         assert_eq!(b.len(), 3);

@@ -15,9 +15,21 @@ pub struct TomlText {
 impl TomlText {
     /// Read a file.
     pub fn read(path: &str) -> Result<TomlText, InputError> {
-        let text = std::fs::read_to_string(path)
-            .map_err(|e| InputError::in_file(path, format!("cannot read the file as UTF-8 text: {e}")))?;
-        Ok(TomlText { source: path.to_string(), text })
+        let bytes = std::fs::read(path)
+            .map_err(|e| InputError::in_file(path, format!("cannot read the file: {e}")))?;
+        TomlText::from_bytes(path, &bytes)
+    }
+
+    /// Wrap bytes read from `source`: text that is not UTF-8 is refused at the line of its
+    /// first bad byte.
+    fn from_bytes(source: &str, bytes: &[u8]) -> Result<TomlText, InputError> {
+        match std::str::from_utf8(bytes) {
+            Ok(text) => Ok(TomlText::new(source, text)),
+            Err(e) => {
+                let line = bytes[..e.valid_up_to()].iter().filter(|&&b| b == b'\n').count() as u64 + 1;
+                Err(InputError::in_file(source, "the text is not valid UTF-8").at_line(line))
+            }
+        }
     }
 
     /// Wrap text already in memory.

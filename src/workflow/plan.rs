@@ -48,19 +48,38 @@ pub struct PlanSubject {
 }
 
 /// The parts of a saved fit (`fit --format json --keep-draws N`) that planning reads.
-#[derive(Deserialize)]
-struct SavedFit {
-    subjects: Vec<SavedSubject>,
+#[derive(Debug, Clone, Deserialize)]
+pub struct SavedFit {
+    /// The fitted subjects, in the fit's order.
+    pub subjects: Vec<SavedSubject>,
 }
 
-#[derive(Deserialize)]
-struct SavedSubject {
-    subject: Option<String>,
-    parameters: Params,
+/// One subject of a saved fit.
+#[derive(Debug, Clone, Deserialize)]
+pub struct SavedSubject {
+    /// The subject's identifier, when the data had one.
+    pub subject: Option<String>,
+    /// The point estimates.
+    pub parameters: Params,
+    /// The residual error model of the fit.
     #[serde(default)]
-    residual: Option<Residual>,
+    pub residual: Option<Residual>,
+    /// Equal-weight posterior draws (`--keep-draws`).
     #[serde(default)]
-    draws: Vec<Params>,
+    pub draws: Vec<Params>,
+}
+
+impl SavedFit {
+    /// Read the JSON output of `cistern fit`.
+    pub fn read(path: &str) -> Result<SavedFit> {
+        let text = std::fs::read_to_string(path)
+            .map_err(|e| InputError::in_file(path, format!("cannot read the file: {e}")))?;
+        serde_json::from_str(&text).map_err(|e| {
+            InputError::in_file(path, format!("not a fit from `cistern fit --format json`: {e}"))
+                .at_line(e.line() as u64)
+                .into()
+        })
+    }
 }
 
 impl PlanSubject {
@@ -90,12 +109,7 @@ impl PlanSubject {
         wanted: &Setting<String>,
     ) -> Result<PlanSubject> {
         let path = fit_file.value.to_string_lossy().into_owned();
-        let text = std::fs::read_to_string(&fit_file.value)
-            .map_err(|e| InputError::in_file(&path, format!("cannot read the file: {e}")))?;
-        let saved: SavedFit = serde_json::from_str(&text).map_err(|e| {
-            InputError::in_file(&path, format!("not a fit from `cistern fit --format json`: {e}"))
-                .at_line(e.line() as u64)
-        })?;
+        let saved = SavedFit::read(&path)?;
         let s = pick(&saved.subjects, |s| s.subject.as_deref(), wanted, &path)?;
         if s.draws.is_empty() {
             return Err(InputError::in_file(

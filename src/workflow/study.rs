@@ -6,7 +6,7 @@ use crate::error::{InputError, Origin, Problems, Result};
 use crate::fit::SubjectData;
 use crate::io::doses::parse_doses;
 use crate::io::levels::parse_levels;
-use crate::io::table::Table;
+use crate::io::table::{Notices, Table};
 use crate::model::PopulationModel;
 use crate::spec::{Inputs, Setting, Stated};
 use std::collections::{HashMap, HashSet};
@@ -19,8 +19,8 @@ pub struct Study {
     pub model: Option<PopulationModel>,
     /// Subjects with doses and levels, in the order of the levels file.
     pub subjects: Vec<SubjectData>,
-    /// Notes for the user (ignored columns, subjects left out).
-    pub notes: Vec<String>,
+    /// Notes and warnings for the user (ignored columns, subjects left out).
+    pub notices: Notices,
 }
 
 /// What a study must hold for the analysis at hand.
@@ -68,8 +68,8 @@ impl Study {
             (Some(d), Some(l)) => assemble(inputs, d, l, model.as_ref(), &mut problems),
             _ => None,
         };
-        let (subjects, notes) = problems.finish_with(matched)?;
-        Ok(Study { model, subjects, notes })
+        let (subjects, notices) = problems.finish_with(matched)?;
+        Ok(Study { model, subjects, notices })
     }
 
     /// The subject a spec asks for, or the only one.
@@ -104,18 +104,33 @@ fn common_covariates(items: &[Stated<String>], problems: &mut Problems) -> Covar
     let mut cov = Covariates::default();
     for item in items {
         problems.take(
-            parse_assignment(&mut cov, &item.value).map_err(|m| InputError::at(item.origin.clone(), m)),
+            parse_assignment(&mut cov, &item.value, &item.origin)
+                .map_err(|m| InputError::at(item.origin.clone(), m)),
         );
     }
     cov
 }
 
-/// Where the covariates of the subjects came from, for a problem in deriving them.
+/// Where the covariates of the subjects came from (or would be given), for a problem with one
+/// that is missing or was not entered by the user.
 fn covariates_origin(inputs: &Inputs) -> Origin {
     match (&inputs.covariates.value, inputs.covariate.first()) {
         (Some(path), _) => Origin::file(text(path)),
         (None, Some(first)) => first.origin.clone(),
         (None, None) => inputs.covariates.origin.clone(),
+    }
+}
+
+/// Derive the covariates the model needs and check that they give it positive typical values.
+fn check_covariates(
+    cov: &mut Covariates,
+    needed: &[&str],
+    model: Option<&PopulationModel>,
+) -> Result<(), InputError> {
+    cov.derive(needed)?;
+    match model {
+        Some(m) => m.typical_cl_v(cov).map(drop),
+        None => Ok(()),
     }
 }
 
@@ -126,7 +141,7 @@ fn assemble(
     levels_path: &Path,
     model: Option<&PopulationModel>,
     problems: &mut Problems,
-) -> Option<(Vec<SubjectData>, Vec<String>)> {
+) -> Option<(Vec<SubjectData>, Notices)> {
     let (doses_path, levels_path) = (text(doses_path), text(levels_path));
     let doses = problems.take_all(Table::read(&doses_path).and_then(|t| parse_doses(&t)).map_err(Into::into));
     let levels =
@@ -139,10 +154,8 @@ fn assemble(
     };
     let common = common_covariates(&inputs.covariate, problems);
     let (doses, mut levels, covariates) = (doses?, levels?, covariates?);
-    let mut notes = levels.notes.clone();
-    if !doses.ignored_columns.is_empty() {
-        notes.push(format!("{doses_path}: ignored columns: {}", doses.ignored_columns.join(", ")));
-    }
+    let mut notices = doses.notices.clone();
+    notices.extend(levels.notices.clone());
     let dose_ids = doses.subjects.iter().any(|(s, _)| s.is_some());
     let level_ids = levels.subjects.iter().any(|(s, _)| s.is_some());
     if dose_ids != level_ids {
@@ -161,6 +174,17 @@ fn assemble(
     let dose_of: HashMap<&Option<String>, &Vec<_>> = doses.subjects.iter().map(|(s, d)| (s, d)).collect();
     let cov_of: HashMap<&str, &Covariates> = covariates.iter().map(|(s, c)| (s.as_str(), c)).collect();
     let needed = model.map(|m| m.covariates_needed()).unwrap_or_default();
+    // Without a covariates file every subject has the values given for all: check them once,
+    // so that a missing covariate is one problem, not one per subject.
+    if inputs.covariates.value.is_none()
+        && let Err(mut e) = check_covariates(&mut common.clone(), &needed, model)
+    {
+        if inputs.covariate.is_empty() {
+            e.message = format!("the model needs covariates, and none were given: {}", e.message);
+        }
+        problems.push(e.located(covariates_origin(inputs)));
+        return None;
+    }
     let mut subjects = Vec::new();
     for (id, lv) in &levels.subjects {
         let name = id.clone().unwrap_or_else(|| "(single subject)".into());
@@ -192,10 +216,18 @@ fn assemble(
                 .at_line(l.line),
             );
         }
-        let mut cov = id.as_deref().and_then(|s| cov_of.get(s)).map(|c| (*c).clone()).unwrap_or_default();
+        let row = id.as_deref().and_then(|s| cov_of.get(s));
+        let mut cov = row.map(|c| (*c).clone()).unwrap_or_default();
         cov.overlay(&common);
-        if let Err(m) = cov.derive(&needed) {
-            problems.push(InputError::at(covariates_origin(inputs), format!("subject {name}: {m}")));
+        if let Err(mut e) = check_covariates(&mut cov, &needed, model) {
+            if row.is_none() && inputs.covariates.value.is_some() && e.field_name().is_some() {
+                e.message += " (the subject has no row in the covariates file)";
+            }
+            let e = e.located(covariates_origin(inputs));
+            problems.push(match id {
+                Some(id) => e.for_subject(id.clone()),
+                None => e,
+            });
             continue;
         }
         subject.covariates = cov;
@@ -209,7 +241,9 @@ fn assemble(
         .map(|(s, _)| s.clone().unwrap_or_default())
         .collect();
     if !skipped.is_empty() {
-        notes.push(format!("subjects with doses but no levels are not fitted: {}", skipped.join(", ")));
+        notices
+            .notes
+            .push(format!("subjects with doses but no levels are not fitted: {}", skipped.join(", ")));
     }
-    Some((subjects, notes))
+    Some((subjects, notices))
 }
