@@ -10,7 +10,7 @@
 //!
 //! (The Devine citation is recalled from memory: its journal details could not be confirmed.)
 
-use crate::error::InputError;
+use crate::error::{InputError, Origin};
 use crate::io::table::Table;
 use std::collections::BTreeMap;
 
@@ -27,6 +27,9 @@ pub enum Sex {
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct Covariates {
     values: BTreeMap<String, f64>,
+    /// Where each value was entered (a file's line and column, or a flag), so that a problem
+    /// found with it later, in a derivation or in the model, points at what the user wrote.
+    origins: BTreeMap<String, Origin>,
     /// Sex, when given.
     pub sex: Option<Sex>,
     /// How each derived covariate was obtained, for reports.
@@ -39,19 +42,56 @@ impl Covariates {
         self.values.get(name).copied()
     }
 
-    /// Set a covariate.
+    /// Set a covariate (computed here, or given through the library).
     pub fn set(&mut self, name: &str, value: f64) {
         self.values.insert(name.to_string(), value);
+        self.origins.remove(name);
     }
 
-    /// Take every value `other` has (numbers and sex) over this one's.
+    /// Set a covariate the user entered at `origin`.
+    pub fn enter(&mut self, name: &str, value: f64, origin: Origin) {
+        self.values.insert(name.to_string(), value);
+        self.origins.insert(name.to_string(), origin);
+    }
+
+    /// Where a covariate was entered; a value computed or given through the library is
+    /// reported against its name ([`Origin::Field`]), for the caller to locate.
+    pub fn origin(&self, name: &str) -> Origin {
+        self.origins.get(name).cloned().unwrap_or_else(|| Origin::Field(name.to_string()))
+    }
+
+    /// Take every value `other` has (numbers and sex, with where they were entered) over this
+    /// one's.
     pub(crate) fn overlay(&mut self, other: &Covariates) {
         for (k, v) in other.iter() {
-            self.set(k, v);
+            self.values.insert(k.to_string(), v);
+            match other.origins.get(k) {
+                Some(o) => self.origins.insert(k.to_string(), o.clone()),
+                None => self.origins.remove(k),
+            };
         }
         if other.sex.is_some() {
             self.sex = other.sex;
         }
+    }
+
+    /// Keep a derived covariate when it is a positive number; else the problem, at the input
+    /// that made it so: the first of `inputs` that is zero (a divisor or a factor), or else the
+    /// first of them.
+    fn derived(&mut self, name: &str, value: f64, inputs: &[&str], how: &str) -> Result<(), InputError> {
+        if value.is_finite() && value > 0.0 {
+            self.set(name, value);
+            self.derivations.push(format!("{name} by {how}"));
+            return Ok(());
+        }
+        let culprit = inputs.iter().find(|n| self.get(n) == Some(0.0)).unwrap_or(&inputs[0]);
+        let entered = self.get(culprit).unwrap_or(f64::NAN);
+        let gives =
+            if value.is_finite() { format!("{name} = {value}") } else { format!("an infinite {name}") };
+        Err(InputError::at(
+            self.origin(culprit),
+            format!("{culprit} = {entered} gives {gives} by {how}; expected a positive {name}"),
+        ))
     }
 
     /// All numeric covariates in name order.
@@ -60,12 +100,15 @@ impl Covariates {
     }
 
     /// Derive `crcl_ml_min`, `bsa_m2` and `ibw_kg` where asked for and computable, recording how.
-    /// Returns what is missing for a requested covariate that cannot be derived.
-    pub fn derive(&mut self, wanted: &[&str]) -> Result<(), String> {
+    ///
+    /// Errors: a requested covariate that is missing and cannot be derived (reported against
+    /// its name, for the caller to locate), or a derivation that gives no positive number
+    /// (reported where the value at fault was entered).
+    pub fn derive(&mut self, wanted: &[&str]) -> Result<(), InputError> {
         if self.get("scr_mg_dl").is_none()
             && let Some(umol) = self.get("scr_umol_l")
         {
-            self.set("scr_mg_dl", umol / 88.4);
+            self.enter("scr_mg_dl", umol / 88.4, self.origin("scr_umol_l"));
         }
         for &name in wanted {
             if self.get(name).is_some() {
@@ -73,7 +116,10 @@ impl Covariates {
             }
             let missing = |what: &[(&str, bool)]| {
                 let absent: Vec<&str> = what.iter().filter(|(_, have)| !have).map(|(n, _)| *n).collect();
-                format!("'{name}' is not given, and deriving it needs {} too", absent.join(", "))
+                InputError::field(
+                    name,
+                    format!("'{name}' is not given, and deriving it needs {} too", absent.join(", ")),
+                )
             };
             let has = |n: &str| self.get(n).is_some();
             match name {
@@ -88,9 +134,12 @@ impl Covariates {
                             ("scr_mg_dl (or scr_umol_l)", has("scr_mg_dl")),
                         ]));
                     };
-                    self.set(name, cockcroft_gault(age, weight, scr, sex));
-                    self.derivations
-                        .push("crcl_ml_min by Cockcroft–Gault (1976) with total body weight".to_string());
+                    self.derived(
+                        name,
+                        cockcroft_gault(age, weight, scr, sex),
+                        &["age_y", "weight_kg", "scr_mg_dl"],
+                        "Cockcroft–Gault (1976) with total body weight",
+                    )?;
                 }
                 "bsa_m2" => {
                     let (Some(w), Some(h)) = (self.get("weight_kg"), self.get("height_cm")) else {
@@ -99,21 +148,25 @@ impl Covariates {
                             ("height_cm", has("height_cm")),
                         ]));
                     };
-                    self.set(name, bsa_du_bois(w, h));
-                    self.derivations.push("bsa_m2 by Du Bois & Du Bois (1916)".to_string());
+                    self.derived(
+                        name,
+                        bsa_du_bois(w, h),
+                        &["height_cm", "weight_kg"],
+                        "Du Bois & Du Bois (1916)",
+                    )?;
                 }
                 "ibw_kg" => {
                     let (Some(h), Some(sex)) = (self.get("height_cm"), self.sex) else {
                         return Err(missing(&[("height_cm", has("height_cm")), ("sex", self.sex.is_some())]));
                     };
-                    self.set(name, ideal_body_weight(h, sex));
-                    self.derivations.push(if h < 152.4 {
-                        "ibw_kg by Devine (1974), extrapolated below 5 ft (152.4 cm), where the formula was not meant to apply".to_string()
+                    let how = if h < 152.4 {
+                        "Devine (1974), extrapolated below 5 ft (152.4 cm), where the formula was not meant to apply"
                     } else {
-                        "ibw_kg by Devine (1974)".to_string()
-                    });
+                        "Devine (1974)"
+                    };
+                    self.derived(name, ideal_body_weight(h, sex), &["height_cm"], how)?;
                 }
-                _ => return Err(format!("the covariate '{name}' is not given")),
+                _ => return Err(InputError::field(name, format!("the covariate '{name}' is not given"))),
             }
         }
         Ok(())
@@ -148,38 +201,79 @@ fn covariate_value(name: &str, v: f64) -> Result<f64, String> {
     crate::limits::check_range(&crate::limits::COVARIATE, v, &format!("the covariate {name}"), "")
 }
 
-/// Read one `NAME=VALUE` covariate (`weight_kg=70`, `sex=F`) into `cov`.
-pub(crate) fn parse_assignment(cov: &mut Covariates, item: &str) -> Result<(), String> {
-    let Some((name, value)) = item.split_once('=') else {
-        return Err(format!("expected NAME=VALUE, found '{item}'"));
-    };
-    let (name, value) = (name.trim(), value.trim());
-    if name == "sex" {
-        cov.sex = Some(match value.to_ascii_uppercase().as_str() {
-            "M" | "MALE" => Sex::Male,
-            "F" | "FEMALE" => Sex::Female,
-            _ => return Err(format!("sex must be M or F, found '{value}'")),
-        });
-        return Ok(());
-    }
-    match value.parse::<f64>() {
-        Ok(v) if v.is_finite() && v >= 0.0 => {
-            cov.set(name, covariate_value(name, v)?);
-            Ok(())
-        }
-        Ok(v) if v.is_finite() => Err(format!("{name} must not be negative, found {v}")),
-        _ => Err(format!("expected a number, found '{value}'")),
+/// Whether `name` can name a covariate: letters, digits and `_`, starting with a letter
+/// (`weight_kg`, `crcl_ml_min`), as the model file's covariate names are.
+fn is_name(name: &str) -> bool {
+    name.starts_with(|c: char| c.is_ascii_alphabetic())
+        && name.chars().all(|c| c.is_ascii_alphanumeric() || c == '_')
+}
+
+/// The sex written `text` (M, F, male, female, in any case).
+fn parse_sex(text: &str) -> Result<Sex, String> {
+    match text.to_ascii_uppercase().as_str() {
+        "M" | "MALE" => Ok(Sex::Male),
+        "F" | "FEMALE" => Ok(Sex::Female),
+        _ => Err(format!("expected M or F, found '{text}'")),
     }
 }
 
-/// Read a covariates table: a `subject` column and numeric columns; `sex` as M/F.
-/// Returns subjects in file order.
+/// A covariate's value: a finite, non-negative number.
+fn parse_covariate_value(name: &str, text: &str) -> Result<f64, String> {
+    match text.parse::<f64>() {
+        Ok(v) if v.is_finite() && v >= 0.0 => covariate_value(name, v),
+        _ => Err(format!("expected a non-negative number for {name}, found '{text}'")),
+    }
+}
+
+/// Read one `NAME=VALUE` covariate (`weight_kg=70`, `sex=F`) entered at `origin` into `cov`.
+pub(crate) fn parse_assignment(cov: &mut Covariates, item: &str, origin: &Origin) -> Result<(), String> {
+    let Some((name, value)) = item.split_once('=') else {
+        return Err(format!("expected NAME=VALUE, found '{item}'"));
+    };
+    let (name, value) = (name.trim().to_ascii_lowercase(), value.trim());
+    if !is_name(&name) {
+        return Err(format!(
+            "expected NAME=VALUE with a covariate name such as weight_kg (letters, digits and _), found '{item}'"
+        ));
+    }
+    if name == "sex" {
+        cov.sex = Some(parse_sex(value)?);
+    } else {
+        cov.enter(&name, parse_covariate_value(&name, value)?, origin.clone());
+    }
+    Ok(())
+}
+
+/// Read a covariates table: a `subject` column and numeric columns (names in any case);
+/// `sex` as M/F. Each value remembers its line and column. Returns subjects in file order.
 pub fn parse_covariates(table: &Table) -> Result<Vec<(String, Covariates)>, Vec<InputError>> {
     let src = table.source.as_str();
-    let Some(subject) = table.column("subject") else {
-        return Err(vec![InputError::in_file(src, "missing the subject column").at_line(table.header_line)]);
+    let subject = match table.subject_column() {
+        Ok(Some(c)) => c,
+        Ok(None) => {
+            return Err(vec![
+                InputError::in_file(src, "missing the subject column").at_line(table.header_line),
+            ]);
+        }
+        Err(e) => return Err(vec![e]),
     };
+    let names: Vec<String> = table.headers.iter().map(|h| h.to_ascii_lowercase()).collect();
     let mut errors = Vec::new();
+    for (i, name) in names.iter().enumerate() {
+        if i != subject.index && !is_name(name) {
+            errors.push(
+                InputError::in_file(
+                    src,
+                    format!(
+                        "'{}' cannot name a covariate: use letters, digits and _ (e.g. weight_kg)",
+                        table.headers[i]
+                    ),
+                )
+                .at_line(table.header_line)
+                .in_column(table.headers[i].clone()),
+            );
+        }
+    }
     let mut out: Vec<(String, Covariates)> = Vec::new();
     let mut seen = std::collections::HashSet::new();
     for row in &table.rows {
@@ -193,35 +287,19 @@ pub fn parse_covariates(table: &Table) -> Result<Vec<(String, Covariates)>, Vec<
             continue;
         }
         let mut cov = Covariates::default();
-        for (i, name) in table.headers.iter().enumerate() {
+        for (i, name) in names.iter().enumerate() {
             let text = row.fields[i].as_str();
             if i == subject.index || text.is_empty() {
                 continue;
             }
-            if name == "sex" {
-                match text.to_ascii_uppercase().as_str() {
-                    "M" | "MALE" => cov.sex = Some(Sex::Male),
-                    "F" | "FEMALE" => cov.sex = Some(Sex::Female),
-                    _ => errors.push(
-                        InputError::in_file(src, format!("expected M or F, found '{text}'"))
-                            .at_line(row.line)
-                            .in_column("sex"),
-                    ),
-                }
-                continue;
-            }
-            match text.parse::<f64>() {
-                Ok(v) if v.is_finite() && v >= 0.0 => match covariate_value(name, v) {
-                    Ok(v) => cov.set(name, v),
-                    Err(m) => {
-                        errors.push(InputError::in_file(src, m).at_line(row.line).in_column(name.clone()))
-                    }
-                },
-                _ => errors.push(
-                    InputError::in_file(src, format!("expected a non-negative number, found '{text}'"))
-                        .at_line(row.line)
-                        .in_column(name.clone()),
-                ),
+            let at = || InputError::in_file(src, "").at_line(row.line).in_column(table.headers[i].clone());
+            let parsed = if name == "sex" {
+                parse_sex(text).map(|sex| cov.sex = Some(sex))
+            } else {
+                parse_covariate_value(name, text).map(|v| cov.enter(name, v, at().origin))
+            };
+            if let Err(message) = parsed {
+                errors.push(InputError { message, ..at() });
             }
         }
         out.push((id, cov));

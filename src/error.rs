@@ -119,12 +119,21 @@ pub struct InputError {
     pub origin: Origin,
     /// What is wrong and what was expected.
     pub message: String,
+    /// The subjects the problem concerns, when it concerns subjects: the same problem of many
+    /// subjects is one problem ([`Problems::finish`] merges them), not one line per subject.
+    pub subjects: Vec<String>,
 }
 
 impl InputError {
     /// A problem at `origin`.
     pub fn at(origin: Origin, message: impl Into<String>) -> Self {
-        InputError { origin, message: message.into() }
+        InputError { origin, message: message.into(), subjects: Vec::new() }
+    }
+
+    /// The problem concerns this subject.
+    pub fn for_subject(mut self, id: impl Into<String>) -> Self {
+        self.subjects.push(id.into());
+        self
     }
 
     /// A problem with a whole file (add the line and column or key with the builders).
@@ -183,6 +192,15 @@ impl InputError {
         }
     }
 
+    /// The problem as text for a caller that reports it as its own: the message alone when
+    /// the origin is only a field's name (which the message names already).
+    pub fn describe(&self) -> String {
+        match self.origin {
+            Origin::Field(_) if self.subjects.is_empty() => self.message.clone(),
+            _ => self.to_string(),
+        }
+    }
+
     /// The line of the file, when known.
     pub fn line(&self) -> Option<u64> {
         match &self.origin {
@@ -202,7 +220,27 @@ impl InputError {
 
 impl fmt::Display for InputError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        write!(f, "{}: {}", self.origin, self.message)
+        write!(f, "{}: ", self.origin)?;
+        if !self.subjects.is_empty() {
+            write!(f, "{}: ", subjects_phrase(&self.subjects))?;
+        }
+        f.write_str(&self.message)
+    }
+}
+
+/// How many subjects first shown in a list of subjects.
+const SUBJECTS_SHOWN: usize = 3;
+
+/// `subject P01`, or for several `3 subjects (P01, P02, P03)`, the list cut after the first
+/// few (`50 subjects (P01, P02, P03, …)`): one line however many subjects share a problem.
+pub fn subjects_phrase(ids: &[String]) -> String {
+    match ids {
+        [one] => format!("subject {one}"),
+        _ => {
+            let shown = ids.iter().take(SUBJECTS_SHOWN).map(String::as_str).collect::<Vec<_>>().join(", ");
+            let more = if ids.len() > SUBJECTS_SHOWN { ", …" } else { "" };
+            format!("{} subjects ({shown}{more})", ids.len())
+        }
     }
 }
 
@@ -324,14 +362,34 @@ impl Problems {
     }
 
     /// `Ok` when nothing went wrong, else every problem recorded, each once (problems with
-    /// inputs first: they are what the user can fix).
-    pub fn finish(mut self) -> Result<()> {
-        let mut seen = std::collections::HashSet::new();
-        self.errors.retain(|e| seen.insert(e.clone()));
-        match (self.errors.is_empty(), self.other) {
+    /// inputs first: they are what the user can fix). The same problem of several subjects
+    /// (same origin, same message) is one problem naming them all.
+    pub fn finish(self) -> Result<()> {
+        use std::collections::{HashMap, HashSet};
+        let mut errors: Vec<InputError> = Vec::with_capacity(self.errors.len());
+        let mut subjects_of: Vec<HashSet<String>> = Vec::new();
+        let mut index: HashMap<(Origin, String, bool), usize> = HashMap::new();
+        for e in self.errors {
+            let key = (e.origin.clone(), e.message.clone(), e.subjects.is_empty());
+            match index.get(&key) {
+                Some(&i) => {
+                    for s in e.subjects {
+                        if subjects_of[i].insert(s.clone()) {
+                            errors[i].subjects.push(s);
+                        }
+                    }
+                }
+                None => {
+                    index.insert(key, errors.len());
+                    subjects_of.push(e.subjects.iter().cloned().collect());
+                    errors.push(e);
+                }
+            }
+        }
+        match (errors.is_empty(), self.other) {
             (true, None) => Ok(()),
             (true, Some(e)) => Err(e),
-            (false, _) => Err(Error::Input(self.errors)),
+            (false, _) => Err(Error::Input(errors)),
         }
     }
 

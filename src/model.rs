@@ -64,18 +64,27 @@ pub struct Parameter {
 }
 
 impl Parameter {
-    /// The typical value for a subject's covariates. Errors name the missing covariate.
-    pub fn typical_for(&self, covariates: &Covariates) -> Result<f64, String> {
+    /// The typical value for a subject's covariates. Errors are reported where the covariate
+    /// was entered ([`Covariates::origin`]).
+    pub fn typical_for(&self, covariates: &Covariates) -> Result<f64, InputError> {
         let mut value = self.typical;
         for effect in &self.covariates {
-            let x = covariates
-                .get(&effect.covariate)
-                .ok_or_else(|| format!("the model needs the covariate '{}'", effect.covariate))?;
+            let name = &effect.covariate;
+            let x = covariates.get(name).ok_or_else(|| {
+                InputError::field(name.as_str(), format!("the model needs the covariate '{name}'"))
+            })?;
             let factor = effect.factor(x);
             if !(factor.is_finite() && factor > 0.0) {
-                return Err(format!(
-                    "the covariate '{}' = {x} gives a non-positive typical value; check the value or the model",
-                    effect.covariate
+                let gives = if factor.is_finite() {
+                    "a typical value of zero or less"
+                } else {
+                    "an infinite typical value"
+                };
+                return Err(InputError::at(
+                    covariates.origin(name),
+                    format!(
+                        "{name} = {x} gives {gives} through the model's covariate effect; check the value or the model"
+                    ),
                 ));
             }
             value *= factor;
@@ -423,6 +432,11 @@ impl PopulationModel {
         PopulationModel::parse(&TomlText::read(path).map_err(|e| vec![e])?)
     }
 
+    /// Typical clearance and volume for one set of covariates.
+    pub fn typical_cl_v(&self, covariates: &Covariates) -> Result<(f64, f64), InputError> {
+        Ok((self.clearance.typical_for(covariates)?, self.volume.typical_for(covariates)?))
+    }
+
     /// Every covariate the model uses.
     pub fn covariates_needed(&self) -> Vec<&str> {
         let mut names: Vec<&str> = self
@@ -467,7 +481,7 @@ proportional_cv = 0.10
         cov.set("crcl_ml_min", 50.0);
         let typ = m.clearance.typical_for(&cov).unwrap();
         assert!((typ - 4.0 * 0.5f64.powf(0.75)).abs() < 1e-12);
-        assert!(m.clearance.typical_for(&Covariates::default()).unwrap_err().contains("crcl_ml_min"));
+        assert!(m.clearance.typical_for(&Covariates::default()).unwrap_err().message.contains("crcl_ml_min"));
     }
 
     #[test]

@@ -33,7 +33,21 @@ impl Kind {
     /// Accepted unit spellings (normalised: lower case, `/` written `_`) with their factor to the base unit.
     pub fn units(self) -> &'static [(&'static str, f64)] {
         match self {
-            Kind::Time => &[("h", 1.0), ("min", 1.0 / 60.0), ("d", 24.0)],
+            // The common spellings of hours, minutes and days are all accepted.
+            Kind::Time => &[
+                ("h", 1.0),
+                ("hr", 1.0),
+                ("hrs", 1.0),
+                ("hour", 1.0),
+                ("hours", 1.0),
+                ("min", 1.0 / 60.0),
+                ("mins", 1.0 / 60.0),
+                ("minute", 1.0 / 60.0),
+                ("minutes", 1.0 / 60.0),
+                ("d", 24.0),
+                ("day", 24.0),
+                ("days", 24.0),
+            ],
             Kind::Amount => &[("mg", 1.0), ("g", 1000.0), ("mcg", 1e-3), ("ug", 1e-3)],
             Kind::Concentration => {
                 &[("mg_l", 1.0), ("ug_ml", 1.0), ("mcg_ml", 1.0), ("ug_l", 1e-3), ("ng_ml", 1e-3)]
@@ -157,16 +171,21 @@ pub struct Named<'a> {
 ///
 /// Returns `Ok(None)` when the quantity is not one of `known` (the column is not ours),
 /// and an error when the quantity is known but the unit is not (`amount_kg`) or missing (`amount`).
+///
+/// Names are matched in any case (`Time_H`, `AMOUNT_MG`), as units are.
 pub fn parse_name<'a>(name: &'a str, known: &[(&str, Kind)]) -> Result<Option<Named<'a>>, String> {
     let name = name.trim();
+    let lower = name.to_ascii_lowercase();
     for &(quantity, kind) in known {
-        if name == quantity {
+        if lower == quantity {
             return Err(format!(
                 "column '{name}' has no unit: write it as {quantity}_<unit> with one of: {}",
                 kind.accepted()
             ));
         }
-        if let Some(unit) = name.strip_prefix(quantity).and_then(|r| r.strip_prefix('_')) {
+        // Lower-casing ASCII keeps byte offsets, so the unit is cut from the name as written.
+        if lower.strip_prefix(quantity).is_some_and(|r| r.starts_with('_')) {
+            let unit = &name[quantity.len() + 1..];
             return match kind.factor(unit) {
                 Some(factor) => Ok(Some(Named { quantity: &name[..quantity.len()], kind, factor })),
                 None => Err(format!(
@@ -201,6 +220,14 @@ mod tests {
         assert_eq!(parse_value(Kind::Amount, "250").unwrap(), 250.0);
         assert_eq!(parse_value(Kind::Time, "90min").unwrap(), 1.5);
         assert_eq!(parse_value(Kind::Time, "2d").unwrap(), 48.0);
+        for (text, hours) in [("12hr", 12.0), ("12 hrs", 12.0), ("1hour", 1.0), ("12 Hours", 12.0)] {
+            assert_eq!(parse_value(Kind::Time, text).unwrap(), hours, "{text}");
+        }
+        for (text, hours) in [("90mins", 1.5), ("1 minute", 1.0 / 60.0), ("90 minutes", 1.5)] {
+            assert_eq!(parse_value(Kind::Time, text).unwrap(), hours, "{text}");
+        }
+        assert_eq!(parse_value(Kind::Time, "1day").unwrap(), 24.0);
+        assert_eq!(parse_value(Kind::Time, "2 days").unwrap(), 48.0);
         assert!((parse_value(Kind::Clearance, "65ml/min").unwrap() - 3.9).abs() < 1e-12);
         assert_eq!(parse_value(Kind::RateConstant, "0.5/h").unwrap(), 0.5);
         assert_eq!(parse_value(Kind::Amount, "1.5e3mg").unwrap(), 1500.0);
@@ -223,5 +250,7 @@ mod tests {
         assert!(parse_name("amount_kg", &known).is_err());
         assert!(parse_name("amount", &known).is_err());
         assert_eq!(parse_name("site", &known).unwrap(), None);
+        let n = parse_name("Amount_G", &known).unwrap().unwrap();
+        assert_eq!((n.quantity, n.factor), ("Amount", 1000.0));
     }
 }

@@ -589,7 +589,7 @@ fn crcl(age_y: f64, weight_kg: f64, scr_mg_dl: f64, sex: Sex) -> Result<f64, Str
     c.set("age_y", age_y);
     c.set("weight_kg", weight_kg);
     c.set("scr_mg_dl", scr_mg_dl);
-    c.derive(&["crcl_ml_min"])?;
+    c.derive(&["crcl_ml_min"]).map_err(|e| e.describe())?;
     c.get("crcl_ml_min").ok_or_else(|| "creatinine clearance was not derived".into())
 }
 

@@ -8,6 +8,7 @@ use cistern::dosing::{Dose, Regimen, Route, Schedule};
 use cistern::engine::Params;
 use cistern::error::Problems;
 use cistern::io::output::{CAUTION, Format, RunFiles, Sink};
+use cistern::io::table::Notices;
 use cistern::limits;
 use cistern::units::{Kind, is_bare, parse_value};
 use cistern::{Error, InputError, Origin};
@@ -25,6 +26,20 @@ pub fn choice<C: Choice + std::str::FromStr<Err = cistern::InputError> + Send + 
     PossibleValuesParser::new(values).try_map(|text| text.parse::<C>())
 }
 
+/// The parser of a whole-number flag (`--seed`, `--draws`): with `allow_negative_numbers` on
+/// the flag, `-1` reaches it and is refused naming the flag, instead of being read as an
+/// unknown flag.
+pub fn whole<T: std::str::FromStr>(text: &str) -> Result<T, String> {
+    let t = text.trim();
+    t.parse::<T>().map_err(|_| {
+        if !t.is_empty() && t.bytes().all(|b| b.is_ascii_digit()) {
+            format!("'{text}' is too large")
+        } else {
+            format!("expected a whole number, 0 or more, found '{text}'")
+        }
+    })
+}
+
 /// Where and how to print.
 #[derive(Args, Debug, Clone)]
 pub struct OutputArgs {
@@ -35,9 +50,31 @@ pub struct OutputArgs {
     /// a symbolic link to its target); `-` is stdout
     #[arg(short = 'o', long = "output", value_name = "FILE")]
     pub output: Option<String>,
-    /// Print no notes on stderr (errors and the caution are still printed)
+    #[command(flatten)]
+    pub notify: Notify,
+}
+
+/// What goes to stderr besides errors: the `-q` flag, the same on every command.
+#[derive(Args, Debug, Clone, Default)]
+pub struct Notify {
+    /// Print no notes on stderr (errors, warnings and the caution are still printed)
     #[arg(short, long)]
     pub quiet: bool,
+}
+
+impl Notify {
+    /// A note for the user on stderr, unless `--quiet`.
+    pub fn note(&self, text: &str) {
+        if !self.quiet {
+            eprintln!("note: {}", super::printable(text));
+        }
+    }
+
+    /// What reading the inputs had to say: notes unless `--quiet`, warnings always.
+    pub fn notices(&self, notices: &Notices) {
+        notices.notes.iter().for_each(|n| self.note(n));
+        notices.warnings.iter().for_each(|w| eprintln!("warning: {}", super::printable(w)));
+    }
 }
 
 impl OutputArgs {
@@ -67,14 +104,12 @@ impl OutputArgs {
 
     /// Whether long work shows a progress bar: on a terminal (stderr), unless `--quiet`.
     pub fn progress(&self) -> bool {
-        std::io::stderr().is_terminal() && !self.quiet
+        std::io::stderr().is_terminal() && !self.notify.quiet
     }
 
     /// A note for the user on stderr, unless `--quiet`.
     pub fn note(&self, text: &str) {
-        if !self.quiet {
-            eprintln!("note: {text}");
-        }
+        self.notify.note(text);
     }
 
     /// The caution for CSV output, which must stay pure data: it goes to stderr.
@@ -244,7 +279,7 @@ pub struct RegimenArgs {
     #[arg(long, value_name = "TIME", allow_hyphen_values = true)]
     pub every: Option<String>,
     /// Number of doses (with --every) [default: 1]
-    #[arg(long, value_name = "N", allow_hyphen_values = true)]
+    #[arg(long, value_name = "N", allow_negative_numbers = true, value_parser = whole::<u32>)]
     pub count: Option<u32>,
     /// Route: bolus, infusion or oral
     #[arg(long, value_name = "ROUTE", default_value = "infusion")]

@@ -1,9 +1,9 @@
 //! `cistern fit`: estimate clearance and volume (and ka for oral drugs) from sampled levels.
 
-use super::args::{OutputArgs, choice, flag_number, flag_value, invalid_flag};
+use super::args::{OutputArgs, choice, flag_number, flag_value, invalid_flag, whole};
 use super::study::StudyArgs;
 use cistern::engine::validate_absorption;
-use cistern::error::Problems;
+use cistern::error::{Problems, subjects_phrase};
 use cistern::fit::objective::Weighting;
 use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, fit_all_reporting};
 use cistern::io::labels::label;
@@ -48,10 +48,10 @@ pub struct FitArgs {
     #[arg(long, value_parser = choice::<Intervals>(), default_value = "posterior")]
     intervals: Intervals,
     /// Posterior draws per subject (importance sampling) [default: the case's, else 2000]
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true, value_parser = whole::<u32>)]
     draws: Option<u32>,
     /// Seed for the posterior draws [default: the case's, else 1]
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true, value_parser = whole::<u64>)]
     seed: Option<u64>,
     /// Keep N equal-weight posterior draws per subject in the JSON output (for `cistern plan --fit`)
     #[arg(long, value_name = "N", default_value_t = 0, value_parser = clap::value_parser!(u32).range(0..=100_000))]
@@ -113,12 +113,10 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
         &spec.inputs,
         Required { model: args.method == Some(Method::Map), levels: true },
     ));
-    let (((Study { model, subjects, notes }, settings), (ka, f)), tlag) =
+    let (((Study { model, subjects, notices }, settings), (ka, f)), tlag) =
         problems.finish_with(study.zip(settings).zip(ka.zip(f)).zip(tlag))?;
     let method = args.method.unwrap_or(if model.is_some() { Method::Map } else { Method::Wls });
-    for n in &notes {
-        args.output.note(n);
-    }
+    args.output.notify.notices(&notices);
     if model.as_ref().is_some_and(|m| m.absorption.is_some()) && (args.f.is_some() || args.tlag.is_some()) {
         args.output
             .note("the model's [absorption] table gives F and the lag time: --f and --tlag are not used");
@@ -141,8 +139,9 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     };
     // A subject that cannot be fitted is that subject's result: the others are written, and
     // the failures reported after them.
+    // The same failure of several subjects is one line naming them.
     let mut fits = Vec::with_capacity(subjects.len());
-    let mut failures = Vec::new();
+    let mut failures: Vec<(String, Vec<String>)> = Vec::new();
     let bar = if args.output.progress() && subjects.len() > 1 {
         let bar = ProgressBar::new(subjects.len() as u64);
         if let Ok(style) = ProgressStyle::with_template("{bar:40} {pos}/{len} subjects fitted, {eta} left") {
@@ -157,12 +156,20 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     for (s, outcome) in subjects.iter().zip(outcomes) {
         match outcome {
             Ok(r) => fits.push(r),
-            Err(e) => failures.push(match &s.id {
-                Some(id) => format!("subject {id}: {e}"),
-                None => e.to_string(),
-            }),
+            Err(e) => {
+                let e = e.to_string();
+                match failures.iter_mut().find(|(m, _)| *m == e) {
+                    Some((_, ids)) => ids.extend(s.id.clone()),
+                    None => failures.push((e, s.id.iter().cloned().collect())),
+                }
+            }
         }
     }
+    let failed = subjects.len() - fits.len();
+    let failures: Vec<String> = failures
+        .into_iter()
+        .map(|(m, ids)| if ids.is_empty() { m } else { format!("{}: {m}", subjects_phrase(&ids)) })
+        .collect();
     if fits.is_empty() && !failures.is_empty() {
         return Err(Error::Usage(failures.join("\n")));
     }
@@ -193,7 +200,7 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     } else {
         Err(Error::Failure(format!(
             "{} of {} subjects could not be fitted:\n{}",
-            failures.len(),
+            failed,
             subjects.len(),
             failures.join("\n")
         )))

@@ -76,13 +76,22 @@ pub fn run() -> ExitCode {
         Ok(()) | Err(Error::OutputClosed) => ExitCode::SUCCESS,
         Err(Error::Input(problems)) => {
             for p in &problems {
-                eprintln!("error: {p}");
+                eprintln!("error: {}", printable(&p.to_string()));
             }
             ExitCode::from(2)
         }
         Err(e) => {
-            eprintln!("error: {e}");
+            eprintln!("error: {}", printable(&e.to_string()));
             ExitCode::from(e.exit_code())
         }
     }
+}
+
+/// Text for the terminal with control characters (other than line ends) escaped: a value the
+/// user gave (a subject asked for, a key's text) may hold an escape sequence, which must be
+/// shown, not obeyed.
+pub(crate) fn printable(text: &str) -> String {
+    text.chars()
+        .map(|c| if c.is_control() && c != '\n' { c.escape_default().to_string() } else { c.to_string() })
+        .collect()
 }

@@ -2,7 +2,7 @@
 //! attainment over the posterior, recommend one that respects every limit, and advise when to
 //! draw the next level.
 
-use super::args::{OutputArgs, choice, flag_value};
+use super::args::{OutputArgs, choice, flag_value, whole};
 use super::regimen_grid::GridArgs;
 use super::study::StudyArgs;
 use cistern::error::Problems;
@@ -58,10 +58,10 @@ pub struct PlanArgs {
     subject: Option<String>,
     /// Posterior draws to plan over (prior draws when planning a priori) [default: the case's,
     /// else 2000]
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true, value_parser = whole::<u32>)]
     draws: Option<u32>,
     /// Seed for the posterior draws and the advisor's simulations [default: the case's, else 1]
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true, value_parser = whole::<u64>)]
     seed: Option<u64>,
     /// Time of the new regimen's first dose [default: one interval after the last dose given]
     #[arg(long, value_name = "TIME", allow_hyphen_values = true)]
@@ -132,9 +132,7 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
             let draws = spec.draws().unwrap_or(DEFAULT_DRAWS as usize);
             let required = Required { model: true, levels: false };
             problems.take_all(Study::load(&spec.inputs, required).and_then(|study| {
-                for n in &study.notes {
-                    args.output.note(n);
-                }
+                args.output.notify.notices(&study.notices);
                 let model = study.model.as_ref().ok_or_else(|| Error::Usage("no population model".into()))?;
                 PlanSubject::of(study.subject(&spec.subject)?, model, seeds, draws).map(|(s, _)| s)
             }))

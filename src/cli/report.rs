@@ -1,6 +1,7 @@
-//! `cistern report CASE`: fit, plan (and, if the case asks, sweep), then write the regimen
+//! `cistern report --case CASE`: fit, plan (and, if the case asks, sweep), then write the regimen
 //! report as a PDF.
 
+use super::args::{Notify, whole};
 use cistern::io::output::{CAUTION, RunFiles, io_failure};
 use cistern::report::provenance::iso_utc;
 use cistern::workflow::report::{Provenance, report};
@@ -13,17 +14,21 @@ use std::time::{SystemTime, UNIX_EPOCH};
 #[derive(Args, Debug)]
 #[command(after_help = "\
 Examples:
-  cistern report demo-regimens/p01.toml                  # writes ./p01-report.pdf
-  cistern report demo-regimens/p01.toml -o p01.pdf --svg p01-curve.svg
+  cistern report --case demo-regimens/p01.toml           # writes ./p01-report.pdf
+  cistern report --case demo-regimens/p01.toml -o p01.pdf --svg p01-curve.svg
+  cistern report demo-regimens/p01.toml                  # the case may also come first
 
 The case file names the model, doses, levels and covariates files (paths relative to the case
 file), the targets, limits and candidate regimens, the seed and the report options; flags
 given here override it. Every page carries the caution that the report is not clinical advice.
 Set SOURCE_DATE_EPOCH to fix the creation time (reproducible reports).")]
 pub struct ReportArgs {
-    /// The case file (TOML)
-    #[arg(value_name = "CASE")]
-    case: String,
+    /// The case file (TOML), as with --case
+    #[arg(value_name = "CASE", conflicts_with = "case")]
+    case_file: Option<String>,
+    /// The case file (TOML) naming the input files and settings; flags override it
+    #[arg(long = "case", value_name = "FILE")]
+    case: Option<String>,
     /// The PDF to write [default: <case name>-report.pdf in the current directory]
     #[arg(short = 'o', long = "output", value_name = "FILE.pdf")]
     output: Option<String>,
@@ -34,17 +39,16 @@ pub struct ReportArgs {
     #[arg(long, value_name = "ID")]
     subject: Option<String>,
     /// Seed of the random draws (overrides the case) [default: 1]
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true, value_parser = whole::<u64>)]
     seed: Option<u64>,
     /// Posterior draws (overrides the case) [default: 2000]
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true, value_parser = whole::<u32>)]
     draws: Option<u32>,
     /// Time of the new regimen's first dose (overrides the case)
     #[arg(long, value_name = "TIME", allow_hyphen_values = true)]
     start: Option<String>,
-    /// Print nothing but errors
-    #[arg(short, long)]
-    quiet: bool,
+    #[command(flatten)]
+    notify: Notify,
 }
 
 /// The creation time to print: `SOURCE_DATE_EPOCH` (seconds since 1970-01-01 UTC, the
@@ -63,7 +67,10 @@ fn created_iso() -> Result<String, Error> {
 
 /// Run the command.
 pub fn run(args: ReportArgs) -> Result<(), Error> {
-    let mut spec = case::read(&args.case)?;
+    let Some(case_path) = args.case.as_deref().or(args.case_file.as_deref()) else {
+        return Err(Error::Usage("give the case file: cistern report --case CASE.toml".into()));
+    };
+    let mut spec = case::read(case_path)?;
     spec.subject.set("--subject", args.subject.clone());
     spec.seed.set("--seed", args.seed);
     spec.draws.set("--draws", args.draws);
@@ -77,7 +84,7 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
     };
     let output = args.output.clone().unwrap_or_else(|| {
         let stem =
-            Path::new(&args.case).file_stem().map_or("case".into(), |s| s.to_string_lossy().into_owned());
+            Path::new(case_path).file_stem().map_or("case".into(), |s| s.to_string_lossy().into_owned());
         format!("{stem}-report.pdf")
     });
     // Both outputs are opened before the work, so a bad path fails with nothing computed.
@@ -92,12 +99,8 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
         sink.finish()?;
     }
     pdf_sink.finish()?;
-    if !args.quiet {
-        for n in &made.notes {
-            eprintln!("note: {n}");
-        }
-        eprintln!("wrote {output}");
-        eprintln!("caution: {CAUTION}");
-    }
+    made.notes.iter().for_each(|n| args.notify.note(n));
+    args.notify.note(&format!("wrote {output}"));
+    eprintln!("caution: {CAUTION}");
     Ok(())
 }

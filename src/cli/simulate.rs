@@ -165,7 +165,7 @@ fn histories(args: &SimulateArgs, problems: &mut Problems) -> Option<DoseFile> {
         }
         (None, _) => {
             let doses = args.regimen.history(problems)?;
-            Some(DoseFile { subjects: vec![(None, doses)], ignored_columns: Vec::new() })
+            Some(DoseFile { subjects: vec![(None, doses)], notices: Default::default() })
         }
     }
 }
@@ -177,9 +177,7 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
     let times = times_of(&args, &mut problems);
     let subjects = histories(&args, &mut problems);
     problems.finish()?;
-    let (Some(params), Some(times), Some(DoseFile { subjects, ignored_columns: ignored })) =
-        (params, times, subjects)
-    else {
+    let (Some(params), Some(times), Some(DoseFile { subjects, notices })) = (params, times, subjects) else {
         return Err(Error::Usage("the arguments could not be read".into()));
     };
     for (who, doses) in &subjects {
@@ -191,9 +189,7 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
             Error::from(e)
         })?;
     }
-    if !ignored.is_empty() {
-        args.output.note(&format!("ignored columns in the doses file: {}", ignored.join(", ")));
-    }
+    args.output.notify.notices(&notices);
     let times = times.unwrap_or_else(|| {
         let (times, what) = default_grid(&params, &subjects);
         args.output.note(&what);

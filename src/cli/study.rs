@@ -13,7 +13,7 @@ pub struct StudyArgs {
     /// A case file (TOML) naming the input files and settings; flags override it
     #[arg(long, value_name = "FILE")]
     pub case: Option<String>,
-    /// Population model (TOML); needed for --method map and for planning
+    /// Population model (TOML): the prior of a Bayesian (MAP) fit and of planning
     #[arg(long, value_name = "FILE")]
     pub model: Option<String>,
     /// Doses CSV

@@ -1,7 +1,7 @@
 //! `cistern sweep`: candidate regimens over a virtual population — PTA, limit risks and
 //! exposure percentiles per regimen; one shard of the subjects with `--shard`.
 
-use super::args::{OutputArgs, flag_number, flag_value, invalid_flag};
+use super::args::{OutputArgs, flag_number, flag_value, invalid_flag, whole};
 use super::regimen_grid::GridArgs;
 use cistern::dosing::Route;
 use cistern::engine::validate_absorption;
@@ -65,7 +65,7 @@ pub struct SweepArgs {
     #[arg(long = "draw", value_name = "NAME=DIST", conflicts_with = "params", allow_hyphen_values = true)]
     draws: Vec<String>,
     /// Number of virtual subjects to draw from the model
-    #[arg(long, value_name = "N", conflicts_with = "params")]
+    #[arg(long, value_name = "N", conflicts_with = "params", allow_negative_numbers = true, value_parser = whole::<u64>)]
     subjects: Option<u64>,
     /// Individual parameters CSV (cl_l_h, v_l, optional ka_per_h, subject, converged): one
     /// subject per row, instead of drawing from a model
@@ -78,7 +78,7 @@ pub struct SweepArgs {
     #[arg(long, value_name = "TIME", requires = "params")]
     tlag: Option<String>,
     /// Seed of the subjects' draws [default: the case's, else 1]
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true, value_parser = whole::<u64>)]
     seed: Option<u64>,
     #[command(flatten)]
     grid: GridArgs,

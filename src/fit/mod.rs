@@ -565,8 +565,7 @@ fn fit_map(
     check_levels(subject)?;
     check_point_masses(subject, &model.residual, abs.tlag_h)?;
     let cov = &subject.covariates;
-    let cl_typ = model.clearance.typical_for(cov)?;
-    let v_typ = model.volume.typical_for(cov)?;
+    let (cl_typ, v_typ) = model.typical_cl_v(cov).map_err(|e| e.describe())?;
     let ka_prior = model.absorption.as_ref().map(|a| a.ka.clone());
     let n = if abs.estimate_ka { 3 } else { 2 };
     let mut omega: Mat = [[0.0; MAX]; MAX];

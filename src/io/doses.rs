@@ -1,7 +1,7 @@
 //! The doses CSV: `time_<unit>`, `amount_<unit>`, `route`, `duration_<unit>` (infusions),
 //! optional `subject`, optional `every_<unit>` + `count` to repeat a row.
 
-use super::table::{Column, Table};
+use super::table::{Column, Notices, Table};
 use crate::dosing::{Dose, Route, validate_dose};
 use crate::error::InputError;
 use crate::limits::{MAX_DOSES, check_doses};
@@ -13,8 +13,8 @@ use std::collections::HashMap;
 pub struct DoseFile {
     /// `(subject, doses)`; the subject is `None` when the file has no `subject` column.
     pub subjects: Vec<(Option<String>, Vec<Dose>)>,
-    /// Columns that were ignored, for a note on stderr.
-    pub ignored_columns: Vec<String>,
+    /// What to tell the user about the file (ignored columns).
+    pub notices: Notices,
 }
 
 /// Parse a doses table, reporting every problem found.
@@ -33,7 +33,7 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
     let duration = unit_col("duration", Kind::Time);
     let every = unit_col("every", Kind::Time);
     let route = table.column("route");
-    let subject = table.column("subject");
+    let subject = table.subject_column().map_err(|e| errors.push(e)).ok().flatten();
     let count = table.column("count");
     let header_line = table.header_line;
     let missing = |what: &str, example: &str| {
@@ -73,7 +73,7 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
     .into_iter()
     .flatten()
     .collect();
-    let ignored_columns = table.unused_columns(&used);
+    let notices = table.ignored_columns(&used);
 
     let mut subjects: Vec<(Option<String>, Vec<Dose>)> = Vec::new();
     let mut slot_of: HashMap<Option<String>, usize> = HashMap::new();
@@ -145,7 +145,7 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
         for (_, doses) in &mut subjects {
             doses.sort_by(|x, y| x.time_h.total_cmp(&y.time_h));
         }
-        Ok(DoseFile { subjects, ignored_columns })
+        Ok(DoseFile { subjects, notices })
     } else {
         Err(errors)
     }
@@ -201,7 +201,10 @@ mod tests {
              a,0,0.5,bolus,,,,\n",
         )
         .unwrap();
-        assert_eq!(f.ignored_columns, ["site"]);
+        assert_eq!(
+            f.notices.warnings,
+            ["d.csv: column 'site' is ignored, though its rows differ ('left arm' on line 2, '' on line 3)"]
+        );
         assert_eq!(f.subjects[0].0.as_deref(), Some("b"));
         let b = &f.subjects[0].1;
         assert_eq!(b.len(), 3);

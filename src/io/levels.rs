@@ -2,7 +2,7 @@
 //! A value written `<x` is below the quantification limit x (in the column's unit); `BLQ`
 //! means below the `lloq_<unit>` of its row.
 
-use super::table::Table;
+use super::table::{Notices, Table};
 use crate::error::InputError;
 use crate::units::Kind;
 use serde::Serialize;
@@ -34,8 +34,8 @@ impl Level {
 pub struct LevelFile {
     /// `(subject, levels sorted by time)`; the subject is `None` without a `subject` column.
     pub subjects: Vec<(Option<String>, Vec<Level>)>,
-    /// Notes for stderr (ignored columns, values below a stated LLOQ).
-    pub notes: Vec<String>,
+    /// What to tell the user (ignored columns, values below a stated LLOQ).
+    pub notices: Notices,
 }
 
 /// Parse a levels table, reporting every problem found.
@@ -46,7 +46,7 @@ pub fn parse_levels(table: &Table) -> Result<LevelFile, Vec<InputError>> {
     let time = unit_col("time", Kind::Time);
     let conc = unit_col("conc", Kind::Concentration);
     let lloq = unit_col("lloq", Kind::Concentration);
-    let subject = table.column("subject");
+    let subject = table.subject_column().map_err(|e| errors.push(e)).ok().flatten();
     if !errors.is_empty() {
         return Err(errors);
     }
@@ -61,11 +61,7 @@ pub fn parse_levels(table: &Table) -> Result<LevelFile, Vec<InputError>> {
     };
     let used: Vec<_> =
         [Some(&time), Some(&conc), lloq.as_ref(), subject.as_ref()].into_iter().flatten().collect();
-    let mut notes = Vec::new();
-    let ignored = table.unused_columns(&used);
-    if !ignored.is_empty() {
-        notes.push(format!("{src}: ignored columns: {}", ignored.join(", ")));
-    }
+    let mut notices = table.ignored_columns(&used);
     let mut subjects: Vec<(Option<String>, Vec<Level>)> = Vec::new();
     let mut slot_of: HashMap<Option<String>, usize> = HashMap::new();
     let mut seen_times: HashSet<(usize, u64)> = HashSet::new();
@@ -123,7 +119,7 @@ pub fn parse_levels(table: &Table) -> Result<LevelFile, Vec<InputError>> {
                 }
                 Ok(v) => {
                     if limit.is_some_and(|l| v < l) {
-                        notes.push(format!(
+                        notices.notes.push(format!(
                             "{src}: line {}: {text} is below the stated LLOQ; it is used as measured",
                             row.line
                         ));
@@ -166,7 +162,7 @@ pub fn parse_levels(table: &Table) -> Result<LevelFile, Vec<InputError>> {
     for (_, levels) in &mut subjects {
         levels.sort_by(|a, b| a.time_h.total_cmp(&b.time_h));
     }
-    Ok(LevelFile { subjects, notes })
+    Ok(LevelFile { subjects, notices })
 }
 
 #[cfg(test)]

@@ -1,11 +1,46 @@
 //! Reading CSV files into rows that remember their line numbers.
 //!
 //! Accepted: a UTF-8 byte-order mark, LF, CRLF or lone-CR line ends, quoted fields, `#` comment lines,
-//! surrounding spaces. Refused, with the line: a file with no header, a duplicate column,
-//! a row with the wrong number of fields, text that is not UTF-8.
+//! surrounding spaces. Refused, with the line: a file with no header, a duplicate column (in
+//! any case), a row with the wrong number of fields, text that is not UTF-8, control
+//! characters and byte-order marks within fields.
 
 use crate::error::InputError;
 use crate::units::{Kind, parse_name};
+
+/// Column names that identify subjects in other conventions, lower case without punctuation:
+/// a file naming its subjects so must call the column `subject`.
+const SUBJECT_LIKE: &[&str] = &[
+    "id",
+    "pid",
+    "ptid",
+    "patid",
+    "patient",
+    "patientid",
+    "subj",
+    "subjid",
+    "subjectid",
+    "usubjid",
+    "participant",
+    "participantid",
+];
+
+/// What reading a file has to tell the user besides its data.
+#[derive(Debug, Clone, Default, PartialEq, Eq)]
+pub struct Notices {
+    /// Notes: nothing is wrong (silenced by `--quiet`).
+    pub notes: Vec<String>,
+    /// Warnings: something may be misread (always shown).
+    pub warnings: Vec<String>,
+}
+
+impl Notices {
+    /// Take in another's notes and warnings.
+    pub fn extend(&mut self, other: Notices) {
+        self.notes.extend(other.notes);
+        self.warnings.extend(other.warnings);
+    }
+}
 
 /// One data row with the 1-based line it started on.
 #[derive(Debug, Clone)]
@@ -119,11 +154,23 @@ impl Table {
         }
         let mut errors = Vec::new();
         for (i, h) in headers.iter().enumerate() {
-            if h.is_empty() {
+            if let Some(c) = h.chars().find(|&c| hidden(c)) {
+                errors.push(
+                    InputError::in_file(
+                        source,
+                        format!(
+                            "column {} holds an invisible character (U+{:04X}) in its name",
+                            i + 1,
+                            c as u32
+                        ),
+                    )
+                    .at_line(header_line),
+                );
+            } else if h.is_empty() {
                 errors.push(
                     InputError::in_file(source, format!("column {} has no name", i + 1)).at_line(header_line),
                 );
-            } else if headers[..i].contains(h) {
+            } else if headers[..i].iter().any(|o| o.eq_ignore_ascii_case(h)) {
                 errors.push(
                     InputError::in_file(source, format!("duplicate column '{h}'"))
                         .at_line(header_line)
@@ -153,6 +200,21 @@ impl Table {
                         );
                         continue;
                     }
+                    for (field, header) in r.iter().zip(&headers) {
+                        if let Some(c) = field.chars().find(|&c| hidden(c)) {
+                            errors.push(
+                                InputError::in_file(
+                                    source,
+                                    format!(
+                                        "the field holds an invisible character (U+{:04X}); remove it",
+                                        c as u32
+                                    ),
+                                )
+                                .at_line(line)
+                                .in_column(header.clone()),
+                            );
+                        }
+                    }
                     rows.push(Row { line, fields: r.iter().map(str::to_string).collect() });
                 }
                 Err(e) => errors.push(located(e.position(), csv_message(&e))),
@@ -175,14 +237,40 @@ impl Table {
         Table::parse_maybe_empty(path, &read_bytes(path)?)
     }
 
-    /// Find a plain column (no unit) by exact name.
+    /// Find a plain column (no unit) by name, in any case (`Route`, `ROUTE`).
     pub fn column(&self, name: &str) -> Option<Column> {
-        self.headers.iter().position(|h| h == name).map(|index| Column {
+        self.headers.iter().position(|h| h.eq_ignore_ascii_case(name)).map(|index| Column {
             index,
-            name: name.to_string(),
+            name: self.headers[index].clone(),
             factor: 1.0,
             kind: None,
         })
+    }
+
+    /// The `subject` column, when the file has one. A column named as subject identifiers
+    /// often are (`ID`, `patient`, `USUBJID`) but not `subject` is refused rather than
+    /// ignored: ignoring it would merge every subject's rows into one subject.
+    pub fn subject_column(&self) -> Result<Option<Column>, InputError> {
+        if let Some(c) = self.column("subject") {
+            return Ok(Some(c));
+        }
+        let looks_like_id = |h: &str| {
+            let squeezed: String =
+                h.chars().filter(char::is_ascii_alphanumeric).map(|c| c.to_ascii_lowercase()).collect();
+            SUBJECT_LIKE.contains(&squeezed.as_str())
+        };
+        match self.headers.iter().find(|h| looks_like_id(h)) {
+            Some(h) => Err(InputError::in_file(
+                &self.source,
+                format!(
+                    "column '{h}' looks like a subject identifier: name it 'subject' (rows are \
+                     matched to subjects by the subject column; any other column is ignored)"
+                ),
+            )
+            .at_line(self.header_line)
+            .in_column(h.clone())),
+            None => Ok(None),
+        }
     }
 
     /// Find the `<quantity>_<unit>` column for `quantity`, checking its unit.
@@ -214,14 +302,26 @@ impl Table {
         Ok(found)
     }
 
-    /// Columns that no reader claimed, for a note on stderr.
-    pub(crate) fn unused_columns(&self, used: &[&Column]) -> Vec<String> {
-        self.headers
-            .iter()
-            .enumerate()
-            .filter(|(i, _)| !used.iter().any(|c| c.index == *i))
-            .map(|(_, h)| h.clone())
-            .collect()
+    /// The columns no reader claimed: a note naming those that hold one value on every row,
+    /// and a warning for each whose rows differ (data that may matter, and is not read).
+    pub(crate) fn ignored_columns(&self, used: &[&Column]) -> Notices {
+        let mut same = Vec::new();
+        let mut notices = Notices::default();
+        for (i, h) in self.headers.iter().enumerate().filter(|(i, _)| !used.iter().any(|c| c.index == *i)) {
+            let first = self.rows.first().map_or("", |r| r.fields[i].as_str());
+            match self.rows.iter().find(|r| r.fields[i] != first) {
+                Some(other) => notices.warnings.push(format!(
+                    "{}: column '{h}' is ignored, though its rows differ ('{first}' on line {}, '{}' on \
+                     line {})",
+                    self.source, self.rows[0].line, other.fields[i], other.line
+                )),
+                None => same.push(h.as_str()),
+            }
+        }
+        if !same.is_empty() {
+            notices.notes.push(format!("{}: ignored columns: {}", self.source, same.join(", ")));
+        }
+        notices
     }
 }
 
@@ -269,6 +369,14 @@ impl Row {
             None => e,
         }
     }
+}
+
+/// A character that would print nothing visible or act on a terminal (NUL, escape sequences),
+/// or a byte-order mark past the start of the file: in a field it would make `S1` and a
+/// different-looking `S1` two subjects, or rewrite the screen when printed. Tabs and the line
+/// ends of a quoted field over several lines are kept.
+fn hidden(c: char) -> bool {
+    (c.is_control() && !matches!(c, '\t' | '\n' | '\r')) || c == '\u{feff}'
 }
 
 fn csv_message(e: &csv::Error) -> String {

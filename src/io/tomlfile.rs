@@ -15,8 +15,20 @@ pub struct TomlText {
 impl TomlText {
     /// Read a file.
     pub fn read(path: &str) -> Result<TomlText, InputError> {
-        let text = crate::io::input::read_text(std::path::Path::new(path))?;
-        Ok(TomlText { source: path.to_string(), text })
+        let bytes = crate::io::input::read(std::path::Path::new(path))?;
+        TomlText::from_bytes(path, &bytes)
+    }
+
+    /// Wrap bytes read from `source`: text that is not UTF-8 is refused at the line of its
+    /// first bad byte.
+    fn from_bytes(source: &str, bytes: &[u8]) -> Result<TomlText, InputError> {
+        match std::str::from_utf8(bytes) {
+            Ok(text) => Ok(TomlText::new(source, text)),
+            Err(e) => {
+                let line = bytes[..e.valid_up_to()].iter().filter(|&&b| b == b'\n').count() as u64 + 1;
+                Err(InputError::in_file(source, "the text is not valid UTF-8").at_line(line))
+            }
+        }
     }
 
     /// Wrap text already in memory.

@@ -212,9 +212,9 @@ pub enum CovariateSource {
     Draws(Vec<CovariateDraw>),
 }
 
-/// Typical CL and V for one set of covariates.
-fn typical(model: &PopulationModel, cov: &Covariates) -> Result<(f64, f64), String> {
-    Ok((model.clearance.typical_for(cov)?, model.volume.typical_for(cov)?))
+/// Typical CL and V for one set of covariates, after deriving those the model needs.
+fn typical(model: &PopulationModel, cov: &mut Covariates, wanted: &[&str]) -> Result<(f64, f64), String> {
+    cov.derive(wanted).and_then(|()| model.typical_cl_v(cov)).map_err(|e| e.describe())
 }
 
 #[derive(Debug, Clone)]
@@ -259,7 +259,7 @@ impl Population {
         let wanted: Vec<&str> = needed.iter().map(String::as_str).collect();
         let covariates = match source {
             CovariateSource::None if needed.is_empty() => {
-                let (cl, v) = typical(&model, &Covariates::default())?;
+                let (cl, v) = typical(&model, &mut Covariates::default(), &[])?;
                 Covs::Constant(cl, v)
             }
             CovariateSource::None => {
@@ -275,10 +275,8 @@ impl Population {
                 }
                 let mut out = Vec::with_capacity(pool.len());
                 for (id, mut cov) in pool {
-                    let (cl, v) = cov
-                        .derive(&wanted)
-                        .and_then(|()| typical(&model, &cov))
-                        .map_err(|m| format!("subject {id}: {m}"))?;
+                    let (cl, v) =
+                        typical(&model, &mut cov, &wanted).map_err(|m| format!("subject {id}: {m}"))?;
                     out.push((id, cl, v));
                 }
                 Covs::Pool(out)
@@ -286,7 +284,7 @@ impl Population {
             CovariateSource::Draws(draws) => {
                 let mut cov = Covariates::default();
                 draws.iter().for_each(|d| d.apply(d.central(), &mut cov));
-                cov.derive(&wanted).and_then(|()| typical(&model, &cov))?;
+                typical(&model, &mut cov, &wanted)?;
                 Covs::Draws { draws, needed }
             }
         };
@@ -329,10 +327,8 @@ impl Population {
                 let mut cov = Covariates::default();
                 draws.iter().for_each(|d| d.apply(d.draw(&mut rng), &mut cov));
                 let wanted: Vec<&str> = needed.iter().map(String::as_str).collect();
-                let (cl, v) = cov
-                    .derive(&wanted)
-                    .and_then(|()| typical(model, &cov))
-                    .map_err(|m| format!("subject {}: {m}", index + 1))?;
+                let (cl, v) =
+                    typical(model, &mut cov, &wanted).map_err(|m| format!("subject {}: {m}", index + 1))?;
                 (cl, v, None)
             }
         };
@@ -351,8 +347,9 @@ impl Population {
 fn exact_unit_column(table: &Table, quantity: &str, kind: Kind) -> Result<Option<Column>, InputError> {
     let mut found: Option<Column> = None;
     for (index, h) in table.headers.iter().enumerate() {
+        let lower = h.to_ascii_lowercase();
         let Some(factor) =
-            h.strip_prefix(quantity).and_then(|r| r.strip_prefix('_')).and_then(|u| kind.factor(u))
+            lower.strip_prefix(quantity).and_then(|r| r.strip_prefix('_')).and_then(|u| kind.factor(u))
         else {
             continue;
         };
@@ -395,7 +392,7 @@ pub fn parse_params(
     if need_ka && ka.is_none() {
         return Err(missing("oral candidates need an absorption rate constant column (ka_per_h)"));
     }
-    let subject = table.column("subject");
+    let subject = table.subject_column().map_err(|e| vec![e])?;
     let converged = table.column("converged");
     let mut rows = Vec::new();
     let mut left_out = Vec::new();

@@ -59,27 +59,47 @@ pub struct PlanSubject {
 }
 
 /// The parts of a saved fit (`fit --format json --keep-draws N`) that planning reads.
-#[derive(Deserialize)]
-struct SavedFit {
-    subjects: Vec<SavedSubject>,
+#[derive(Debug, Clone, Deserialize)]
+pub struct SavedFit {
+    /// The fitted subjects, in the fit's order.
+    pub subjects: Vec<SavedSubject>,
 }
 
-#[derive(Deserialize)]
-struct SavedSubject {
-    subject: Option<String>,
+/// One subject of a saved fit.
+#[derive(Debug, Clone, Deserialize)]
+pub struct SavedSubject {
+    /// The subject's identifier, when the data had one.
+    pub subject: Option<String>,
+    /// The point estimates.
+    pub parameters: Params,
+    /// The times of its levels: only they matter to planning (the start comes after them).
     #[serde(default)]
-    levels: Vec<SavedLevel>,
-    parameters: Params,
+    pub levels: Vec<SavedLevel>,
+    /// The residual error model of the fit.
     #[serde(default)]
-    residual: Option<Residual>,
+    pub residual: Option<Residual>,
+    /// Equal-weight posterior draws (`--keep-draws`).
     #[serde(default)]
-    draws: Vec<Params>,
+    pub draws: Vec<Params>,
+}
+
+impl SavedFit {
+    /// Read the JSON output of `cistern fit`.
+    pub fn read(path: &str) -> Result<SavedFit> {
+        let text = input::read_text(std::path::Path::new(path))?;
+        serde_json::from_str(&text).map_err(|e| {
+            InputError::in_file(path, format!("not a fit from `cistern fit --format json`: {e}"))
+                .at_line(e.line() as u64)
+                .into()
+        })
+    }
 }
 
 /// A level of a saved fit: only its time matters to planning.
-#[derive(Deserialize)]
-struct SavedLevel {
-    time_h: f64,
+#[derive(Debug, Clone, Deserialize)]
+pub struct SavedLevel {
+    /// When it was drawn (h).
+    pub time_h: f64,
 }
 
 /// The latest of some times, if any.
@@ -170,11 +190,7 @@ impl PlanSubject {
         wanted: &Setting<String>,
     ) -> Result<PlanSubject> {
         let path = fit_file.value.to_string_lossy().into_owned();
-        let text = input::read_text(&fit_file.value)?;
-        let saved: SavedFit = serde_json::from_str(&text).map_err(|e| {
-            InputError::in_file(&path, format!("not a fit from `cistern fit --format json`: {e}"))
-                .at_line(e.line() as u64)
-        })?;
+        let saved = SavedFit::read(&path)?;
         let s = pick(&saved.subjects, |s| s.subject.as_deref(), wanted, &path)?;
         if s.draws.is_empty() {
             return Err(InputError::in_file(

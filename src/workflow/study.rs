@@ -7,7 +7,7 @@ use crate::error::{InputError, Origin, Problems, Result};
 use crate::fit::SubjectData;
 use crate::io::doses::{DoseFile, parse_doses};
 use crate::io::levels::parse_levels;
-use crate::io::table::Table;
+use crate::io::table::{Notices, Table};
 use crate::model::PopulationModel;
 use crate::spec::{Inputs, Setting, Stated};
 use std::collections::{HashMap, HashSet};
@@ -20,8 +20,8 @@ pub struct Study {
     pub model: Option<PopulationModel>,
     /// Subjects with doses and levels, in the order of the levels file.
     pub subjects: Vec<SubjectData>,
-    /// Notes for the user (ignored columns, subjects left out).
-    pub notes: Vec<String>,
+    /// Notes and warnings for the user (ignored columns, subjects left out).
+    pub notices: Notices,
 }
 
 /// What a study must hold for the analysis at hand.
@@ -78,8 +78,8 @@ impl Study {
             (Some(d), Some(l)) => assemble(inputs, d, l, model.as_ref(), &mut problems),
             _ => None,
         };
-        let (subjects, notes) = problems.finish_with(matched)?;
-        Ok(Study { model, subjects, notes })
+        let (subjects, notices) = problems.finish_with(matched)?;
+        Ok(Study { model, subjects, notices })
     }
 
     /// The subject a spec asks for, or the only one.
@@ -119,18 +119,33 @@ fn common_covariates(items: &[Stated<String>], problems: &mut Problems) -> Covar
     let mut cov = Covariates::default();
     for item in items {
         problems.take(
-            parse_assignment(&mut cov, &item.value).map_err(|m| InputError::at(item.origin.clone(), m)),
+            parse_assignment(&mut cov, &item.value, &item.origin)
+                .map_err(|m| InputError::at(item.origin.clone(), m)),
         );
     }
     cov
 }
 
-/// Where the covariates of the subjects came from, for a problem in deriving them.
+/// Where the covariates of the subjects came from (or would be given), for a problem with one
+/// that is missing or was not entered by the user.
 fn covariates_origin(inputs: &Inputs) -> Origin {
     match (&inputs.covariates.value, inputs.covariate.first()) {
         (Some(path), _) => Origin::file(text(path)),
         (None, Some(first)) => first.origin.clone(),
         (None, None) => inputs.covariates.origin.clone(),
+    }
+}
+
+/// Derive the covariates the model needs and check that they give it positive typical values.
+fn check_covariates(
+    cov: &mut Covariates,
+    needed: &[&str],
+    model: Option<&PopulationModel>,
+) -> Result<(), InputError> {
+    cov.derive(needed)?;
+    match model {
+        Some(m) => m.typical_cl_v(cov).map(drop),
+        None => Ok(()),
     }
 }
 
@@ -141,7 +156,7 @@ fn assemble(
     levels_path: Option<&Path>,
     model: Option<&PopulationModel>,
     problems: &mut Problems,
-) -> Option<(Vec<SubjectData>, Vec<String>)> {
+) -> Option<(Vec<SubjectData>, Notices)> {
     let doses = match doses_path.map(text) {
         Some(path) => {
             problems.take_all(Table::read(&path).and_then(|t| parse_doses(&t)).map_err(Into::into)).map(Some)
@@ -168,18 +183,27 @@ fn assemble(
     let common = common_covariates(&inputs.covariate, problems);
     let (doses, levels, covariates) = (doses?, levels?, covariates?);
     let needed = model.map(|m| m.covariates_needed()).unwrap_or_default();
+    // Without a covariates file every subject has the values given for all: check them once,
+    // so that a missing covariate is one problem, not one per subject.
+    if inputs.covariates.value.is_none()
+        && let Err(mut e) = check_covariates(&mut common.clone(), &needed, model)
+    {
+        if inputs.covariate.is_empty() {
+            e.message = format!("the model needs covariates, and none were given: {}", e.message);
+        }
+        problems.push(e.located(covariates_origin(inputs)));
+        return None;
+    }
     let Some((levels_path, mut levels)) = levels else {
-        return without_levels(inputs, doses, &covariates, &common, &needed, problems);
+        return without_levels(inputs, doses, &covariates, &common, (&needed, model), problems);
     };
     let Some(doses) = doses else {
         problems.push(inputs.doses.problem("the doses file is required with levels"));
         return None;
     };
     let doses_path = doses_path.map(text).unwrap_or_default();
-    let mut notes = levels.notes.clone();
-    if !doses.ignored_columns.is_empty() {
-        notes.push(format!("{doses_path}: ignored columns: {}", doses.ignored_columns.join(", ")));
-    }
+    let mut notices = doses.notices.clone();
+    notices.extend(levels.notices.clone());
     let dose_ids = doses.subjects.iter().any(|(s, _)| s.is_some());
     let level_ids = levels.subjects.iter().any(|(s, _)| s.is_some());
     if dose_ids != level_ids {
@@ -228,7 +252,7 @@ fn assemble(
                 .at_line(l.line),
             );
         }
-        let Some(cov) = subject_covariates(inputs, id, &cov_of, &common, &needed, problems) else {
+        let Some(cov) = subject_covariates(inputs, id, &cov_of, &common, (&needed, model), problems) else {
             continue;
         };
         subject.covariates = cov;
@@ -242,28 +266,38 @@ fn assemble(
         .map(|(s, _)| s.clone().unwrap_or_default())
         .collect();
     if !skipped.is_empty() {
-        notes.push(format!("subjects with doses but no levels are not fitted: {}", skipped.join(", ")));
+        notices
+            .notes
+            .push(format!("subjects with doses but no levels are not fitted: {}", skipped.join(", ")));
     }
-    Some((subjects, notes))
+    Some((subjects, notices))
 }
 
 /// A subject's covariates: its row of the covariates file with those given for all laid over
-/// it, and the ones the model needs derived; `None` (with the problem) when they cannot be.
+/// it, the ones the model needs derived and checked against the model (`needs`); `None`
+/// (with the problem) when they cannot be.
 fn subject_covariates(
     inputs: &Inputs,
     id: &Option<String>,
     cov_of: &HashMap<&str, &Covariates>,
     common: &Covariates,
-    needed: &[&str],
+    (needed, model): (&[&str], Option<&PopulationModel>),
     problems: &mut Problems,
 ) -> Option<Covariates> {
-    let mut cov = id.as_deref().and_then(|s| cov_of.get(s)).map(|c| (*c).clone()).unwrap_or_default();
+    let row = id.as_deref().and_then(|s| cov_of.get(s));
+    let mut cov = row.map(|c| (*c).clone()).unwrap_or_default();
     cov.overlay(common);
-    match cov.derive(needed) {
+    match check_covariates(&mut cov, needed, model) {
         Ok(()) => Some(cov),
-        Err(m) => {
-            let name = id.clone().unwrap_or_else(|| "(single subject)".into());
-            problems.push(InputError::at(covariates_origin(inputs), format!("subject {name}: {m}")));
+        Err(mut e) => {
+            if row.is_none() && inputs.covariates.value.is_some() && e.field_name().is_some() {
+                e.message += " (the subject has no row in the covariates file)";
+            }
+            let e = e.located(covariates_origin(inputs));
+            problems.push(match id {
+                Some(id) => e.for_subject(id.clone()),
+                None => e,
+            });
             None
         }
     }
@@ -276,10 +310,11 @@ fn without_levels(
     doses: Option<DoseFile>,
     covariates: &[(String, Covariates)],
     common: &Covariates,
-    needed: &[&str],
+    needs: (&[&str], Option<&PopulationModel>),
     problems: &mut Problems,
-) -> Option<(Vec<SubjectData>, Vec<String>)> {
+) -> Option<(Vec<SubjectData>, Notices)> {
     let cov_of: HashMap<&str, &Covariates> = covariates.iter().map(|(s, c)| (s.as_str(), c)).collect();
+    let doses_notices = doses.as_ref().map(|file| file.notices.clone());
     let histories: Vec<(Option<String>, Vec<Dose>)> = match doses {
         Some(file) => file.subjects,
         None if covariates.is_empty() => vec![(None, Vec::new())],
@@ -292,9 +327,10 @@ fn without_levels(
             (None, [(only, _)]) => Some(only.clone()),
             _ => id.clone(),
         };
-        if let Some(cov) = subject_covariates(inputs, &cov_id, &cov_of, common, needed, problems) {
+        if let Some(cov) = subject_covariates(inputs, &cov_id, &cov_of, common, needs, problems) {
             subjects.push(SubjectData { id, doses, levels: Vec::new(), covariates: cov });
         }
     }
-    Some((subjects, Vec::new()))
+    let notices = doses_notices.unwrap_or_default();
+    Some((subjects, notices))
 }

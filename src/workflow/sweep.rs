@@ -72,7 +72,18 @@ fn pool(pool: &Setting<PathBuf>) -> Result<Option<CovariateSource>> {
 pub fn population(spec: &Spec, source: &Source, oral: bool) -> Result<VirtualPopulation> {
     match source {
         Source::Params { path, f, tlag_h } => {
-            let (rows, notes) = parse_params(&Table::read(&text(&path.value))?, oral, *f, *tlag_h)?;
+            let file = text(&path.value);
+            let bytes = std::fs::read(&path.value)
+                .map_err(|e| InputError::in_file(&file, format!("cannot read the file: {e}")))?;
+            if bytes.trim_ascii_start().starts_with(b"{") {
+                return Err(InputError::in_file(
+                    &file,
+                    "this is JSON (the JSON output of `cistern fit`?): the parameters file is the CSV \
+                     output of `cistern fit --format csv`, or any CSV with cl_l_h and v_l columns",
+                )
+                .into());
+            }
+            let (rows, notes) = parse_params(&Table::parse(&file, &bytes)?, oral, *f, *tlag_h)?;
             let described = json!({
                 "params": fingerprint(&path.value)?,
                 "f": full(*f),

@@ -1,0 +1,402 @@
+//! Messages that name the real cause, and columns that are never silently misread: each case
+//! runs the real binary on the input that showed the problem and checks the exit code and the
+//! message (file, line, column or key, the value entered).
+
+use crate::common::{Ran, cistern_at, demo_copy};
+use std::path::Path;
+
+/// Run `cistern ARGS` in `dir`.
+fn run(dir: &Path, args: &[&str]) -> Ran {
+    cistern_at(dir, args, "0")
+}
+
+/// Run and expect exit code 2; the standard error.
+#[track_caller]
+fn refused(dir: &Path, args: &[&str]) -> String {
+    let ran = run(dir, args);
+    assert_eq!(ran.code, 2, "cistern {args:?} should be refused:\n{}", ran.stderr);
+    assert!(!ran.stderr.contains("panicked"), "{}", ran.stderr);
+    ran.stderr
+}
+
+fn write(dir: &Path, name: &str, bytes: &[u8]) {
+    std::fs::write(dir.join(name), bytes).unwrap();
+}
+
+/// One invented subject S1: a 1 g infusion and two levels (not patient data).
+fn one_subject(dir: &Path) {
+    write(dir, "d.csv", b"subject,time_h,amount_mg,route,duration_h\nS1,0,1000,infusion,1\n");
+    write(dir, "l.csv", b"subject,time_h,conc_mg_l\nS1,2,20\nS1,10,10\n");
+}
+
+const FIT: [&str; 7] = ["fit", "--model", "model.toml", "--doses", "d.csv", "--levels", "l.csv"];
+
+fn fit_with<'a>(rest: &[&'a str]) -> Vec<&'a str> {
+    FIT.iter().copied().chain(rest.iter().copied()).collect()
+}
+
+#[test]
+fn a_zero_serum_creatinine_names_the_file_line_and_value_entered() {
+    // Was: `subject S1: the covariate 'crcl_ml_min' = inf gives a non-positive typical value`,
+    // with no file, and the entered covariate never mentioned.
+    let dir = demo_copy();
+    one_subject(dir.path());
+    write(dir.path(), "c.csv", b"subject,age_y,sex,weight_kg,scr_mg_dl\nS1,60,M,70,0\n");
+    let err = refused(dir.path(), &fit_with(&["--covariates", "c.csv"]));
+    assert!(
+        err.contains(
+            "error: c.csv: line 2, column scr_mg_dl: subject S1: scr_mg_dl = 0 gives an infinite crcl_ml_min"
+        ),
+        "{err}"
+    );
+    assert!(!err.contains("non-positive"), "{err}");
+    // The same value given on the command line names the flag.
+    let flags = ["--covariate", "age_y=60", "--covariate", "sex=M", "--covariate", "weight_kg=70"];
+    let err = refused(dir.path(), &fit_with(&[&flags[..], &["--covariate", "scr_mg_dl=0"]].concat()));
+    assert!(err.contains("error: --covariate: scr_mg_dl = 0 gives an infinite crcl_ml_min"), "{err}");
+}
+
+#[test]
+fn a_covariate_that_gives_a_zero_typical_value_names_where_it_was_entered() {
+    let dir = demo_copy();
+    one_subject(dir.path());
+    write(dir.path(), "c.csv", b"subject,weight_kg,crcl_ml_min\nS1,70,0\n");
+    let err = refused(dir.path(), &fit_with(&["--covariates", "c.csv"]));
+    assert!(
+        err.contains("c.csv: line 2, column crcl_ml_min: subject S1: crcl_ml_min = 0 gives a typical value of zero or less"),
+        "{err}"
+    );
+}
+
+#[test]
+fn an_empty_covariate_name_is_refused() {
+    // Was: `--covariate =5` accepted silently.
+    let dir = demo_copy();
+    one_subject(dir.path());
+    let err = refused(
+        dir.path(),
+        &fit_with(&["--covariate", "=5", "--covariate", "crcl_ml_min=90", "--covariate", "weight_kg=70"]),
+    );
+    assert!(err.contains("error: --covariate: expected NAME=VALUE with a covariate name"), "{err}");
+    assert!(err.contains("'=5'"), "{err}");
+}
+
+#[test]
+fn a_negative_seed_names_the_flag() {
+    // Was: "unexpected argument '-1'", without the flag.
+    let dir = demo_copy();
+    one_subject(dir.path());
+    let err = refused(dir.path(), &fit_with(&["--seed", "-1"]));
+    assert!(err.contains("'--seed <SEED>'") && err.contains("expected a whole number, 0 or more"), "{err}");
+    let err = refused(dir.path(), &["simulate", "--cl", "4", "--v", "40", "--dose", "1g", "--count", "-2"]);
+    assert!(err.contains("'--count <N>'"), "{err}");
+}
+
+#[test]
+fn invalid_utf8_in_a_toml_file_gives_the_line() {
+    let dir = demo_copy();
+    let mut model = std::fs::read(dir.path().join("model.toml")).unwrap();
+    let line = model.iter().filter(|&&b| b == b'\n').count() + 1;
+    model.extend_from_slice(b"# caf\xe9\n");
+    write(dir.path(), "model.toml", &model);
+    let err = refused(dir.path(), &["check", "model.toml"]);
+    assert!(err.contains(&format!("error: model.toml: line {line}: the text is not valid UTF-8")), "{err}");
+}
+
+#[test]
+fn a_negative_max_dose_in_a_case_file_names_the_key_and_line_not_a_flag() {
+    let dir = demo_copy();
+    let case = std::fs::read_to_string(dir.path().join("p01.toml")).unwrap();
+    write(dir.path(), "p01.toml", case.replace("max_dose = \"2.5g\"", "max_dose = \"-2.5g\"").as_bytes());
+    let err = refused(dir.path(), &["plan", "--case", "p01.toml"]);
+    assert!(
+        err.contains("error: p01.toml: line 27, key limits.max_dose: the largest dose must be positive"),
+        "{err}"
+    );
+    assert!(!err.contains("--max-dose"), "{err}");
+}
+
+#[test]
+fn control_characters_and_inner_byte_order_marks_in_identifiers_are_refused() {
+    // Was: printed raw to the terminal; a byte-order mark at the start of line 2 made `\u{feff}S1`
+    // a second subject.
+    let dir = demo_copy();
+    one_subject(dir.path());
+    write(
+        dir.path(),
+        "l.csv",
+        b"subject,time_h,conc_mg_l\nS1,2,20\n\xef\xbb\xbfS1,10,10\nS\x1b[2J,4,3\nS\x002,5,1\n",
+    );
+    let err = refused(dir.path(), &["check", "l.csv"]);
+    assert!(
+        err.contains("l.csv: line 3, column subject: the field holds an invisible character (U+FEFF)"),
+        "{err}"
+    );
+    assert!(
+        err.contains("l.csv: line 4, column subject: the field holds an invisible character (U+001B)"),
+        "{err}"
+    );
+    assert!(
+        err.contains("l.csv: line 5, column subject: the field holds an invisible character (U+0000)"),
+        "{err}"
+    );
+    assert!(!err.contains('\u{1b}') && !err.contains('\0'), "nothing raw reaches the terminal: {err:?}");
+}
+
+#[test]
+fn an_escape_sequence_given_on_the_command_line_is_printed_escaped() {
+    let dir = demo_copy();
+    let err = refused(dir.path(), &["plan", "--case", "p01.toml", "--subject", "P\u{1b}[2J"]);
+    assert!(err.contains("--subject: no subject 'P\\u{1b}[2J'"), "{err}");
+    assert!(!err.contains('\u{1b}'), "{err:?}");
+}
+
+#[test]
+fn an_identifier_column_not_named_subject_is_refused_not_merged() {
+    // Was: exit 0, one subject fitted from two people's data, with only a note.
+    let dir = demo_copy();
+    write(
+        dir.path(),
+        "doses3.csv",
+        b"ID,time_h,amount_mg,route,duration_h\nA1,0,1000,infusion,1\nA2,0,500,infusion,1\n",
+    );
+    write(dir.path(), "levels3.csv", b"ID,time_h,conc_mg_l\nA1,2,20\nA2,3,10\n");
+    let args = [
+        "fit",
+        "--model",
+        "model.toml",
+        "--doses",
+        "doses3.csv",
+        "--levels",
+        "levels3.csv",
+        "--covariate",
+        "weight_kg=70",
+        "--covariate",
+        "crcl_ml_min=90",
+    ];
+    let err = refused(dir.path(), &args);
+    for file in ["doses3.csv", "levels3.csv"] {
+        let want = format!(
+            "error: {file}: line 1, column ID: column 'ID' looks like a subject identifier: name it 'subject'"
+        );
+        assert!(err.contains(&want), "{err}");
+    }
+    for header in ["patient", "Subject_ID", "USUBJID"] {
+        write(dir.path(), "c.csv", format!("{header},weight_kg\nA1,70\n").as_bytes());
+        let err = refused(dir.path(), &["check", "c.csv"]);
+        assert!(err.contains(&format!("column '{header}' looks like a subject identifier")), "{err}");
+    }
+}
+
+#[test]
+fn column_names_are_matched_in_any_case_and_a_varying_ignored_column_is_a_warning() {
+    let dir = demo_copy();
+    write(
+        dir.path(),
+        "d.csv",
+        b"Subject,Time_H,AMOUNT_MG,Route,Duration_h,site\nA1,0,1000,infusion,1,x\nA2,0,500,infusion,1,y\n",
+    );
+    let ran = run(dir.path(), &["check", "-q", "d.csv"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    assert!(ran.stdout.contains("ok: d.csv: doses file, 2 subject(s), 2 dose(s)"), "{}", ran.stdout);
+    // A warning, shown even with -q: the rows differ in a column nobody reads.
+    assert!(
+        ran.stderr.contains(
+            "warning: d.csv: column 'site' is ignored, though its rows differ ('x' on line 2, 'y' on line 3)"
+        ),
+        "{}",
+        ran.stderr
+    );
+    // A column holding one value throughout is only a note.
+    write(
+        dir.path(),
+        "d.csv",
+        b"subject,time_h,amount_mg,route,duration_h,site\nA1,0,1,infusion,1,x\nA2,0,5,infusion,1,x\n",
+    );
+    let ran =
+        run(dir.path(), &["simulate", "--doses", "d.csv", "--cl", "4", "--v", "40", "--times", "0:2:1"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    assert!(
+        ran.stderr.contains("note: d.csv: ignored columns: site") && !ran.stderr.contains("warning"),
+        "{}",
+        ran.stderr
+    );
+    // Two columns that differ only in case are one column given twice.
+    write(dir.path(), "d.csv", b"subject,time_h,amount_mg,route,Subject\nA1,0,1,bolus,A1\n");
+    let err = refused(dir.path(), &["check", "d.csv"]);
+    assert!(err.contains("d.csv: line 1, column Subject: duplicate column 'Subject'"), "{err}");
+}
+
+#[test]
+fn forgetting_the_covariates_file_is_one_error_naming_the_cause() {
+    // Was: one identical error per subject, blamed on --covariates.
+    let dir = demo_copy();
+    let (mut doses, mut levels) = (
+        String::from("subject,time_h,amount_mg,route,duration_h\n"),
+        String::from("subject,time_h,conc_mg_l\n"),
+    );
+    for i in 1..=50 {
+        doses += &format!("S{i:02},0,1000,infusion,1\n");
+        levels += &format!("S{i:02},2,20\nS{i:02},10,10\n");
+    }
+    write(dir.path(), "d.csv", doses.as_bytes());
+    write(dir.path(), "l.csv", levels.as_bytes());
+    let err = refused(dir.path(), &FIT);
+    assert_eq!(err.lines().count(), 1, "{err}");
+    assert!(
+        err.contains("the model needs covariates, and none were given: 'crcl_ml_min' is not given"),
+        "{err}"
+    );
+    // A covariates file that lacks a column for every subject: one line with the count.
+    let mut cov = String::from("subject,age_y,sex,weight_kg\n");
+    for i in 1..=50 {
+        cov += &format!("S{i:02},60,F,70\n");
+    }
+    write(dir.path(), "c.csv", cov.as_bytes());
+    let err = refused(dir.path(), &fit_with(&["--covariates", "c.csv"]));
+    assert_eq!(err.lines().count(), 1, "{err}");
+    assert!(
+        err.contains("error: c.csv: 50 subjects (S01, S02, S03, …): 'crcl_ml_min' is not given"),
+        "{err}"
+    );
+}
+
+#[test]
+fn time_units_take_their_common_spellings() {
+    let dir = demo_copy();
+    let sim = |every: &str, duration: &str| {
+        let args = [
+            "simulate",
+            "--cl",
+            "4",
+            "--v",
+            "40",
+            "--dose",
+            "1g",
+            "--every",
+            every,
+            "--count",
+            "2",
+            "--duration",
+            duration,
+            "--times",
+            "0:24h:6h",
+            "--format",
+            "csv",
+        ];
+        let ran = run(dir.path(), &args);
+        assert_eq!(ran.code, 0, "{every} {duration}: {}", ran.stderr);
+        ran.stdout
+    };
+    let reference = sim("12h", "1h");
+    for (every, duration) in [
+        ("12hr", "60min"),
+        ("12hrs", "1hour"),
+        ("12hours", "60minutes"),
+        ("0.5day", "1 hours"),
+        ("0.5days", "60 minute"),
+    ] {
+        assert_eq!(sim(every, duration), reference, "{every} {duration}");
+    }
+    write(dir.path(), "d.csv", b"time_hours,amount_mg,route,duration_minutes\n0,1000,infusion,60\n");
+    let ran = run(dir.path(), &["check", "d.csv"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+}
+
+#[test]
+fn check_recognises_every_input_kind() {
+    // Was: a case file was read as a population model, and failed.
+    let dir = demo_copy();
+    let ran = run(dir.path(), &["check", "p01.toml"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    assert!(
+        ran.stdout.contains("ok: p01.toml: case file, 3 subject(s) in its study, subject P01"),
+        "{}",
+        ran.stdout
+    );
+    let study = [
+        "--model",
+        "model.toml",
+        "--doses",
+        "doses.csv",
+        "--levels",
+        "levels.csv",
+        "--covariates",
+        "covariates.csv",
+        "--draws",
+        "200",
+    ];
+    let fit = |rest: &[&str]| {
+        let ran = run(dir.path(), &[&["fit"][..], &study, rest].concat());
+        assert_eq!(ran.code, 0, "{}", ran.stderr);
+    };
+    fit(&["--format", "json", "--keep-draws", "100", "-o", "fits.json"]);
+    fit(&["--format", "csv", "-o", "fits.csv"]);
+    let sweep = [
+        "sweep",
+        "--params",
+        "fits.csv",
+        "--amounts",
+        "1g",
+        "--every",
+        "12h",
+        "--durations",
+        "1h",
+        "--target",
+        "auc24=400..600",
+    ];
+    let ran = run(dir.path(), &[&sweep[..], &["--shard", "1/2", "-o", "state.json"]].concat());
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let ran = run(dir.path(), &["check", "fits.json", "fits.csv", "state.json"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    assert!(
+        ran.stdout.contains("ok: fits.json: fit results, 3 subject(s), 3 with posterior draws"),
+        "{}",
+        ran.stdout
+    );
+    assert!(ran.stdout.contains("ok: fits.csv: parameters file, 3 subject(s)"), "{}", ran.stdout);
+    assert!(ran.stdout.contains("ok: state.json: sweep state, shard 1/2"), "{}", ran.stdout);
+    // A broken case file is checked as a case file: the key and line of its problem.
+    let case = std::fs::read_to_string(dir.path().join("p01.toml")).unwrap();
+    write(dir.path(), "p01.toml", case.replace("seed = 7", "seed = \"seven\"").as_bytes());
+    let err = refused(dir.path(), &["check", "p01.toml"]);
+    assert!(err.contains("p01.toml: line 7"), "{err}");
+    // sweep --params says clearly that it reads the CSV, not fit's JSON.
+    let err = refused(dir.path(), &[&["sweep", "--params", "fits.json"][..], &sweep[3..]].concat());
+    assert!(err.contains("fits.json: this is JSON") && err.contains("cistern fit --format csv"), "{err}");
+}
+
+#[test]
+fn report_takes_the_case_as_the_other_commands_do() {
+    let dir = demo_copy();
+    let case = std::fs::read_to_string(dir.path().join("p01.toml")).unwrap();
+    write(
+        dir.path(),
+        "p01.toml",
+        case.replace("draws = 2000", "draws = 200").replace("subjects = 2000", "subjects = 100").as_bytes(),
+    );
+    let ran = run(dir.path(), &["report", "--case", "p01.toml", "-o", "r.pdf", "-q"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    assert!(dir.path().join("r.pdf").is_file());
+    // -q means what it means everywhere: no notes, but the caution stays.
+    assert!(ran.stderr.contains("caution:") && !ran.stderr.contains("note:"), "{}", ran.stderr);
+    let err = refused(dir.path(), &["report", "-o", "r2.pdf"]);
+    assert!(err.contains("--case"), "{err}");
+}
+
+#[test]
+fn quiet_is_accepted_by_every_command_and_plan_help_has_no_method() {
+    let dir = demo_copy();
+    for command in ["simulate", "exposure", "fit", "plan", "report", "check", "sweep", "merge", "verify"] {
+        let ran = run(dir.path(), &[command, "--help"]);
+        assert_eq!(ran.code, 0, "{command}");
+        assert!(
+            ran.stdout.contains("-q, --quiet")
+                && ran.stdout.contains("Print no notes on stderr (errors, warnings and the caution"),
+            "{command}: {}",
+            ran.stdout
+        );
+    }
+    let help = run(dir.path(), &["plan", "--help"]).stdout;
+    assert!(!help.contains("--method"), "{help}");
+}
