@@ -7,7 +7,7 @@ use cistern::choice::Choice;
 use cistern::dosing::{Regimen, Route, Schedule};
 use cistern::engine::Params;
 use cistern::error::Problems;
-use cistern::io::output::{CAUTION, Format, Sink};
+use cistern::io::output::{CAUTION, Format, RunFiles, Sink};
 use cistern::limits;
 use cistern::units::{Kind, is_bare, parse_value};
 use cistern::{Error, InputError, Origin};
@@ -31,7 +31,8 @@ pub struct OutputArgs {
     /// Output format [default: table on a terminal, csv when piped or from the -o extension]
     #[arg(long, value_parser = choice::<Format>())]
     pub format: Option<Format>,
-    /// Write the output to FILE (atomically; never over an input file); `-` is stdout
+    /// Write the output to FILE (atomically; never over an input or another output; through
+    /// a symbolic link to its target); `-` is stdout
     #[arg(short = 'o', long = "output", value_name = "FILE")]
     pub output: Option<String>,
     /// Print no notes on stderr (errors and the caution are still printed)
@@ -45,9 +46,9 @@ impl OutputArgs {
         self.format.unwrap_or_else(|| Format::infer(self.output.as_deref(), std::io::stdout().is_terminal()))
     }
 
-    /// Open the output, refusing to write over an input.
-    pub fn sink(&self, inputs: &[&str]) -> Result<Sink, Error> {
-        Sink::open(self.output.as_deref(), inputs)
+    /// Open the output (`-o`; stdout when not given) among the run's files, before the work.
+    pub fn sink(&self, files: &mut RunFiles) -> Result<Sink, Error> {
+        files.open(Origin::Flag("-o".into()), self.output.as_deref().unwrap_or("-"))
     }
 
     /// A note for the user on stderr, unless `--quiet`.

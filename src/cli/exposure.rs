@@ -5,7 +5,9 @@ use cistern::Error;
 use cistern::dosing::Regimen;
 use cistern::engine::steady::{SteadyCurve, SteadyState};
 use cistern::error::Problems;
-use cistern::io::output::{CAUTION, CsvWriter, Format, io_failure, readable, render_table, write_json};
+use cistern::io::output::{
+    CAUTION, CsvWriter, Format, RunFiles, io_failure, readable, render_table, write_json,
+};
 use cistern::limits::reported_conc;
 use clap::Args;
 use serde::Serialize;
@@ -71,6 +73,7 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
     let (Some(params), Some(schedule)) = (params, schedule) else {
         return Err(Error::Usage("the arguments could not be read".into()));
     };
+    let mut sink = args.output.sink(&mut RunFiles::default())?;
     let regimen = schedule.regimen;
     // Each flag's value was checked above; what is left is how they combine.
     let mut ss = SteadyCurve::new(&params, regimen).map_err(invalid_flag)?.metrics();
@@ -94,7 +97,6 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
         steady_state: ss,
     };
     let format = args.output.format();
-    let mut sink = args.output.sink(&[])?;
     let out = sink.writer();
     match format {
         Format::Json => write_json(out, &doc).map_err(io_failure)?,

@@ -6,7 +6,9 @@ use cistern::engine::validate_absorption;
 use cistern::error::Problems;
 use cistern::fit::objective::Weighting;
 use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, fit_all};
-use cistern::io::output::{CAUTION, CsvWriter, Format, full, io_failure, readable, render_table, write_json};
+use cistern::io::output::{
+    CAUTION, CsvWriter, Format, RunFiles, full, io_failure, readable, render_table, write_json,
+};
 use cistern::spec::{DRAWS, Needs};
 use cistern::units::Kind;
 use cistern::workflow::{Required, Study};
@@ -108,6 +110,8 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
         args.output
             .note("the model's [absorption] table gives F and the lag time: --f and --tlag are not used");
     }
+    // The output is opened before the work, so a bad path fails first.
+    let mut sink = args.output.sink(&mut RunFiles::new(spec.files()))?;
     let options = FitOptions {
         method,
         intervals: args.intervals,
@@ -135,10 +139,7 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     if fits.is_empty() && !failures.is_empty() {
         return Err(Error::Usage(failures.join("\n")));
     }
-    let files = spec.files();
-    let inputs: Vec<&str> = files.iter().filter_map(|p| p.to_str()).collect();
     let format = args.output.format();
-    let mut sink = args.output.sink(&inputs)?;
     let out = sink.writer();
     match format {
         Format::Json => write_json(out, &FitJson { subjects: &fits }).map_err(io_failure)?,

@@ -12,7 +12,9 @@ use cistern::{Origin, Seeds};
 use std::path::PathBuf;
 
 use cistern::Error;
-use cistern::io::output::{CAUTION, CsvWriter, Format, full, io_failure, readable, render_table, write_json};
+use cistern::io::output::{
+    CAUTION, CsvWriter, Format, RunFiles, full, io_failure, readable, render_table, write_json,
+};
 use cistern::plan::advisor::Advice;
 use cistern::plan::recommend::Plan;
 use cistern::plan::session::{Exposure, Outcome};
@@ -93,6 +95,9 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
     args.grid.apply(&mut spec, &mut problems);
     let settings = problems.take_all(spec.resolve(Needs { grid: true }));
     let seeds = Seeds(spec.seed());
+    // The output is opened before the fit and the plan, so a bad path fails first.
+    let inputs = spec.files().into_iter().chain(args.fit.as_ref().map(PathBuf::from));
+    let mut sink = args.output.sink(&mut RunFiles::new(inputs))?;
     let subject = match &args.fit {
         Some(path) => {
             let saved = Stated { value: PathBuf::from(path), origin: Origin::Flag("--fit".into()) };
@@ -127,10 +132,7 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
     for n in &notes {
         args.output.note(n);
     }
-    let files = spec.files();
-    let inputs: Vec<&str> = files.iter().filter_map(|p| p.to_str()).chain(args.fit.as_deref()).collect();
     let format = args.output.format();
-    let mut sink = args.output.sink(&inputs)?;
     let out = sink.writer();
     match format {
         Format::Json => {

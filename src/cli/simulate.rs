@@ -5,14 +5,15 @@ use cistern::dosing::Dose;
 use cistern::engine;
 use cistern::error::Problems;
 use cistern::io::doses::{DoseFile, parse_doses};
-use cistern::io::output::Sink;
-use cistern::io::output::{CAUTION, CsvWriter, Format, full, io_failure, readable, render_table, write_json};
+use cistern::io::output::{
+    CAUTION, CsvWriter, Format, RunFiles, full, io_failure, readable, render_table, write_json,
+};
 use cistern::io::table::Table;
 use cistern::limits::{check_output_size, reported_conc};
 use cistern::report::layout::{PlotSpec, Series, Stroke};
 use cistern::report::svg;
 use cistern::units::Kind;
-use cistern::{Error, InputError};
+use cistern::{Error, InputError, Origin};
 use clap::Args;
 use serde::Serialize;
 
@@ -169,6 +170,10 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
             format!("{m} ({} times × {} subjects)", times.len(), subjects.len()),
         ))
     })?;
+    // Both outputs are opened before the work, so a bad path fails first.
+    let mut files = RunFiles::new(&args.doses);
+    let mut sink = args.output.sink(&mut files)?;
+    let svg_sink = args.svg.as_deref().map(|p| files.open(Origin::Flag("--svg".into()), p)).transpose()?;
     let (t_lo, t_hi) =
         times.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &t| (lo.min(t), hi.max(t)));
     let curves: Vec<(Vec<f64>, f64)> = subjects
@@ -180,13 +185,6 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
         .collect();
 
     let format = args.output.format();
-    let inputs: Vec<&str> = args.doses.iter().map(String::as_str).collect();
-    let mut sink = args.output.sink(&inputs)?;
-    // The plot's file is opened before anything is written, so a bad path fails first.
-    let svg_sink = match &args.svg {
-        Some(path) => Some(Sink::open(Some(path), &inputs)?),
-        None => None,
-    };
     let out = sink.writer();
     let with_subject = subjects.iter().any(|(s, _)| s.is_some());
     match format {

@@ -155,8 +155,7 @@ impl Table {
 
     /// Read and parse a CSV file.
     pub fn read(path: &str) -> Result<Table, Vec<InputError>> {
-        let bytes = std::fs::read(path)
-            .map_err(|e| vec![InputError::in_file(path, format!("cannot read the file: {e}"))])?;
+        let bytes = crate::io::input::read(std::path::Path::new(path)).map_err(|e| vec![e])?;
         Table::parse(path, &bytes)
     }
 

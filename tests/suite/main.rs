@@ -15,6 +15,7 @@ mod fit_properties;
 mod fit_reference;
 mod library;
 mod limits;
+mod outputs;
 mod parser_fuzz;
 mod plan;
 mod published_engine;
