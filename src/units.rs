@@ -138,10 +138,12 @@ pub fn parse_value(kind: Kind, text: &str) -> Result<f64, String> {
         return Err(format!("expected a finite number, found '{text}'"));
     }
     if unit.trim().is_empty() {
-        return crate::limits::check(kind, value);
+        return crate::limits::check(kind, value).map_err(|m| format!("{m} (given as '{text}')"));
     }
     match kind.factor(unit) {
-        Some(f) if (value * f).is_finite() => crate::limits::check(kind, value * f),
+        Some(f) if (value * f).is_finite() => {
+            crate::limits::check(kind, value * f).map_err(|m| format!("{m} (given as '{text}')"))
+        }
         Some(_) => Err(format!("'{text}' is out of range once converted to {}", kind.base_unit())),
         None => Err(format!(
             "unknown {kind} unit '{}' in '{text}'; accepted units: {}",
