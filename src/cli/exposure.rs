@@ -8,6 +8,7 @@ use cistern::error::Problems;
 use cistern::io::output::{
     CAUTION, CsvWriter, Format, RunFiles, io_failure, readable, render_table, write_json,
 };
+use cistern::limits::reported_conc;
 use clap::Args;
 use serde::Serialize;
 use serde::ser::{SerializeStruct, Serializer};
@@ -75,7 +76,10 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
     let mut sink = args.output.sink(&mut RunFiles::default())?;
     let regimen = schedule.regimen;
     // Each flag's value was checked above; what is left is how they combine.
-    let ss = SteadyCurve::new(&params, regimen).map_err(invalid_flag)?.metrics();
+    let mut ss = SteadyCurve::new(&params, regimen).map_err(invalid_flag)?.metrics();
+    for c in [&mut ss.exposure.peak_mg_l, &mut ss.exposure.trough_mg_l, &mut ss.exposure.cavg_mg_l] {
+        *c = reported_conc(*c);
+    }
     let k = params.k_per_h();
     let doc = ExposureJson {
         parameters: ParametersJson {

@@ -2,7 +2,6 @@
 
 use super::args::{OutputArgs, choice, flag_number, flag_value, invalid_flag};
 use super::study::StudyArgs;
-use cistern::Error;
 use cistern::engine::validate_absorption;
 use cistern::error::Problems;
 use cistern::fit::objective::Weighting;
@@ -10,9 +9,10 @@ use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, fit_all};
 use cistern::io::output::{
     CAUTION, CsvWriter, Format, RunFiles, full, io_failure, readable, render_table, write_json,
 };
-use cistern::spec::Needs;
+use cistern::spec::{DRAWS, Needs};
 use cistern::units::Kind;
 use cistern::workflow::{Required, Study};
+use cistern::{Error, InputError};
 use clap::Args;
 use serde::Serialize;
 
@@ -89,6 +89,13 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     let tlag = args.tlag.as_ref().map_or(Some(0.0), |t| problems.take(flag_value("--tlag", Kind::Time, t)));
     if let (Some(ka), Some(f), Some(tlag)) = (ka, f, tlag) {
         problems.take(validate_absorption(ka, f, tlag).map_err(invalid_flag));
+    }
+    // Kept draws are draws: the same bound as --draws.
+    if args.keep_draws > *DRAWS.end() {
+        problems.push(InputError::flag(
+            "--keep-draws",
+            format!("expected at most {} draws per subject, found {}", DRAWS.end(), args.keep_draws),
+        ));
     }
     let settings = problems.take_all(spec.resolve(Needs::default()));
     let study =

@@ -25,7 +25,13 @@ use std::process::ExitCode;
 /// when piped; choose with --format. Not clinical advice: dosing decisions belong to licensed
 /// clinicians following local protocols.
 #[derive(Parser, Debug)]
-#[command(name = "cistern", version, propagate_version = true, max_term_width = 100)]
+// The version with the build (build.rs), which sweep states record too.
+#[command(
+    name = "cistern",
+    version = concat!(env!("CARGO_PKG_VERSION"), " (build: ", env!("CISTERN_BUILD"), ")"),
+    propagate_version = true,
+    max_term_width = 100
+)]
 struct Cli {
     #[command(subcommand)]
     command: Command,

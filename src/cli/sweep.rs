@@ -10,7 +10,7 @@ use cistern::io::output::{CAUTION, Format, RunFiles, io_failure};
 use cistern::spec::{Grid, Needs, Setting, Spec, Stated, SweepSpec};
 use cistern::sweep::Sweep;
 use cistern::sweep::sketch::RELATIVE_ERROR;
-use cistern::sweep::state::{Setup, Shard, SweepState};
+use cistern::sweep::state::{Setup, Shard};
 use cistern::sweep::summary::Summary;
 use cistern::units::Kind;
 use cistern::workflow::sweep::{Source, VirtualPopulation, population};
@@ -42,7 +42,8 @@ Examples:
   cistern sweep --params fits.csv --amounts 750,1g --every 12h --durations 1h --target auc24=400..600
 
   # the 3rd of 8 shards, for a cluster; combine the eight with cistern merge
-  cistern sweep --model model.toml --subjects 1000000 ... --shard 3/8 -o shard-3.json
+  cistern sweep --model model.toml --subjects 1000000 ... --shard 3/8 -o shard-3.json \\
+      --per-subject part-3.csv
 
 Each subject's draws come from the seed and the subject's number alone, so the output is the
 same for any number of threads (RAYON_NUM_THREADS) and shards. Percentiles come from a
@@ -83,7 +84,8 @@ pub struct SweepArgs {
     #[command(flatten)]
     grid: GridArgs,
     /// Compute only the I-th of N slices of the subjects and write its state (JSON) instead of
-    /// the summary; combine the N states with `cistern merge`
+    /// the summary; combine the N states with `cistern merge`. With --per-subject the state
+    /// records the rows' number and SHA-256, which `merge --rows` checks before joining them
     #[arg(long, value_name = "I/N", allow_hyphen_values = true)]
     shard: Option<String>,
     /// Also write one row per subject and regimen to FILE (CSV; `-` is stdout)
@@ -184,15 +186,14 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
     } else {
         ProgressBar::hidden()
     };
-    let tallies = sweep.run(span, per_subject.as_mut().map(|s| s.writer()), &mut |n| bar.inc(n))?;
+    let state =
+        sweep.run_shard(setup, shard, per_subject.as_mut().map(|s| s.writer()), &mut |n| bar.inc(n))?;
     bar.finish_and_clear();
-    let state = SweepState::new(setup, shard, tallies);
 
     let format = if args.shard.is_some() { Format::Json } else { args.output.format() };
     let out = sink.writer();
     if args.shard.is_some() {
-        serde_json::to_writer(&mut *out, &state).map_err(|e| io_failure(e.into()))?;
-        writeln!(out).map_err(io_failure)?;
+        state.write(out).map_err(io_failure)?;
     } else {
         Summary::of(&state).write(out, format).map_err(io_failure)?;
     }

@@ -52,9 +52,17 @@ pub fn full(x: f64) -> String {
 
 /// Append [`full`]'s text of `x` to `text`: a loop over millions of numbers can reuse one
 /// buffer instead of allocating a string per number.
+///
+/// Every number of a CSV passes here, and every number of a table through [`readable`]: the
+/// one place where no NaN or infinity reaches an output. An undefined number is written as
+/// nothing in CSV (the empty field is CSV's missing value), as `undefined` in tables and as
+/// `null` in JSON (serde_json's rule for non-finite numbers); the inputs' limits
+/// ([`crate::limits`]) keep results finite, so this is the last guard, not the rule.
 pub fn push_full(text: &mut String, x: f64) {
     use std::fmt::Write as _;
-    let _ = write!(text, "{x:?}");
+    if x.is_finite() {
+        let _ = write!(text, "{x:?}");
+    }
 }
 
 /// The writer of every CSV output: [`csv::Writer`], which quotes a field only when it holds a
@@ -142,7 +150,7 @@ pub fn plain(x: f64) -> String {
 /// A number for reading: `digits` significant digits, no exponent for everyday magnitudes.
 pub fn readable(x: f64, digits: usize) -> String {
     if !x.is_finite() {
-        return format!("{x}");
+        return "undefined".into();
     }
     if x == 0.0 {
         return "0".into();

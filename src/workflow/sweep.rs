@@ -160,5 +160,5 @@ pub fn summary(
     let tallies = sweep.run(0..subjects, None, &mut |_| {})?;
     let setup =
         Setup::new(serde_json::Value::Null, seed, subjects, &grid.candidates, &grid.targets, &grid.limits);
-    Ok(Summary::of(&SweepState::new(setup, Shard::WHOLE, tallies)))
+    Ok(Summary::of(&SweepState::new(setup, Shard::WHOLE, tallies, None)))
 }

@@ -14,6 +14,7 @@ mod fit_calibration;
 mod fit_properties;
 mod fit_reference;
 mod library;
+mod limits;
 mod outputs;
 mod parser_fuzz;
 mod plan;
