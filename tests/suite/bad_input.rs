@@ -145,8 +145,8 @@ fn catalog() -> Vec<Case> {
         flags("steady-state infusion longer than the interval", &exposure("--dose 1g --every 12h --duration 13h --cl 4.2 --v 48"), "--duration", "longer than the dosing interval"),
         flags("exposure without a dose", &exposure("--every 12h --duration 1h --cl 4.2 --v 48"), "--dose", "dose amount is required"),
         flags("exposure with oral doses and no ka", &exposure("--dose 1g --every 12h --route oral --cl 4.2 --v 48"), "--ka", "absorption rate constant"),
-        with_file(GOOD, flags("-o onto the input file", &format!("{SIM} --doses doses.csv -o doses.csv"), "refusing to write the output over the input file 'doses.csv'", "")),
-        with_file(GOOD, flags("-o onto the input by another path", &format!("{SIM} --doses doses.csv -o ./doses.csv"), "refusing to write the output over the input file", "")),
+        with_file(GOOD, flags("-o onto the input file", &format!("{SIM} --doses doses.csv -o doses.csv"), "-o", "refusing to write the output over the input file 'doses.csv'")),
+        with_file(GOOD, flags("-o onto the input by another path", &format!("{SIM} --doses doses.csv -o ./doses.csv"), "-o", "refusing to write the output over the input file 'doses.csv'")),
     ]
 }
 
