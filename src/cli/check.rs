@@ -115,7 +115,7 @@ fn check_model(path: &str) -> Result<(String, Notices), Error> {
 fn check_case(path: &str) -> Result<(String, Notices), Error> {
     let spec = case::read(path)?;
     let resolved = spec.resolve(Needs::default())?;
-    let study = Study::load(&spec.inputs, Required { model: spec.inputs.model.value.is_some() })?;
+    let study = Study::load(&spec.inputs, Required { model: spec.inputs.model.value.is_some(), levels: false })?;
     let subject = study.subject(&spec.subject)?;
     let mut summary = format!(
         "case file, {} subject(s) in its study, subject {}",
@@ -136,12 +136,11 @@ fn check_json(path: &str, bytes: &[u8]) -> Result<(String, Notices), Error> {
         .map_err(|e| InputError::in_file(path, format!("malformed JSON: {e}")).at_line(e.line() as u64))?;
     if value.get("format").is_some() {
         let state = SweepState::parse(text).map_err(|m| InputError::in_file(path, m))?;
+        let covered: u64 = state.parts.iter().map(|p| p.subjects_to - p.subjects_from).sum();
         let summary = format!(
-            "sweep state, shard {}/{}, subjects {}–{} of {}",
-            state.shard.index,
-            state.shard.count,
-            state.subjects_from + 1,
-            state.subjects_to,
+            "sweep state, {} of {} shards: {covered} of {} subjects",
+            state.parts.len(),
+            state.shards,
             state.setup.subjects
         );
         return Ok((summary, Notices::default()));

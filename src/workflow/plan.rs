@@ -156,9 +156,10 @@ impl PlanSubject {
         let fail = |m: String| Error::Usage(format!("a priori draws: {m}"));
         let cov = &subject.covariates;
         let absorption = model.absorption.as_ref();
+        let (cl_l_h, v_l) = model.typical_cl_v(cov)?;
         let point = Params {
-            cl_l_h: model.clearance.typical_for(cov).map_err(fail)?,
-            v_l: model.volume.typical_for(cov).map_err(fail)?,
+            cl_l_h,
+            v_l,
             ka_per_h: absorption.map(|a| a.ka.typical),
             f: absorption.map_or(1.0, |a| a.f),
             tlag_h: absorption.map_or(0.0, |a| a.tlag_h),

@@ -355,7 +355,7 @@ fn check_recognises_every_input_kind() {
         ran.stdout
     );
     assert!(ran.stdout.contains("ok: fits.csv: parameters file, 3 subject(s)"), "{}", ran.stdout);
-    assert!(ran.stdout.contains("ok: state.json: sweep state, shard 1/2"), "{}", ran.stdout);
+    assert!(ran.stdout.contains("ok: state.json: sweep state, 1 of 2 shards"), "{}", ran.stdout);
     // A broken case file is checked as a case file: the key and line of its problem.
     let case = std::fs::read_to_string(dir.path().join("p01.toml")).unwrap();
     write(dir.path(), "p01.toml", case.replace("seed = 7", "seed = \"seven\"").as_bytes());
