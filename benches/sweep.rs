@@ -50,7 +50,7 @@ fn sweep(c: &mut Criterion) {
         let tallies = sweep.run(0..SUBJECTS, rows, &mut |_| {}).expect("the sweep runs");
         let setup = Setup::new(serde_json::json!("bench"), 1, SUBJECTS, &candidates, &targets, &limits);
         let mut csv = Vec::new();
-        Summary::of(&SweepState::new(setup, Shard::WHOLE, tallies))
+        Summary::of(&SweepState::new(setup, Shard::WHOLE, tallies, None))
             .write(&mut csv, Format::Csv, None)
             .unwrap();
         csv

@@ -143,6 +143,11 @@ pub fn ideal_body_weight(height_cm: f64, sex: Sex) -> f64 {
     base + 2.3 * (height_cm / 2.54 - 60.0)
 }
 
+/// A covariate's value checked against the covariate limits ([`crate::limits::COVARIATE`]).
+fn covariate_value(name: &str, v: f64) -> Result<f64, String> {
+    crate::limits::check_range(&crate::limits::COVARIATE, v, &format!("the covariate {name}"), "")
+}
+
 /// Read one `NAME=VALUE` covariate (`weight_kg=70`, `sex=F`) into `cov`.
 pub(crate) fn parse_assignment(cov: &mut Covariates, item: &str) -> Result<(), String> {
     let Some((name, value)) = item.split_once('=') else {
@@ -159,7 +164,7 @@ pub(crate) fn parse_assignment(cov: &mut Covariates, item: &str) -> Result<(), S
     }
     match value.parse::<f64>() {
         Ok(v) if v.is_finite() && v >= 0.0 => {
-            cov.set(name, v);
+            cov.set(name, covariate_value(name, v)?);
             Ok(())
         }
         Ok(v) if v.is_finite() => Err(format!("{name} must not be negative, found {v}")),
@@ -206,7 +211,12 @@ pub fn parse_covariates(table: &Table) -> Result<Vec<(String, Covariates)>, Vec<
                 continue;
             }
             match text.parse::<f64>() {
-                Ok(v) if v.is_finite() && v >= 0.0 => cov.set(name, v),
+                Ok(v) if v.is_finite() && v >= 0.0 => match covariate_value(name, v) {
+                    Ok(v) => cov.set(name, v),
+                    Err(m) => {
+                        errors.push(InputError::in_file(src, m).at_line(row.line).in_column(name.clone()))
+                    }
+                },
                 _ => errors.push(
                     InputError::in_file(src, format!("expected a non-negative number, found '{text}'"))
                         .at_line(row.line)

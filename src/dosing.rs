@@ -79,9 +79,14 @@ pub struct Regimen {
 }
 
 impl Regimen {
-    /// Check the regimen's values, returning what is wrong.
+    /// Check the regimen's values, returning what is wrong. Unlike one recorded dose (which
+    /// may be 0: a dose held), a regimen of 0 mg cannot be meant: its exposure is 0 and its
+    /// fluctuation and loading dose are undefined.
     pub fn validate(&self) -> Result<(), InputError> {
         validate_dose(self.amount_mg, self.route, self.duration_h)?;
+        if self.amount_mg <= 0.0 {
+            return Err(InputError::field("amount_mg", "a regimen's dose must be above 0 mg"));
+        }
         if !(self.every_h.is_finite() && self.every_h > 0.0) {
             return Err(InputError::field(
                 "every_h",
@@ -128,6 +133,7 @@ impl Schedule {
         if self.count == 0 {
             return Err(InputError::field("count", "the dose count must be at least 1"));
         }
+        crate::limits::check_doses(u64::from(self.count)).map_err(|m| InputError::field("count", m))?;
         if !self.start_h.is_finite() {
             return Err(InputError::field("start_h", "the start time must be a finite number"));
         }

@@ -37,6 +37,7 @@ pub mod engine;
 pub mod error;
 pub mod fit;
 pub mod io;
+pub mod limits;
 pub mod model;
 pub mod plan;
 pub mod report;

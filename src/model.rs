@@ -8,6 +8,8 @@
 use crate::covariates::Covariates;
 use crate::error::InputError;
 use crate::io::tomlfile::TomlText;
+use crate::limits;
+use crate::units::Kind;
 use serde::Deserialize;
 use toml::Spanned;
 
@@ -217,10 +219,27 @@ impl Checker<'_> {
         }
     }
 
-    fn positive(&mut self, v: &Spanned<f64>, key: &str) -> f64 {
+    /// A positive value within the limits of its kind (a covariate's limits when `kind` is
+    /// `None`).
+    fn positive(&mut self, v: &Spanned<f64>, key: &str, kind: Option<Kind>) -> f64 {
         let x = *v.get_ref();
-        self.require(x.is_finite() && x > 0.0, v, key, &format!("expected a positive number, found {x}"));
+        let checked = if !(x.is_finite() && x > 0.0) {
+            Err(format!("expected a positive number, found {}", limits::number(x)))
+        } else {
+            match kind {
+                Some(kind) => limits::check(kind, x).map(drop),
+                None => limits::check_range(&limits::COVARIATE, x, "a covariate reference", "").map(drop),
+            }
+        };
+        self.within(checked, v, key);
         x
+    }
+
+    /// Record a failed limit check at the value's key.
+    fn within(&mut self, checked: Result<(), String>, value: &Spanned<f64>, key: &str) {
+        if let Err(m) = checked {
+            self.errors.push(self.text.error_at(value.span(), key, m));
+        }
     }
 
     fn cv(&mut self, v: &Spanned<f64>, key: &str, allow_zero: bool) -> f64 {
@@ -263,7 +282,7 @@ impl Checker<'_> {
                 let reference = *c.reference.get_ref();
                 let key = format!("{table}.covariates.reference");
                 if form == Form::Power {
-                    self.positive(&c.reference, &key);
+                    self.positive(&c.reference, &key, None);
                 } else {
                     self.require(reference.is_finite(), &c.reference, &key, "expected a finite number");
                 }
@@ -298,7 +317,7 @@ impl PopulationModel {
         let mut c = Checker { text, errors: Vec::new() };
         let cl_cv = c.cv(&raw.clearance.bsv_cv, "clearance.bsv_cv", false);
         let clearance = Parameter {
-            typical: c.positive(&raw.clearance.typical_l_h, "clearance.typical_l_h"),
+            typical: c.positive(&raw.clearance.typical_l_h, "clearance.typical_l_h", Some(Kind::Clearance)),
             bsv_cv: cl_cv,
             omega2: omega2(cl_cv),
             covariates: c.covariates(&raw.clearance.covariates, "clearance"),
@@ -306,7 +325,7 @@ impl PopulationModel {
         };
         let v_cv = c.cv(&raw.volume.bsv_cv, "volume.bsv_cv", false);
         let volume = Parameter {
-            typical: c.positive(&raw.volume.typical_l, "volume.typical_l"),
+            typical: c.positive(&raw.volume.typical_l, "volume.typical_l", Some(Kind::Volume)),
             bsv_cv: v_cv,
             omega2: omega2(v_cv),
             covariates: c.covariates(&raw.volume.covariates, "volume"),
@@ -330,13 +349,18 @@ impl PopulationModel {
                     x.is_finite() && x >= 0.0,
                     t,
                     "absorption.tlag_h",
-                    &format!("expected a lag time >= 0, found {x}"),
+                    &format!("expected a lag time >= 0, found {}", limits::number(x)),
                 );
+                c.within(limits::check(Kind::Time, x).map(drop), t, "absorption.tlag_h");
                 x
             });
             Absorption {
                 ka: Parameter {
-                    typical: c.positive(&a.typical_ka_per_h, "absorption.typical_ka_per_h"),
+                    typical: c.positive(
+                        &a.typical_ka_per_h,
+                        "absorption.typical_ka_per_h",
+                        Some(Kind::RateConstant),
+                    ),
                     bsv_cv: cv,
                     omega2: omega2(cv),
                     covariates: Vec::new(),
@@ -363,6 +387,11 @@ impl PopulationModel {
             &raw.residual.additive_mg_l,
             "residual.additive_mg_l",
             "expected a standard deviation >= 0",
+        );
+        c.within(
+            limits::check(Kind::Concentration, additive).map(drop),
+            &raw.residual.additive_mg_l,
+            "residual.additive_mg_l",
         );
         c.require(
             proportional.is_finite() && proportional >= 0.0,

@@ -11,7 +11,7 @@
 use crate::dosing::{Regimen, Route};
 use crate::error::{Error, InputError, Origin, Problems, Result};
 use crate::plan::candidates::{Durations, grid, parse_amounts, positive_list};
-use crate::plan::targets::{DEFAULT_MAX_RISK, Limits, Target, parse_target};
+use crate::plan::targets::{DEFAULT_MAX_RISK, Limits, Metric, Target, parse_target};
 use crate::units::{Kind, parse_value};
 use std::ops::RangeInclusive;
 use std::path::PathBuf;
@@ -433,6 +433,21 @@ impl GridSpec {
         };
         let candidates =
             grid(&amounts, &every, route, &durations).map_err(|m| Error::from(self.amounts.problem(m)))?;
+        // A target over day N continues each candidate to that day: bound the doses it adds.
+        let last_day = targets.iter().filter_map(|t| match t.metric {
+            Metric::AucDay { day } => Some(day),
+            _ => None,
+        });
+        if let (Some(day), Some(tau)) = (last_day.max(), every.first()) {
+            let doses = (24.0 * f64::from(day) / tau).ceil();
+            crate::limits::check_doses(if doses < u64::MAX as f64 { doses as u64 } else { u64::MAX })
+                .map_err(|m| {
+                    Error::from(self.targets.problem(format!(
+                        "{m}: auc_day{day} with doses every {} h",
+                        crate::limits::number(*tau)
+                    )))
+                })?;
+        }
         Ok(Some(Grid { candidates, targets, limits }))
     }
 }

@@ -4,6 +4,7 @@
 //! (`time_h`, `amount_mg`, `conc_mg_l`, `cl_l_h`, `v_l`). Values are converted on input to the
 //! base units mg, h, L, L/h, mg/L and 1/h; a unit is never guessed. On the command line a value
 //! carries its unit as a suffix (`1g`, `12h`, `90min`, `65ml/min`); a bare number is in base units.
+//! Every value is checked against the absolute limits of its kind ([`crate::limits`]).
 
 use std::fmt;
 
@@ -123,10 +124,10 @@ pub fn parse_value(kind: Kind, text: &str) -> Result<f64, String> {
         return Err(format!("expected a finite number, found '{text}'"));
     }
     if unit.trim().is_empty() {
-        return Ok(value);
+        return crate::limits::check(kind, value);
     }
     match kind.factor(unit) {
-        Some(f) if (value * f).is_finite() => Ok(value * f),
+        Some(f) if (value * f).is_finite() => crate::limits::check(kind, value * f),
         Some(_) => Err(format!("'{text}' is out of range once converted to {}", kind.base_unit())),
         None => Err(format!(
             "unknown {kind} unit '{}' in '{text}'; accepted units: {}",
@@ -134,6 +135,11 @@ pub fn parse_value(kind: Kind, text: &str) -> Result<f64, String> {
             kind.accepted()
         )),
     }
+}
+
+/// True when a command-line value is a bare number (read in the base unit of its kind).
+pub fn is_bare(text: &str) -> bool {
+    text.trim().parse::<f64>().is_ok()
 }
 
 /// What a `<quantity>_<unit>` column or key name means.

@@ -7,12 +7,14 @@ use cistern::choice::Choice;
 use cistern::dosing::{Regimen, Route, Schedule};
 use cistern::engine::Params;
 use cistern::error::Problems;
-use cistern::io::output::{CAUTION, Format, Sink};
-use cistern::units::{Kind, parse_value};
+use cistern::io::output::{CAUTION, Format, RunFiles, Sink};
+use cistern::limits;
+use cistern::units::{Kind, is_bare, parse_value};
 use cistern::{Error, InputError, Origin};
 use clap::Args;
 use clap::builder::{PossibleValue, PossibleValuesParser, TypedValueParser};
 use std::io::IsTerminal;
+use std::sync::Mutex;
 
 /// The parser of a library [`Choice`]: its spellings are the possible values, listed in
 /// `--help` with their descriptions, as clap's `ValueEnum` lists them.
@@ -29,7 +31,8 @@ pub struct OutputArgs {
     /// Output format [default: table on a terminal, csv when piped or from the -o extension]
     #[arg(long, value_parser = choice::<Format>())]
     pub format: Option<Format>,
-    /// Write the output to FILE (atomically; never over an input file); `-` is stdout
+    /// Write the output to FILE (atomically; never over an input or another output; through
+    /// a symbolic link to its target); `-` is stdout
     #[arg(short = 'o', long = "output", value_name = "FILE")]
     pub output: Option<String>,
     /// Print no notes on stderr (errors and the caution are still printed)
@@ -43,9 +46,9 @@ impl OutputArgs {
         self.format.unwrap_or_else(|| Format::infer(self.output.as_deref(), std::io::stdout().is_terminal()))
     }
 
-    /// Open the output, refusing to write over an input.
-    pub fn sink(&self, inputs: &[&str]) -> Result<Sink, Error> {
-        Sink::open(self.output.as_deref(), inputs)
+    /// Open the output (`-o`; stdout when not given) among the run's files, before the work.
+    pub fn sink(&self, files: &mut RunFiles) -> Result<Sink, Error> {
+        files.open(Origin::Flag("-o".into()), self.output.as_deref().unwrap_or("-"))
     }
 
     /// The width a table should fit, in characters: none for a file (`-o FILE`); else the
@@ -128,9 +131,37 @@ pub fn invalid_flag(invalid: InputError) -> InputError {
     invalid.located(Origin::Flag(flag.into()))
 }
 
-/// Parse a flag's value with units, naming the flag in the error.
+/// Parse a flag's value with units, naming the flag in the error. A value outside the
+/// plausible limits of its kind earns a warning ([`warn`]) that names the unit a bare number
+/// was read in.
 pub fn flag_value(flag: &str, kind: Kind, text: &str) -> Result<f64, InputError> {
-    parse_value(kind, text).map_err(|m| InputError::flag(flag, m))
+    let value = parse_value(kind, text).map_err(|m| InputError::flag(flag, m))?;
+    if let Some(unusual) = limits::implausible(kind, value) {
+        warn(&format!("{flag} {}: {unusual}{}", text.trim(), bare_unit(kind, text)));
+    }
+    Ok(value)
+}
+
+/// For a bare number, which unit it was read in and how to write another.
+pub fn bare_unit(kind: Kind, text: &str) -> String {
+    if !is_bare(text) {
+        return String::new();
+    }
+    let other = kind.units().get(1).map_or_else(String::new, |(u, _)| {
+        format!("; write the unit to mean another, e.g. {}{}", text.trim(), u.replace('_', "/"))
+    });
+    format!(" (a bare number is read in {}{other})", limits::unit_text(kind))
+}
+
+/// A warning on stderr, printed once per text however often it arises (also under
+/// `--quiet`: it may change what the user meant).
+pub fn warn(text: &str) {
+    static SEEN: Mutex<Vec<String>> = Mutex::new(Vec::new());
+    let mut seen = SEEN.lock().unwrap_or_else(|poisoned| poisoned.into_inner());
+    if !seen.iter().any(|s| s == text) {
+        eprintln!("warning: {text}");
+        seen.push(text.to_string());
+    }
 }
 
 /// Parse a plain number flag.
@@ -182,9 +213,26 @@ impl ParamArgs {
             problems.push(invalid.located(Origin::Flag(flag.into())));
             return None;
         }
+        let half_life = params.half_life_h();
+        if half_life > YEAR_H {
+            let given = self.cl.as_deref().or(self.k.as_deref()).unwrap_or_default();
+            let flag =
+                if self.cl.is_some() { ("--cl", Kind::Clearance) } else { ("--k", Kind::RateConstant) };
+            warn(&format!(
+                "the half-life is {} h ({} years) with {} {given} and --v {}: check the values{}",
+                limits::number(half_life),
+                limits::number(half_life / YEAR_H),
+                flag.0,
+                self.v.as_deref().unwrap_or_default(),
+                bare_unit(flag.1, given)
+            ));
+        }
         Some(params)
     }
 }
+
+/// A year in hours (365.25 days): a half-life or an infusion longer than this is a warning.
+const YEAR_H: f64 = 8766.0;
 
 /// A repeated regimen given by flags.
 #[derive(Args, Debug, Clone)]
@@ -264,6 +312,18 @@ impl RegimenArgs {
             count: count?,
             start_h: start?,
         };
+        let r = schedule.regimen;
+        if r.route == Route::Infusion && r.duration_h > r.every_h && schedule.count > 1 {
+            let text = self.duration.as_deref().unwrap_or_default();
+            warn(&format!(
+                "the infusion (--duration {}, {} h) lasts longer than the dosing interval ({} h), so \
+                 infusions overlap{}",
+                text.trim(),
+                limits::number(r.duration_h),
+                limits::number(r.every_h),
+                bare_unit(Kind::Time, text)
+            ));
+        }
         match schedule.validate() {
             Ok(()) => Some(schedule),
             Err(invalid) => {

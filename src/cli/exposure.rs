@@ -7,8 +7,10 @@ use cistern::engine::steady::{SteadyCurve, SteadyState};
 use cistern::error::Problems;
 use cistern::io::labels::label;
 use cistern::io::output::{
-    CAUTION, Column, CsvWriter, Format, fit_to_width, io_failure, readable, render_table, write_json,
+    CAUTION, Column, CsvWriter, Format, RunFiles, fit_to_width, io_failure, readable, render_table,
+    write_json,
 };
+use cistern::limits::reported_conc;
 use clap::Args;
 use serde::Serialize;
 use serde::ser::{SerializeStruct, Serializer};
@@ -73,9 +75,13 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
     let (Some(params), Some(schedule)) = (params, schedule) else {
         return Err(Error::Usage("the arguments could not be read".into()));
     };
+    let mut sink = args.output.sink(&mut RunFiles::default())?;
     let regimen = schedule.regimen;
     // Each flag's value was checked above; what is left is how they combine.
-    let ss = SteadyCurve::new(&params, regimen).map_err(invalid_flag)?.metrics();
+    let mut ss = SteadyCurve::new(&params, regimen).map_err(invalid_flag)?.metrics();
+    for c in [&mut ss.exposure.peak_mg_l, &mut ss.exposure.trough_mg_l, &mut ss.exposure.cavg_mg_l] {
+        *c = reported_conc(*c);
+    }
     let k = params.k_per_h();
     let doc = ExposureJson {
         parameters: ParametersJson {
@@ -93,7 +99,6 @@ pub fn run(args: ExposureArgs) -> Result<(), Error> {
         steady_state: ss,
     };
     let format = args.output.format();
-    let mut sink = args.output.sink(&[])?;
     let out = sink.writer();
     match format {
         Format::Json => write_json(out, &doc).map_err(io_failure)?,

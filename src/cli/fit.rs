@@ -2,19 +2,19 @@
 
 use super::args::{OutputArgs, choice, flag_number, flag_value, invalid_flag};
 use super::study::StudyArgs;
-use cistern::Error;
 use cistern::engine::validate_absorption;
 use cistern::error::Problems;
 use cistern::fit::objective::Weighting;
 use cistern::fit::{Estimate, FitOptions, FitResult, Intervals, Method, fit_all_reporting};
 use cistern::io::labels::label;
 use cistern::io::output::{
-    CAUTION, Column, CsvWriter, Format, Sink, column_decimals, fit_to_width, fixed, full, io_failure,
+    CAUTION, Column, CsvWriter, Format, RunFiles, column_decimals, fit_to_width, fixed, full, io_failure,
     number_column, readable, render_table, write_json,
 };
-use cistern::spec::Needs;
+use cistern::spec::{DRAWS, Needs};
 use cistern::units::Kind;
 use cistern::workflow::{Required, Study};
+use cistern::{Error, InputError, Origin};
 use clap::Args;
 use indicatif::{ProgressBar, ProgressStyle};
 use serde::Serialize;
@@ -101,6 +101,13 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     if let (Some(ka), Some(f), Some(tlag)) = (ka, f, tlag) {
         problems.take(validate_absorption(ka, f, tlag).map_err(invalid_flag));
     }
+    // Kept draws are draws: the same bound as --draws.
+    if args.keep_draws > *DRAWS.end() {
+        problems.push(InputError::flag(
+            "--keep-draws",
+            format!("expected at most {} draws per subject, found {}", DRAWS.end(), args.keep_draws),
+        ));
+    }
     let settings = problems.take_all(spec.resolve(Needs::default()));
     let study =
         problems.take_all(Study::load(&spec.inputs, Required { model: args.method == Some(Method::Map) }));
@@ -114,6 +121,11 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
         args.output
             .note("the model's [absorption] table gives F and the lag time: --f and --tlag are not used");
     }
+    // The output is opened before the work, so a bad path fails first.
+    let mut files = RunFiles::new(spec.files());
+    let mut sink = args.output.sink(&mut files)?;
+    let mut levels_sink =
+        args.levels_out.as_deref().map(|p| files.open(Origin::Flag("--levels-out".into()), p)).transpose()?;
     let options = FitOptions {
         method,
         intervals: args.intervals,
@@ -152,14 +164,7 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     if fits.is_empty() && !failures.is_empty() {
         return Err(Error::Usage(failures.join("\n")));
     }
-    let files = spec.files();
-    let inputs: Vec<&str> = files.iter().filter_map(|p| p.to_str()).collect();
     let format = args.output.format();
-    let mut sink = args.output.sink(&inputs)?;
-    let mut levels_sink = match &args.levels_out {
-        Some(path) => Some(Sink::open(Some(path), &inputs)?),
-        None => None,
-    };
     let out = sink.writer();
     match format {
         Format::Json => write_json(out, &FitJson { subjects: &fits }).map_err(io_failure)?,

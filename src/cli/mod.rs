@@ -8,6 +8,7 @@ mod merge;
 mod plan;
 mod regimen_grid;
 mod report;
+mod signals;
 mod simulate;
 mod study;
 mod sweep;
@@ -24,7 +25,13 @@ use std::process::ExitCode;
 /// when piped; choose with --format. Not clinical advice: dosing decisions belong to licensed
 /// clinicians following local protocols.
 #[derive(Parser, Debug)]
-#[command(name = "cistern", version, propagate_version = true, max_term_width = 100)]
+// The version with the build (build.rs), which sweep states record too.
+#[command(
+    name = "cistern",
+    version = concat!(env!("CARGO_PKG_VERSION"), " (build: ", env!("CISTERN_BUILD"), ")"),
+    propagate_version = true,
+    max_term_width = 100
+)]
 struct Cli {
     #[command(subcommand)]
     command: Command,
@@ -53,6 +60,7 @@ pub fn run() -> ExitCode {
             return ExitCode::from(if e.use_stderr() { 2 } else { 0 });
         }
     };
+    signals::remove_unfinished_outputs_on_interrupt();
     let outcome = match cli.command {
         Command::Simulate(a) => simulate::run(a),
         Command::Exposure(a) => exposure::run(a),

@@ -14,7 +14,7 @@ use std::path::PathBuf;
 use cistern::Error;
 use cistern::io::labels::{name_and_unit, percent};
 use cistern::io::output::{
-    CAUTION, Column, CsvWriter, Format, column_decimals, fit_to_width, fixed, full, io_failure,
+    CAUTION, Column, CsvWriter, Format, RunFiles, column_decimals, fit_to_width, fixed, full, io_failure,
     number_column, readable, render_table, write_json,
 };
 use cistern::plan::advisor::Advice;
@@ -97,6 +97,9 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
     args.grid.apply(&mut spec, &mut problems);
     let settings = problems.take_all(spec.resolve(Needs { grid: true }));
     let seeds = Seeds(spec.seed());
+    // The output is opened before the fit and the plan, so a bad path fails first.
+    let inputs = spec.files().into_iter().chain(args.fit.as_ref().map(PathBuf::from));
+    let mut sink = args.output.sink(&mut RunFiles::new(inputs))?;
     let subject = match &args.fit {
         Some(path) => {
             let saved = Stated { value: PathBuf::from(path), origin: Origin::Flag("--fit".into()) };
@@ -131,10 +134,7 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
     for n in &notes {
         args.output.note(n);
     }
-    let files = spec.files();
-    let inputs: Vec<&str> = files.iter().filter_map(|p| p.to_str()).chain(args.fit.as_deref()).collect();
     let format = args.output.format();
-    let mut sink = args.output.sink(&inputs)?;
     let out = sink.writer();
     match format {
         Format::Json => {

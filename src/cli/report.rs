@@ -1,10 +1,10 @@
 //! `cistern report CASE`: fit, plan (and, if the case asks, sweep), then write the regimen
 //! report as a PDF.
 
-use cistern::io::output::{CAUTION, Sink, io_failure};
+use cistern::io::output::{CAUTION, RunFiles, io_failure};
 use cistern::report::provenance::iso_utc;
 use cistern::workflow::report::{Provenance, report};
-use cistern::{Error, case};
+use cistern::{Error, Origin, case};
 use clap::Args;
 use std::path::Path;
 use std::time::{SystemTime, UNIX_EPOCH};
@@ -75,21 +75,17 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
             .join(" "),
         created_iso: created_iso()?,
     };
-    let made = report(&spec, provenance)?;
-    let bytes = made.pdf()?;
     let output = args.output.clone().unwrap_or_else(|| {
         let stem =
             Path::new(&args.case).file_stem().map_or("case".into(), |s| s.to_string_lossy().into_owned());
         format!("{stem}-report.pdf")
     });
-    let files = spec.files();
-    let inputs: Vec<&str> = files.iter().filter_map(|p| p.to_str()).collect();
-    // Open both outputs before writing either, so a bad path fails with nothing written.
-    let mut pdf_sink = Sink::open(Some(&output), &inputs)?;
-    let svg_sink = match &args.svg {
-        Some(path) => Some(Sink::open(Some(path), &inputs)?),
-        None => None,
-    };
+    // Both outputs are opened before the work, so a bad path fails with nothing computed.
+    let mut files = RunFiles::new(spec.files());
+    let mut pdf_sink = files.open(Origin::Flag("-o".into()), &output)?;
+    let svg_sink = args.svg.as_deref().map(|p| files.open(Origin::Flag("--svg".into()), p)).transpose()?;
+    let made = report(&spec, provenance)?;
+    let bytes = made.pdf()?;
     pdf_sink.writer().write_all(&bytes).map_err(io_failure)?;
     if let Some(mut sink) = svg_sink {
         sink.writer().write_all(made.svg().as_bytes()).map_err(io_failure)?;

@@ -7,21 +7,18 @@ use cistern::engine::Params;
 use cistern::error::Problems;
 use cistern::io::doses::{DoseFile, parse_doses};
 use cistern::io::labels::label;
-use cistern::io::output::Sink;
 use cistern::io::output::{
-    CAUTION, Column, CsvWriter, Format, fit_to_width, full, io_failure, number_column, readable,
+    CAUTION, Column, CsvWriter, Format, RunFiles, fit_to_width, full, io_failure, number_column, readable,
     render_table, write_json,
 };
 use cistern::io::table::Table;
+use cistern::limits::{check_output_size, reported_conc};
 use cistern::report::layout::{DoseTick, PlotSpec, Series, Stroke};
 use cistern::report::svg;
 use cistern::units::Kind;
-use cistern::{Error, InputError};
+use cistern::{Error, InputError, Origin};
 use clap::Args;
 use serde::Serialize;
-
-/// The most time points one grid may hold.
-const MAX_POINTS: f64 = 1e8;
 
 /// Concentrations over a dose history, with the exact AUC over the simulated span.
 #[derive(Args, Debug)]
@@ -56,6 +53,10 @@ pub struct SimulateArgs {
     /// Also write the concentration curves as an SVG plot (linear and logarithmic panels)
     #[arg(long, value_name = "FILE.svg")]
     svg: Option<String>,
+    /// Allow an output of more than 1,000,000 values (time points × subjects), up to
+    /// 50,000,000
+    #[arg(long)]
+    allow_large: bool,
     #[command(flatten)]
     output: OutputArgs,
 }
@@ -97,13 +98,11 @@ pub fn parse_grid(text: &str) -> Result<Vec<f64>, InputError> {
     }
     // Include END when it lies on the grid up to rounding.
     let intervals = ((end - start) / step * (1.0 + 1e-12) + 1e-9).floor();
-    if intervals + 1.0 > MAX_POINTS {
-        return Err(InputError::flag(
-            flag,
-            format!("the grid has more than {MAX_POINTS:e} points; use a larger STEP"),
-        ));
-    }
-    Ok((0..=intervals as u64).map(|i| start + i as f64 * step).collect())
+    // Checked before anything is allocated: the grid alone may not exceed the hard bound.
+    // (`as` saturates: a grid beyond u64 is refused like any other too large.)
+    let points = (intervals as u64).saturating_add(1);
+    check_output_size(points, true).map_err(|m| InputError::flag(flag, m))?;
+    Ok((0..points).map(|i| start + i as f64 * step).collect())
 }
 
 fn times_of(args: &SimulateArgs, problems: &mut Problems) -> Option<Vec<f64>> {
@@ -166,23 +165,29 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
     if !ignored.is_empty() {
         args.output.note(&format!("ignored columns in the doses file: {}", ignored.join(", ")));
     }
+    let values = (times.len() as u64).saturating_mul(subjects.len() as u64);
+    check_output_size(values, args.allow_large).map_err(|m| {
+        let flag = if args.times.is_some() { "--times" } else { "--at" };
+        Error::from(InputError::flag(
+            flag,
+            format!("{m} ({} times × {} subjects)", times.len(), subjects.len()),
+        ))
+    })?;
+    // Both outputs are opened before the work, so a bad path fails first.
+    let mut files = RunFiles::new(&args.doses);
+    let mut sink = args.output.sink(&mut files)?;
+    let svg_sink = args.svg.as_deref().map(|p| files.open(Origin::Flag("--svg".into()), p)).transpose()?;
     let (t_lo, t_hi) =
         times.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &t| (lo.min(t), hi.max(t)));
     let curves: Vec<(Vec<f64>, f64)> = subjects
         .iter()
         .map(|(_, doses)| {
-            (engine::concentrations(&params, doses, &times), engine::auc(&params, doses, t_lo, t_hi))
+            let conc = engine::concentrations(&params, doses, &times);
+            (conc.into_iter().map(reported_conc).collect(), engine::auc(&params, doses, t_lo, t_hi))
         })
         .collect();
 
     let format = args.output.format();
-    let inputs: Vec<&str> = args.doses.iter().map(String::as_str).collect();
-    let mut sink = args.output.sink(&inputs)?;
-    // The plot's file is opened before anything is written, so a bad path fails first.
-    let svg_sink = match &args.svg {
-        Some(path) => Some(Sink::open(Some(path), &inputs)?),
-        None => None,
-    };
     let out = sink.writer();
     let with_subject = subjects.iter().any(|(s, _)| s.is_some());
     match format {

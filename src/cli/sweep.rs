@@ -6,18 +6,18 @@ use super::regimen_grid::GridArgs;
 use cistern::dosing::Route;
 use cistern::engine::validate_absorption;
 use cistern::error::Problems;
-use cistern::io::output::{CAUTION, Format, Sink, io_failure};
+use cistern::io::output::{CAUTION, Format, RunFiles, io_failure};
 use cistern::spec::{Grid, Needs, Setting, Spec, Stated, SweepSpec};
 use cistern::sweep::Sweep;
 use cistern::sweep::sketch::RELATIVE_ERROR;
-use cistern::sweep::state::{Setup, Shard, SweepState};
+use cistern::sweep::state::{Setup, Shard};
 use cistern::sweep::summary::Summary;
 use cistern::units::Kind;
 use cistern::workflow::sweep::{Source, VirtualPopulation, population};
 use cistern::{Error, InputError, Origin, case};
 use clap::Args;
 use indicatif::{ProgressBar, ProgressStyle};
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 /// Sweep candidate regimens over a virtual population: for each regimen the probability of
 /// target attainment (PTA), the probability of breaking each exposure limit, and the 5th,
@@ -41,7 +41,8 @@ Examples:
   cistern sweep --params fits.csv --amounts 750,1g --every 12h --durations 1h --target auc24=400..600
 
   # the 3rd of 8 shards, for a cluster; combine the eight with cistern merge
-  cistern sweep --model model.toml --subjects 1000000 ... --shard 3/8 -o shard-3.json
+  cistern sweep --model model.toml --subjects 1000000 ... --shard 3/8 -o shard-3.json \\
+      --per-subject part-3.csv
 
 Each subject's draws come from the seed and the subject's number alone, so the output is the
 same for any number of threads (RAYON_NUM_THREADS) and shards. Percentiles come from a
@@ -82,7 +83,8 @@ pub struct SweepArgs {
     #[command(flatten)]
     grid: GridArgs,
     /// Compute only the I-th of N slices of the subjects and write its state (JSON) instead of
-    /// the summary; combine the N states with `cistern merge`
+    /// the summary; combine the N states with `cistern merge`. With --per-subject the state
+    /// records the rows' number and SHA-256, which `merge --rows` checks before joining them
     #[arg(long, value_name = "I/N", allow_hyphen_values = true)]
     shard: Option<String>,
     /// Also write one row per subject and regimen to FILE (CSV; `-` is stdout)
@@ -144,15 +146,6 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
     if args.shard.is_some() && args.output.format.is_some_and(|f| f != Format::Json) {
         problems.push(InputError::flag("--format", "a shard writes its state as JSON; leave out --format"));
     }
-    if let Some(rows) = &args.per_subject {
-        let summary = args.output.output.as_deref().unwrap_or("-");
-        if rows == summary {
-            problems.push(InputError::flag(
-                "--per-subject",
-                format!("'{rows}' is also where the summary goes (-o); give them different files"),
-            ));
-        }
-    }
     let ((grid, shard), virtual_population) = problems.finish_with(grid.zip(shard).zip(population))?;
     let VirtualPopulation { population, subjects, described, notes } = virtual_population;
     notes.iter().for_each(|n| args.output.note(n));
@@ -164,13 +157,15 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
     let setup = Setup::new(described, seed, subjects, &candidates, &targets, &limits);
     let span = shard.span(subjects);
 
-    let files = spec.files();
-    let inputs: Vec<&str> = files.iter().filter_map(|p| p.to_str()).chain(args.params.as_deref()).collect();
-    let mut per_subject = match &args.per_subject {
-        Some(path) => Some(Sink::open(Some(path), &inputs)?),
-        None => None,
-    };
-    let mut sink = args.output.sink(&inputs)?;
+    // The outputs are opened before the work, so a bad path fails first.
+    let mut files =
+        RunFiles::new(spec.files().iter().map(PathBuf::as_path).chain(args.params.as_deref().map(Path::new)));
+    let mut sink = args.output.sink(&mut files)?;
+    let mut per_subject = args
+        .per_subject
+        .as_deref()
+        .map(|p| files.open(Origin::Flag("--per-subject".into()), p))
+        .transpose()?;
     let where_ = if args.shard.is_some() {
         format!(", shard {}/{}: subjects {}–{}", shard.index, shard.count, span.start + 1, span.end)
     } else {
@@ -190,15 +185,14 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
     } else {
         ProgressBar::hidden()
     };
-    let tallies = sweep.run(span, per_subject.as_mut().map(|s| s.writer()), &mut |n| bar.inc(n))?;
+    let state =
+        sweep.run_shard(setup, shard, per_subject.as_mut().map(|s| s.writer()), &mut |n| bar.inc(n))?;
     bar.finish_and_clear();
-    let state = SweepState::new(setup, shard, tallies);
 
     let format = if args.shard.is_some() { Format::Json } else { args.output.format() };
     let out = sink.writer();
     if args.shard.is_some() {
-        serde_json::to_writer(&mut *out, &state).map_err(|e| io_failure(e.into()))?;
-        writeln!(out).map_err(io_failure)?;
+        state.write(out).map_err(io_failure)?;
     } else {
         Summary::of(&state).write(out, format, args.output.table_width()).map_err(io_failure)?;
     }

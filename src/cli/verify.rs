@@ -3,7 +3,8 @@
 use super::args::OutputArgs;
 use cistern::Error;
 use cistern::io::output::{
-    CAUTION, Column, CsvWriter, Format, fit_to_width, fixed, full, io_failure, render_table, write_json,
+    CAUTION, Column, CsvWriter, Format, RunFiles, fit_to_width, fixed, full, io_failure, render_table,
+    write_json,
 };
 use cistern::verify::{BOURNE_NOTES, Outcome, Tolerance, run_all};
 use clap::Args;
@@ -62,12 +63,12 @@ fn tolerance_parts(t: Tolerance) -> (&'static str, f64) {
 
 /// Run the command.
 pub fn run(args: VerifyArgs) -> Result<(), Error> {
+    let mut sink = args.output.sink(&mut RunFiles::default())?;
     let outcomes = run_all();
     let passed = outcomes.iter().filter(|o| o.passed).count();
     let failed = outcomes.len() - passed;
     let version = env!("CARGO_PKG_VERSION");
     let format = args.output.format();
-    let mut sink = args.output.sink(&[])?;
     let out = sink.writer();
     match format {
         Format::Json => {

@@ -240,7 +240,12 @@ impl SteadyCurve {
         let remaining = |t: f64| (-k * t).exp() + k * depot_to_central(k, ka, t);
         let target = 1.0 - fraction;
         let (mut lo, mut hi) = (elimination_only, 2.0 * elimination_only);
-        while remaining(hi) > target {
+        // Absorption delays the plateau by a factor of order k/ka at most: 64 doublings
+        // (a factor of 1.8e19) bound the bracket for every rate the limits admit.
+        for _ in 0..64 {
+            if remaining(hi) <= target {
+                break;
+            }
             lo = hi;
             hi *= 2.0;
         }

@@ -467,6 +467,36 @@ fn check_levels(subject: &SubjectData) -> Result<(), String> {
     Ok(())
 }
 
+/// With a proportional-only residual error (no additive part) a level predicted exactly 0 has
+/// zero variance: its distribution is a point mass at 0. Where no drug has reached the body
+/// yet (the start of the first infusion, or an oral lag) the prediction is 0 for every
+/// parameter value, so a measured level above 0 there is one the model declares impossible: a
+/// modelling error, refused here with the level's line (docs/methods.md, "Zero variance").
+fn check_point_masses(subject: &SubjectData, residual: &Residual, tlag_h: f64) -> Result<(), String> {
+    if residual.additive_mg_l > 0.0 {
+        return Ok(());
+    }
+    // A bolus counts at its own instant; an infusion or an absorbed dose only after it starts.
+    let reached = |t: f64| {
+        subject.doses.iter().filter(|d| d.amount_mg > 0.0).any(|d| match d.route {
+            Route::Bolus => d.time_h <= t,
+            Route::Infusion => d.time_h < t,
+            Route::Oral => d.time_h + tlag_h < t,
+        })
+    };
+    match subject.levels.iter().find(|l| l.conc_mg_l.is_some_and(|y| y > 0.0) && !reached(l.time_h)) {
+        Some(l) => Err(format!(
+            "the level at {} h (line {}) is {} mg/L, but no drug has reached the body by then: with a \
+             proportional-only residual error (additive_mg_l = 0) its predicted value 0 has no spread, \
+             so the model cannot explain it; give the model an additive error or leave the level out",
+            crate::limits::number(l.time_h),
+            l.line,
+            crate::limits::number(l.conc_mg_l.unwrap_or_default()),
+        )),
+        None => Ok(()),
+    }
+}
+
 fn convergence_warnings(opt: &optimise::Optimum, others: optimise::Others, warnings: &mut Vec<String>) {
     if !opt.converged {
         warnings.push(format!(
@@ -533,6 +563,7 @@ fn fit_map(
     seed: u64,
 ) -> Result<FitResult, String> {
     check_levels(subject)?;
+    check_point_masses(subject, &model.residual, abs.tlag_h)?;
     let cov = &subject.covariates;
     let cl_typ = model.clearance.typical_for(cov)?;
     let v_typ = model.volume.typical_for(cov)?;

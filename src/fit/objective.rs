@@ -169,10 +169,26 @@ impl Problem {
             total += match &self.likelihood {
                 Likelihood::Bayes(res) => {
                     let var = R::cst(res.additive_mg_l.powi(2)) + fi * fi * res.proportional_cv.powi(2);
-                    match (level.conc_mg_l, level.lloq_mg_l) {
-                        (Some(y), _) => quantified_term(y, fi, var),
-                        (None, Some(lloq)) => blq_term(lloq, fi, var),
-                        (None, None) => R::cst(0.0),
+                    if var.val() > 0.0 {
+                        match (level.conc_mg_l, level.lloq_mg_l) {
+                            (Some(y), _) => quantified_term(y, fi, var),
+                            (None, Some(lloq)) => blq_term(lloq, fi, var),
+                            (None, None) => R::cst(0.0),
+                        }
+                    } else {
+                        // Zero variance (a proportional-only error where the prediction is 0):
+                        // the level's distribution is a point mass at the prediction. A level
+                        // there (0, or below its limit) is certain and adds a constant, dropped;
+                        // any other value is impossible at these parameters.
+                        let possible = match (level.conc_mg_l, level.lloq_mg_l) {
+                            (Some(y), _) => y.abs() <= f64::MIN_POSITIVE,
+                            (None, Some(lloq)) => lloq > 0.0,
+                            (None, None) => true,
+                        };
+                        if !possible {
+                            return R::cst(f64::INFINITY);
+                        }
+                        R::cst(0.0)
                     }
                 }
                 Likelihood::LeastSquares(w) => {

@@ -4,10 +4,12 @@
 
 use super::linalg::{MAX, Mat, cholesky, cholesky_solve, spd_inverse};
 use super::objective::Problem;
+use crate::limits::MAX_EVALUATIONS;
 use argmin::core::{CostFunction, Error as ArgminError, Executor, Gradient, State};
 use argmin::solver::linesearch::MoreThuenteLineSearch;
 use argmin::solver::neldermead::NelderMead;
 use argmin::solver::quasinewton::BFGS;
+use std::cell::Cell;
 
 /// How a minimisation ended.
 #[derive(Debug, Clone)]
@@ -31,13 +33,33 @@ pub struct Optimum {
 /// The gradient size (objective units per unit of log-parameter) taken as converged.
 const GRADIENT_TOLERANCE: f64 = 1e-5;
 
-struct Adapter<'a>(&'a Problem);
+/// The problem as argmin sees it, with a budget of evaluations shared by every solver run on
+/// it. argmin bounds a solver's iterations but not the line search inside BFGS, which can
+/// search forever on a non-finite or flat objective; once the budget is spent every
+/// evaluation is an error, which ends whatever solver is running.
+struct Adapter<'a> {
+    problem: &'a Problem,
+    spent: &'a Cell<u64>,
+}
+
+impl Adapter<'_> {
+    fn spend(&self) -> Result<(), ArgminError> {
+        self.spent.set(self.spent.get() + 1);
+        if self.spent.get() > MAX_EVALUATIONS {
+            return Err(ArgminError::msg(format!(
+                "stopped after {MAX_EVALUATIONS} evaluations of the objective"
+            )));
+        }
+        Ok(())
+    }
+}
 
 impl CostFunction for Adapter<'_> {
     type Param = Vec<f64>;
     type Output = f64;
     fn cost(&self, p: &Vec<f64>) -> Result<f64, ArgminError> {
-        let c = self.0.cost(p);
+        self.spend()?;
+        let c = self.problem.cost(p);
         Ok(if c.is_finite() { c } else { f64::MAX })
     }
 }
@@ -46,12 +68,15 @@ impl Gradient for Adapter<'_> {
     type Param = Vec<f64>;
     type Gradient = Vec<f64>;
     fn gradient(&self, p: &Vec<f64>) -> Result<Vec<f64>, ArgminError> {
-        let (_, g) = self.0.cost_and_gradient(p);
-        Ok(g[..self.0.n].to_vec())
+        self.spend()?;
+        let (c, g) = self.problem.cost_and_gradient(p);
+        let g = &g[..self.problem.n];
+        // Where the objective is not finite its gradient means nothing: no direction at all.
+        Ok(if c.is_finite() && g.iter().all(|x| x.is_finite()) { g.to_vec() } else { vec![0.0; g.len()] })
     }
 }
 
-fn bfgs(problem: &Problem, start: &[f64]) -> Result<(Vec<f64>, u64, String), ArgminError> {
+fn bfgs(problem: &Problem, start: &[f64], spent: &Cell<u64>) -> Result<(Vec<f64>, u64, String), ArgminError> {
     let n = problem.n;
     // Start from the inverse Gauss–Newton curvature at the start when it is positive definite
     // (few iterations then), else from the identity.
@@ -61,7 +86,7 @@ fn bfgs(problem: &Problem, start: &[f64]) -> Result<(Vec<f64>, u64, String), Arg
         .collect();
     let solver =
         BFGS::new(MoreThuenteLineSearch::new()).with_tolerance_grad(1e-6)?.with_tolerance_cost(1e-15)?;
-    let result = Executor::new(Adapter(problem), solver)
+    let result = Executor::new(Adapter { problem, spent }, solver)
         .configure(|s| s.param(start.to_vec()).inv_hessian(initial).max_iters(200))
         .run()?;
     let state = result.state();
@@ -71,7 +96,11 @@ fn bfgs(problem: &Problem, start: &[f64]) -> Result<(Vec<f64>, u64, String), Arg
     Ok((best, state.get_iter(), reason))
 }
 
-fn nelder_mead(problem: &Problem, start: &[f64]) -> Result<(Vec<f64>, u64, String), ArgminError> {
+fn nelder_mead(
+    problem: &Problem,
+    start: &[f64],
+    spent: &Cell<u64>,
+) -> Result<(Vec<f64>, u64, String), ArgminError> {
     let mut simplex = vec![start.to_vec()];
     for i in 0..problem.n {
         let mut p = start.to_vec();
@@ -79,7 +108,7 @@ fn nelder_mead(problem: &Problem, start: &[f64]) -> Result<(Vec<f64>, u64, Strin
         simplex.push(p);
     }
     let solver = NelderMead::new(simplex).with_sd_tolerance(1e-12)?;
-    let result = Executor::new(Adapter(problem), solver).configure(|s| s.max_iters(2000)).run()?;
+    let result = Executor::new(Adapter { problem, spent }, solver).configure(|s| s.max_iters(2000)).run()?;
     let state = result.state();
     let best = state.get_best_param().cloned().unwrap_or_else(|| start.to_vec());
     let reason =
@@ -91,19 +120,20 @@ fn max_abs(g: &[f64]) -> f64 {
     g.iter().fold(0.0, |m, x| m.max(x.abs()))
 }
 
-/// Minimise from `start`.
+/// Minimise from `start`, within [`MAX_EVALUATIONS`] evaluations of the objective (the
+/// Newton polish after the solvers is itself bounded: 4 steps of at most 20 halvings).
 pub fn minimise(problem: &Problem, start: &[f64]) -> Optimum {
     let n = problem.n;
-    let (mut theta, mut iterations, mut reason) = match bfgs(problem, start) {
+    let spent = Cell::new(0);
+    let (mut theta, mut iterations, mut reason) = match bfgs(problem, start, &spent) {
         Ok(r) if problem.cost(&r.0).is_finite() => r,
-        _ => {
-            nelder_mead(problem, start).unwrap_or_else(|e| (start.to_vec(), 0, format!("solver error: {e}")))
-        }
+        _ => nelder_mead(problem, start, &spent)
+            .unwrap_or_else(|e| (start.to_vec(), 0, format!("solver error: {e}"))),
     };
     let (mut cost, mut gradient) = problem.cost_and_gradient(&theta);
     if max_abs(&gradient[..n]) > 1e-2 {
         // BFGS stopped far from a stationary point: try the derivative-free solver from there.
-        if let Ok((t, i, r)) = nelder_mead(problem, &theta)
+        if let Ok((t, i, r)) = nelder_mead(problem, &theta, &spent)
             && problem.cost(&t) <= cost
         {
             theta = t;

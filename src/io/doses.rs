@@ -4,11 +4,9 @@
 use super::table::{Column, Table};
 use crate::dosing::{Dose, Route, validate_dose};
 use crate::error::InputError;
+use crate::limits::{MAX_DOSES, check_doses};
 use crate::units::Kind;
 use std::collections::HashMap;
-
-/// The most doses one row may expand to; a larger `count` is almost surely a typing error.
-pub const MAX_REPEAT: u64 = 1_000_000;
 
 /// Dose histories read from one file, one per subject in order of first appearance.
 #[derive(Debug, Clone)]
@@ -79,6 +77,8 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
 
     let mut subjects: Vec<(Option<String>, Vec<Dose>)> = Vec::new();
     let mut slot_of: HashMap<Option<String>, usize> = HashMap::new();
+    // Doses expanded so far, all subjects together: bounded by MAX_DOSES before any is made.
+    let mut expanded: u64 = 0;
     for row in &table.rows {
         let before = errors.len();
         let mut take = |r: Result<f64, InputError>| r.map_err(|e| errors.push(e)).ok();
@@ -128,6 +128,12 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
             subjects.len() - 1
         });
         let (step, n) = repeat.unwrap_or((0.0, 1));
+        expanded += n;
+        if let Err(m) = check_doses(expanded) {
+            let place = count.as_ref().or(Some(&time));
+            errors.push(row.error(src, place, format!("{m}; the file expands to that many by this row")));
+            break;
+        }
         subjects[slot].1.extend((0..n).map(|i| Dose {
             time_h: t + i as f64 * step,
             amount_mg: a,
@@ -158,12 +164,12 @@ fn repeat_of(
         None
     } else {
         match c_text.parse::<u64>() {
-            Ok(n) if (1..=MAX_REPEAT).contains(&n) => Some(n),
+            Ok(n) if (1..=MAX_DOSES).contains(&n) => Some(n),
             _ => {
                 return Err(row.error(
                     src,
                     Some(count),
-                    format!("expected a whole number of doses from 1 to {MAX_REPEAT}, found '{c_text}'"),
+                    format!("expected a whole number of doses from 1 to {MAX_DOSES}, found '{c_text}'"),
                 ));
             }
         }

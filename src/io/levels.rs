@@ -82,7 +82,15 @@ pub fn parse_levels(table: &Table) -> Result<LevelFile, Vec<InputError>> {
         let text = row.text(&conc);
         let value = if let Some(x) = text.strip_prefix('<') {
             match x.trim().parse::<f64>() {
-                Ok(v) if v.is_finite() && v > 0.0 => Some((None, Some(v * conc.factor))),
+                Ok(v) if v.is_finite() && v > 0.0 => {
+                    match crate::limits::check(Kind::Concentration, v * conc.factor) {
+                        Ok(limit) => Some((None, Some(limit))),
+                        Err(m) => {
+                            errors.push(row.error(src, Some(&conc), m));
+                            None
+                        }
+                    }
+                }
                 _ => {
                     errors.push(row.error(
                         src,

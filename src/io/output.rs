@@ -1,11 +1,15 @@
-//! Output: formats, full-precision numbers, plain-text tables, and atomic file writes.
+//! Output: formats, full-precision numbers, plain-text tables, and the files of a run
+//! ([`RunFiles`]: inputs and outputs checked together, outputs written safely).
+
+mod files;
+
+pub use files::{RunFiles, Sink, remove_unfinished};
 
 use crate::choice::choice_enum;
 use crate::error::Error;
 use serde::Serialize;
 use std::io::Write;
-use std::path::{Path, PathBuf};
-use tempfile::TempPath;
+use std::path::Path;
 
 /// The caution that travels with every exposure figure.
 pub const CAUTION: &str = "Not clinical advice: these are model calculations for research. \
@@ -48,9 +52,17 @@ pub fn full(x: f64) -> String {
 
 /// Append [`full`]'s text of `x` to `text`: a loop over millions of numbers can reuse one
 /// buffer instead of allocating a string per number.
+///
+/// Every number of a CSV passes here, and every number of a table through [`readable`]: the
+/// one place where no NaN or infinity reaches an output. An undefined number is written as
+/// nothing in CSV (the empty field is CSV's missing value), as `undefined` in tables and as
+/// `null` in JSON (serde_json's rule for non-finite numbers); the inputs' limits
+/// ([`crate::limits`]) keep results finite, so this is the last guard, not the rule.
 pub fn push_full(text: &mut String, x: f64) {
     use std::fmt::Write as _;
-    let _ = write!(text, "{x:?}");
+    if x.is_finite() {
+        let _ = write!(text, "{x:?}");
+    }
 }
 
 /// The writer of every CSV output: [`csv::Writer`], which quotes a field only when it holds a
@@ -138,7 +150,7 @@ pub fn plain(x: f64) -> String {
 /// A number for reading: `digits` significant digits, no exponent for everyday magnitudes.
 pub fn readable(x: f64, digits: usize) -> String {
     if !x.is_finite() {
-        return format!("{x}");
+        return "undefined".into();
     }
     if x == 0.0 {
         return "0".into();
@@ -432,85 +444,6 @@ pub fn fit_to_width(text: &str, width: Option<usize>) -> String {
         out.push_str(end);
     }
     out
-}
-
-/// Where output goes: stdout, or a file written under a temporary name and renamed into place
-/// on [`Sink::finish`], so a failed run never leaves a partial or clobbered file.
-pub struct Sink(Out);
-
-enum Out {
-    Stdout(std::io::BufWriter<std::io::StdoutLock<'static>>),
-    /// The temporary file, its path (the file is removed when the path is dropped) and the
-    /// path it becomes.
-    File(std::io::BufWriter<std::fs::File>, TempPath, PathBuf),
-}
-
-impl Sink {
-    /// Open the output. `-` or no path means stdout. Refuses to write over any of `inputs`.
-    pub fn open(path: Option<&str>, inputs: &[&str]) -> Result<Sink, Error> {
-        let Some(path) = path.filter(|p| *p != "-") else {
-            return Ok(Sink(Out::Stdout(std::io::BufWriter::new(std::io::stdout().lock()))));
-        };
-        let target = PathBuf::from(path);
-        let same = |input: &str| match (std::fs::canonicalize(input), std::fs::canonicalize(&target)) {
-            (Ok(a), Ok(b)) => a == b,
-            _ => Path::new(input) == target,
-        };
-        if let Some(input) = inputs.iter().find(|i| same(i)) {
-            return Err(Error::Usage(format!(
-                "refusing to write the output over the input file '{input}'; choose another -o path"
-            )));
-        }
-        let name = target.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
-        // An unpredictable name, created exclusively; `create_new` (not tempfile's own create)
-        // gives the finished file a plain create's permissions rather than 0600, and errors
-        // that do not name the temporary file.
-        let (file, temp) = tempfile::Builder::new()
-            .prefix(&format!(".{name}."))
-            .suffix(".tmp")
-            .make_in(directory(&target), |temp| std::fs::File::create_new(temp))
-            .map_err(|e| Error::Failure(format!("cannot create the output '{path}': {e}")))?
-            .into_parts();
-        Ok(Sink(Out::File(std::io::BufWriter::new(file), temp, target)))
-    }
-
-    /// The writer to print into.
-    pub fn writer(&mut self) -> &mut dyn Write {
-        match &mut self.0 {
-            Out::Stdout(w) => w,
-            Out::File(w, _, _) => w,
-        }
-    }
-
-    /// Flush and, for a file, move it into place durably: its data reaches the disk before the
-    /// rename, and the rename then too where the platform can sync a directory.
-    pub fn finish(self) -> Result<(), Error> {
-        match self.0 {
-            Out::Stdout(mut w) => w.flush().map_err(io_failure),
-            Out::File(w, temp, target) => {
-                let file = w.into_inner().map_err(|e| io_failure(e.into_error()))?;
-                file.sync_all().map_err(io_failure)?;
-                drop(file);
-                temp.persist(&target).map_err(|e| {
-                    Error::Failure(format!("cannot write '{}': {}", target.display(), e.error))
-                })?;
-                // Make the rename durable too. Best effort: the output is in place already, and
-                // some file systems (and platforms) cannot sync a directory.
-                if let Ok(dir) = std::fs::File::open(directory(&target)) {
-                    let _ = dir.sync_all();
-                }
-                Ok(())
-            }
-        }
-    }
-}
-
-/// The directory a file path is in (`.` for a bare name).
-fn directory(path: &Path) -> &Path {
-    match path.parent() {
-        Some(p) if !p.as_os_str().is_empty() => p,
-        _ => Path::new("."),
-    }
 }
 
 /// Turn an I/O error while writing into the project's error; a closed pipe (`| head`) is not

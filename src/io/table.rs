@@ -38,6 +38,9 @@ pub struct Column {
     pub name: String,
     /// Factor to base units (1 for columns without a unit).
     pub factor: f64,
+    /// The quantity kind of a `<quantity>_<unit>` column, whose values are checked against
+    /// its limits ([`crate::limits`]); `None` for a plain column.
+    pub kind: Option<Kind>,
 }
 
 impl Table {
@@ -152,8 +155,7 @@ impl Table {
 
     /// Read and parse a CSV file.
     pub fn read(path: &str) -> Result<Table, Vec<InputError>> {
-        let bytes = std::fs::read(path)
-            .map_err(|e| vec![InputError::in_file(path, format!("cannot read the file: {e}"))])?;
+        let bytes = crate::io::input::read(std::path::Path::new(path)).map_err(|e| vec![e])?;
         Table::parse(path, &bytes)
     }
 
@@ -163,6 +165,7 @@ impl Table {
             index,
             name: name.to_string(),
             factor: 1.0,
+            kind: None,
         })
     }
 
@@ -182,7 +185,7 @@ impl Table {
                         .at_line(self.header_line)
                         .in_column(h.clone()));
                     }
-                    found = Some(Column { index, name: h.clone(), factor: n.factor });
+                    found = Some(Column { index, name: h.clone(), factor: n.factor, kind: Some(kind) });
                 }
                 Ok(None) => {}
                 Err(m) => {
@@ -224,8 +227,15 @@ impl Row {
             return Err(error("an empty field"));
         }
         match text.parse::<f64>() {
-            Ok(v) if (v * column.factor).is_finite() => Ok(v * column.factor),
-            Ok(v) if v.is_finite() => Err(error(&format!("'{text}', out of range once converted"))),
+            Ok(v) if v.is_finite() && !(v * column.factor).is_finite() => {
+                Err(error(&format!("'{text}', out of range once converted")))
+            }
+            Ok(v) if v.is_finite() => match column.kind {
+                Some(kind) => crate::limits::check(kind, v * column.factor).map_err(|m| {
+                    InputError::in_file(source, m).at_line(self.line).in_column(column.name.clone())
+                }),
+                None => Ok(v * column.factor),
+            },
             _ => Err(error(&format!("'{text}'"))),
         }
     }

@@ -15,8 +15,7 @@ pub struct TomlText {
 impl TomlText {
     /// Read a file.
     pub fn read(path: &str) -> Result<TomlText, InputError> {
-        let text = std::fs::read_to_string(path)
-            .map_err(|e| InputError::in_file(path, format!("cannot read the file as UTF-8 text: {e}")))?;
+        let text = crate::io::input::read_text(std::path::Path::new(path))?;
         Ok(TomlText { source: path.to_string(), text })
     }
 

@@ -39,7 +39,10 @@ impl<'a> Course<'a> {
         let mut doses = self.history.to_vec();
         let mut t = self.start_h;
         let mut first = true;
-        while t < until_h {
+        // The spec bounds the doses a target day asks for (limits::MAX_DOSES); the loop keeps
+        // that bound itself, so no input can make it run on.
+        let most = doses.len() + crate::limits::MAX_DOSES as usize;
+        while t < until_h && doses.len() < most {
             let amount = if first { loading_mg.unwrap_or(candidate.amount_mg) } else { candidate.amount_mg };
             doses.push(Dose { amount_mg: amount, ..candidate.dose_at(t) });
             first = false;

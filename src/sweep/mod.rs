@@ -9,6 +9,7 @@
 //! same whatever the thread count, and shards ([`state`]) merge to exactly the unsharded
 //! result.
 
+pub mod join;
 pub mod population;
 pub mod sketch;
 pub mod state;
@@ -17,12 +18,13 @@ pub mod summary;
 use crate::dosing::{Dose, Regimen};
 use crate::engine::Params;
 use crate::error::Error;
+use crate::io::digest::Digesting;
 use crate::io::output::{CsvWriter, io_failure};
 use crate::plan::targets::{Limits, Target};
 use crate::plan::{Course, evaluate, last_day_end};
 use population::{Population, Subject};
 use rayon::prelude::*;
-use state::Tally;
+use state::{RowsWritten, Setup, Shard, SweepState, Tally};
 use std::io::Write;
 use std::ops::Range;
 
@@ -165,6 +167,29 @@ impl Sweep<'_> {
     /// work is done.
     pub fn check(&self) -> Result<(), Error> {
         self.subjects(0..1, &self.course_doses(), false).map(|_| ())
+    }
+
+    /// Sweep `shard` of the sweep `setup` (whose subjects are this population's) into its
+    /// state. With `per_subject`, its rows go there too and the state records their number
+    /// and digest, so that the part can be checked before it is joined with the others.
+    pub fn run_shard(
+        &self,
+        setup: Setup,
+        shard: Shard,
+        per_subject: Option<&mut dyn Write>,
+        progress: &mut dyn FnMut(u64),
+    ) -> Result<SweepState, Error> {
+        let span = shard.span(setup.subjects);
+        let (tallies, rows) = match per_subject {
+            Some(out) => {
+                let mut digesting = Digesting::new(out);
+                let tallies = self.run(span.clone(), Some(&mut digesting), progress)?;
+                let rows = (span.end - span.start) * self.candidates.len() as u64;
+                (tallies, Some(RowsWritten { rows, sha256: digesting.finish() }))
+            }
+            None => (self.run(span, None, progress)?, None),
+        };
+        Ok(SweepState::new(setup, shard, tallies, rows))
     }
 
     /// Sweep subjects `span` (0-based): per-subject rows (with [`PER_SUBJECT_HEADER`]) go to

@@ -364,7 +364,7 @@ fn exact_unit_column(table: &Table, quantity: &str, kind: Kind) -> Result<Option
             .at_line(table.header_line)
             .in_column(h.clone()));
         }
-        found = Some(Column { index, name: h.clone(), factor });
+        found = Some(Column { index, name: h.clone(), factor, kind: Some(kind) });
     }
     Ok(found)
 }

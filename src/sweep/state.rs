@@ -1,7 +1,8 @@
 //! The mergeable state of a sweep: what was swept (the setup) and integer counts per regimen.
 //!
-//! A shard writes its state as JSON; `merge` checks that the states share one setup and cover
-//! every slice of the subjects exactly once, and adds their counts. Counts and sketches are
+//! A shard writes its state as JSON; `merge` checks that the states share one setup and hold
+//! no slice of the subjects twice, and adds their counts, into a state that `merge` reads again
+//! (so shards merge in stages) and, once it covers every slice, the summary. Counts and sketches are
 //! integers, so the merged state is identical to the state of one unsharded run, and so is the
 //! summary made from it. Floating-point values in the state are JSON numbers in their shortest
 //! round-trip form, read back with serde_json's correctly rounded parser (its
@@ -19,8 +20,14 @@ use std::ops::Range;
 
 /// The `format` field of a state file.
 pub const STATE_FORMAT: &str = "cistern sweep state";
-/// The layout version of a state file (2: numbers as JSON numbers, SHA-256 fingerprints).
-pub const STATE_VERSION: u32 = 2;
+/// The layout version of a state file (3: the shards a state covers, each with a digest of
+/// its per-subject rows, so that merged states merge again and parts are checked before they
+/// are joined; the build identifier in the setup).
+pub const STATE_VERSION: u32 = 3;
+
+/// This build's identifier: a digest of the package's sources and the target platform
+/// (build.rs).
+pub const BUILD: &str = env!("CISTERN_BUILD");
 
 /// One candidate regimen as swept, with the dose limits it breaks by itself.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -37,6 +44,8 @@ pub struct SweptRegimen {
 pub struct Setup {
     /// The program version that computed the counts.
     pub cistern_version: String,
+    /// The build that computed them ([`BUILD`]): builds of one version may differ.
+    pub cistern_build: String,
     /// The population: its source files' fingerprints and how covariates were drawn. Text,
     /// whole numbers and null only (no floats), so that it reads back exactly.
     pub population: serde_json::Value,
@@ -66,6 +75,7 @@ impl Setup {
     ) -> Setup {
         Setup {
             cistern_version: env!("CARGO_PKG_VERSION").to_string(),
+            cistern_build: BUILD.to_string(),
             population,
             seed,
             subjects,
@@ -199,7 +209,37 @@ impl Shard {
     }
 }
 
-/// A sweep's state over one shard of its subjects (the whole sweep for [`Shard::WHOLE`]).
+/// What a shard wrote with `--per-subject`: enough to check a part file before it is joined.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct RowsWritten {
+    /// Data rows (subjects × regimens), the header not counted.
+    pub rows: u64,
+    /// SHA-256 of the file's bytes, header included.
+    pub sha256: String,
+}
+
+/// One shard that a state covers.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Part {
+    /// The shard I (from 1) of the state's N.
+    pub shard: u64,
+    /// Its subjects, 0-based and half-open: [from, to).
+    pub subjects_from: u64,
+    /// End of its subjects (exclusive).
+    pub subjects_to: u64,
+    /// Its per-subject rows, when it wrote them.
+    pub rows: Option<RowsWritten>,
+}
+
+impl Part {
+    /// Its subjects as the per-subject file numbers them (from 1), for messages.
+    pub fn described(&self, shards: u64) -> String {
+        format!("shard {}/{shards} (subjects {}–{})", self.shard, self.subjects_from + 1, self.subjects_to)
+    }
+}
+
+/// A sweep's state over some of its shards: one shard as `sweep --shard` writes it, several
+/// as `merge --state-out` writes them, or the whole sweep.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct SweepState {
     /// Always [`STATE_FORMAT`].
@@ -210,30 +250,52 @@ pub struct SweepState {
     pub fingerprint: String,
     /// What was swept.
     pub setup: Setup,
-    /// Which slice of the subjects.
-    pub shard: Shard,
-    /// The slice's subjects, 0-based and half-open: [from, to).
-    pub subjects_from: u64,
-    /// End of the slice (exclusive).
-    pub subjects_to: u64,
-    /// Counts per regimen, in the setup's order.
+    /// N: how many shards the subjects were split into.
+    pub shards: u64,
+    /// The shards this state covers, in shard order.
+    pub parts: Vec<Part>,
+    /// Counts per regimen over the parts' subjects, in the setup's order.
     pub tallies: Vec<Tally>,
 }
 
 impl SweepState {
-    /// The state of `shard` of the sweep `setup`, with its counts.
-    pub fn new(setup: Setup, shard: Shard, tallies: Vec<Tally>) -> SweepState {
+    /// The state of `shard` of the sweep `setup`, with its counts and, when it wrote them, its
+    /// per-subject rows.
+    pub fn new(setup: Setup, shard: Shard, tallies: Vec<Tally>, rows: Option<RowsWritten>) -> SweepState {
         let span = shard.span(setup.subjects);
         SweepState {
             format: STATE_FORMAT.to_string(),
             version: STATE_VERSION,
             fingerprint: setup.fingerprint(),
             setup,
-            shard,
-            subjects_from: span.start,
-            subjects_to: span.end,
+            shards: shard.count,
+            parts: vec![Part { shard: shard.index, subjects_from: span.start, subjects_to: span.end, rows }],
             tallies,
         }
+    }
+
+    /// Write the state as one line of JSON.
+    pub fn write(&self, out: &mut dyn std::io::Write) -> std::io::Result<()> {
+        serde_json::to_writer(&mut *out, self)?;
+        writeln!(out)
+    }
+
+    /// The shards of the sweep this state does not cover.
+    pub fn missing(&self) -> Vec<u64> {
+        let covered: std::collections::BTreeSet<u64> = self.parts.iter().map(|p| p.shard).collect();
+        (1..=self.shards).filter(|i| !covered.contains(i)).collect()
+    }
+
+    /// Refuses a state that does not cover every shard (the summary and the per-subject file
+    /// need the whole sweep).
+    pub fn complete(&self) -> Result<(), String> {
+        let missing = self.missing();
+        if missing.is_empty() {
+            return Ok(());
+        }
+        let n = self.shards;
+        let listed: Vec<String> = missing.iter().map(|i| format!("{i}/{n}")).collect();
+        Err(format!("shards missing: {} (each of the {n} shards is needed once)", listed.join(", ")))
     }
 
     /// Read a state from JSON text.
@@ -245,29 +307,50 @@ impl SweepState {
         }
         if probe.get("version").and_then(|v| v.as_u64()) != Some(u64::from(STATE_VERSION)) {
             return Err(format!(
-                "a sweep state of another version; this program reads version {STATE_VERSION}"
+                "a sweep state of another version; this program reads version {STATE_VERSION} \
+                 (sweep the shards again with this build)"
             ));
         }
         let state: SweepState =
             serde_json::from_value(probe).map_err(|e| format!("a damaged sweep state: {e}"))?;
-        let consistent = state.fingerprint == state.setup.fingerprint()
-            && state.tallies.len() == state.setup.regimens.len()
-            && state.shard.index >= 1
-            && state.shard.index <= state.shard.count
-            && state.shard.span(state.setup.subjects) == (state.subjects_from..state.subjects_to)
-            && state
-                .tallies
-                .iter()
-                .all(|t| t.subjects == state.subjects_to - state.subjects_from && t.is_sound());
-        if !consistent {
-            return Err("a damaged sweep state: its counts, slice and setup do not agree".into());
+        if !state.is_consistent() {
+            return Err("a damaged sweep state: its counts, shards and setup do not agree".into());
         }
         Ok(state)
     }
+
+    /// Whether a state read from a file agrees with itself: its shards in order, each slice
+    /// where the split puts it, rows as many as its subjects and regimens, counts over exactly
+    /// those subjects.
+    fn is_consistent(&self) -> bool {
+        let regimens = self.setup.regimens.len() as u64;
+        let part_sound = |p: &Part| {
+            (1..=self.shards).contains(&p.shard)
+                && (Shard { index: p.shard, count: self.shards }).span(self.setup.subjects)
+                    == (p.subjects_from..p.subjects_to)
+                && p.rows.as_ref().is_none_or(|r| {
+                    (p.subjects_to - p.subjects_from).checked_mul(regimens) == Some(r.rows)
+                        && r.sha256.len() == 64
+                })
+        };
+        let parts_sound = !self.parts.is_empty()
+            && self.parts.iter().all(part_sound)
+            && self.parts.windows(2).all(|w| w[0].shard < w[1].shard);
+        if !parts_sound
+            || self.fingerprint != self.setup.fingerprint()
+            || self.tallies.len() != regimens as usize
+        {
+            return false;
+        }
+        // Disjoint slices of the sweep's subjects: the sum cannot overflow.
+        let subjects: u64 = self.parts.iter().map(|p| p.subjects_to - p.subjects_from).sum();
+        self.tallies.iter().all(|t| t.subjects == subjects && t.is_sound())
+    }
 }
 
-/// Merges shard states one at a time (so memory holds one state, not all), refusing states of
-/// different setups and shards given twice; [`Merger::finish`] refuses missing shards.
+/// Merges states one at a time (so memory holds one state, not all), refusing states of
+/// different setups or splits and shards given twice. The result may cover only some shards:
+/// [`SweepState::complete`] tells whether it is the whole sweep.
 #[derive(Debug, Default)]
 pub struct Merger {
     merged: Option<(String, SweepState)>,
@@ -278,7 +361,7 @@ impl Merger {
     /// Add the state read from `name`.
     pub fn add(&mut self, name: &str, state: SweepState) -> Result<(), String> {
         let Some((first_name, merged)) = &mut self.merged else {
-            self.seen.insert(state.shard.index, name.to_string());
+            self.seen.extend(state.parts.iter().map(|p| (p.shard, name.to_string())));
             self.merged = Some((name.to_string(), state));
             return Ok(());
         };
@@ -289,36 +372,31 @@ impl Merger {
                 state.setup.differences(&merged.setup).join(", ")
             ));
         }
-        let count = merged.shard.count;
-        if state.shard.count != count {
+        let count = merged.shards;
+        if state.shards != count {
             return Err(format!(
-                "{name} is shard {}/{} but {first_name} is shard {}/{count}: the shards must split \
-                 the sweep the same way",
-                state.shard.index, state.shard.count, merged.shard.index
+                "{name} holds shards of {} but {first_name} holds shards of {count}: the shards must \
+                 split the sweep the same way",
+                state.shards
             ));
         }
-        if let Some(other) = self.seen.insert(state.shard.index, name.to_string()) {
-            return Err(format!("shard {}/{count} is given twice: {other} and {name}", state.shard.index));
+        for part in &state.parts {
+            if let Some(other) = self.seen.insert(part.shard, name.to_string()) {
+                return Err(format!("shard {}/{count} is given twice: {other} and {name}", part.shard));
+            }
         }
         merged.tallies.iter_mut().zip(&state.tallies).for_each(|(t, o)| t.merge(o));
+        merged.parts.extend(state.parts);
+        merged.parts.sort_by_key(|p| p.shard);
         Ok(())
     }
 
-    /// The state of the whole sweep, once every shard is in.
+    /// The merged state of the shards added.
     pub fn finish(self) -> Result<SweepState, String> {
         let Some((_, merged)) = self.merged else {
             return Err("no shard states to merge".into());
         };
-        let count = merged.shard.count;
-        let missing: Vec<String> =
-            (1..=count).filter(|i| !self.seen.contains_key(i)).map(|i| format!("{i}/{count}")).collect();
-        if !missing.is_empty() {
-            return Err(format!(
-                "shards missing: {} (each of the {count} shards is needed once)",
-                missing.join(", ")
-            ));
-        }
-        Ok(SweepState::new(merged.setup, Shard::WHOLE, merged.tallies))
+        Ok(merged)
     }
 }
 
@@ -365,7 +443,7 @@ mod tests {
             tally.peak_mg_l.add(third);
             tally.auc24_mg_h_l.add(third);
         }
-        let state = SweepState::new(setup, Shard { index: 1, count: 1 }, vec![tally.clone(), tally]);
+        let state = SweepState::new(setup, Shard { index: 1, count: 1 }, vec![tally.clone(), tally], None);
         let text = serde_json::to_string(&state).unwrap();
         let back = SweepState::parse(&text).unwrap();
         assert_eq!(back, state);

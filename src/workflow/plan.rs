@@ -7,6 +7,7 @@ use crate::engine::Params;
 use crate::error::{InputError, Origin, Result};
 use crate::fit::{FitOptions, FitResult, Intervals, Method, SubjectData, fit_subject};
 use crate::io::doses::parse_doses;
+use crate::io::input;
 use crate::io::table::Table;
 use crate::model::{PopulationModel, Residual};
 use crate::plan::session::{Exposure, Outcome, Posterior, Settings, plan_subject};
@@ -90,8 +91,7 @@ impl PlanSubject {
         wanted: &Setting<String>,
     ) -> Result<PlanSubject> {
         let path = fit_file.value.to_string_lossy().into_owned();
-        let text = std::fs::read_to_string(&fit_file.value)
-            .map_err(|e| InputError::in_file(&path, format!("cannot read the file: {e}")))?;
+        let text = input::read_text(&fit_file.value)?;
         let saved: SavedFit = serde_json::from_str(&text).map_err(|e| {
             InputError::in_file(&path, format!("not a fit from `cistern fit --format json`: {e}"))
                 .at_line(e.line() as u64)

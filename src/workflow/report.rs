@@ -3,8 +3,9 @@
 
 use super::plan::{NextLevel, PlanSubject, plan};
 use super::study::{Required, Study};
-use crate::error::{Error, InputError, Problems, Result};
+use crate::error::{Error, Problems, Result};
 use crate::io::digest::sha256_hex;
+use crate::io::input;
 use crate::io::output::CAUTION;
 use crate::plan::Course;
 use crate::plan::session::Outcome;
@@ -86,7 +87,7 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
     let mut digests = Vec::new();
     for f in spec.files() {
         let path = f.to_string_lossy().into_owned();
-        let bytes = std::fs::read(&f).map_err(|e| InputError::in_file(&path, format!("cannot read: {e}")))?;
+        let bytes = input::read(&f)?;
         digests.push((path, sha256_hex(&bytes)));
     }
     let analysis = Analysis {

@@ -4,6 +4,7 @@
 use crate::covariates::parse_covariates;
 use crate::error::{Error, InputError, Problems, Result};
 use crate::io::digest::sha256_hex;
+use crate::io::input;
 use crate::io::output::full;
 use crate::io::table::Table;
 use crate::model::PopulationModel;
@@ -55,9 +56,7 @@ fn text(p: &Path) -> String {
 
 /// A file's fingerprint.
 fn fingerprint(path: &Path) -> Result<String> {
-    std::fs::read(path)
-        .map(|bytes| sha256_hex(&bytes))
-        .map_err(|e| InputError::in_file(text(path), format!("cannot read the file: {e}")).into())
+    Ok(sha256_hex(&input::read(path)?))
 }
 
 /// The covariate pool of a spec's sweep, when it names one.
@@ -161,5 +160,5 @@ pub fn summary(
     let tallies = sweep.run(0..subjects, None, &mut |_| {})?;
     let setup =
         Setup::new(serde_json::Value::Null, seed, subjects, &grid.candidates, &grid.targets, &grid.limits);
-    Ok(Summary::of(&SweepState::new(setup, Shard::WHOLE, tallies)))
+    Ok(Summary::of(&SweepState::new(setup, Shard::WHOLE, tallies, None)))
 }

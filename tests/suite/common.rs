@@ -61,12 +61,14 @@ pub struct Ran {
 
 /// Run `cistern ARGS` in `dir` with the creation time of reports fixed to `epoch` seconds.
 pub fn cistern_at(dir: &std::path::Path, args: &[&str], epoch: &str) -> Ran {
-    let out = std::process::Command::new(env!("CARGO_BIN_EXE_cistern"))
-        .args(args)
-        .current_dir(dir)
-        .env("SOURCE_DATE_EPOCH", epoch)
-        .output()
-        .expect("the cistern binary runs");
+    let mut command = std::process::Command::new(env!("CARGO_BIN_EXE_cistern"));
+    command.args(args).current_dir(dir).env("SOURCE_DATE_EPOCH", epoch);
+    ran(command)
+}
+
+/// Run a command to its end and keep what it printed.
+pub fn ran(mut command: std::process::Command) -> Ran {
+    let out = command.output().expect("the command runs");
     Ran {
         code: out.status.code().expect("exited, not killed by a signal"),
         stdout: String::from_utf8(out.stdout).expect("stdout is UTF-8"),

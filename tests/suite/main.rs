@@ -14,6 +14,8 @@ mod fit_calibration;
 mod fit_properties;
 mod fit_reference;
 mod library;
+mod limits;
+mod outputs;
 mod parser_fuzz;
 mod plan;
 mod published_engine;

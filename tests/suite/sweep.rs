@@ -13,7 +13,7 @@ use cistern::plan::candidates::{Durations, grid};
 use cistern::plan::targets::{Limits, parse_target};
 use cistern::sweep::population::{CovariateSource, Population, parse_draw};
 use cistern::sweep::sketch::RELATIVE_ERROR;
-use cistern::sweep::state::{Setup, Shard, SweepState};
+use cistern::sweep::state::{BUILD, Setup, Shard, SweepState};
 use cistern::sweep::summary::{Summary, SummaryRow};
 use cistern::sweep::{PER_SUBJECT_HEADER, Sweep};
 use cistern::{covariates::Covariates, dosing::Regimen, dosing::Route, io::output::Format};
@@ -55,7 +55,7 @@ fn sweep_summary(population: &Population, candidates: &[Regimen], n: u64, target
     let mut rows = Vec::new();
     let tallies = sweep.run(0..n, Some(&mut rows), &mut |_| {}).expect("the sweep runs");
     let setup = Setup::new(json!("test"), 2020, n, candidates, &targets, &limits);
-    let state = SweepState::new(setup, Shard::WHOLE, tallies);
+    let state = SweepState::new(setup, Shard::WHOLE, tallies, None);
     (Summary::of(&state), String::from_utf8(rows).unwrap())
 }
 
@@ -355,6 +355,291 @@ fn merge_refuses_missing_duplicate_and_foreign_shards() {
     }
 }
 
+/// Runs `cistern merge` with `args` and checks that it refuses with exit code 2, saying `says`
+/// and writing none of `outputs`.
+#[track_caller]
+fn refused(dir: &Path, args: &[&str], says: &str, outputs: &[&str]) {
+    let mut a = vec!["merge"];
+    a.extend(args);
+    let ran = cistern(dir, &a);
+    assert_eq!(ran.code, 2, "merge {args:?}: {}", ran.stderr);
+    assert!(ran.stderr.contains(says), "merge {args:?} should say '{says}':\n{}", ran.stderr);
+    assert!(!ran.stderr.contains("panicked"), "{}", ran.stderr);
+    for out in outputs {
+        assert!(!dir.join(out).exists(), "merge {args:?} wrote {out}");
+    }
+}
+
+/// The shard sweep of [`SWEEP`] in `n` shards with their per-subject parts (`s{i}.json`,
+/// `p{i}.csv`), and the unsharded run (`summary.csv`, `all.csv`).
+fn sharded(dir: &Path, n: u64) {
+    run_ok(dir, &args(SWEEP, &["-o", "summary.csv", "--per-subject", "all.csv"]));
+    for i in 1..=n {
+        let (shard, state, part) = (format!("{i}/{n}"), format!("s{i}.json"), format!("p{i}.csv"));
+        run_ok(dir, &args(SWEEP, &["--shard", &shard, "-o", &state, "--per-subject", &part]));
+    }
+}
+
+#[test]
+fn merged_states_merge_again_in_stages_byte_for_byte() {
+    let ws = workspace();
+    let dir = ws.path();
+    sharded(dir, 4);
+    let summary = read(dir, "summary.csv");
+    let all = read(dir, "all.csv");
+    // Hierarchically: two halves, then the halves; the rows joined with the merged state.
+    ok(dir, &["merge", "s2.json", "s1.json", "--state-out", "a.json"]);
+    ok(dir, &["merge", "s4.json", "s3.json", "--state-out", "b.json"]);
+    let parts = ["p3.csv", "p1.csv", "p4.csv", "p2.csv"];
+    let mut last = vec!["merge", "b.json", "a.json", "-o", "h.csv", "--state-out", "whole.json", "--rows"];
+    last.extend(parts);
+    last.extend(["--per-subject", "h-rows.csv"]);
+    ok(dir, &last);
+    assert!(read(dir, "h.csv") == summary, "the merge of merges differs from the unsharded summary");
+    assert!(read(dir, "h-rows.csv") == all, "the rows joined after a merge of merges differ");
+    // The whole merged state merges again, alone, to the same summary, and joins the parts.
+    let mut again = vec!["merge", "whole.json", "-o", "again.csv", "--rows"];
+    again.extend(parts);
+    again.extend(["--per-subject", "again-rows.csv"]);
+    ok(dir, &again);
+    assert!(read(dir, "again.csv") == summary && read(dir, "again-rows.csv") == all);
+    // Incrementally, one shard at a time in the order they might finish.
+    ok(dir, &["merge", "s3.json", "--state-out", "r1.json"]);
+    ok(dir, &["merge", "r1.json", "s1.json", "--state-out", "r2.json"]);
+    ok(dir, &["merge", "s4.json", "r2.json", "--state-out", "r3.json"]);
+    ok(dir, &["merge", "r3.json", "s2.json", "--format", "json", "-o", "inc.json"]);
+    run_ok(dir, &args(SWEEP, &["--format", "json", "-o", "summary.json"]));
+    assert!(read(dir, "inc.json") == read(dir, "summary.json"), "the incremental merge differs");
+    // The partial states are not summaries, and hold their shards once.
+    refused(dir, &["a.json", "-o", "x.csv"], "shards missing: 3/4, 4/4", &["x.csv"]);
+    refused(
+        dir,
+        &["a.json", "s2.json", "--state-out", "x.json"],
+        "shard 2/4 is given twice: a.json and s2.json",
+        &["x.json"],
+    );
+    refused(
+        dir,
+        &["r3.json", "s2.json", "--state-out", "r3.json"],
+        "refusing to write the output over the input file",
+        &[],
+    );
+}
+
+#[test]
+fn a_stale_per_subject_part_is_refused() {
+    let ws = workspace();
+    let dir = ws.path();
+    sharded(dir, 3);
+    // The first part of an earlier sweep of 1,200 subjects: it starts where shard 1/3 starts
+    // (subject 1) but runs on to subject 400, where shard 1/3 of 1,001 ends at 334.
+    let earlier = args(SWEEP, &[]).join(" ").replace("--subjects 1001", "--subjects 1200");
+    run_ok(dir, &args(&earlier, &["--shard", "1/3", "-o", "old.json", "--per-subject", "old-p1.csv"]));
+    let states = ["s1.json", "s2.json", "s3.json", "-o", "out.csv", "--per-subject", "rows.csv", "--rows"];
+    let with_parts = |parts: &[&'static str]| -> Vec<&str> {
+        states.iter().copied().chain(parts.iter().copied()).collect()
+    };
+    refused(
+        dir,
+        &with_parts(&["old-p1.csv", "p2.csv", "p3.csv"]),
+        "old-p1.csv: it holds subjects up to 400, but shard 1/3 (subjects 1–333) ends at subject 333: a stale part?",
+        &["out.csv", "rows.csv"],
+    );
+    // A part of another split starts where no shard starts.
+    run_ok(dir, &args(SWEEP, &["--shard", "2/2", "-o", "half.json", "--per-subject", "half.csv"]));
+    refused(
+        dir,
+        &with_parts(&["p1.csv", "half.csv", "p3.csv"]),
+        "half.csv: it holds rows from subject 501 on, but no shard",
+        &["out.csv", "rows.csv"],
+    );
+    // A part given twice, or missing.
+    refused(
+        dir,
+        &with_parts(&["p1.csv", "p2.csv", "p2.csv", "p3.csv"]),
+        "p2.csv and p2.csv both hold the rows of shard 2/3",
+        &["rows.csv"],
+    );
+    refused(
+        dir,
+        &with_parts(&["p1.csv", "p3.csv"]),
+        "no per-subject rows given for shard 2/3 (subjects 334–667)",
+        &["rows.csv"],
+    );
+    // Not a per-subject file at all.
+    refused(
+        dir,
+        &with_parts(&["p1.csv", "pool.csv", "p3.csv"]),
+        "pool.csv: line 1: expected the per-subject header",
+        &["rows.csv"],
+    );
+    // The parts as written are accepted, in any order.
+    let ran = ok(dir, &with_parts(&["p3.csv", "p1.csv", "p2.csv"]));
+    assert!(ran.stderr.contains("caution: Not clinical advice"), "{}", ran.stderr);
+    assert!(
+        read(dir, "rows.csv") == read(dir, "all.csv") && read(dir, "out.csv") == read(dir, "summary.csv")
+    );
+}
+
+#[test]
+fn a_part_from_another_setup_is_refused() {
+    let ws = workspace();
+    let dir = ws.path();
+    sharded(dir, 3);
+    // The same subjects and row count, from another seed: only the digest tells.
+    let other = args(SWEEP, &[]).join(" ").replace("--seed 9", "--seed 10");
+    run_ok(dir, &args(&other, &["--shard", "2/3", "-o", "other.json", "--per-subject", "other-p2.csv"]));
+    assert_eq!(
+        read(dir, "other-p2.csv").iter().filter(|b| **b == b'\n').count(),
+        read(dir, "p2.csv").iter().filter(|b| **b == b'\n').count()
+    );
+    let a = [
+        "s1.json",
+        "s2.json",
+        "s3.json",
+        "--per-subject",
+        "rows.csv",
+        "--rows",
+        "p1.csv",
+        "other-p2.csv",
+        "p3.csv",
+    ];
+    refused(dir, &a, "other-p2.csv: its SHA-256 is", &["rows.csv"]);
+    refused(dir, &a, "but shard 2/3 (subjects 334–667) wrote rows of SHA-256", &["rows.csv"]);
+    // A part whose shard was swept without --per-subject has nothing to be checked against.
+    run_ok(dir, &args(SWEEP, &["--shard", "2/3", "-o", "bare.json"]));
+    let a = [
+        "s1.json",
+        "bare.json",
+        "s3.json",
+        "--per-subject",
+        "rows.csv",
+        "--rows",
+        "p1.csv",
+        "p2.csv",
+        "p3.csv",
+    ];
+    refused(dir, &a, "shard 2/3 (subjects 334–667) was swept without --per-subject", &["rows.csv"]);
+}
+
+#[test]
+fn a_part_with_the_wrong_row_count_is_refused() {
+    let ws = workspace();
+    let dir = ws.path();
+    sharded(dir, 3);
+    // The last row dropped: the last subject is still there (it has 15 rows), one row is not.
+    let part = String::from_utf8(read(dir, "p3.csv")).unwrap();
+    let cut = part.trim_end_matches('\n').rsplit_once('\n').unwrap().0;
+    std::fs::write(dir.join("cut.csv"), format!("{cut}\n")).unwrap();
+    let a = [
+        "s1.json",
+        "s2.json",
+        "s3.json",
+        "--per-subject",
+        "rows.csv",
+        "--rows",
+        "p1.csv",
+        "p2.csv",
+        "cut.csv",
+    ];
+    refused(
+        dir,
+        &a,
+        "cut.csv: it has 5009 rows, but shard 3/3 (subjects 668–1001) wrote 5010",
+        &["rows.csv"],
+    );
+    // A row added at the end.
+    std::fs::write(dir.join("long.csv"), format!("{part}{}\n", part.trim_end().rsplit_once('\n').unwrap().1))
+        .unwrap();
+    let a = [
+        "s1.json",
+        "s2.json",
+        "s3.json",
+        "--per-subject",
+        "rows.csv",
+        "--rows",
+        "p1.csv",
+        "p2.csv",
+        "long.csv",
+    ];
+    refused(
+        dir,
+        &a,
+        "long.csv: it has 5011 rows, but shard 3/3 (subjects 668–1001) wrote 5010",
+        &["rows.csv"],
+    );
+}
+
+#[test]
+fn more_than_999_shards_merge_and_join_in_subject_order() {
+    // 1,001 shards of 1,500 subjects, named without zero padding, so that the shell's order
+    // of the names (shard-1, shard-10, shard-100, shard-1000, shard-1001, shard-101, ...) is
+    // not the shards' order. The shards are swept through the library, as the binary does.
+    let population = Population::from_model(model(MODEL), CovariateSource::None).unwrap();
+    let regimens = candidates();
+    let targets = vec![parse_target("auc24=400..600").unwrap()];
+    let limits = Limits { max_trough_mg_l: Some(15.0), max_risk: 0.1, ..Limits::default() };
+    let sweep =
+        Sweep { population: &population, candidates: &regimens, targets: &targets, limits: &limits, seed: 5 };
+    let (subjects, count) = (1_500, 1_001);
+    let setup = Setup::new(json!("test"), 5, subjects, &regimens, &targets, &limits);
+    let ws = tempfile::tempdir().unwrap();
+    let dir = ws.path();
+    let mut names = Vec::new();
+    for index in 1..=count {
+        let mut rows = Vec::new();
+        let state =
+            sweep.run_shard(setup.clone(), Shard { index, count }, Some(&mut rows), &mut |_| {}).unwrap();
+        let mut json = Vec::new();
+        state.write(&mut json).unwrap();
+        std::fs::write(dir.join(format!("shard-{index}.json")), json).unwrap();
+        std::fs::write(dir.join(format!("part-{index}.csv")), rows).unwrap();
+        names.push(index.to_string());
+    }
+    names.sort();
+    assert_eq!(&names[..5], ["1", "10", "100", "1000", "1001"], "the names sort out of shard order");
+    let mut a = vec!["merge".to_string()];
+    a.extend(names.iter().map(|i| format!("shard-{i}.json")));
+    a.extend(["-o", "summary.csv", "--per-subject", "rows.csv", "--rows"].map(String::from));
+    a.extend(names.iter().map(|i| format!("part-{i}.csv")));
+    run_ok(dir, &a);
+    let mut whole_rows = Vec::new();
+    let whole = sweep.run_shard(setup, Shard::WHOLE, Some(&mut whole_rows), &mut |_| {}).unwrap();
+    let mut summary = Vec::new();
+    Summary::of(&whole).write(&mut summary, Format::Csv).unwrap();
+    assert!(read(dir, "summary.csv") == summary, "the merged summary differs from the whole sweep's");
+    assert!(read(dir, "rows.csv") == whole_rows, "the joined rows are not in subject order");
+}
+
+#[test]
+fn the_build_identifier_is_recorded_and_checked() {
+    let ws = workspace();
+    let dir = ws.path();
+    for i in 1..=2 {
+        run_ok(dir, &args(SWEEP, &["--shard", &format!("{i}/2"), "-o", &format!("s{i}.json")]));
+    }
+    let state = SweepState::parse(&String::from_utf8(read(dir, "s2.json")).unwrap()).unwrap();
+    // The build the binary reports, which is this package's.
+    assert_eq!(state.setup.cistern_build, BUILD);
+    let version = ok(dir, &["--version"]).stdout;
+    assert!(version.contains(BUILD), "--version does not show the build '{BUILD}': {version}");
+    assert!(BUILD.starts_with("sources ") && BUILD.len() > "sources 0123456789abcdef, ".len(), "{BUILD}");
+    // A shard of another build of the same version is refused, by name.
+    let mut other = state.clone();
+    other.setup.cistern_build = "sources 0000000000000000, elsewhere".into();
+    other.fingerprint = other.setup.fingerprint();
+    let mut json = Vec::new();
+    other.write(&mut json).unwrap();
+    std::fs::write(dir.join("other-build.json"), json).unwrap();
+    refused(
+        dir,
+        &["s1.json", "other-build.json", "-o", "out.csv"],
+        "(they differ in: cistern_build)",
+        &["out.csv"],
+    );
+    ok(dir, &["merge", "s1.json", "s2.json", "-o", "out.csv"]);
+}
+
 #[test]
 fn a_table_of_individual_parameters_gives_the_exact_shares() {
     let ws = workspace();
@@ -445,7 +730,7 @@ fn catalog() -> Vec<Bad> {
         bad(&with(&format!("{grid} --shard 1/0")), "--shard: the number of shards N must be at least 1"),
         bad(&with(&format!("{grid} --shard a/b")), "--shard: expected I/N with whole numbers"),
         bad(&with(&format!("{grid} --shard 2/4 --format csv")), "--format: a shard writes its state as JSON"),
-        bad(&with(&format!("{grid} --per-subject out.csv")), "--per-subject: 'out.csv' is also where the summary goes"),
+        bad(&with(&format!("{grid} --per-subject out.csv")), "--per-subject: 'out.csv' is also where -o writes ('out.csv'); give each output its own file"),
         // The population.
         bad(&model(&format!("--subjects 100 {grid}")), "the model uses the covariates crcl_ml_min, weight_kg"),
         bad(&model(&format!("{grid} --draw weight_kg=70")), "--subjects: give the number of subjects"),
