@@ -606,7 +606,7 @@ fn more_than_999_shards_merge_and_join_in_subject_order() {
     let mut whole_rows = Vec::new();
     let whole = sweep.run_shard(setup, Shard::WHOLE, Some(&mut whole_rows), &mut |_| {}).unwrap();
     let mut summary = Vec::new();
-    Summary::of(&whole).write(&mut summary, Format::Csv).unwrap();
+    Summary::of(&whole).write(&mut summary, Format::Csv, None).unwrap();
     assert!(read(dir, "summary.csv") == summary, "the merged summary differs from the whole sweep's");
     assert!(read(dir, "rows.csv") == whole_rows, "the joined rows are not in subject order");
 }
