@@ -474,7 +474,9 @@ fn a_stale_per_subject_part_is_refused() {
         &["rows.csv"],
     );
     // The parts as written are accepted, in any order.
-    let ran = ok(dir, &with_parts(&["p3.csv", "p1.csv", "p2.csv"]));
+    let mut a = vec!["merge"];
+    a.extend(with_parts(&["p3.csv", "p1.csv", "p2.csv"]));
+    let ran = ok(dir, &a);
     assert!(ran.stderr.contains("caution: Not clinical advice"), "{}", ran.stderr);
     assert!(
         read(dir, "rows.csv") == read(dir, "all.csv") && read(dir, "out.csv") == read(dir, "summary.csv")
