@@ -115,7 +115,8 @@ fn check_model(path: &str) -> Result<(String, Notices), Error> {
 fn check_case(path: &str) -> Result<(String, Notices), Error> {
     let spec = case::read(path)?;
     let resolved = spec.resolve(Needs::default())?;
-    let study = Study::load(&spec.inputs, Required { model: spec.inputs.model.value.is_some(), levels: false })?;
+    let study =
+        Study::load(&spec.inputs, Required { model: spec.inputs.model.value.is_some(), levels: false })?;
     let subject = study.subject(&spec.subject)?;
     let mut summary = format!(
         "case file, {} subject(s) in its study, subject {}",

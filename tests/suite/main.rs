@@ -9,6 +9,7 @@ mod case_files;
 mod cli;
 mod engine_properties;
 mod engine_vs_ode;
+mod every_command;
 mod fit_bad_input;
 mod fit_calibration;
 mod fit_properties;

@@ -288,7 +288,7 @@ fn an_existing_output_keeps_its_mode_and_a_new_one_follows_the_umask() {
 fn interrupted(dir: &Path, signal: &str) -> Option<i32> {
     let mut child = Command::new(env!("CARGO_BIN_EXE_cistern"))
         .args(["simulate", "--dose", "1g", "--every", "12h", "--count", "6", "--duration", "1h"])
-        .args(["--cl", "4.2", "--v", "48", "--times", "0:20000h:0.001h", "-o", "big.csv"])
+        .args(["--cl", "4.2", "--v", "48", "--times", "0:20000h:0.001h", "--allow-large", "-o", "big.csv"])
         .current_dir(dir)
         .stderr(std::process::Stdio::null())
         .spawn()
