@@ -51,7 +51,7 @@ impl Study {
     /// inputs.doses.value = Some("demo-regimens/doses.csv".into());
     /// inputs.levels.value = Some("demo-regimens/levels.csv".into());
     /// inputs.covariates.value = Some("demo-regimens/covariates.csv".into());
-    /// let study = Study::load(&spec.inputs, Required { model: true })?;
+    /// let study = Study::load(&spec.inputs, Required { model: true, levels: true })?;
     /// assert_eq!(study.subjects.len(), 3);
     /// // The model needs creatinine clearance: derived from the covariates file.
     /// assert!(study.subjects[0].covariates.get("crcl_ml_min").is_some());
