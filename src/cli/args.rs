@@ -102,9 +102,20 @@ impl OutputArgs {
         })
     }
 
-    /// Whether long work shows a progress bar: on a terminal (stderr), unless `--quiet`.
-    pub fn progress(&self) -> bool {
-        std::io::stderr().is_terminal() && !self.notify.quiet
+    /// A progress bar over `len` steps of long work, described by `what` (`subjects fitted`):
+    /// drawn on a terminal (stderr) unless `--quiet`, hidden otherwise, so piped runs and
+    /// logs stay clean.
+    pub fn progress_bar(&self, len: u64, what: &str) -> indicatif::ProgressBar {
+        if !std::io::stderr().is_terminal() || self.notify.quiet {
+            return indicatif::ProgressBar::hidden();
+        }
+        let bar = indicatif::ProgressBar::new(len);
+        if let Ok(style) = indicatif::ProgressStyle::with_template(&format!(
+            "{{bar:40}} {{pos}}/{{len}} {what}, {{eta}} left"
+        )) {
+            bar.set_style(style);
+        }
+        bar
     }
 
     /// A note for the user on stderr, unless `--quiet`.

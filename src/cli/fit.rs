@@ -16,7 +16,6 @@ use cistern::units::Kind;
 use cistern::workflow::{Required, Study};
 use cistern::{Error, InputError, Origin};
 use clap::Args;
-use indicatif::{ProgressBar, ProgressStyle};
 use serde::Serialize;
 
 /// Estimate each subject's clearance and volume, with 95 % intervals, from sparse levels.
@@ -142,14 +141,9 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     // The same failure of several subjects is one line naming them.
     let mut fits = Vec::with_capacity(subjects.len());
     let mut failures: Vec<(String, Vec<String>)> = Vec::new();
-    let bar = if args.output.progress() && subjects.len() > 1 {
-        let bar = ProgressBar::new(subjects.len() as u64);
-        if let Ok(style) = ProgressStyle::with_template("{bar:40} {pos}/{len} subjects fitted, {eta} left") {
-            bar.set_style(style);
-        }
-        bar
-    } else {
-        ProgressBar::hidden()
+    let bar = match subjects.len() {
+        0 | 1 => indicatif::ProgressBar::hidden(),
+        n => args.output.progress_bar(n as u64, "subjects fitted"),
     };
     let outcomes = fit_all_reporting(&subjects, model.as_ref(), &options, &|| bar.inc(1));
     bar.finish_and_clear();

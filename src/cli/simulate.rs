@@ -209,13 +209,28 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
     let svg_sink = args.svg.as_deref().map(|p| files.open(Origin::Flag("--svg".into()), p)).transpose()?;
     let (t_lo, t_hi) =
         times.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &t| (lo.min(t), hi.max(t)));
+    // Long work shows progress on a terminal: a bar over the subjects computed, then over the
+    // rows written (what takes the time in a large CSV).
+    let long = values >= PROGRESS_FROM;
+    let bar = if long {
+        args.output.progress_bar(subjects.len() as u64, "subjects computed")
+    } else {
+        indicatif::ProgressBar::hidden()
+    };
     let curves: Vec<(Vec<f64>, f64)> = subjects
         .iter()
         .map(|(_, doses)| {
             let conc = engine::concentrations(&params, doses, &times);
+            bar.inc(1);
             (conc.into_iter().map(reported_conc).collect(), engine::auc(&params, doses, t_lo, t_hi))
         })
         .collect();
+    bar.finish_and_clear();
+    let bar = if long {
+        args.output.progress_bar(values, "rows written")
+    } else {
+        indicatif::ProgressBar::hidden()
+    };
 
     let format = args.output.format();
     let out = sink.writer();
@@ -239,7 +254,8 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
             write_json(out, &doc).map_err(io_failure)?;
         }
         Format::Csv => {
-            write_csv(out, &subjects, &times, &curves, with_subject).map_err(io_failure)?;
+            write_csv(out, &subjects, &times, &curves, with_subject, &bar).map_err(io_failure)?;
+            bar.finish_and_clear();
             for ((who, _), (_, auc)) in subjects.iter().zip(&curves) {
                 let name = who.as_deref().map(|s| format!("subject {s}: ")).unwrap_or_default();
                 args.output.note(&format!("{name}AUC from {t_lo} h to {t_hi} h = {} mg·h/L", full(*auc)));
@@ -291,12 +307,17 @@ fn write_csv(
     times: &[f64],
     curves: &[(Vec<f64>, f64)],
     with_subject: bool,
+    progress: &indicatif::ProgressBar,
 ) -> std::io::Result<()> {
     let mut w = CsvWriter::new(out);
     let header = ["subject", "time_h", "conc_mg_l"];
     w.row(&header[usize::from(!with_subject)..])?;
     for ((who, _), (conc, _)) in subjects.iter().zip(curves) {
-        for (t, c) in times.iter().zip(conc) {
+        for (i, (t, c)) in times.iter().zip(conc).enumerate() {
+            // The bar moves in steps, so a row costs no more than a counter.
+            if i % 65_536 == 0 {
+                progress.inc(65_536.min((times.len() - i) as u64));
+            }
             if with_subject {
                 w.text(who.as_deref().unwrap_or(""))?;
             }
@@ -307,6 +328,9 @@ fn write_csv(
     }
     w.finish().map(drop)
 }
+
+/// Outputs of at least this many values (times × subjects) show progress on a terminal.
+const PROGRESS_FROM: u64 = 1_000_000;
 
 /// Points the plot samples between two events, besides its requested times.
 const PLOT_POINTS: usize = 800;

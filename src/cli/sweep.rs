@@ -16,7 +16,6 @@ use cistern::units::Kind;
 use cistern::workflow::sweep::{Source, VirtualPopulation, population};
 use cistern::{Error, InputError, Origin, case};
 use clap::Args;
-use indicatif::{ProgressBar, ProgressStyle};
 use std::path::{Path, PathBuf};
 
 /// Sweep candidate regimens over a virtual population: for each regimen the probability of
@@ -176,15 +175,7 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
         candidates.len(),
         100.0 * RELATIVE_ERROR
     ));
-    let bar = if args.output.progress() {
-        let bar = ProgressBar::new(span.end - span.start);
-        if let Ok(style) = ProgressStyle::with_template("{bar:40} {pos}/{len} subjects, {eta} left") {
-            bar.set_style(style);
-        }
-        bar
-    } else {
-        ProgressBar::hidden()
-    };
+    let bar = args.output.progress_bar(span.end - span.start, "subjects");
     let state =
         sweep.run_shard(setup, shard, per_subject.as_mut().map(|s| s.writer()), &mut |n| bar.inc(n))?;
     bar.finish_and_clear();

@@ -373,3 +373,76 @@ fn each_subjects_doses_are_ticked_in_its_colour() {
     assert_eq!(series.len(), 3, "{series:?}");
     assert_eq!(doses, series);
 }
+
+/// Run `cistern ARGS` in `dir` under a pseudo-terminal (util-linux `script`), so that stderr is
+/// a terminal; `None` where `script` is missing. Returns what the terminal showed.
+fn on_a_terminal(dir: &Path, args: &[&str]) -> Option<String> {
+    let command = format!("{} {}", env!("CARGO_BIN_EXE_cistern"), args.join(" "));
+    let out = Command::new("script").args(["-qec", &command, "/dev/null"]).current_dir(dir).output().ok()?;
+    assert!(out.status.success(), "{command}: {}", String::from_utf8_lossy(&out.stdout));
+    Some(String::from_utf8_lossy(&out.stdout).into_owned())
+}
+
+#[test]
+fn a_long_simulate_shows_progress_on_a_terminal_and_none_with_quiet() {
+    // Issue: `--times 0:100000h:1min` wrote 529 MB for 18.6 s without a sign of life.
+    let dir = tempfile::tempdir().unwrap();
+    let args = [
+        "simulate",
+        "--dose",
+        "1g",
+        "--every",
+        "12h",
+        "--count",
+        "6",
+        "--duration",
+        "1h",
+        "--cl",
+        "4.2",
+        "--v",
+        "48",
+        "--times",
+        "0:2000h:0.001h",
+        "--allow-large",
+        "-o",
+    ];
+    let Some(shown) = on_a_terminal(dir.path(), &[&args[..], &["big.csv"]].concat()) else {
+        eprintln!("skipped: the progress check needs util-linux `script` for a pseudo-terminal");
+        return;
+    };
+    assert!(shown.contains("rows written"), "no progress shown:\n{shown}");
+    let quiet = on_a_terminal(dir.path(), &[&args[..], &["quiet.csv", "-q"]].concat()).unwrap();
+    assert!(!quiet.contains("rows written"), "-q still shows progress:\n{quiet}");
+    // Progress goes to the terminal, never into the data.
+    let data = std::fs::read_to_string(dir.path().join("big.csv")).unwrap();
+    assert_eq!(data.lines().count(), 2_000_002, "a header and 2,000,001 rows");
+    assert_eq!(data, std::fs::read_to_string(dir.path().join("quiet.csv")).unwrap());
+}
+
+#[test]
+fn a_piped_simulate_shows_no_progress() {
+    let dir = tempfile::tempdir().unwrap();
+    let args = [
+        "simulate",
+        "--dose",
+        "1g",
+        "--every",
+        "12h",
+        "--count",
+        "6",
+        "--duration",
+        "1h",
+        "--cl",
+        "4.2",
+        "--v",
+        "48",
+        "--times",
+        "0:2000h:0.001h",
+        "--allow-large",
+        "-o",
+        "big.csv",
+    ];
+    let (code, _, stderr) = run(dir.path(), &args, None);
+    assert_eq!(code, 0, "{stderr}");
+    assert!(!stderr.contains("rows written"), "{stderr}");
+}
