@@ -383,35 +383,38 @@ fn on_a_terminal(dir: &Path, args: &[&str]) -> Option<String> {
     Some(String::from_utf8_lossy(&out.stdout).into_owned())
 }
 
+/// A simulate of 2,000,001 values (above the million from which progress is shown), writing
+/// to the file named last.
+const LONG_SIMULATE: &[&str] = &[
+    "simulate",
+    "--dose",
+    "1g",
+    "--every",
+    "12h",
+    "--count",
+    "6",
+    "--duration",
+    "1h",
+    "--cl",
+    "4.2",
+    "--v",
+    "48",
+    "--times",
+    "0:2000h:0.001h",
+    "--allow-large",
+    "-o",
+];
+
 #[test]
 fn a_long_simulate_shows_progress_on_a_terminal_and_none_with_quiet() {
     // Issue: `--times 0:100000h:1min` wrote 529 MB for 18.6 s without a sign of life.
     let dir = tempfile::tempdir().unwrap();
-    let args = [
-        "simulate",
-        "--dose",
-        "1g",
-        "--every",
-        "12h",
-        "--count",
-        "6",
-        "--duration",
-        "1h",
-        "--cl",
-        "4.2",
-        "--v",
-        "48",
-        "--times",
-        "0:2000h:0.001h",
-        "--allow-large",
-        "-o",
-    ];
-    let Some(shown) = on_a_terminal(dir.path(), &[&args[..], &["big.csv"]].concat()) else {
+    let Some(shown) = on_a_terminal(dir.path(), &[LONG_SIMULATE, &["big.csv"]].concat()) else {
         eprintln!("skipped: the progress check needs util-linux `script` for a pseudo-terminal");
         return;
     };
     assert!(shown.contains("rows written"), "no progress shown:\n{shown}");
-    let quiet = on_a_terminal(dir.path(), &[&args[..], &["quiet.csv", "-q"]].concat()).unwrap();
+    let quiet = on_a_terminal(dir.path(), &[LONG_SIMULATE, &["quiet.csv", "-q"]].concat()).unwrap();
     assert!(!quiet.contains("rows written"), "-q still shows progress:\n{quiet}");
     // Progress goes to the terminal, never into the data.
     let data = std::fs::read_to_string(dir.path().join("big.csv")).unwrap();
@@ -422,27 +425,7 @@ fn a_long_simulate_shows_progress_on_a_terminal_and_none_with_quiet() {
 #[test]
 fn a_piped_simulate_shows_no_progress() {
     let dir = tempfile::tempdir().unwrap();
-    let args = [
-        "simulate",
-        "--dose",
-        "1g",
-        "--every",
-        "12h",
-        "--count",
-        "6",
-        "--duration",
-        "1h",
-        "--cl",
-        "4.2",
-        "--v",
-        "48",
-        "--times",
-        "0:2000h:0.001h",
-        "--allow-large",
-        "-o",
-        "big.csv",
-    ];
-    let (code, _, stderr) = run(dir.path(), &args, None);
+    let (code, _, stderr) = run(dir.path(), &[LONG_SIMULATE, &["big.csv"]].concat(), None);
     assert_eq!(code, 0, "{stderr}");
     assert!(!stderr.contains("rows written"), "{stderr}");
 }
