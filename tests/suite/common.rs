@@ -76,6 +76,30 @@ pub fn ran(mut command: std::process::Command) -> Ran {
     }
 }
 
+/// Fit the demo study in `dir` (a [`demo_copy`]) and save it with 2,000 posterior draws as
+/// `fit.json`, the input of `cistern plan --fit`; panics unless the fit succeeds.
+pub fn save_demo_fit(dir: &std::path::Path) {
+    let args = [
+        "fit",
+        "--model",
+        "model.toml",
+        "--doses",
+        "doses.csv",
+        "--levels",
+        "levels.csv",
+        "--covariates",
+        "covariates.csv",
+        "--keep-draws",
+        "2000",
+        "--format",
+        "json",
+        "-o",
+        "fit.json",
+    ];
+    let fit = cistern_at(dir, &args, "0");
+    assert_eq!(fit.code, 0, "{}", fit.stderr);
+}
+
 /// A temporary directory holding a copy of `demo-regimens/` (the invented demo scenario).
 pub fn demo_copy() -> tempfile::TempDir {
     let dir = tempfile::tempdir().expect("a temporary directory");

@@ -8,7 +8,7 @@
 //! fictional drug); the one published value is the AUC24 window of the 2020 consensus
 //! guideline, used as a check value only.
 
-use crate::common::{Ran, assert_abs, assert_published, assert_rel, cistern_at, demo_copy};
+use crate::common::{Ran, assert_abs, assert_published, assert_rel, cistern_at, demo_copy, save_demo_fit};
 use cistern::dosing::{Regimen, Route};
 use cistern::engine::Params;
 use cistern::engine::steady::SteadyCurve;
@@ -1019,27 +1019,7 @@ fn csv_json_and_table_carry_the_same_plan() {
 fn a_plan_from_a_saved_fit_equals_the_plan_from_the_levels() {
     let dir = demo_copy();
     let d = dir.path();
-    let fit = cistern(
-        d,
-        &[
-            "fit",
-            "--model",
-            "model.toml",
-            "--doses",
-            "doses.csv",
-            "--levels",
-            "levels.csv",
-            "--covariates",
-            "covariates.csv",
-            "--keep-draws",
-            "2000",
-            "--format",
-            "json",
-            "-o",
-            "fit.json",
-        ],
-    );
-    assert_eq!(fit.code, 0, "{}", fit.stderr);
+    save_demo_fit(d);
     let grid = ["--target", "trough=..15", "--max-peak", "60mg/l"];
     let mut direct: Vec<&str> = DEMO.to_vec();
     direct.extend(GOOD);

@@ -2,7 +2,7 @@
 //! on the input that showed it (the invented demo scenario, `demo-regimens/`), and the a priori
 //! plan checked against the closed forms of a log-normal clearance.
 
-use crate::common::{Ran, cistern_at, demo_copy, page_texts, squeeze};
+use crate::common::{Ran, cistern_at, demo_copy, page_texts, save_demo_fit, squeeze};
 use serde_json::Value;
 use statrs::distribution::{ContinuousCDF, Normal};
 use std::path::Path;
@@ -80,27 +80,7 @@ fn a_start_before_recorded_data_is_warned_about() {
 fn a_saved_fit_and_a_fit_on_the_spot_give_the_same_plan_for_a_later_subject() {
     let dir = demo_copy();
     let d = dir.path();
-    let fit = cistern(
-        d,
-        &[
-            "fit",
-            "--model",
-            "model.toml",
-            "--doses",
-            "doses.csv",
-            "--levels",
-            "levels.csv",
-            "--covariates",
-            "covariates.csv",
-            "--keep-draws",
-            "2000",
-            "--format",
-            "json",
-            "-o",
-            "fit.json",
-        ],
-    );
-    assert_eq!(fit.code, 0, "{}", fit.stderr);
+    save_demo_fit(d);
     let saved: Vec<&str> = ["plan", "--fit", "fit.json", "--doses", "doses.csv", "--subject", "P02"]
         .iter()
         .chain(&GRID)
