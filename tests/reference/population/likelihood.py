@@ -18,12 +18,16 @@ by a dense tensor-product trapezoid rule, with no Gauss-Hermite rule anywhere:
   * theta = (ln CL, ln V[, ln ka]) = mu_i + C z with C the Cholesky factor of Omega, so that
     L_i = integral of prod p(y | mu_i + C z) * phi(z) dz with phi the standard normal density
     (the Jacobian det C cancels the normal density's normalising constant);
-  * z runs over the box [-9, 9]^d (the prior mass outside it is below 2e-18 per dimension), on a
-    grid of n points per dimension, endpoints included;
+  * z runs over the box [-9, 9]^d (the prior mass outside it is below 2e-18 per dimension) for
+    the invented cases, and over a sub-box of it holding the integrand for the theophylline data
+    (`posterior_box`, checked against the full box), on a grid of n points per dimension,
+    endpoints included;
   * n goes 33, 65, 129, 257, ... (the step halves) until L_i changes by less than 1e-9 relative
     between two successive grids; the JSON records both values. The trapezoid rule converges
     geometrically for a smooth integrand that vanishes at the ends of the interval, so the
     change between two grids bounds the error of the coarser one;
+  * as further checks, the cases are also integrated over the sub-box and, in two dimensions,
+    by scipy's adaptive nquad;
   * as a check that the box holds the integrand, the largest integrand on the faces of the box is
     recorded relative to the largest inside (`boundary_max_relative`).
 
@@ -387,7 +391,7 @@ def evaluate(directory, model_name, primary_box, full_box_check_subjects=0):
             if number < full_box_check_subjects:
                 log_l, boundary = log_integral(257, full_box(d), *args)
                 checks["full_box_257_per_dim_minus2ll"] = -2.0 * log_l
-        print(f"  {subject}: {result['minus2ll']!r} {checks}", file=sys.stderr)
+        print(f"  {subject}: {result['minus2ll']} {checks}", file=sys.stderr)
         subjects.append({"subject": subject, "n_levels": len(subject_levels), **result, "checks": checks})
     total = math.fsum(s["minus2ll"] for s in subjects)
     return {
