@@ -40,6 +40,7 @@ pub mod io;
 pub mod limits;
 pub mod model;
 pub mod plan;
+pub mod population;
 pub mod report;
 pub mod seeds;
 pub mod spec;

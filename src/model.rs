@@ -1,12 +1,13 @@
 //! The population model file (TOML, our own format): typical values, between-subject
-//! variability, covariate effects, an optional CL–V correlation, absorption, residual error,
-//! and plausible ranges that trigger warnings.
+//! variability, covariate effects, correlations of the random effects, absorption, residual
+//! error, plausible ranges that trigger warnings, and which values population estimation holds.
 //!
 //! Each individual parameter is log-normal around its typical value:
-//! ln P = ln P_typ(covariates) + η, η ~ N(0, ω²), ω² = ln(1 + CV²).
+//! ln P = ln P_typ(covariates) + η, η ~ N(0, Ω), Ωⱼⱼ = ωⱼ² = ln(1 + CVⱼ²), Ωⱼₖ = ρⱼₖ·ωⱼ·ωₖ.
 
 use crate::covariates::Covariates;
 use crate::error::InputError;
+use crate::fit::linalg::{MAX, Mat, cholesky};
 use crate::io::tomlfile::TomlText;
 use crate::limits;
 use crate::units::Kind;
@@ -35,6 +36,17 @@ pub struct CovariateEffect {
     pub reference: f64,
     /// Exponent or slope.
     pub effect: f64,
+}
+
+impl Form {
+    /// The name the model file uses.
+    pub fn name(self) -> &'static str {
+        match self {
+            Form::Power => "power",
+            Form::Linear => "linear",
+            Form::Exponential => "exponential",
+        }
+    }
 }
 
 impl CovariateEffect {
@@ -125,6 +137,54 @@ impl Residual {
     }
 }
 
+/// Correlations between the random effects of ln CL, ln V and ln ka. An absent one (`None`) is
+/// 0 and population estimation leaves it out; a present one, even 0, is estimated.
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub struct Correlations {
+    /// Correlation of η_CL and η_V.
+    pub cl_v: Option<f64>,
+    /// Correlation of η_CL and η_ka.
+    pub cl_ka: Option<f64>,
+    /// Correlation of η_V and η_ka.
+    pub v_ka: Option<f64>,
+}
+
+impl Correlations {
+    /// The correlation of random effects `i` and `j` (0 CL, 1 V, 2 ka).
+    pub fn between(&self, i: usize, j: usize) -> Option<f64> {
+        match (i.min(j), i.max(j)) {
+            (0, 1) => self.cl_v,
+            (0, 2) => self.cl_ka,
+            (1, 2) => self.v_ka,
+            _ => None,
+        }
+    }
+
+    /// The slot of the correlation of random effects `i` and `j`.
+    pub fn slot(&mut self, i: usize, j: usize) -> &mut Option<f64> {
+        match (i.min(j), i.max(j)) {
+            (0, 1) => &mut self.cl_v,
+            (0, 2) => &mut self.cl_ka,
+            _ => &mut self.v_ka,
+        }
+    }
+}
+
+/// The keys of the model file's values, as `[estimation] hold` names them.
+pub const HOLDABLE: &[&str] = &[
+    "clearance.typical_l_h",
+    "clearance.bsv_cv",
+    "volume.typical_l",
+    "volume.bsv_cv",
+    "absorption.typical_ka_per_h",
+    "absorption.bsv_cv",
+    "correlation.cl_v",
+    "correlation.cl_ka",
+    "correlation.v_ka",
+    "residual.additive_mg_l",
+    "residual.proportional_cv",
+];
+
 /// A validated population model.
 #[derive(Debug, Clone, PartialEq)]
 pub struct PopulationModel {
@@ -134,12 +194,15 @@ pub struct PopulationModel {
     pub clearance: Parameter,
     /// Volume (L).
     pub volume: Parameter,
-    /// Correlation between η_CL and η_V.
-    pub correlation_cl_v: f64,
+    /// Correlations between the random effects.
+    pub correlation: Correlations,
     /// Absorption, for oral drugs.
     pub absorption: Option<Absorption>,
     /// Residual error model.
     pub residual: Residual,
+    /// Values population estimation holds at the file's value: keys of [`HOLDABLE`], or
+    /// `clearance.covariates.NAME` / `volume.covariates.NAME` for a covariate effect.
+    pub hold: Vec<String>,
 }
 
 #[derive(Deserialize)]
@@ -151,6 +214,14 @@ struct RawModel {
     absorption: Option<RawAbsorption>,
     correlation: Option<RawCorrelation>,
     residual: RawResidual,
+    estimation: Option<RawEstimation>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawEstimation {
+    #[serde(default)]
+    hold: Vec<Spanned<String>>,
 }
 
 #[derive(Deserialize)]
@@ -196,7 +267,9 @@ struct RawAbsorption {
 #[derive(Deserialize)]
 #[serde(deny_unknown_fields)]
 struct RawCorrelation {
-    cl_v: Spanned<f64>,
+    cl_v: Option<Spanned<f64>>,
+    cl_ka: Option<Spanned<f64>>,
+    v_ka: Option<Spanned<f64>>,
 }
 
 #[derive(Deserialize)]
@@ -315,6 +388,58 @@ impl Checker<'_> {
     }
 }
 
+impl Checker<'_> {
+    /// `[estimation] hold`: every name a value of this model, each once.
+    fn hold(&mut self, raw: Option<&RawEstimation>, cl: &Parameter, v: &Parameter) -> Vec<String> {
+        let mut held: Vec<String> = Vec::new();
+        for name in raw.map(|r| r.hold.as_slice()).unwrap_or_default() {
+            let text = name.get_ref().trim();
+            let covariate = |prefix: &str, p: &Parameter| {
+                text.strip_prefix(prefix).is_some_and(|c| p.covariates.iter().any(|e| e.covariate == c))
+            };
+            let known = HOLDABLE.contains(&text)
+                || covariate("clearance.covariates.", cl)
+                || covariate("volume.covariates.", v);
+            if !known {
+                self.errors.push(self.text.error_at(
+                    name.span(),
+                    "estimation.hold",
+                    format!(
+                        "'{text}' is not a value of this model; expected one of {}, or \
+                         clearance.covariates.NAME / volume.covariates.NAME for a covariate effect",
+                        HOLDABLE.join(", ")
+                    ),
+                ));
+            } else if held.iter().any(|h| h == text) {
+                self.errors.push(self.text.error_at(
+                    name.span(),
+                    "estimation.hold",
+                    format!("'{text}' is held twice"),
+                ));
+            } else {
+                held.push(text.to_string());
+            }
+        }
+        held
+    }
+}
+
+/// Ω of the random effects of ln CL, ln V and ln ka (top-left 2×2 when ka does not vary).
+fn covariance(cl: &Parameter, v: &Parameter, abs: Option<&Absorption>, corr: &Correlations) -> Mat {
+    let variances = [cl.omega2, v.omega2, abs.map_or(0.0, |a| a.ka.omega2)];
+    let mut omega = [[0.0; MAX]; MAX];
+    for i in 0..MAX {
+        for j in 0..MAX {
+            omega[i][j] = if i == j {
+                variances[i]
+            } else {
+                corr.between(i, j).unwrap_or(0.0) * (variances[i] * variances[j]).sqrt()
+            };
+        }
+    }
+    omega
+}
+
 fn omega2(cv: f64) -> f64 {
     (cv * cv).ln_1p()
 }
@@ -379,16 +504,45 @@ impl PopulationModel {
                 tlag_h,
             }
         });
-        let correlation_cl_v = raw.correlation.as_ref().map_or(0.0, |r| {
-            let x = *r.cl_v.get_ref();
-            c.require(
-                x.abs() < 1.0,
-                &r.cl_v,
-                "correlation.cl_v",
-                &format!("expected a correlation strictly between -1 and 1, found {x}"),
-            );
-            x
-        });
+        let mut correlation = Correlations::default();
+        let ka_varies = absorption.as_ref().is_some_and(|a| a.ka.varies());
+        if let Some(r) = &raw.correlation {
+            for (value, key, slot) in [
+                (&r.cl_v, "correlation.cl_v", &mut correlation.cl_v),
+                (&r.cl_ka, "correlation.cl_ka", &mut correlation.cl_ka),
+                (&r.v_ka, "correlation.v_ka", &mut correlation.v_ka),
+            ] {
+                let Some(value) = value else { continue };
+                let x = *value.get_ref();
+                c.require(
+                    x.abs() < 1.0,
+                    value,
+                    key,
+                    &format!("expected a correlation strictly between -1 and 1, found {x}"),
+                );
+                if key != "correlation.cl_v" {
+                    c.require(
+                        ka_varies,
+                        value,
+                        key,
+                        "a correlation with ka needs ka to vary between subjects (absorption.bsv_cv above 0)",
+                    );
+                }
+                *slot = Some(x);
+            }
+            let span = [&r.cl_v, &r.cl_ka, &r.v_ka].into_iter().flatten().next();
+            if let Some(span) = span
+                && c.errors.is_empty()
+            {
+                let omega = covariance(&clearance, &volume, absorption.as_ref(), &correlation);
+                c.require(
+                    cholesky(&omega, if ka_varies { 3 } else { 2 }).is_some(),
+                    span,
+                    "correlation",
+                    "these correlations do not form a valid covariance (the matrix is not positive definite)",
+                );
+            }
+        }
         let additive = *raw.residual.additive_mg_l.get_ref();
         let proportional = *raw.residual.proportional_cv.get_ref();
         c.require(
@@ -414,6 +568,7 @@ impl PopulationModel {
             "residual",
             "the residual error cannot be zero: give additive_mg_l or proportional_cv above 0",
         );
+        let hold = c.hold(raw.estimation.as_ref(), &clearance, &volume);
         if !c.errors.is_empty() {
             return Err(c.errors);
         }
@@ -421,9 +576,10 @@ impl PopulationModel {
             drug: raw.drug.and_then(|d| d.name),
             clearance,
             volume,
-            correlation_cl_v,
+            correlation,
             absorption,
             residual: Residual { additive_mg_l: additive, proportional_cv: proportional },
+            hold,
         })
     }
 
@@ -432,9 +588,98 @@ impl PopulationModel {
         PopulationModel::parse(&TomlText::read(path).map_err(|e| vec![e])?)
     }
 
+    /// The number of random effects: 2 (ln CL, ln V), or 3 when ka varies between subjects.
+    pub fn random_effects(&self) -> usize {
+        if self.absorption.as_ref().is_some_and(|a| a.ka.varies()) { 3 } else { 2 }
+    }
+
+    /// Ω, the covariance of the random effects of ln CL, ln V and ln ka, in the top-left
+    /// [`random_effects`](Self::random_effects) × that corner (the rest 0). Valid by
+    /// construction: the reader refuses correlations that do not form a covariance.
+    pub fn omega(&self) -> Mat {
+        covariance(&self.clearance, &self.volume, self.absorption.as_ref(), &self.correlation)
+    }
+
+    /// The lower-triangular Cholesky factor L of [`omega`](Self::omega) (Ω = L·Lᵀ), for drawing
+    /// random effects η = L·z.
+    pub fn omega_factor(&self) -> Mat {
+        // Valid by construction (see `omega`); an all-zero factor would only remove variability.
+        cholesky(&self.omega(), self.random_effects()).unwrap_or_default()
+    }
+
+    /// Whether population estimation holds the value `key` (a [`HOLDABLE`] key or a covariate
+    /// effect's `clearance.covariates.NAME`).
+    pub fn holds(&self, key: &str) -> bool {
+        self.hold.iter().any(|h| h == key)
+    }
+
     /// Typical clearance and volume for one set of covariates.
     pub fn typical_cl_v(&self, covariates: &Covariates) -> Result<(f64, f64), InputError> {
         Ok((self.clearance.typical_for(covariates)?, self.volume.typical_for(covariates)?))
+    }
+
+    /// The model as a model file that [`parse`](Self::parse) reads back to the same model.
+    /// Numbers are written in the shortest form that reads back to the same `f64`; a
+    /// variability is written as its CV, whose ω² = ln(1 + CV²) reads back to within rounding.
+    pub fn to_toml(&self) -> String {
+        let mut out = String::new();
+        if let Some(name) = &self.drug {
+            out += &format!("[drug]\nname = {}\n\n", toml_string(name));
+        }
+        let range = |r: Option<(f64, f64)>, key: &str| {
+            r.map_or(String::new(), |(lo, hi)| {
+                format!("{key} = [{}, {}]\n", toml_number(lo), toml_number(hi))
+            })
+        };
+        for (table, p, typical_key, plausible_key) in [
+            ("clearance", &self.clearance, "typical_l_h", "plausible_l_h"),
+            ("volume", &self.volume, "typical_l", "plausible_l"),
+        ] {
+            out += &format!(
+                "[{table}]\n{typical_key} = {}\nbsv_cv = {}\n{}",
+                toml_number(p.typical),
+                toml_number(p.bsv_cv),
+                range(p.plausible, plausible_key)
+            );
+            for c in &p.covariates {
+                out += &format!(
+                    "[[{table}.covariates]]\ncovariate = {}\nform = \"{}\"\nreference = {}\neffect = {}\n",
+                    toml_string(&c.covariate),
+                    c.form.name(),
+                    toml_number(c.reference),
+                    toml_number(c.effect)
+                );
+            }
+            out += "\n";
+        }
+        let c = &self.correlation;
+        let present: Vec<String> = [("cl_v", c.cl_v), ("cl_ka", c.cl_ka), ("v_ka", c.v_ka)]
+            .into_iter()
+            .filter_map(|(key, v)| Some(format!("{key} = {}\n", toml_number(v?))))
+            .collect();
+        if !present.is_empty() {
+            out += &format!("[correlation]\n{}\n", present.concat());
+        }
+        if let Some(a) = &self.absorption {
+            out += &format!(
+                "[absorption]\ntypical_ka_per_h = {}\nbsv_cv = {}\n{}f = {}\ntlag_h = {}\n\n",
+                toml_number(a.ka.typical),
+                toml_number(a.ka.bsv_cv),
+                range(a.ka.plausible, "plausible_ka_per_h"),
+                toml_number(a.f),
+                toml_number(a.tlag_h)
+            );
+        }
+        out += &format!(
+            "[residual]\nadditive_mg_l = {}\nproportional_cv = {}\n",
+            toml_number(self.residual.additive_mg_l),
+            toml_number(self.residual.proportional_cv)
+        );
+        if !self.hold.is_empty() {
+            let names: Vec<String> = self.hold.iter().map(|h| toml_string(h)).collect();
+            out += &format!("\n[estimation]\nhold = [{}]\n", names.join(", "));
+        }
+        out
     }
 
     /// Every covariate the model uses.
@@ -450,6 +695,27 @@ impl PopulationModel {
         names.dedup();
         names
     }
+}
+
+/// A number as TOML reads it back exactly (always with a decimal point or exponent, so it is
+/// a float).
+fn toml_number(x: f64) -> String {
+    let text = format!("{x:?}");
+    if text.contains(['.', 'e', 'E']) || !x.is_finite() { text } else { format!("{text}.0") }
+}
+
+/// A string as a TOML basic string.
+fn toml_string(s: &str) -> String {
+    let mut out = String::from("\"");
+    for ch in s.chars() {
+        match ch {
+            '"' => out += "\\\"",
+            '\\' => out += "\\\\",
+            c if c.is_control() => out += &format!("\\u{:04X}", c as u32),
+            c => out.push(c),
+        }
+    }
+    out + "\""
 }
 
 #[cfg(test)]
@@ -482,6 +748,32 @@ proportional_cv = 0.10
         let typ = m.clearance.typical_for(&cov).unwrap();
         assert!((typ - 4.0 * 0.5f64.powf(0.75)).abs() < 1e-12);
         assert!(m.clearance.typical_for(&Covariates::default()).unwrap_err().message.contains("crcl_ml_min"));
+    }
+
+    #[test]
+    fn a_written_model_reads_back_the_same() {
+        let text = EXAMPLE.replace("[residual]", "[absorption]\ntypical_ka_per_h = 1.3\nbsv_cv = 0.4\n[correlation]\ncl_v = 0.25\nv_ka = -0.1\n[residual]")
+            + "[estimation]\nhold = [\"residual.additive_mg_l\", \"clearance.covariates.crcl_ml_min\"]\n[drug]\nname = \"a \\\"quoted\\\" name\"\n";
+        let m = PopulationModel::parse(&TomlText::new("m.toml", &text)).unwrap();
+        let back = PopulationModel::parse(&TomlText::new("out.toml", &m.to_toml())).unwrap();
+        assert_eq!(back, m, "{}", m.to_toml());
+        assert_eq!(m.random_effects(), 3);
+        let omega = m.omega();
+        assert!((omega[1][2] - -0.1 * (m.volume.omega2 * 0.16f64.ln_1p()).sqrt()).abs() < 1e-15);
+        assert!(omega[0][2].abs() < f64::MIN_POSITIVE);
+    }
+
+    #[test]
+    fn correlations_must_form_a_covariance() {
+        let text = EXAMPLE.replace("[residual]", "[absorption]\ntypical_ka_per_h = 1.3\nbsv_cv = 0.4\n[correlation]\ncl_v = 0.9\ncl_ka = 0.9\nv_ka = -0.9\n[residual]");
+        let e = PopulationModel::parse(&TomlText::new("m.toml", &text)).unwrap_err();
+        assert!(e[0].message.contains("not positive definite"), "{e:?}");
+        let text = EXAMPLE.replace("[residual]", "[correlation]\ncl_ka = 0.2\n[residual]");
+        let e = PopulationModel::parse(&TomlText::new("m.toml", &text)).unwrap_err();
+        assert!(e[0].message.contains("needs ka to vary"), "{e:?}");
+        let text = EXAMPLE.to_string() + "[estimation]\nhold = [\"volume.covariates.weight_kg\"]\n";
+        let e = PopulationModel::parse(&TomlText::new("m.toml", &text)).unwrap_err();
+        assert!(e[0].message.contains("not a value of this model"), "{e:?}");
     }
 
     #[test]

@@ -26,6 +26,7 @@ const SUBJECTS: u64 = 0;
 const PLAN: u64 = 1;
 const REPORT_BANDS: u64 = 2;
 const VIRTUAL_SUBJECTS: u64 = 3;
+const BOOTSTRAP: u64 = 4;
 
 impl Seeds {
     /// The draws of one subject's parameters — its posterior sampling when fitted, its prior
@@ -50,6 +51,11 @@ impl Seeds {
     /// The `index`-th virtual subject of a sweep (counted across all shards).
     pub fn virtual_subject(self, index: u64) -> u64 {
         mix(mix(self.0, VIRTUAL_SUBJECTS), index)
+    }
+
+    /// The resampling of the `index`-th bootstrap replicate of a population estimation.
+    pub fn bootstrap_replicate(self, index: u64) -> u64 {
+        mix(mix(self.0, BOOTSTRAP), index)
     }
 
     /// The uniform offset of a systematic resample of the `seed`'s draws.

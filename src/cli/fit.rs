@@ -215,7 +215,8 @@ fn method_name(r: &FitResult) -> String {
     serde_json::to_value(r.method).ok().and_then(|v| v.as_str().map(str::to_string)).unwrap_or_default()
 }
 
-fn write_csv(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std::io::Result<()> {
+/// `fit`'s CSV: one row per subject (also `population --subjects-out`).
+pub(super) fn write_csv(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std::io::Result<()> {
     let names = ["cl_l_h", "v_l", "k_per_h", "half_life_h", "ka_per_h"];
     let mut header = vec![
         "subject".to_string(),

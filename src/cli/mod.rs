@@ -6,6 +6,7 @@ mod exposure;
 mod fit;
 mod merge;
 mod plan;
+mod population;
 mod regimen_grid;
 mod report;
 mod signals;
@@ -43,6 +44,7 @@ enum Command {
     Exposure(exposure::ExposureArgs),
     Fit(fit::FitArgs),
     Plan(plan::PlanArgs),
+    Population(population::PopulationArgs),
     Report(report::ReportArgs),
     Check(check::CheckArgs),
     Sweep(sweep::SweepArgs),
@@ -66,6 +68,7 @@ pub fn run() -> ExitCode {
         Command::Exposure(a) => exposure::run(a),
         Command::Fit(a) => fit::run(a),
         Command::Plan(a) => plan::run(a),
+        Command::Population(a) => population::run(a),
         Command::Report(a) => report::run(a),
         Command::Check(a) => check::run(a),
         Command::Sweep(a) => sweep::run(a),

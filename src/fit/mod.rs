@@ -568,16 +568,12 @@ fn fit_map(
     let (cl_typ, v_typ) = model.typical_cl_v(cov).map_err(|e| e.describe())?;
     let ka_prior = model.absorption.as_ref().map(|a| a.ka.clone());
     let n = if abs.estimate_ka { 3 } else { 2 };
-    let mut omega: Mat = [[0.0; MAX]; MAX];
-    let (w_cl, w_v) = (model.clearance.omega2, model.volume.omega2);
-    omega[0][0] = w_cl;
-    omega[1][1] = w_v;
-    omega[0][1] = model.correlation_cl_v * (w_cl * w_v).sqrt();
-    omega[1][0] = omega[0][1];
+    // With ka not estimated its random effect (if any) is integrated out: the top-left 2×2 of
+    // Ω is the marginal covariance of η_CL and η_V.
+    let omega = model.omega();
     let mut mean = [cl_typ.ln(), v_typ.ln(), 0.0];
     if n == 3 {
         let ka = ka_prior.as_ref().ok_or("the model has no [absorption] table")?;
-        omega[2][2] = ka.omega2;
         mean[2] = ka.typical.ln();
     }
     let precision = spd_inverse(&omega, n)

@@ -59,6 +59,28 @@ pub fn blq_term<R: Real>(lloq: f64, f: R, var: R) -> R {
     z.through(ln_norm_cdf(zv), ln_norm_cdf_slope(zv)) * -2.0
 }
 
+/// −2 ln L of one level with prediction `f` and residual variance `var`: the normal density of
+/// a quantified level, M3 for one below the limit.
+///
+/// Zero variance (a proportional-only error where the prediction is 0) makes the level's
+/// distribution a point mass at the prediction: a level there (0, or below its limit) is
+/// certain and adds a constant, dropped; any other value is impossible (+∞).
+pub(crate) fn level_term<R: Real>(level: &Level, f: R, var: R) -> R {
+    if var.val() > 0.0 {
+        return match (level.conc_mg_l, level.lloq_mg_l) {
+            (Some(y), _) => quantified_term(y, f, var),
+            (None, Some(lloq)) => blq_term(lloq, f, var),
+            (None, None) => R::cst(0.0),
+        };
+    }
+    let possible = match (level.conc_mg_l, level.lloq_mg_l) {
+        (Some(y), _) => y.abs() <= f64::MIN_POSITIVE,
+        (None, Some(lloq)) => lloq > 0.0,
+        (None, None) => true,
+    };
+    R::cst(if possible { 0.0 } else { f64::INFINITY })
+}
+
 choice_enum! {
     /// How residuals are weighted in least squares.
     #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
@@ -169,27 +191,7 @@ impl Problem {
             total += match &self.likelihood {
                 Likelihood::Bayes(res) => {
                     let var = R::cst(res.additive_mg_l.powi(2)) + fi * fi * res.proportional_cv.powi(2);
-                    if var.val() > 0.0 {
-                        match (level.conc_mg_l, level.lloq_mg_l) {
-                            (Some(y), _) => quantified_term(y, fi, var),
-                            (None, Some(lloq)) => blq_term(lloq, fi, var),
-                            (None, None) => R::cst(0.0),
-                        }
-                    } else {
-                        // Zero variance (a proportional-only error where the prediction is 0):
-                        // the level's distribution is a point mass at the prediction. A level
-                        // there (0, or below its limit) is certain and adds a constant, dropped;
-                        // any other value is impossible at these parameters.
-                        let possible = match (level.conc_mg_l, level.lloq_mg_l) {
-                            (Some(y), _) => y.abs() <= f64::MIN_POSITIVE,
-                            (None, Some(lloq)) => lloq > 0.0,
-                            (None, None) => true,
-                        };
-                        if !possible {
-                            return R::cst(f64::INFINITY);
-                        }
-                        R::cst(0.0)
-                    }
+                    level_term(level, fi, var)
                 }
                 Likelihood::LeastSquares(w) => {
                     let y = level.conc_mg_l.unwrap_or(0.0);

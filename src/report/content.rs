@@ -607,8 +607,14 @@ fn methods(a: &Analysis, b: &mut Vec<Block>) {
         plain(m.volume.typical),
         100.0 * m.volume.bsv_cv
     );
-    if m.correlation_cl_v != 0.0 {
-        prior += &format!(", correlation of CL and V {}", plain(m.correlation_cl_v));
+    for (pair, value) in [
+        ("CL and V", m.correlation.cl_v),
+        ("CL and ka", m.correlation.cl_ka),
+        ("V and ka", m.correlation.v_ka),
+    ] {
+        if let Some(rho) = value.filter(|r| *r != 0.0) {
+            prior += &format!(", correlation of {pair} {}", plain(rho));
+        }
     }
     for (p, name) in [(&m.clearance, "CL"), (&m.volume, "V")] {
         for c in &p.covariates {

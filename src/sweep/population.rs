@@ -2,9 +2,9 @@
 //! parameters.
 //!
 //! A drawn subject's between-subject variability follows the model (docs/methods.md): with
-//! z₁, z₂, z₃ independent standard normals, η_CL = ω_CL·z₁, η_V = ω_V·(ρ·z₁ + √(1 − ρ²)·z₂)
-//! (so corr(η_CL, η_V) = ρ) and η_ka = ω_ka·z₃; each parameter is its typical value for the
-//! subject's covariates times e^η. Covariates are resampled uniformly with replacement from a
+//! z = (z₁, z₂, z₃) independent standard normals, η = L·z where Ω = L·Lᵀ (Cholesky), so
+//! η_CL = ω_CL·z₁, η_V = ω_V·(ρ·z₁ + √(1 − ρ²)·z₂) when only CL and V correlate; each
+//! parameter is its typical value for the subject's covariates times e^η. Covariates are resampled uniformly with replacement from a
 //! pool of real or invented subjects, or drawn from stated distributions. Every draw of
 //! subject i comes from its own generator seeded with `Seeds(seed).virtual_subject(i)`, so a subject is the
 //! same whatever the thread count, the chunking or the shard it falls in.
@@ -309,14 +309,16 @@ impl Population {
         };
         let mut rng = StdRng::seed_from_u64(Seeds(seed).virtual_subject(index));
         let normal = Normal::standard();
-        let (z1, z2) = (normal.sample(&mut rng), normal.sample(&mut rng));
-        let rho = model.correlation_cl_v;
-        let eta_cl = model.clearance.omega2.sqrt() * z1;
-        let eta_v = model.volume.omega2.sqrt() * (rho * z1 + (1.0 - rho * rho).sqrt() * z2);
-        let absorption = model.absorption.as_ref().map(|a| {
-            let z3 = normal.sample(&mut rng);
-            (a.ka.typical * (a.ka.omega2.sqrt() * z3).exp(), a.f, a.tlag_h)
-        });
+        // η = L·z with Ω = L·Lᵀ; a third normal is drawn for every model with absorption, so
+        // a subject's draws do not depend on whether ka varies.
+        let mut z = [normal.sample(&mut rng), normal.sample(&mut rng), 0.0];
+        if model.absorption.is_some() {
+            z[2] = normal.sample(&mut rng);
+        }
+        let factor = model.omega_factor();
+        let eta = |i: usize| (0..=i).map(|j| factor[i][j] * z[j]).sum::<f64>();
+        let (eta_cl, eta_v) = (eta(0), eta(1));
+        let absorption = model.absorption.as_ref().map(|a| (a.ka.typical * eta(2).exp(), a.f, a.tlag_h));
         let (cl_typ, v_typ, origin) = match covariates {
             Covs::Constant(cl, v) => (*cl, *v, None),
             Covs::Pool(pool) => {

@@ -82,7 +82,7 @@ fn population(model: &PopulationModel) -> Vec<Virtual> {
     let mut rng = StdRng::seed_from_u64(SEED);
     let normal = Normal::new(0.0, 1.0).unwrap();
     let (w_cl, w_v) = (model.clearance.omega2.sqrt(), model.volume.omega2.sqrt());
-    let rho = model.correlation_cl_v;
+    let rho = model.correlation.cl_v.unwrap_or(0.0);
     (0..SUBJECTS)
         .map(|i| {
             let mut covariates = Covariates::default();
@@ -245,7 +245,7 @@ fn the_posterior_sampler_matches_quadrature_of_the_exact_posterior() {
     let options = FitOptions { method: Method::Map, draws: 20_000, seed: SEED, ..FitOptions::default() };
     let results = fit_all(&subjects, Some(&model), &options);
     let (w_cl, w_v) = (model.clearance.omega2, model.volume.omega2);
-    let c = model.correlation_cl_v * (w_cl * w_v).sqrt();
+    let c = model.omega()[0][1];
     let det = w_cl * w_v - c * c;
     let precision = [[w_v / det, -c / det, 0.0], [-c / det, w_cl / det, 0.0], [0.0; 3]];
     let mut worst = [0.0f64; 2];

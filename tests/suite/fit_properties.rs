@@ -17,7 +17,7 @@ use cistern::fit::objective::{Fixed, Likelihood, Prior, Problem, Weighting};
 use cistern::fit::{FitOptions, FitResult, Intervals, Method, SubjectData, fit_all, fit_subject};
 use cistern::io::levels::Level;
 use cistern::io::tomlfile::TomlText;
-use cistern::model::{Parameter, PopulationModel, Residual};
+use cistern::model::{Correlations, Parameter, PopulationModel, Residual};
 use proptest::prelude::*;
 
 fn level(time_h: f64, conc: f64) -> Level {
@@ -138,9 +138,10 @@ fn model_with(omega2_cl: f64, omega2_v: f64, residual: Residual) -> PopulationMo
         drug: None,
         clearance: parameter(4.0, omega2_cl),
         volume: parameter(50.0, omega2_v),
-        correlation_cl_v: 0.3,
+        correlation: Correlations { cl_v: Some(0.3), ..Correlations::default() },
         absorption: None,
         residual,
+        hold: Vec::new(),
     }
 }
 

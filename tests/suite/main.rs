@@ -21,6 +21,7 @@ mod outputs;
 mod parser_fuzz;
 mod plan;
 mod plan_regressions;
+mod population;
 mod published_engine;
 mod published_fit;
 mod report;

@@ -1,0 +1,340 @@
+//! One subject's marginal likelihood Lᵢ = ∫ p(yᵢ | θ)·N(θ; μᵢ, Ω) dθ over its individual
+//! log-parameters θ = (ln CL, ln V[, ln ka]).
+//!
+//! **Adaptive Gauss–Hermite quadrature** (Pinheiro & Bates 1995): with θ̂ the conditional mode
+//! and H the Hessian of c(θ) = −2 ln[p(y | θ)·N(θ; μ, Ω)] there, Σ = (H/2)⁻¹ = L·Lᵀ, the nodes are
+//! θₖ = θ̂ + √2·L·xₖ for the product rule's points xₖ and
+//!
+//! ```text
+//! Lᵢ ≈ |det √2·L| · Σₖ wₖ·e^(|xₖ|²) · p(y | θₖ)·N(θₖ; μ, Ω)
+//! ```
+//!
+//! exact when the integrand is a Gaussian times a polynomial of degree below 2·nodes.
+//!
+//! **Laplace** (one node, the curvature replaced by its expectation given θ̂ — the conditional
+//! approximation with interaction, Wang 2007, doi:10.1007/s10928-007-9060-6):
+//! −2 ln Lᵢ ≈ c_y(θ̂) + (θ̂ − μ)ᵀΩ⁻¹(θ̂ − μ) + ln det(2πΩ) − n·ln 2π + ln det(H_y/2 + Ω⁻¹), with c_y the
+//! data part of c and H_y its expected Hessian: Σ 2∇f∇fᵀ/V + ∇V∇Vᵀ/V² over quantified levels
+//! (V = a² + b²f²) and the Gauss–Newton part 2λ(λ + z)∇z∇zᵀ of −2 ln Φ(z) over levels below the
+//! limit (z = (LLOQ − f)/√V, λ = φ(z)/Φ(z)).
+//!
+//! An adaptation (mode, curvature, nodes and the predictions at the nodes) is made at one φ
+//! and then reused while the optimiser moves φ: the nodes stay where the posterior is, the
+//! predictions need no new run of the engine, and only the prior density and the residual
+//! terms change. The estimator re-adapts until φ no longer moves (docs/methods.md).
+
+use super::quadrature::Rule;
+use crate::engine::scalar::Dual;
+use crate::fit::SubjectData;
+use crate::fit::linalg::{MAX, Mat, cholesky, log_det, spd_inverse};
+use crate::fit::objective::{D3, Fixed, Likelihood, Prior, Problem, level_term};
+use crate::fit::optimise;
+use crate::io::levels::Level;
+use crate::model::Residual;
+use std::f64::consts::PI;
+
+/// What a subject's likelihood needs of the population at one φ.
+#[derive(Debug, Clone)]
+pub struct Population<'a> {
+    /// Random effects: 2 or 3.
+    pub n: usize,
+    /// Ω.
+    pub omega: &'a Mat,
+    /// Ω⁻¹.
+    pub precision: Mat,
+    /// ln det(2πΩ).
+    pub ln_det_2pi_omega: f64,
+    /// (a, b) of σ² = a² + (b·f)².
+    pub residual: [f64; 2],
+    /// ka when it is not a random effect (1/h), F and the lag time.
+    pub fixed_ka: Option<f64>,
+    /// Bioavailability.
+    pub f: f64,
+    /// Lag time (h).
+    pub tlag_h: f64,
+}
+
+impl<'a> Population<'a> {
+    /// `None` when Ω is not positive definite.
+    pub fn new(
+        n: usize,
+        omega: &'a Mat,
+        residual: [f64; 2],
+        absorption: (Option<f64>, f64, f64),
+    ) -> Option<Self> {
+        let l = cholesky(omega, n)?;
+        Some(Population {
+            n,
+            omega,
+            precision: spd_inverse(omega, n)?,
+            ln_det_2pi_omega: log_det(&l, n) + n as f64 * (2.0 * PI).ln(),
+            residual,
+            fixed_ka: absorption.0,
+            f: absorption.1,
+            tlag_h: absorption.2,
+        })
+    }
+
+    fn problem(&self, subject: &SubjectData, mean: [f64; MAX]) -> Problem {
+        Problem::new(
+            &subject.doses,
+            &subject.levels,
+            Fixed { n: self.n, ka_per_h: self.fixed_ka, f: self.f, tlag_h: self.tlag_h },
+            Likelihood::Bayes(Residual {
+                additive_mg_l: self.residual[0],
+                proportional_cv: self.residual[1],
+            }),
+            Some(Prior { mean, precision: self.precision }),
+        )
+    }
+}
+
+/// One quadrature node with the predictions there.
+#[derive(Debug, Clone)]
+struct Node {
+    theta: [f64; MAX],
+    /// ln(wₖ·e^(|xₖ|²)·|det √2·L|).
+    ln_weight: f64,
+    predictions: Vec<f64>,
+}
+
+/// A subject adapted at one φ.
+#[derive(Debug, Clone)]
+pub struct Adapted {
+    /// The conditional mode θ̂.
+    pub mode: [f64; MAX],
+    /// Whether the mode search converged.
+    pub converged: bool,
+    nodes: Vec<Node>,
+    /// ∇f at θ̂ for each level (Laplace only).
+    slopes: Vec<[f64; MAX]>,
+}
+
+/// A subject's −2 ln Lᵢ and its slopes with respect to what φ moves.
+#[derive(Debug, Clone, Copy)]
+pub struct Terms {
+    /// −2 ln Lᵢ.
+    pub value: f64,
+    /// ∂/∂μ.
+    pub d_mu: [f64; MAX],
+    /// ∂/∂Ω (symmetric; both triangles carry the slope of the entry).
+    pub d_omega: Mat,
+    /// ∂/∂ln a and ∂/∂ln b.
+    pub d_residual: [f64; 2],
+}
+
+/// The product rule's points: every combination of `rule`'s nodes in `n` dimensions, with
+/// ln(Π wᵢ·e^(xᵢ²)). None is pruned: where the posterior has heavier tails than its Gaussian
+/// approximation, the outer points carry weight.
+fn grid(rule: &Rule, n: usize) -> Vec<([f64; MAX], f64)> {
+    let m = rule.nodes.len();
+    (0..m.pow(n as u32))
+        .map(|mut index| {
+            let mut x = [0.0; MAX];
+            let mut ln_w = 0.0;
+            for xd in x.iter_mut().take(n) {
+                let i = index % m;
+                index /= m;
+                *xd = rule.nodes[i];
+                ln_w += rule.ln_weights[i] + rule.nodes[i] * rule.nodes[i];
+            }
+            (x, ln_w)
+        })
+        .collect()
+}
+
+/// Find the subject's conditional mode at `mean` (warm-started from `previous`) and place the
+/// nodes there: the rule's product grid, or (`rule` = `None`) the Laplace point.
+pub fn adapt(
+    subject: &SubjectData,
+    population: &Population,
+    mean: [f64; MAX],
+    previous: Option<&[f64; MAX]>,
+    rule: Option<&Rule>,
+) -> Adapted {
+    let n = population.n;
+    let problem = population.problem(subject, mean);
+    let mut opt = optimise::minimise(&problem, &previous.unwrap_or(&mean)[..n]);
+    if !opt.converged && previous.is_some() {
+        let fresh = optimise::minimise(&problem, &mean[..n]);
+        if fresh.converged || fresh.cost < opt.cost {
+            opt = fresh;
+        }
+    }
+    let mut mode = [0.0; MAX];
+    mode[..n].copy_from_slice(&opt.theta[..n]);
+    let Some(rule) = rule else {
+        let duals: Vec<D3> = (0..n).map(|i| D3::var(mode[i], i)).collect();
+        let slopes = problem.predictions(&duals).iter().map(|f| f.d).collect::<Vec<_>>();
+        let predictions = problem.predictions(&mode[..n]);
+        return Adapted {
+            mode,
+            converged: opt.converged,
+            nodes: vec![Node { theta: mode, ln_weight: 0.0, predictions }],
+            slopes,
+        };
+    };
+    // The curvature at the mode; where it is not positive definite (a mode not found), the
+    // Gauss–Newton curvature, which includes the prior's and always is.
+    let half = |m: Mat| m.map(|row| row.map(|x| 0.5 * x));
+    let covariance = spd_inverse(&half(opt.hessian), n)
+        .or_else(|| spd_inverse(&half(problem.gauss_newton(&mode[..n])), n));
+    let l = covariance.as_ref().and_then(|c| cholesky(c, n)).unwrap_or_else(|| {
+        let mut l = [[0.0; MAX]; MAX];
+        (0..n).for_each(|i| l[i][i] = population.omega[i][i].sqrt());
+        l
+    });
+    let ln_det = (0..n).map(|i| (2f64.sqrt() * l[i][i]).ln()).sum::<f64>();
+    let nodes = grid(rule, n)
+        .into_iter()
+        .map(|(x, ln_w)| {
+            let mut theta = mode;
+            for i in 0..n {
+                theta[i] += 2f64.sqrt() * (0..=i).map(|j| l[i][j] * x[j]).sum::<f64>();
+            }
+            Node { theta, ln_weight: ln_w + ln_det, predictions: problem.predictions(&theta[..n]) }
+        })
+        .collect();
+    Adapted { mode, converged: opt.converged, nodes, slopes: Vec::new() }
+}
+
+/// −2 ln p(y | θ) from the predictions at θ, with its slopes in ln a and ln b.
+fn data_term(levels: &[Level], predictions: &[f64], residual: [f64; 2]) -> Dual<2> {
+    let [a, b] = residual;
+    let mut total = Dual { v: 0.0, d: [0.0; 2] };
+    for (level, &f) in levels.iter().zip(predictions) {
+        let bf2 = (b * f).powi(2);
+        let var = Dual { v: a * a + bf2, d: [2.0 * a * a, 2.0 * bf2] };
+        total += level_term(level, Dual { v: f, d: [0.0; 2] }, var);
+    }
+    total
+}
+
+/// The Laplace curvature H_y/2 + Ω⁻¹ at the mode for residual (a, b) (see the module's text).
+fn laplace_curvature(
+    levels: &[Level],
+    adapted: &Adapted,
+    population: &Population,
+    residual: [f64; 2],
+) -> Mat {
+    let n = population.n;
+    let [a, b] = residual;
+    let mut m = population.precision;
+    for ((level, &f), g) in levels.iter().zip(&adapted.nodes[0].predictions).zip(&adapted.slopes) {
+        let var = a * a + (b * f).powi(2);
+        if var <= 0.0 {
+            continue;
+        }
+        let dvar: Vec<f64> = (0..n).map(|i| 2.0 * b * b * f * g[i]).collect();
+        let mut add = |w: f64, u: &[f64]| {
+            for i in 0..n {
+                for j in 0..n {
+                    m[i][j] += 0.5 * w * u[i] * u[j];
+                }
+            }
+        };
+        match (level.conc_mg_l, level.lloq_mg_l) {
+            (Some(_), _) => {
+                add(2.0 / var, &g[..n]);
+                add(1.0 / (var * var), &dvar);
+            }
+            (None, Some(lloq)) => {
+                let z = (lloq - f) / var.sqrt();
+                let lambda =
+                    (-0.5 * z * z - 0.5 * (2.0 * PI).ln() - crate::fit::objective::ln_norm_cdf(z)).exp();
+                let dz: Vec<f64> = (0..n).map(|i| -g[i] / var.sqrt() - z * dvar[i] / (2.0 * var)).collect();
+                add(2.0 * lambda * (lambda + z), &dz);
+            }
+            (None, None) => {}
+        }
+    }
+    m
+}
+
+/// ln det of a positive-definite matrix, or +∞ when it is not one.
+fn ln_det_or_infinite(m: &Mat, n: usize) -> f64 {
+    cholesky(m, n).map_or(f64::INFINITY, |l| log_det(&l, n))
+}
+
+/// The subject's −2 ln Lᵢ at `mean` and `population`, with the nodes of `adapted`, and its slopes.
+pub fn terms(
+    levels: &[Level],
+    adapted: &Adapted,
+    population: &Population,
+    mean: &[f64; MAX],
+    laplace: bool,
+) -> Terms {
+    let n = population.n;
+    let p = &population.precision;
+    let deviation = |theta: &[f64; MAX]| {
+        let d: Vec<f64> = (0..n).map(|i| theta[i] - mean[i]).collect();
+        let u: Vec<f64> = (0..n).map(|i| (0..n).map(|j| p[i][j] * d[j]).sum()).collect();
+        let q: f64 = (0..n).map(|i| d[i] * u[i]).sum();
+        (u, q)
+    };
+    let mut out = Terms { value: 0.0, d_mu: [0.0; MAX], d_omega: [[0.0; MAX]; MAX], d_residual: [0.0; 2] };
+    if laplace {
+        let node = &adapted.nodes[0];
+        let data = data_term(levels, &node.predictions, population.residual);
+        let (u, q) = deviation(&node.theta);
+        let m = laplace_curvature(levels, adapted, population, population.residual);
+        let ln_det_m = ln_det_or_infinite(&m, n);
+        out.value = data.v + q + population.ln_det_2pi_omega - n as f64 * (2.0 * PI).ln() + ln_det_m;
+        let m_inv = spd_inverse(&m, n).unwrap_or([[0.0; MAX]; MAX]);
+        for i in 0..n {
+            out.d_mu[i] = -2.0 * u[i];
+            for j in 0..n {
+                // ∂(ln det M)/∂Ω = −Ω⁻¹·M⁻¹·Ω⁻¹.
+                let pmp: f64 =
+                    (0..n).map(|k| (0..n).map(|l| p[i][k] * m_inv[k][l] * p[l][j]).sum::<f64>()).sum();
+                out.d_omega[i][j] = p[i][j] - u[i] * u[j] - pmp;
+            }
+        }
+        // The curvature's slope in ln a and ln b by central differences (h = 1e-5).
+        for (r, slot) in out.d_residual.iter_mut().enumerate() {
+            let shifted = |h: f64| {
+                let mut res = population.residual;
+                res[r] *= h.exp();
+                ln_det_or_infinite(&laplace_curvature(levels, adapted, population, res), n)
+            };
+            let h = 1e-5;
+            let slope =
+                if population.residual[r] > 0.0 { (shifted(h) - shifted(-h)) / (2.0 * h) } else { 0.0 };
+            *slot = data.d[r] + slope;
+        }
+        return out;
+    }
+    // ln of each node's contribution, then a log-sum-exp with softmax weights for the slopes.
+    let parts: Vec<(f64, Dual<2>, Vec<f64>)> = adapted
+        .nodes
+        .iter()
+        .map(|node| {
+            let data = data_term(levels, &node.predictions, population.residual);
+            let (u, q) = deviation(&node.theta);
+            (node.ln_weight - 0.5 * (data.v + q + population.ln_det_2pi_omega), data, u)
+        })
+        .collect();
+    let top = parts.iter().map(|p| p.0).fold(f64::NEG_INFINITY, f64::max);
+    if !top.is_finite() {
+        out.value = f64::INFINITY;
+        return out;
+    }
+    let sum: f64 = parts.iter().map(|p| (p.0 - top).exp()).sum();
+    out.value = -2.0 * (top + sum.ln());
+    for (s, data, u) in &parts {
+        let w = (s - top).exp() / sum;
+        if w == 0.0 {
+            continue;
+        }
+        for i in 0..n {
+            out.d_mu[i] += w * -2.0 * u[i];
+            for j in 0..n {
+                out.d_omega[i][j] += w * (p[i][j] - u[i] * u[j]);
+            }
+        }
+        for r in 0..2 {
+            out.d_residual[r] += w * data.d[r];
+        }
+    }
+    out
+}

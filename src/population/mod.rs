@@ -1,0 +1,465 @@
+//! Population estimation: the population model (typical values, covariate effects,
+//! between-subject variability and correlations, residual error) from a whole study, by
+//! maximising the marginal likelihood, each subject's integral over its random effects computed
+//! by adaptive Gauss–Hermite quadrature (or the Laplace approximation). Levels below the limit
+//! enter by M3. docs/methods.md gives the formulas and the algorithm.
+//!
+//! The estimate is the fixed point of: adapt every subject at φ (its conditional mode and the
+//! nodes there); minimise the study's −2 log-likelihood over φ with those nodes held (BFGS on
+//! the exact gradient); repeat until φ and the objective stop moving. The objective reported
+//! is that of the final adaptation; with nodes held the quadrature is still a quadrature of the
+//! same integral, so near the optimum the held and the adaptive objectives agree to the rule's
+//! accuracy.
+
+// Index loops read as the matrix formulas they implement.
+#![allow(clippy::needless_range_loop)]
+
+mod marginal;
+pub mod quadrature;
+pub mod space;
+pub mod summary;
+mod uncertainty;
+
+use crate::choice::choice_enum;
+use crate::dosing::Route;
+use crate::error::Error;
+use crate::fit::SubjectData;
+use crate::fit::linalg::MAX;
+use crate::limits::MAX_EVALUATIONS;
+use crate::model::PopulationModel;
+use marginal::{Adapted, Population};
+use nalgebra::{DMatrix, DVector};
+use quadrature::Rule;
+use rayon::prelude::*;
+use serde::Serialize;
+use space::{Free, Space};
+
+choice_enum! {
+    /// How each subject's marginal likelihood is computed.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+    #[serde(rename_all = "kebab-case")]
+    pub enum Method: "method" {
+        /// Adaptive Gauss–Hermite quadrature: the exact likelihood to the rule's accuracy.
+        Quadrature = "quadrature",
+        /// The Laplace approximation (one node, expected curvature): faster, approximate.
+        Laplace = "laplace",
+    }
+}
+
+/// With the nodes chosen automatically, each subject's rule climbs this ladder of sizes (nodes
+/// per random effect) until two successive rules agree on its −2 ln Lᵢ within
+/// [`NODE_TOLERANCE`]; the larger is used. The error of GH rules falls geometrically with their
+/// size, so the difference bounds the smaller rule's error and the larger's is far below it.
+pub const NODE_LADDER: [usize; 6] = [7, 10, 14, 20, 28, 40];
+/// The agreement asked of successive rules, in −2 ln Lᵢ.
+pub const NODE_TOLERANCE: f64 = 1e-7;
+
+/// Options of one estimation.
+#[derive(Debug, Clone)]
+pub struct Options {
+    /// The likelihood.
+    pub method: Method,
+    /// Gauss–Hermite nodes per random effect (quadrature); `None` chooses them per subject.
+    pub nodes: Option<usize>,
+    /// Only evaluate the objective at the model's values (no estimation).
+    pub evaluate: bool,
+    /// Bootstrap replicates (0: none).
+    pub bootstrap: usize,
+    /// Seed of the bootstrap's resampling.
+    pub seed: u64,
+}
+
+impl Default for Options {
+    fn default() -> Self {
+        Options { method: Method::Quadrature, nodes: None, evaluate: false, bootstrap: 0, seed: 1 }
+    }
+}
+
+/// How the estimation ended (data, not a message).
+#[derive(Debug, Clone, Serialize)]
+pub struct Convergence {
+    /// Adaptations made (each followed by a minimisation over φ).
+    pub adaptations: usize,
+    /// BFGS iterations over all minimisations.
+    pub iterations: u64,
+    /// Largest |∂(−2LL)/∂φ| at the end.
+    pub gradient_norm: f64,
+    /// Why it stopped.
+    pub reason: String,
+}
+
+/// The outcome of an estimation (or an evaluation) before its summary.
+#[derive(Debug, Clone)]
+pub struct Outcome {
+    /// The parameter space.
+    pub space: Space,
+    /// φ at the end.
+    pub phi: Vec<f64>,
+    /// −2 ln L at φ.
+    pub minus2ll: f64,
+    /// Each subject's conditional mode θ̂ and prior mean μ at φ.
+    pub modes: Vec<([f64; MAX], [f64; MAX])>,
+    /// Converged: φ stopped moving, the gradient is small, every mode was found.
+    pub converged: bool,
+    /// The details.
+    pub convergence: Convergence,
+}
+
+/// The study and the settings, with every subject's state between adaptations.
+struct Run<'a> {
+    space: &'a Space,
+    subjects: &'a [SubjectData],
+    method: Method,
+    /// Gauss–Hermite rules by size (index n − 1).
+    rules: Vec<Rule>,
+    /// Each subject's rule size (quadrature).
+    nodes: Vec<usize>,
+}
+
+/// Largest −2LL change, and step in φ, between adaptations taken as converged.
+const OBJECTIVE_TOLERANCE: f64 = 1e-6;
+const STEP_TOLERANCE: f64 = 1e-4;
+/// A gradient (−2LL per unit of φ) small enough to call the optimum found.
+const GRADIENT_TOLERANCE: f64 = 1e-3;
+/// Most adaptations before giving up.
+const MAX_ADAPTATIONS: usize = 60;
+
+impl<'a> Run<'a> {
+    fn new(space: &'a Space, subjects: &'a [SubjectData], options: &Options) -> Run<'a> {
+        Run {
+            space,
+            subjects,
+            method: options.method,
+            rules: (1..=quadrature::MAX_NODES).map(quadrature::gauss_hermite).collect(),
+            nodes: vec![options.nodes.unwrap_or(NODE_LADDER[0]); subjects.len()],
+        }
+    }
+
+    fn rule(&self, subject: usize) -> Option<&Rule> {
+        (self.method == Method::Quadrature).then(|| &self.rules[self.nodes[subject] - 1])
+    }
+
+    /// Choose each subject's rule at φ (see [`NODE_LADDER`]); returns the largest difference
+    /// between the last two rules of any subject, an estimate of the quadrature's error.
+    fn choose_nodes(&mut self, phi: &[f64]) -> Result<f64, String> {
+        let values = self.space.values(phi);
+        let population =
+            Population::new(self.space.n, &values.omega, values.residual, self.absorption(&values.model))
+                .ok_or("the variabilities and correlations do not form a valid covariance")?;
+        let rules = &self.rules;
+        let chosen: Vec<(usize, f64)> = self
+            .subjects
+            .par_iter()
+            .map(|s| {
+                let Some((mean, _)) = self.space.prior_mean(&values, &s.covariates) else {
+                    return (NODE_LADDER[0], 0.0);
+                };
+                let value = |n: usize, warm: Option<&[f64; MAX]>| {
+                    let a = marginal::adapt(s, &population, mean, warm, Some(&rules[n - 1]));
+                    (marginal::terms(&s.levels, &a, &population, &mean, false).value, a.mode)
+                };
+                let (mut last, mode) = value(NODE_LADDER[0], None);
+                let mut difference = f64::INFINITY;
+                for &n in &NODE_LADDER[1..] {
+                    let next = value(n, Some(&mode)).0;
+                    difference = (next - last).abs();
+                    last = next;
+                    if difference <= NODE_TOLERANCE || difference.is_nan() {
+                        return (n, difference);
+                    }
+                }
+                (quadrature::MAX_NODES, if difference.is_finite() { difference } else { 0.0 })
+            })
+            .collect();
+        self.nodes = chosen.iter().map(|c| c.0).collect();
+        Ok(chosen.iter().fold(0.0, |m, c| m.max(c.1)))
+    }
+
+    fn absorption(&self, model: &PopulationModel) -> (Option<f64>, f64, f64) {
+        let a = model.absorption.as_ref();
+        let fixed_ka = if self.space.n == 3 { None } else { a.map(|a| a.ka.typical) };
+        (fixed_ka, a.map_or(1.0, |a| a.f), a.map_or(0.0, |a| a.tlag_h))
+    }
+
+    /// Adapt every subject at φ, warm-starting the modes from `previous`.
+    fn adapt(&self, phi: &[f64], previous: Option<&[Adapted]>) -> Result<Vec<Adapted>, String> {
+        let values = self.space.values(phi);
+        let population =
+            Population::new(self.space.n, &values.omega, values.residual, self.absorption(&values.model))
+                .ok_or("the variabilities and correlations do not form a valid covariance")?;
+        self.subjects
+            .par_iter()
+            .enumerate()
+            .map(|(i, s)| {
+                let (mean, _) = self.space.prior_mean(&values, &s.covariates).ok_or_else(|| {
+                    format!(
+                        "subject {}: the covariate effects give a typical value of zero or less",
+                        s.id.as_deref().unwrap_or("(unnamed)")
+                    )
+                })?;
+                let warm = previous.map(|p| &p[i].mode);
+                Ok(marginal::adapt(s, &population, mean, warm, self.rule(i)))
+            })
+            .collect()
+    }
+
+    /// −2 ln L at φ with the nodes of `adapted`, and its gradient in φ.
+    fn objective(&self, phi: &[f64], adapted: &[Adapted]) -> (f64, Vec<f64>) {
+        let p = phi.len();
+        let infinite = (f64::INFINITY, vec![0.0; p]);
+        let values = self.space.values(phi);
+        let n = self.space.n;
+        let Some(population) =
+            Population::new(n, &values.omega, values.residual, self.absorption(&values.model))
+        else {
+            return infinite;
+        };
+        let laplace = self.method == Method::Laplace;
+        let per_subject: Vec<Option<(marginal::Terms, Vec<[f64; MAX]>)>> = self
+            .subjects
+            .par_iter()
+            .zip(adapted)
+            .map(|(s, a)| {
+                let (mean, slopes) = self.space.prior_mean(&values, &s.covariates)?;
+                Some((marginal::terms(&s.levels, a, &population, &mean, laplace), slopes))
+            })
+            .collect();
+        // Summed in subject order, so the result does not depend on the thread count.
+        let mut value = 0.0;
+        let mut gradient = vec![0.0; p];
+        let mut d_omega = [[0.0; MAX]; MAX];
+        for item in per_subject {
+            let Some((t, slopes)) = item else { return infinite };
+            value += t.value;
+            for k in 0..p {
+                gradient[k] += (0..n).map(|i| t.d_mu[i] * slopes[k][i]).sum::<f64>();
+                match self.space.free[k] {
+                    Free::Additive => gradient[k] += t.d_residual[0],
+                    Free::Proportional => gradient[k] += t.d_residual[1],
+                    _ => {}
+                }
+            }
+            for i in 0..n {
+                for j in 0..n {
+                    d_omega[i][j] += t.d_omega[i][j];
+                }
+            }
+        }
+        if !value.is_finite() {
+            return infinite;
+        }
+        for k in 0..p {
+            if let Some(s) = self.space.omega_slope(k, &values.omega) {
+                gradient[k] +=
+                    (0..n).map(|i| (0..n).map(|j| d_omega[i][j] * s[i][j]).sum::<f64>()).sum::<f64>();
+            }
+        }
+        (value, gradient)
+    }
+
+    /// Minimise −2 ln L over φ with the nodes held: BFGS with a backtracking (Armijo) line
+    /// search, each step at most 1 in every entry of φ (a factor e on a typical value), so a
+    /// trial point far outside the data's reach is never evaluated; points where the objective
+    /// is not finite (Ω not positive definite) are backed away from.
+    fn minimise_held(&self, phi: &[f64], adapted: &[Adapted]) -> (Vec<f64>, u64) {
+        let p = phi.len();
+        let mut x = phi.to_vec();
+        let (mut f, mut g) = self.objective(&x, adapted);
+        if p == 0 || !f.is_finite() {
+            return (x, 0);
+        }
+        // The inverse Hessian starts as a multiple of the identity whose first step is 0.1 long.
+        let largest = g.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+        let mut inverse = DMatrix::<f64>::identity(p, p) * (0.1 / largest.max(1e-12));
+        let mut spent = 0u64;
+        for iteration in 0..500u64 {
+            if g.iter().all(|v| v.abs() < 1e-7) || spent > MAX_EVALUATIONS {
+                return (x, iteration);
+            }
+            let gv = DVector::from_column_slice(&g);
+            let mut direction = -(&inverse * &gv);
+            if direction.dot(&gv) >= 0.0 {
+                // Not a descent direction (a poor curvature estimate): restart from the gradient.
+                inverse = DMatrix::identity(p, p) * (0.1 / largest.max(1e-12));
+                direction = -(&inverse * &gv);
+            }
+            let longest = direction.amax();
+            if longest > 1.0 {
+                direction /= longest;
+            }
+            let slope = direction.dot(&gv);
+            let mut step = 1.0;
+            let found = loop {
+                let trial: Vec<f64> = x.iter().zip(direction.iter()).map(|(a, d)| a + step * d).collect();
+                let (ft, gt) = self.objective(&trial, adapted);
+                spent += 1;
+                if ft.is_finite() && ft <= f + 1e-4 * step * slope {
+                    break Some((trial, ft, gt));
+                }
+                step *= 0.5;
+                if step < 1e-12 {
+                    break None;
+                }
+            };
+            let Some((trial, ft, gt)) = found else { return (x, iteration) };
+            let s = DVector::from_iterator(p, trial.iter().zip(&x).map(|(a, b)| a - b));
+            let y = DVector::from_iterator(p, gt.iter().zip(&g).map(|(a, b)| a - b));
+            let sy = s.dot(&y);
+            if sy > 1e-12 * s.norm() * y.norm() {
+                // The BFGS update of the inverse Hessian.
+                let rho = 1.0 / sy;
+                let identity = DMatrix::<f64>::identity(p, p);
+                let left = &identity - &s * y.transpose() * rho;
+                let right = &identity - &y * s.transpose() * rho;
+                inverse = &left * &inverse * &right + &s * s.transpose() * rho;
+            }
+            let converged = (f - ft).abs() <= 1e-14 * f.abs().max(1.0);
+            x = trial;
+            f = ft;
+            g = gt;
+            if converged {
+                return (x, iteration + 1);
+            }
+        }
+        (x, 500)
+    }
+
+    /// The fixed point from `start` (see the module's text).
+    fn estimate(&self, start: &[f64], evaluate: bool) -> Result<Found, String> {
+        let mut phi = start.to_vec();
+        let mut adapted = self.adapt(&phi, None)?;
+        let (mut value, _) = self.objective(&phi, &adapted);
+        if !value.is_finite() {
+            return Err("the objective is not finite at the start model's values: the levels are impossible under it \
+                        (check the residual error and the units)"
+                .into());
+        }
+        let mut convergence =
+            Convergence { adaptations: 1, iterations: 0, gradient_norm: 0.0, reason: "evaluated".into() };
+        let mut settled = evaluate;
+        while !settled && convergence.adaptations < MAX_ADAPTATIONS {
+            let (next, iterations) = self.minimise_held(&phi, &adapted);
+            convergence.iterations += iterations;
+            let next_adapted = self.adapt(&next, Some(&adapted))?;
+            let (next_value, _) = self.objective(&next, &next_adapted);
+            convergence.adaptations += 1;
+            if !next_value.is_finite() {
+                convergence.reason = "the objective became infinite".into();
+                break;
+            }
+            let step = next.iter().zip(&phi).fold(0.0f64, |m, (a, b)| m.max((a - b).abs()));
+            settled = step < STEP_TOLERANCE && (next_value - value).abs() < OBJECTIVE_TOLERANCE;
+            phi = next;
+            adapted = next_adapted;
+            value = next_value;
+            convergence.reason = if settled {
+                "the estimates and the objective stopped moving between adaptations".into()
+            } else {
+                format!("stopped after {MAX_ADAPTATIONS} adaptations")
+            };
+        }
+        let (_, gradient) = self.objective(&phi, &adapted);
+        convergence.gradient_norm = gradient.iter().fold(0.0, |m, g| m.max(g.abs()));
+        let modes_found = adapted.iter().all(|a| a.converged);
+        if !modes_found {
+            convergence.reason += "; some conditional modes were not found";
+        }
+        let converged =
+            settled && modes_found && (evaluate || convergence.gradient_norm < GRADIENT_TOLERANCE);
+        Ok(Found { phi, adapted, minus2ll: value, convergence, converged })
+    }
+}
+
+/// Where an estimation ended.
+struct Found {
+    phi: Vec<f64>,
+    adapted: Vec<Adapted>,
+    minus2ll: f64,
+    convergence: Convergence,
+    converged: bool,
+}
+
+/// Check that a study can inform a population model at all.
+fn check_study(subjects: &[SubjectData], evaluate: bool) -> Result<(), String> {
+    if subjects.is_empty() {
+        return Err("no subject has both doses and levels: nothing to estimate from".into());
+    }
+    if subjects.len() < 2 && !evaluate {
+        return Err(format!(
+            "population estimation needs at least 2 subjects with levels, found {}: between-subject variability \
+             cannot be estimated from fewer (fit a single subject with `cistern fit`)",
+            subjects.len()
+        ));
+    }
+    if subjects.iter().all(|s| s.levels.iter().all(|l| l.is_blq())) {
+        return Err("every level is below the quantification limit: nothing to estimate a model from".into());
+    }
+    for s in subjects {
+        let name = s.id.as_deref().unwrap_or("(unnamed)");
+        let first = s.first_dose_h().ok_or_else(|| format!("subject {name} has no doses"))?;
+        if let Some(l) = s.levels_before_first_dose().next() {
+            return Err(format!(
+                "subject {name}: a level at {} h (line {}) comes before the first dose at {first} h",
+                l.time_h, l.line
+            ));
+        }
+    }
+    Ok(())
+}
+
+/// Estimate the population model of `model`'s structure from `subjects` (or, with
+/// `options.evaluate`, only evaluate it). Errors are the input's fault (exit code 2).
+pub fn estimate(
+    subjects: &[SubjectData],
+    model: &PopulationModel,
+    options: &Options,
+) -> Result<summary::Estimation, Error> {
+    check_study(subjects, options.evaluate).map_err(Error::Usage)?;
+    let oral = subjects.iter().any(|s| s.doses.iter().any(|d| d.route == Route::Oral));
+    if oral && model.absorption.is_none() {
+        return Err(Error::Usage(
+            "oral doses: the model needs an [absorption] table (ka, F, lag time)".into(),
+        ));
+    }
+    if let Some(n) = options.nodes
+        && !(1..=quadrature::MAX_NODES).contains(&n)
+    {
+        return Err(Error::Usage(format!(
+            "--nodes: expected 1 to {} nodes per random effect, found {n}",
+            quadrature::MAX_NODES
+        )));
+    }
+    let (space, mut notes) = Space::new(model, oral);
+    let mut run = Run::new(&space, subjects, options);
+    let mut accuracy = None;
+    if options.method == Method::Quadrature && options.nodes.is_none() {
+        accuracy = Some(run.choose_nodes(&space.start()).map_err(Error::Usage)?);
+        let (lo, hi) =
+            (run.nodes.iter().min().copied().unwrap_or(0), run.nodes.iter().max().copied().unwrap_or(0));
+        notes.push(format!(
+            "Gauss–Hermite nodes per random effect chosen per subject: {lo} to {hi} (successive rules agree within {})",
+            accuracy.map_or(String::new(), |a| format!("{a:.1e}"))
+        ));
+    }
+    let Found { phi, adapted, minus2ll, convergence, converged } =
+        run.estimate(&space.start(), options.evaluate).map_err(Error::Usage)?;
+    let values = space.values(&phi);
+    let modes = subjects
+        .iter()
+        .zip(&adapted)
+        .map(|(s, a)| (a.mode, space.prior_mean(&values, &s.covariates).map_or([0.0; MAX], |m| m.0)))
+        .collect();
+    let outcome = Outcome { space: space.clone(), phi, minus2ll, modes, converged, convergence };
+    let covariance = (!options.evaluate).then(|| uncertainty::covariance(&run, &outcome.phi, &adapted));
+    let bootstrap = if options.bootstrap > 0 && !options.evaluate {
+        Some(uncertainty::bootstrap(subjects, &space, options, &run.nodes, &outcome.phi))
+    } else {
+        None
+    };
+    let nodes = (options.method == Method::Quadrature).then(|| summary::Nodes {
+        min: run.nodes.iter().copied().min().unwrap_or(0),
+        max: run.nodes.iter().copied().max().unwrap_or(0),
+        successive_rules_differ_by: accuracy,
+    });
+    Ok(summary::Estimation::new(outcome, covariance, bootstrap, subjects, options, notes, nodes))
+}
