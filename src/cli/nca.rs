@@ -3,7 +3,6 @@
 
 use super::args::{OutputArgs, choice, flag_value};
 use cistern::error::Problems;
-use cistern::io::labels::label;
 use cistern::io::output::{
     CAUTION, Column, CsvWriter, Format, RunFiles, fit_to_width, io_failure, number_column, readable,
     render_table, write_json,
@@ -291,27 +290,31 @@ fn write_csv(
 fn table(results: &[IntervalNca], width: Option<usize>) -> String {
     let several = results.iter().any(|r| r.interval > 1);
     let oral = results.iter().all(|r| matches!(r.disposition, cistern::nca::Disposition::Oral { .. }));
-    let shown: Vec<(&str, u8, usize)> = vec![
-        ("cmax_mg_l", 0, 4),
-        ("tmax_h", 2, 3),
-        ("auc_last_mg_h_l", 0, 4),
-        ("lambda_z_per_h", 3, 3),
-        ("half_life_h", 0, 3),
-        ("auc_inf_obs_mg_h_l", 0, 4),
-        ("auc_extrap_pct", 1, 3),
-        (if oral { "cl_f_l_h" } else { "cl_l_h" }, 0, 3),
-        ("auc_tau_mg_h_l", 4, 4),
+    // Short headers (the trade's symbols): eleven columns fit 80 characters only so; the
+    // labels of io::labels are sentences for wider outputs. (key, header, drop rank, digits).
+    let cl_key = if oral { "cl_f_l_h" } else { "cl_l_h" };
+    let shown: [(&str, &str, u8, usize); 9] = [
+        ("cmax_mg_l", "Cmax\n(mg/L)", 0, 4),
+        ("tmax_h", "Tmax\n(h)", 2, 3),
+        ("auc_last_mg_h_l", "AUClast\n(mg·h/L)", 0, 4),
+        ("lambda_z_per_h", "λz\n(1/h)", 3, 3),
+        ("half_life_h", "t½\n(h)", 0, 3),
+        ("auc_inf_obs_mg_h_l", "AUC∞\n(mg·h/L)", 0, 4),
+        ("auc_extrap_pct", "extrap.\n(%)", 1, 3),
+        (cl_key, if oral { "CL/F\n(L/h)" } else { "CL\n(L/h)" }, 0, 3),
+        ("auc_tau_mg_h_l", "AUCτ\n(mg·h/L)", 4, 4),
     ];
     let mut columns = vec![Column::text("subject")];
     if several {
-        columns.push(Column::number("dose"));
+        columns.push(Column::number("dose\nnumber"));
     }
     let mut cells: Vec<Vec<String>> = Vec::new();
-    for &(key, rank, digits) in &shown {
-        let get = COLUMNS.iter().find(|(k, _)| *k == key).map(|c| c.1).unwrap_or(|_| None);
+    for &(key, header, rank, digits) in &shown {
+        let get: Getter = COLUMNS.iter().find(|(k, _)| *k == key).map_or(|_| None, |c| c.1);
+        // A mixed table (oral and intravenous) shows either clearance in the CL column.
         let values: Vec<Option<f64>> =
             results.iter().map(|r| if key == "cl_l_h" { r.disposition.values().0 } else { get(r) }).collect();
-        columns.push(Column::number(label(key).replacen(" (", "\n(", 1)).optional(rank));
+        columns.push(Column::number(header).optional(rank));
         cells.push(number_column(&values, digits));
     }
     let rows: Vec<Vec<String>> = results

@@ -223,8 +223,8 @@ fn analyse_interval(
     // Measured levels (set levels at the dose time are not measurements).
     let measured: Vec<Sample> =
         interval.points.iter().filter(|p| p.line.is_some()).map(|p| p.sample).collect();
-    let peak = measured.iter().copied().reduce(|a, b| if b.c > a.c { b } else { a });
     let positive: Vec<Sample> = measured.iter().copied().filter(|s| s.c > 0.0).collect();
+    let peak = positive.iter().copied().reduce(|a, b| if b.c > a.c { b } else { a });
     let (first, last) = (positive.first().copied(), positive.last().copied());
     if last.is_none() {
         notes.push("no measurable level in this interval".into());
