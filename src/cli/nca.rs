@@ -8,11 +8,13 @@ use cistern::io::output::{
     render_table, write_json,
 };
 use cistern::nca::auc::AucRule;
+use cistern::nca::compare::{Comparison, DISAGREEMENT_PCT, compare};
 use cistern::nca::intervals::BlqRule;
 use cistern::nca::sparse::{MeanCurve, mean_curve};
 use cistern::nca::{IntervalNca, LambdaZChoice, NcaOptions, analyse};
 use cistern::spec::Spec;
 use cistern::units::Kind;
+use cistern::workflow::plan::SavedFit;
 use cistern::workflow::{Required, Study};
 use cistern::{Error, InputError};
 use clap::Args;
@@ -62,6 +64,10 @@ pub struct NcaArgs {
     /// AUC with Bailer's standard error and 95 % interval
     #[arg(long)]
     sparse: bool,
+    /// A fit of the same study (`cistern fit --format json`): the NCA AUC and clearance of each
+    /// interval beside the fitted curve's, subjects that differ by more than 20 % flagged
+    #[arg(long, value_name = "FILE")]
+    fit: Option<String>,
     /// Print every level counted as zero or left out, the level at each dose time and each
     /// choice of λz (on stderr)
     #[arg(long)]
@@ -91,6 +97,8 @@ struct NcaJson<'a> {
     auc_rule: String,
     blq_rule: String,
     subjects: &'a [IntervalNca],
+    #[serde(skip_serializing_if = "Option::is_none")]
+    fit_comparison: Option<&'a [Comparison]>,
 }
 
 /// The JSON output of a sparse design.
@@ -116,7 +124,11 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
     spec.inputs.doses.set("--doses", Some(PathBuf::from(&args.doses)));
     spec.inputs.levels.set("--levels", Some(PathBuf::from(&args.levels)));
     let study = problems.take_all(Study::load(&spec.inputs, Required { model: false, levels: true }));
-    let (study, lambda_z) = problems.finish_with(study.zip(lambda_z))?;
+    let fit = match &args.fit {
+        Some(path) => problems.take_all(SavedFit::read(path)).map(Some),
+        None => Some(None),
+    };
+    let ((study, lambda_z), fit) = problems.finish_with(study.zip(lambda_z).zip(fit))?;
     let options = NcaOptions {
         auc_rule: args.auc_rule,
         blq: args.blq,
@@ -129,7 +141,9 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
     } else {
         None
     };
-    let mut files = RunFiles::new(spec.files());
+    let mut inputs = spec.files();
+    inputs.extend(args.fit.iter().map(PathBuf::from));
+    let mut files = RunFiles::new(inputs);
     let mut sink = args.output.sink(&mut files)?;
     let format = args.output.format();
     let width = args.output.table_width();
@@ -150,6 +164,8 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
         }
         None => {
             let results = analyse(&study.subjects, &options);
+            let comparisons =
+                fit.as_ref().map(|fit| versus_fit(&study.subjects, &results, fit, &args.output));
             if args.explain {
                 for r in &results {
                     for e in &r.explain {
@@ -172,10 +188,17 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
                         auc_rule: options.auc_rule.to_string(),
                         blq_rule: options.blq.to_string(),
                         subjects: &results,
+                        fit_comparison: comparisons.as_deref(),
                     },
                 ),
                 Format::Csv => write_csv(out, &results, &options),
-                Format::Table => write!(out, "{}", fit_to_width(&table(&results, width), width)),
+                Format::Table => {
+                    let mut text = table(&results, width);
+                    if let Some(c) = &comparisons {
+                        text += &comparison_table(c, width);
+                    }
+                    write!(out, "{}", fit_to_width(&format!("{text}\n{CAUTION}\n"), width))
+                }
             }
             .map_err(io_failure)?;
         }
@@ -349,7 +372,78 @@ fn table(results: &[IntervalNca], width: Option<usize>) -> String {
         text += "After oral doses clearance is CL/F (the bioavailability F is unknown).\n";
     }
     text += "--format csv or json has every number (AUMC, MRT, Vz, Vss, λz fit, steady-state metrics).\n";
-    text += &format!("\n{CAUTION}\n");
+    text
+}
+
+/// Each interval's NCA beside the fitted curve of its subject; a subject missing from the fit
+/// is said so, and a disagreement above the margin is a warning.
+fn versus_fit(
+    subjects: &[cistern::fit::SubjectData],
+    results: &[IntervalNca],
+    fit: &SavedFit,
+    output: &OutputArgs,
+) -> Vec<Comparison> {
+    let mut all = Vec::new();
+    for s in subjects {
+        let mine: Vec<IntervalNca> = results.iter().filter(|r| r.subject == s.id).cloned().collect();
+        match fit.subjects.iter().find(|f| f.subject == s.id) {
+            Some(f) => all.extend(compare(&mine, &f.parameters, &s.doses)),
+            None => output.note(&format!(
+                "{}: not in the fit, no comparison",
+                s.id.as_deref().unwrap_or("the subject")
+            )),
+        }
+    }
+    for c in all.iter().filter(|c| c.disagree) {
+        eprintln!(
+            "warning: {} interval {}: NCA and the fit differ by more than {DISAGREEMENT_PCT} % (AUC {}, CL {})",
+            c.subject.as_deref().unwrap_or("subject"),
+            c.interval,
+            c.auc_difference_pct.map_or_else(|| "—".into(), |d| format!("{d:+.1} %")),
+            c.cl_difference_pct.map_or_else(|| "—".into(), |d| format!("{d:+.1} %")),
+        );
+    }
+    all
+}
+
+/// The comparison with the fit as a table.
+fn comparison_table(c: &[Comparison], width: Option<usize>) -> String {
+    let column = |f: &dyn Fn(&Comparison) -> Option<f64>, digits| {
+        number_column(&c.iter().map(f).collect::<Vec<_>>(), digits)
+    };
+    let cells = [
+        column(&|c| c.nca_auc_last_mg_h_l, 4),
+        column(&|c| c.fit_auc_last_mg_h_l, 4),
+        column(&|c| c.auc_difference_pct, 3),
+        column(&|c| c.nca_cl_l_h, 3),
+        column(&|c| Some(c.fit_cl_l_h), 3),
+        column(&|c| c.cl_difference_pct, 3),
+    ];
+    let rows: Vec<Vec<String>> = c
+        .iter()
+        .enumerate()
+        .map(|(i, x)| {
+            let mut row = vec![x.subject.clone().unwrap_or_else(|| "—".into()), x.interval.to_string()];
+            row.extend(cells.iter().map(|col| col[i].clone()));
+            row.push(if x.disagree { "DIFFERS".into() } else { String::new() });
+            row
+        })
+        .collect();
+    let columns = [
+        Column::text("subject"),
+        Column::number("dose\nnumber"),
+        Column::number("AUClast NCA\n(mg·h/L)"),
+        Column::number("AUClast fit\n(mg·h/L)"),
+        Column::number("diff.\n(%)"),
+        Column::number("CL NCA\n(L/h)"),
+        Column::number("CL fit\n(L/h)"),
+        Column::number("diff.\n(%)"),
+        Column::text(""),
+    ];
+    let mut text = format!(
+        "\nNCA beside the fit (CL/F after oral doses; DIFFERS: more than {DISAGREEMENT_PCT} % apart)\n"
+    );
+    text += &render_table(&columns, &rows, width);
     text
 }
 

@@ -8,6 +8,7 @@
 //! area ([`sparse`]). docs/methods.md gives every formula and its source.
 
 pub mod auc;
+pub mod compare;
 pub mod intervals;
 pub mod lambda_z;
 pub mod sparse;

@@ -561,3 +561,42 @@ fn explain_shows_the_level_set_at_the_dose_time_and_the_lambda_z_choice() {
     assert!(ran.stderr.contains("λz from 3 levels"), "{}", ran.stderr);
     assert!(ran.stderr.contains("caution:"));
 }
+
+#[test]
+fn a_fit_beside_the_nca_is_flagged_where_they_disagree() {
+    // Levels of a 100 mg bolus on the exact curve of CL = 5 L/h, V = 50 L: beside a fit with
+    // those parameters the log-down NCA agrees to rounding; beside one with twice the clearance
+    // both AUC and CL differ by far more than the 20 % margin.
+    let dir = tempfile::tempdir().unwrap();
+    let d = write(dir.path(), "d.csv", "subject,time_h,amount_mg,route\nA,0,100,bolus\n");
+    let mut levels = String::from("subject,time_h,conc_mg_l\n");
+    for t in [1.0f64, 2.0, 4.0, 8.0, 12.0] {
+        levels += &format!("A,{t},{}\n", 2.0 * (-0.1 * t).exp());
+    }
+    let l = write(dir.path(), "l.csv", &levels);
+    let fit = |cl: f64| {
+        format!(
+            "{{\"subjects\": [{{\"subject\": \"A\", \"parameters\": {{\"cl_l_h\": {cl}, \"v_l\": 50.0, \
+             \"ka_per_h\": null, \"f\": 1.0, \"tlag_h\": 0.0}}}}]}}"
+        )
+    };
+    let same = write(dir.path(), "same.json", &fit(5.0));
+    let out = nca_json(dir.path(), &["--doses", &d, "--levels", &l, "--fit", &same]);
+    let c = &out["fit_comparison"][0];
+    assert!(
+        number(c, "auc_difference_pct").abs() < 1e-9 && number(c, "cl_difference_pct").abs() < 1e-9,
+        "{c}"
+    );
+    assert_eq!(c["disagree"], false);
+    let other = write(dir.path(), "other.json", &fit(10.0));
+    let ran = nca(dir.path(), &["--doses", &d, "--levels", &l, "--fit", &other, "--format", "table"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    assert!(
+        ran.stdout.contains("DIFFERS") && ran.stderr.contains("differ by more than 20 %"),
+        "{}",
+        ran.stderr
+    );
+    // A fit file cannot be the output.
+    let ran = nca(dir.path(), &["--doses", &d, "--levels", &l, "--fit", &same, "-o", &same]);
+    assert_eq!(ran.code, 2, "{}", ran.stderr);
+}
