@@ -66,8 +66,12 @@ pub struct NcaArgs {
     sparse: bool,
     /// A fit of the same study (`cistern fit --format json`): the NCA AUC and clearance of each
     /// interval beside the fitted curve's, subjects that differ by more than 20 % flagged
-    #[arg(long, value_name = "FILE")]
+    #[arg(long, value_name = "FILE", conflicts_with = "sparse")]
     fit: Option<String>,
+    /// Also write a plot of each subject and interval (levels on a log scale, the levels of λz
+    /// and the terminal line) to FILE (SVG)
+    #[arg(long, value_name = "FILE", conflicts_with = "sparse")]
+    svg: Option<String>,
     /// Print every level counted as zero or left out, the level at each dose time and each
     /// choice of λz (on stderr)
     #[arg(long)]
@@ -145,6 +149,8 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
     inputs.extend(args.fit.iter().map(PathBuf::from));
     let mut files = RunFiles::new(inputs);
     let mut sink = args.output.sink(&mut files)?;
+    let mut svg_sink =
+        args.svg.as_deref().map(|p| files.open(cistern::Origin::Flag("--svg".into()), p)).transpose()?;
     let format = args.output.format();
     let width = args.output.table_width();
     let out = sink.writer();
@@ -164,6 +170,11 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
         }
         None => {
             let results = analyse(&study.subjects, &options);
+            if let Some(svg) = svg_sink.as_mut() {
+                let panels: Vec<_> = results.iter().map(cistern::nca::plot::panel).collect();
+                write!(svg.writer(), "{}", cistern::report::svg::render_svg(&panels, CAUTION))
+                    .map_err(io_failure)?;
+            }
             let comparisons =
                 fit.as_ref().map(|fit| versus_fit(&study.subjects, &results, fit, &args.output));
             if args.explain {
@@ -204,7 +215,8 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
         }
     }
     args.output.caution_for_csv(format);
-    sink.finish()
+    sink.finish()?;
+    svg_sink.map_or(Ok(()), |s| s.finish())
 }
 
 /// A row's subject and interval, for messages.

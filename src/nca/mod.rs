@@ -11,6 +11,7 @@ pub mod auc;
 pub mod compare;
 pub mod intervals;
 pub mod lambda_z;
+pub mod plot;
 pub mod sparse;
 
 use crate::dosing::Route;
@@ -176,9 +177,13 @@ pub struct IntervalNca {
     /// and the terminal line's choice, in words (`--explain`).
     #[serde(skip)]
     pub explain: Vec<String>,
-    /// The profile as analysed (times after the dose), for plots.
+    /// The measured levels (times after the dose; below the limit as zero when counted so),
+    /// for plots.
     #[serde(skip)]
-    pub samples: Vec<Sample>,
+    pub levels: Vec<Sample>,
+    /// The terminal line, for plots.
+    #[serde(skip)]
+    pub terminal: Option<Terminal>,
 }
 
 /// The analysis of every subject of a study: one result per dosing interval with levels.
@@ -339,7 +344,8 @@ fn analyse_interval(
         partial_aucs,
         notes,
         explain,
-        samples,
+        levels: measured,
+        terminal,
     }
 }
 

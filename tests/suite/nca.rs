@@ -600,3 +600,28 @@ fn a_fit_beside_the_nca_is_flagged_where_they_disagree() {
     let ran = nca(dir.path(), &["--doses", &d, "--levels", &l, "--fit", &same, "-o", &same]);
     assert_eq!(ran.code, 2, "{}", ran.stderr);
 }
+
+#[test]
+fn the_svg_has_a_log_scale_panel_per_interval_with_the_terminal_line_and_the_caution() {
+    let dir = tempfile::tempdir().unwrap();
+    let data = reference_dir();
+    let d = data.join("theoph_doses.csv");
+    let l = data.join("theoph_levels.csv");
+    let ran = nca(
+        dir.path(),
+        &["--doses", d.to_str().unwrap(), "--levels", l.to_str().unwrap(), "--svg", "p.svg", "-o", "t.csv"],
+    );
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let svg = std::fs::read_to_string(dir.path().join("p.svg")).unwrap();
+    assert!(svg.starts_with("<svg"));
+    assert_eq!(svg.matches(", dose 1</text>").count(), 12);
+    assert_eq!(svg.matches("terminal line, slope -").count(), 12);
+    assert_eq!(svg.matches("levels of the terminal line").count(), 12);
+    assert!(svg.contains("Not clinical advice"));
+    let refused = nca(
+        dir.path(),
+        &["--doses", d.to_str().unwrap(), "--levels", l.to_str().unwrap(), "--sparse", "--svg", "q.svg"],
+    );
+    assert_eq!(refused.code, 2);
+    assert!(!dir.path().join("q.svg").exists());
+}
