@@ -10,6 +10,7 @@ use cistern::io::output::{
 use cistern::nca::auc::AucRule;
 use cistern::nca::compare::{Comparison, DISAGREEMENT_PCT, compare};
 use cistern::nca::intervals::BlqRule;
+use cistern::nca::lambda_z::read_times;
 use cistern::nca::sparse::{MeanCurve, mean_curve};
 use cistern::nca::{IntervalNca, LambdaZChoice, NcaOptions, analyse};
 use cistern::spec::Spec;
@@ -57,6 +58,10 @@ pub struct NcaArgs {
     /// (inclusive), e.g. 8h..24h [default: chosen by adjusted R²]
     #[arg(long, value_name = "A..B", allow_hyphen_values = true)]
     lambda_z_window: Option<String>,
+    /// A CSV (time_<unit>, and subject) listing the levels of each listed subject's terminal
+    /// line, by their times in the levels file; other subjects as without it
+    #[arg(long, value_name = "FILE")]
+    lambda_z_times: Option<String>,
     /// Also the AUC between two times after the dose, e.g. 0h..12h; repeatable
     #[arg(long, value_name = "A..B", allow_hyphen_values = true)]
     partial: Vec<String>,
@@ -132,12 +137,18 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
         Some(path) => problems.take_all(SavedFit::read(path)).map(Some),
         None => Some(None),
     };
-    let ((study, lambda_z), fit) = problems.finish_with(study.zip(lambda_z).zip(fit))?;
+    let listed = match &args.lambda_z_times {
+        Some(path) => problems.take_all(read_times(path).map_err(Into::into)),
+        None => Some(Default::default()),
+    };
+    let (((study, lambda_z), fit), lambda_z_times) =
+        problems.finish_with(study.zip(lambda_z).zip(fit).zip(listed))?;
     let options = NcaOptions {
         auc_rule: args.auc_rule,
         blq: args.blq,
         lambda_z,
         partials: partials.into_iter().flatten().collect(),
+        lambda_z_times,
     };
     args.output.notify.notices(&study.notices);
     let sparse = if args.sparse {
@@ -146,7 +157,7 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
         None
     };
     let mut inputs = spec.files();
-    inputs.extend(args.fit.iter().map(PathBuf::from));
+    inputs.extend(args.fit.iter().chain(&args.lambda_z_times).map(PathBuf::from));
     let mut files = RunFiles::new(inputs);
     let mut sink = args.output.sink(&mut files)?;
     let mut svg_sink =

@@ -96,6 +96,7 @@ mod tests {
             blq: crate::nca::intervals::BlqRule::ZeroThenDrop,
             lambda_z: crate::nca::LambdaZChoice::Automatic,
             partials: Vec::new(),
+            lambda_z_times: Default::default(),
         };
         let c = compare(&analyse(&[subject], &options), &params, &[dose]);
         assert!(

@@ -11,8 +11,35 @@
 //! the dose lies in [A, B]. Either way at least three levels are needed, and a line that does
 //! not fall gives no λz.
 
+use crate::error::InputError;
+use crate::io::table::Table;
 use crate::nca::auc::Sample;
+use crate::units::Kind;
 use serde::Serialize;
+use std::collections::HashMap;
+
+/// The levels chosen for each subject's terminal line (`--lambda-z-times FILE`): their times on
+/// the levels file's clock, by subject (`None` for a file without a subject column).
+pub type ChosenTimes = HashMap<Option<String>, Vec<f64>>;
+
+/// Read a CSV of `time_<unit>` (and `subject`) naming the levels of each subject's terminal
+/// line, every problem located.
+pub fn read_times(path: &str) -> Result<ChosenTimes, Vec<InputError>> {
+    let table = Table::read(path)?;
+    let time = table.unit_column("time", Kind::Time).map_err(|e| vec![e])?.ok_or_else(|| {
+        vec![InputError::in_file(path, "expected a time column (e.g. time_h)").at_line(table.header_line)]
+    })?;
+    let subject = table.subject_column().map_err(|e| vec![e])?;
+    let mut chosen = ChosenTimes::new();
+    let mut errors = Vec::new();
+    for row in &table.rows {
+        match row.number(path, &time) {
+            Ok(t) => chosen.entry(subject.as_ref().map(|c| row.text(c).to_string())).or_default().push(t),
+            Err(e) => errors.push(e),
+        }
+    }
+    if errors.is_empty() { Ok(chosen) } else { Err(errors) }
+}
 
 /// How close to the best adjusted R² a line with more levels may be and still be preferred.
 pub const ADJ_R2_TOLERANCE: f64 = 1e-4;

@@ -33,6 +33,8 @@ pub enum LambdaZChoice {
     Automatic,
     /// Every measurable level whose time after the dose lies in [from, to] (h).
     Window(f64, f64),
+    /// The measurable levels at the times listed for the subject (`NcaOptions::lambda_z_times`).
+    Listed,
 }
 
 /// How the analysis is done.
@@ -46,6 +48,9 @@ pub struct NcaOptions {
     pub lambda_z: LambdaZChoice,
     /// Partial areas asked for: (from, to) in hours after each dose.
     pub partials: Vec<(f64, f64)>,
+    /// The levels of the terminal line listed per subject (times on the levels file's clock);
+    /// a subject listed here takes them instead of `lambda_z`.
+    pub lambda_z_times: lambda_z::ChosenTimes,
 }
 
 /// A partial area: AUC between two times after the dose.
@@ -201,7 +206,11 @@ pub fn analyse_subject(subject: &SubjectData, options: &NcaOptions) -> Vec<Inter
         .iter()
         .map(|i| {
             let tau = i.to_next_h.or(if several { last_tau } else { None });
-            analyse_interval(subject.id.clone(), i, tau, options)
+            let listed = options
+                .lambda_z_times
+                .get(&subject.id)
+                .map(|times| times.iter().map(|t| t - i.dose.time_h).collect::<Vec<f64>>());
+            analyse_interval(subject.id.clone(), i, tau, options, listed.as_deref())
         })
         .collect();
     let first_tau_auc = results.iter().find(|r| r.interval == 1).and_then(|r| r.auc_tau_mg_h_l);
@@ -217,11 +226,14 @@ fn ratio(a: Option<f64>, b: Option<f64>) -> Option<f64> {
     a.zip(b).filter(|(_, b)| *b > 0.0).map(|(a, b)| a / b)
 }
 
+/// One interval's results; `listed` holds the times (after the dose) chosen for its terminal
+/// line, when the subject's were listed.
 fn analyse_interval(
     subject: Option<String>,
     interval: &Interval,
     tau: Option<f64>,
     options: &NcaOptions,
+    listed: Option<&[f64]>,
 ) -> IntervalNca {
     let mut notes = Vec::new();
     let mut explain = interval.explain.clone();
@@ -239,7 +251,9 @@ fn analyse_interval(
         notes.push("no pre-dose level at the dose time: the areas from the dose are not computed".into());
     }
     let tmax = peak.map_or(0.0, |p| p.t);
-    let terminal = terminal_line(&positive, tmax, interval, options.lambda_z, &mut notes, &mut explain);
+    let choice = if listed.is_some() { LambdaZChoice::Listed } else { options.lambda_z };
+    let chosen = (choice, listed.unwrap_or(&[]));
+    let terminal = terminal_line(&positive, tmax, interval, chosen, &mut notes, &mut explain);
     let curve = Curve { samples: &samples, rule: options.auc_rule, tmax, terminal: terminal.as_ref() };
     let from_dose = interval.start != Start::Missing;
     // Without a level at the dose time the samples start later, and no area starts at 0.
@@ -354,7 +368,7 @@ fn terminal_line(
     positive: &[Sample],
     tmax: f64,
     interval: &Interval,
-    choice: LambdaZChoice,
+    (choice, listed): (LambdaZChoice, &[f64]),
     notes: &mut Vec<String>,
     explain: &mut Vec<String>,
 ) -> Option<Terminal> {
@@ -365,6 +379,10 @@ fn terminal_line(
             positive.iter().copied().filter(|s| s.t > tmax || (bolus && s.t >= tmax)).collect()
         }
         LambdaZChoice::Window(a, b) => positive.iter().copied().filter(|s| s.t >= a && s.t <= b).collect(),
+        // A listed time matches a level to 1e-9 h (the same number read from two files).
+        LambdaZChoice::Listed => {
+            positive.iter().copied().filter(|s| listed.iter().any(|t| (t - s.t).abs() <= 1e-9)).collect()
+        }
     };
     if candidates.len() < lambda_z::MIN_POINTS {
         notes.push(format!(
@@ -372,6 +390,7 @@ fn terminal_line(
             candidates.len(),
             match choice {
                 LambdaZChoice::Automatic => "after the peak".to_string(),
+                LambdaZChoice::Listed => "at the times listed".to_string(),
                 LambdaZChoice::Window(a, b) =>
                     format!("in the window {}..{} h", crate::io::output::full(a), crate::io::output::full(b)),
             },
@@ -381,7 +400,7 @@ fn terminal_line(
     }
     let line = match choice {
         LambdaZChoice::Automatic => lambda_z::automatic(&candidates),
-        LambdaZChoice::Window(..) => lambda_z::line(&candidates),
+        LambdaZChoice::Window(..) | LambdaZChoice::Listed => lambda_z::line(&candidates),
     };
     match &line {
         Some(t) => explain.push(format!(
@@ -391,10 +410,10 @@ fn terminal_line(
             crate::io::output::full(t.to_h),
             crate::io::output::readable(t.lambda_z_per_h, 4),
             crate::io::output::readable(t.adj_r2, 6),
-            if choice == LambdaZChoice::Automatic {
-                " (the best adjusted R² within 1e-4, most levels)"
-            } else {
-                " (the window given)"
+            match choice {
+                LambdaZChoice::Automatic => " (the best adjusted R² within 1e-4, most levels)",
+                LambdaZChoice::Window(..) => " (the window given)",
+                LambdaZChoice::Listed => " (the times listed)",
             }
         )),
         None => notes.push("no λz: the levels do not fall on a log scale".into()),

@@ -63,6 +63,7 @@ fn options(auc_rule: AucRule) -> NcaOptions {
         blq: BlqRule::ZeroThenDrop,
         lambda_z: LambdaZChoice::Automatic,
         partials: Vec::new(),
+        lambda_z_times: Default::default(),
     }
 }
 
@@ -624,4 +625,29 @@ fn the_svg_has_a_log_scale_panel_per_interval_with_the_terminal_line_and_the_cau
     );
     assert_eq!(refused.code, 2);
     assert!(!dir.path().join("q.svg").exists());
+}
+
+#[test]
+fn listed_times_choose_the_levels_of_a_subjects_terminal_line() {
+    // Subject A's line through the levels at 4, 6, 8 and 12 h (listed) equals the window 4h..12h;
+    // subject B, not listed, keeps the automatic choice; a bad time is refused with its line.
+    let dir = tempfile::tempdir().unwrap();
+    let d = write(dir.path(), "d.csv", "subject,time_h,amount_mg,route\nA,0,100,oral\nB,0,100,oral\n");
+    let rows = "1,2\n2,5\n4,3\n6,2.2\n8,1.5\n12,0.6\n";
+    let mut levels = String::from("subject,time_h,conc_mg_l\n");
+    for who in ["A", "B"] {
+        levels += &rows.lines().map(|r| format!("{who},{r}\n")).collect::<String>();
+    }
+    let l = write(dir.path(), "l.csv", &levels);
+    let times = write(dir.path(), "t.csv", "subject,time_h\nA,4\nA,6\nA,8\nA,12\n");
+    let listed = nca_json(dir.path(), &["--doses", &d, "--levels", &l, "--lambda-z-times", &times]);
+    let window = nca_json(dir.path(), &["--doses", &d, "--levels", &l, "--lambda-z-window", "4h..12h"]);
+    let automatic = nca_json(dir.path(), &["--doses", &d, "--levels", &l]);
+    assert_eq!(listed["subjects"][0]["lambda_z_points"], 4);
+    assert_eq!(listed["subjects"][0]["lambda_z_per_h"], window["subjects"][0]["lambda_z_per_h"]);
+    assert_eq!(listed["subjects"][1], automatic["subjects"][1]);
+    let bad = write(dir.path(), "bad.csv", "subject,time_h\nA,4\nA,x\n");
+    let ran = nca(dir.path(), &["--doses", &d, "--levels", &l, "--lambda-z-times", &bad]);
+    assert_eq!(ran.code, 2);
+    assert!(ran.stderr.contains("bad.csv: line 3"), "{}", ran.stderr);
 }
