@@ -39,6 +39,7 @@ pub mod fit;
 pub mod io;
 pub mod limits;
 pub mod model;
+pub mod nca;
 pub mod plan;
 pub mod population;
 pub mod report;

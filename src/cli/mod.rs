@@ -5,6 +5,7 @@ mod check;
 mod exposure;
 mod fit;
 mod merge;
+mod nca;
 mod plan;
 mod population;
 mod regimen_grid;
@@ -49,6 +50,7 @@ enum Command {
     Check(check::CheckArgs),
     Sweep(sweep::SweepArgs),
     Merge(merge::MergeArgs),
+    Nca(nca::NcaArgs),
     Verify(verify::VerifyArgs),
 }
 
@@ -73,6 +75,7 @@ pub fn run() -> ExitCode {
         Command::Check(a) => check::run(a),
         Command::Sweep(a) => sweep::run(a),
         Command::Merge(a) => merge::run(a),
+        Command::Nca(a) => nca::run(a),
         Command::Verify(a) => verify::run(a),
     };
     match outcome {

@@ -34,6 +34,8 @@ const COMMANDS: &[&str] = &[
      --every 8h,12h,24h --durations 1h --max-dose 2g --draws 200 --format json -o out/plan.json",
     "sweep --case p01.toml --subjects 200 --format csv -o out/sweep.csv --per-subject out/rows.csv",
     "merge s1.json s2.json --format csv -o out/merged.csv",
+    "nca --doses doses.csv --levels levels.csv --partial 0h..12h --lambda-z-window 1h..30h --format json \
+     -o out/nca.json",
     "check doses.csv levels.csv model.toml covariates.csv",
     "verify --format csv -o out/verify.csv",
     "report p01.toml --draws 200 -o out/report.pdf --svg out/report.svg",

@@ -17,6 +17,7 @@ mod fit_reference;
 mod library;
 mod limits;
 mod messages;
+mod nca;
 mod outputs;
 mod parser_fuzz;
 mod plan;
