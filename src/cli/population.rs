@@ -1,6 +1,6 @@
 //! `cistern population`: estimate the population model from a study.
 
-use super::args::{OutputArgs, choice, whole};
+use super::args::{OutputArgs, choice, warn, whole};
 use super::study::StudyArgs;
 use cistern::error::Problems;
 use cistern::fit::{FitOptions, Intervals, fit_all};
@@ -105,7 +105,7 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         }
     }
     for w in &result.warnings {
-        eprintln!("warning: {w}");
+        warn(w);
     }
     if let Some(s) = model_sink.as_mut() {
         let header = format!(

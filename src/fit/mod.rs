@@ -453,7 +453,8 @@ fn plausibility(model: Option<&PopulationModel>, e: &Estimates, warnings: &mut V
     }
 }
 
-fn check_levels(subject: &SubjectData) -> Result<(), String> {
+/// A subject the fitters can use: doses, levels, none before the first dose.
+pub(crate) fn check_levels(subject: &SubjectData) -> Result<(), String> {
     let first = subject.first_dose_h().ok_or("the subject has no doses")?;
     if let Some(l) = subject.levels_before_first_dose().next() {
         return Err(format!(

@@ -37,7 +37,7 @@ pub(crate) fn ln_norm_cdf(x: f64) -> f64 {
 }
 
 /// d/dx ln Φ(x) = φ(x)/Φ(x).
-fn ln_norm_cdf_slope(x: f64) -> f64 {
+pub(crate) fn ln_norm_cdf_slope(x: f64) -> f64 {
     if x > -30.0 {
         (-0.5 * x * x - 0.5 * (2.0 * PI).ln() - ln_norm_cdf(x)).exp()
     } else {

@@ -27,7 +27,7 @@ use super::quadrature::Rule;
 use crate::engine::scalar::Dual;
 use crate::fit::SubjectData;
 use crate::fit::linalg::{MAX, Mat, cholesky, log_det, spd_inverse};
-use crate::fit::objective::{D3, Fixed, Likelihood, Prior, Problem, level_term};
+use crate::fit::objective::{D3, Fixed, Likelihood, Prior, Problem, level_term, ln_norm_cdf_slope};
 use crate::fit::optimise;
 use crate::io::levels::Level;
 use crate::model::Residual;
@@ -240,8 +240,7 @@ fn laplace_curvature(
             }
             (None, Some(lloq)) => {
                 let z = (lloq - f) / var.sqrt();
-                let lambda =
-                    (-0.5 * z * z - 0.5 * (2.0 * PI).ln() - crate::fit::objective::ln_norm_cdf(z)).exp();
+                let lambda = ln_norm_cdf_slope(z);
                 let dz: Vec<f64> = (0..n).map(|i| -g[i] / var.sqrt() - z * dvar[i] / (2.0 * var)).collect();
                 add(2.0 * lambda * (lambda + z), &dz);
             }

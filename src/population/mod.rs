@@ -139,13 +139,19 @@ impl<'a> Run<'a> {
         (self.method == Method::Quadrature).then(|| &self.rules[self.nodes[subject] - 1])
     }
 
+    /// What a subject's likelihood needs of the population at `values`; `None` when Ω is not
+    /// positive definite.
+    fn population<'v>(&self, values: &'v space::Values) -> Option<Population<'v>> {
+        Population::new(self.space.n, &values.omega, values.residual, self.absorption(&values.model))
+    }
+
     /// Choose each subject's rule at φ (see [`NODE_LADDER`]); returns the largest difference
     /// between the last two rules of any subject, an estimate of the quadrature's error.
     fn choose_nodes(&mut self, phi: &[f64]) -> Result<f64, String> {
         let values = self.space.values(phi);
-        let population =
-            Population::new(self.space.n, &values.omega, values.residual, self.absorption(&values.model))
-                .ok_or("the variabilities and correlations do not form a valid covariance")?;
+        let population = self
+            .population(&values)
+            .ok_or("the variabilities and correlations do not form a valid covariance")?;
         let rules = &self.rules;
         let chosen: Vec<(usize, f64)> = self
             .subjects
@@ -184,9 +190,9 @@ impl<'a> Run<'a> {
     /// Adapt every subject at φ, warm-starting the modes from `previous`.
     fn adapt(&self, phi: &[f64], previous: Option<&[Adapted]>) -> Result<Vec<Adapted>, String> {
         let values = self.space.values(phi);
-        let population =
-            Population::new(self.space.n, &values.omega, values.residual, self.absorption(&values.model))
-                .ok_or("the variabilities and correlations do not form a valid covariance")?;
+        let population = self
+            .population(&values)
+            .ok_or("the variabilities and correlations do not form a valid covariance")?;
         self.subjects
             .par_iter()
             .enumerate()
@@ -209,9 +215,7 @@ impl<'a> Run<'a> {
         let infinite = (f64::INFINITY, vec![0.0; p]);
         let values = self.space.values(phi);
         let n = self.space.n;
-        let Some(population) =
-            Population::new(n, &values.omega, values.residual, self.absorption(&values.model))
-        else {
+        let Some(population) = self.population(&values) else {
             return infinite;
         };
         let laplace = self.method == Method::Laplace;
@@ -395,14 +399,8 @@ fn check_study(subjects: &[SubjectData], evaluate: bool) -> Result<(), String> {
         return Err("every level is below the quantification limit: nothing to estimate a model from".into());
     }
     for s in subjects {
-        let name = s.id.as_deref().unwrap_or("(unnamed)");
-        let first = s.first_dose_h().ok_or_else(|| format!("subject {name} has no doses"))?;
-        if let Some(l) = s.levels_before_first_dose().next() {
-            return Err(format!(
-                "subject {name}: a level at {} h (line {}) comes before the first dose at {first} h",
-                l.time_h, l.line
-            ));
-        }
+        crate::fit::check_levels(s)
+            .map_err(|e| format!("subject {}: {e}", s.id.as_deref().unwrap_or("(unnamed)")))?;
     }
     Ok(())
 }

@@ -77,41 +77,31 @@ impl Space {
                     .into(),
             );
         }
-        let held = |key: &str| model.holds(key);
-        let mut free = Vec::new();
-        for (p, key) in
-            ["clearance.typical_l_h", "volume.typical_l", "absorption.typical_ka_per_h"].iter().enumerate()
-        {
-            if p < n && !held(key) {
-                free.push(Free::Typical(p));
-            }
-        }
-        for (p, parameter, table) in [(0, &model.clearance, "clearance"), (1, &model.volume, "volume")] {
-            for (e, c) in parameter.covariates.iter().enumerate() {
-                if !held(&format!("{table}.covariates.{}", c.covariate)) {
-                    free.push(Free::Effect { p, e });
-                }
-            }
-        }
-        for (p, key) in ["clearance.bsv_cv", "volume.bsv_cv", "absorption.bsv_cv"].iter().enumerate() {
-            if p < n && !held(key) {
-                free.push(Free::LogSd(p));
-            }
-        }
-        for (i, j, key) in
-            [(0, 1, "correlation.cl_v"), (0, 2, "correlation.cl_ka"), (1, 2, "correlation.v_ka")]
-        {
-            if j < n && model.correlation.between(i, j).is_some() && !held(key) {
-                free.push(Free::Correlation(i, j));
-            }
-        }
-        if model.residual.additive_mg_l > 0.0 && !held("residual.additive_mg_l") {
-            free.push(Free::Additive);
-        }
-        if model.residual.proportional_cv > 0.0 && !held("residual.proportional_cv") {
-            free.push(Free::Proportional);
-        }
+        let free = Space::structure(model, n).into_iter().filter(|f| !model.holds(&key(model, *f))).collect();
         (Space { base: model.clone(), free, n }, notes)
+    }
+
+    /// Every value of `model`'s structure with `n` random effects, estimated or held, in
+    /// reading order: typical values, covariate effects, variabilities, correlations given in
+    /// the file, residual terms above 0.
+    pub fn structure(model: &PopulationModel, n: usize) -> Vec<Free> {
+        let mut all: Vec<Free> = (0..n).map(Free::Typical).collect();
+        for (p, parameter) in [&model.clearance, &model.volume].into_iter().enumerate() {
+            all.extend((0..parameter.covariates.len()).map(|e| Free::Effect { p, e }));
+        }
+        all.extend((0..n).map(Free::LogSd));
+        for (i, j) in [(0, 1), (0, 2), (1, 2)] {
+            if j < n && model.correlation.between(i, j).is_some() {
+                all.push(Free::Correlation(i, j));
+            }
+        }
+        if model.residual.additive_mg_l > 0.0 {
+            all.push(Free::Additive);
+        }
+        if model.residual.proportional_cv > 0.0 {
+            all.push(Free::Proportional);
+        }
+        all
     }
 
     /// φ of the base model.
@@ -120,9 +110,9 @@ impl Space {
         self.free
             .iter()
             .map(|f| match *f {
-                Free::Typical(p) => self.parameter(m, p).typical.ln(),
-                Free::Effect { p, e } => self.parameter(m, p).covariates[e].effect,
-                Free::LogSd(p) => 0.5 * self.parameter(m, p).omega2.ln(),
+                Free::Typical(p) => Self::parameter(m, p).typical.ln(),
+                Free::Effect { p, e } => Self::parameter(m, p).covariates[e].effect,
+                Free::LogSd(p) => 0.5 * Self::parameter(m, p).omega2.ln(),
                 Free::Correlation(i, j) => m.correlation.between(i, j).unwrap_or(0.0).atanh(),
                 Free::Additive => m.residual.additive_mg_l.ln(),
                 Free::Proportional => m.residual.proportional_cv.ln(),
@@ -138,7 +128,8 @@ impl Space {
         }
     }
 
-    fn parameter<'m>(&self, m: &'m PopulationModel, p: usize) -> &'m crate::model::Parameter {
+    /// Parameter `p` of a model: 0 CL, 1 V, 2 ka.
+    pub fn parameter(m: &PopulationModel, p: usize) -> &crate::model::Parameter {
         match p {
             0 => &m.clearance,
             1 => &m.volume,
@@ -186,7 +177,7 @@ impl Space {
         let m = &values.model;
         let mut mu = [0.0; MAX];
         for p in 0..self.n {
-            mu[p] = self.parameter(m, p).typical_for(covariates).ok()?.ln();
+            mu[p] = Self::parameter(m, p).typical_for(covariates).ok()?.ln();
         }
         if self.n == 2
             && let Some(a) = &m.absorption
@@ -201,7 +192,7 @@ impl Space {
                 match *f {
                     Free::Typical(p) => row[p] = 1.0,
                     Free::Effect { p, e } => {
-                        let c = &self.parameter(m, p).covariates[e];
+                        let c = &Self::parameter(m, p).covariates[e];
                         let x = covariates.get(&c.covariate).unwrap_or(f64::NAN);
                         row[p] = match c.form {
                             Form::Power => (x / c.reference).ln(),
@@ -241,19 +232,24 @@ impl Space {
 
     /// A name for each entry of φ, for messages.
     pub fn name(&self, k: usize) -> String {
-        match self.free[k] {
-            Free::Typical(p) => {
-                ["clearance.typical_l_h", "volume.typical_l", "absorption.typical_ka_per_h"][p].into()
-            }
-            Free::Effect { p, e } => {
-                let table = ["clearance", "volume"][p];
-                let c = &self.parameter(&self.base, p).covariates[e];
-                format!("{table}.covariates.{}", c.covariate)
-            }
-            Free::LogSd(p) => ["clearance.bsv_cv", "volume.bsv_cv", "absorption.bsv_cv"][p].into(),
-            Free::Correlation(i, j) => format!("correlation.{}_{}", EFFECTS[i], EFFECTS[j]),
-            Free::Additive => "residual.additive_mg_l".into(),
-            Free::Proportional => "residual.proportional_cv".into(),
+        key(&self.base, self.free[k])
+    }
+}
+
+/// The model file's key of a value (as `[estimation] hold` names it).
+pub fn key(model: &PopulationModel, free: Free) -> String {
+    match free {
+        Free::Typical(p) => {
+            ["clearance.typical_l_h", "volume.typical_l", "absorption.typical_ka_per_h"][p].into()
         }
+        Free::Effect { p, e } => {
+            let table = ["clearance", "volume"][p];
+            let parameter = [&model.clearance, &model.volume][p];
+            format!("{table}.covariates.{}", parameter.covariates[e].covariate)
+        }
+        Free::LogSd(p) => ["clearance.bsv_cv", "volume.bsv_cv", "absorption.bsv_cv"][p].into(),
+        Free::Correlation(i, j) => format!("correlation.{}_{}", EFFECTS[i], EFFECTS[j]),
+        Free::Additive => "residual.additive_mg_l".into(),
+        Free::Proportional => "residual.proportional_cv".into(),
     }
 }

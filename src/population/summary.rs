@@ -207,38 +207,17 @@ fn key(space: &Space, free: Free) -> (&'static str, String) {
     }
 }
 
-/// Every value of the model's structure, estimated or not (held values are reported too,
-/// marked), with its value as the model file states it.
-fn every_value(space: &Space, model: &PopulationModel) -> Vec<(Free, f64)> {
-    let mut all = vec![(Free::Typical(0), model.clearance.typical), (Free::Typical(1), model.volume.typical)];
-    let ka = model.absorption.as_ref().filter(|_| space.n == 3);
-    if let Some(a) = ka {
-        all.push((Free::Typical(2), a.ka.typical));
+/// A value as the model file states it.
+fn stated(model: &PopulationModel, free: Free) -> f64 {
+    let parameter = |p: usize| Space::parameter(model, p);
+    match free {
+        Free::Typical(p) => parameter(p).typical,
+        Free::Effect { p, e } => parameter(p).covariates[e].effect,
+        Free::LogSd(p) => parameter(p).bsv_cv,
+        Free::Correlation(i, j) => model.correlation.between(i, j).unwrap_or(0.0),
+        Free::Additive => model.residual.additive_mg_l,
+        Free::Proportional => model.residual.proportional_cv,
     }
-    for (p, parameter) in [&model.clearance, &model.volume].into_iter().enumerate() {
-        for (e, c) in parameter.covariates.iter().enumerate() {
-            all.push((Free::Effect { p, e }, c.effect));
-        }
-    }
-    all.push((Free::LogSd(0), model.clearance.bsv_cv));
-    all.push((Free::LogSd(1), model.volume.bsv_cv));
-    if let Some(a) = ka {
-        all.push((Free::LogSd(2), a.ka.bsv_cv));
-    }
-    for (i, j) in [(0, 1), (0, 2), (1, 2)] {
-        if j < space.n
-            && let Some(rho) = model.correlation.between(i, j)
-        {
-            all.push((Free::Correlation(i, j), rho));
-        }
-    }
-    if model.residual.additive_mg_l > 0.0 {
-        all.push((Free::Additive, model.residual.additive_mg_l));
-    }
-    if model.residual.proportional_cv > 0.0 {
-        all.push((Free::Proportional, model.residual.proportional_cv));
-    }
-    all
 }
 
 impl Estimation {
@@ -281,11 +260,11 @@ impl Estimation {
             .map(|b| b.replicates.iter().filter_map(|r| r.0.as_ref()).collect())
             .unwrap_or_default();
         let mut objects: [Vec<(String, Estimated)>; 3] = Default::default();
-        for (free, stated) in every_value(space, &model) {
+        for free in Space::structure(&model, n) {
             let index = space.free.iter().position(|f| *f == free);
             let (value, se, ci95) = match index {
                 Some(k) => transform(free, outcome.phi[k], matrix.map(|m| m[(k, k)].max(0.0).sqrt())),
-                None => (stated, None, None),
+                None => (stated(&model, free), None, None),
             };
             let mut e = estimated(value, se, ci95, index.is_none());
             if let Some(k) = index
