@@ -10,7 +10,7 @@
 
 use crate::dosing::{Regimen, Route};
 use crate::engine::Params;
-use crate::error::{Error, InputError, Origin, Problems, Result};
+use crate::error::{Error, InputError, Origin, Place, Problems, Result};
 use crate::plan::candidates::{
     DEFAULT_DURATION_H, DEFAULT_EVERY_H, Durations, default_amounts, grid, parse_amounts, positive_list,
 };
@@ -469,14 +469,15 @@ impl GridSpec {
             let list = if usual.is_empty() { limits.min_every_h.into_iter().collect() } else { usual };
             let text: Vec<String> = list.iter().map(|t| format!("{t}h")).collect();
             notes.push(format!(
-                "intervals {}: the usual ones{}; give --every to choose",
+                "intervals {}: the usual ones{}; {}",
                 text.join(","),
-                if limits.min_every_h.is_some() { " from the shortest allowed" } else { "" }
+                if limits.min_every_h.is_some() { " from the shortest allowed" } else { "" },
+                to_choose(&self.every)
             ));
             list
         });
         if let (Durations::Fixed(d), None, Route::Infusion) = (&durations, &self.durations.value, route) {
-            notes.push(format!("infusions over {} h; give --durations to choose", d[0]));
+            notes.push(format!("infusions over {} h; {}", d[0], to_choose(&self.durations)));
         }
         let amounts = match (amounts, fallback) {
             (Some(a), _) => a,
@@ -487,7 +488,7 @@ impl GridSpec {
                 };
                 let (a, what) = default_amounts(point, &targets, &every, route, duration, limits.max_dose_mg)
                     .map_err(|m| Error::from(self.amounts.problem(m)))?;
-                notes.push(what);
+                notes.push(format!("{what}; {}", to_choose(&self.amounts)));
                 a
             }
             (None, _) => return Ok(None),
@@ -510,6 +511,15 @@ impl GridSpec {
                 })?;
         }
         Ok(Some(Grid { candidates, targets, limits, notes }))
+    }
+}
+
+/// Where to give a setting that was derived instead: its flag, or its key in the case file
+/// (`report` reads only the case).
+fn to_choose(setting: &Setting<String>) -> String {
+    match &setting.origin {
+        Origin::File { path, place: Some(Place::Key(key)), .. } => format!("set {key} in {path} to choose"),
+        other => format!("give {other} to choose"),
     }
 }
 

@@ -48,6 +48,8 @@ pub struct Analysis<'a> {
     pub targets: &'a [Target],
     /// Limits.
     pub limits: &'a Limits,
+    /// How the candidates the case did not give were derived (the grid's notes).
+    pub candidates_derived: &'a [String],
     /// The history and the new regimen's start.
     pub course: Course<'a>,
     /// The ranked candidates and the recommendation.
@@ -305,6 +307,9 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
     }
     for n in &a.plan.notes {
         b.push(Block::Note(format!("Note: {n}.")));
+    }
+    for n in a.candidates_derived {
+        b.push(Block::Note(format!("Candidates: {n}.")));
     }
     let alt_rows = a
         .plan

@@ -45,8 +45,9 @@ use Cmd::{Fit, Plan, Report, Sweep};
 const ALL: &[Cmd] = &[Report, Plan, Fit, Sweep];
 /// The commands that read the targets, limits and candidates.
 const GRID: &[Cmd] = &[Report, Plan, Sweep];
-/// The commands that need the candidates stated: `plan` derives those not given (issue 10).
-const STATED_CANDIDATES: &[Cmd] = &[Report, Sweep];
+/// The commands that need the candidates stated: `plan` and `report` derive those not given
+/// (issue 10).
+const STATED_CANDIDATES: &[Cmd] = &[Sweep];
 
 impl Cmd {
     /// The command line for `case`, writing into the working directory.

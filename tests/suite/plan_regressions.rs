@@ -308,3 +308,33 @@ fn a_plan_without_candidates_derives_a_stated_grid() {
     assert_eq!(ran.code, 2, "{}", ran.stderr);
     assert!(ran.stderr.contains("--amounts"), "{}", ran.stderr);
 }
+
+/// `report` refused a case without candidate amounts, intervals or durations, which `plan`
+/// derives. It now derives the same grid through the same function, states it on stderr and in
+/// the report, and ranks the same candidates as `plan --case` on the same case.
+#[test]
+fn a_report_without_candidates_derives_the_grid_plan_derives() {
+    let dir = demo_copy();
+    let d = dir.path();
+    let case = std::fs::read_to_string(d.join("p01.toml")).unwrap();
+    let case: String = case
+        .lines()
+        .filter(|l| !["amounts =", "every =", "durations ="].iter().any(|k| l.starts_with(k)))
+        .map(|l| format!("{}\n", l.replace("subjects = 2000", "subjects = 200")))
+        .collect();
+    std::fs::write(d.join("new.toml"), case).unwrap();
+    let (plan, plan_stderr) = json_of(d, &["plan", "--case", "new.toml", "--draws", "300"]);
+    let ran = cistern(d, &["report", "new.toml", "--draws", "300", "-o", "new.pdf"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let stated = |stderr: &str| -> Vec<String> {
+        stderr.lines().filter(|l| l.starts_with("note: candidates: ")).map(str::to_string).collect()
+    };
+    let notes = stated(&ran.stderr);
+    assert!(notes.iter().any(|n| n.contains("intervals 6h,8h,12h,24h")), "{}", ran.stderr);
+    assert!(notes.iter().any(|n| n.contains("set plan.amounts in new.toml to choose")), "{}", ran.stderr);
+    assert_eq!(notes, stated(&plan_stderr), "report and plan state the same derived grid");
+    let text = squeeze(&page_texts(&std::fs::read(d.join("new.pdf")).unwrap()).join(" "));
+    assert!(text.contains(&squeeze("Candidates: intervals 6h,8h,12h,24h")), "the report states the grid");
+    let n = plan["candidates"].as_array().unwrap().len();
+    assert!(text.contains(&squeeze(&format!("of {n} regimens"))), "the report ranks plan's {n} candidates");
+}
