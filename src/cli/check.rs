@@ -93,7 +93,9 @@ fn check_file(path: &str) -> Result<(String, Notices), Error> {
     }
     if table.subject_column()?.is_some() {
         let subjects = parse_covariates(&table)?;
-        return Ok((format!("covariates file, {} subject(s)", subjects.len()), Notices::default()));
+        let warnings = cistern::covariates::unusual(subjects.iter().map(|(_, c)| c));
+        let notices = Notices { notes: Vec::new(), warnings };
+        return Ok((format!("covariates file, {} subject(s)", subjects.len()), notices));
     }
     Err(InputError::in_file(
         path,
