@@ -2,7 +2,7 @@
 //! runs the real binary on the input that showed the problem and checks the exit code and the
 //! message (file, line, column or key, the value entered).
 
-use crate::common::{Ran, cistern_at, demo_copy};
+use crate::common::{DEMO_STUDY, Ran, cistern_at, demo_copy};
 use std::path::Path;
 
 /// Run `cistern ARGS` in `dir`.
@@ -314,18 +314,7 @@ fn check_recognises_every_input_kind() {
         "{}",
         ran.stdout
     );
-    let study = [
-        "--model",
-        "model.toml",
-        "--doses",
-        "doses.csv",
-        "--levels",
-        "levels.csv",
-        "--covariates",
-        "covariates.csv",
-        "--draws",
-        "200",
-    ];
+    let study = [&DEMO_STUDY[..], &["--draws", "200"]].concat();
     let fit = |rest: &[&str]| {
         let ran = run(dir.path(), &[&["fit"][..], &study, rest].concat());
         assert_eq!(ran.code, 0, "{}", ran.stderr);
