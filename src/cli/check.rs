@@ -110,7 +110,8 @@ fn check_file(path: &str) -> Result<(String, Notices), Error> {
 fn check_model(path: &str) -> Result<(String, Notices), Error> {
     let model = PopulationModel::read(path)?;
     let drug = model.drug.as_deref().unwrap_or("unnamed drug");
-    Ok((format!("population model of {drug}"), Notices::default()))
+    let notices = Notices { notes: Vec::new(), warnings: model.warnings.clone() };
+    Ok((format!("population model of {drug}"), notices))
 }
 
 /// A case file: its settings, and the study it names, read as `plan --case` reads them.

@@ -155,6 +155,7 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
     for n in &grid.notes {
         args.output.note(&format!("candidates: {n}"));
     }
+    grid.warnings.iter().for_each(|w| super::args::warn(w));
     let next_level = NextLevel {
         exposure: args.advise_on,
         intervals: if args.no_advice { 0 } else { args.advise_intervals },

@@ -7,6 +7,7 @@ use crate::error::{Error, Problems, Result};
 use crate::io::digest::sha256_hex;
 use crate::io::input;
 use crate::io::output::CAUTION;
+use crate::io::table::Notices;
 use crate::plan::Course;
 use crate::plan::session::Outcome;
 use crate::report::content::{Analysis, build, concentration_plots};
@@ -31,8 +32,9 @@ pub struct Report {
     pub document: Document,
     /// The concentration plots (also on the document's pages).
     pub plots: Vec<PlotSpec>,
-    /// Notes for the user (where the new regimen starts, and the like).
-    pub notes: Vec<String>,
+    /// What to tell the user: notes (where the new regimen starts, how candidates not given
+    /// were derived) and the warnings reading the study drew (implausible values).
+    pub notices: Notices,
 }
 
 impl Report {
@@ -86,6 +88,8 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
     let Outcome { start_h, plan: planned, advice, notes: plan_notes } =
         plan(&subject, grid, settings.start_h, NextLevel::default(), seeds)?;
     let notes = grid.notes.iter().map(|n| format!("candidates: {n}")).chain(plan_notes).collect();
+    let read = study.as_ref().map(|s| s.notices.warnings.clone()).unwrap_or_default();
+    let warnings = read.into_iter().chain(grid.warnings.iter().cloned()).collect();
     let sweep = match (&spec.sweep, settings.sweep_subjects) {
         (Some(sweep), Some(subjects)) => {
             Some(super::sweep::summary(model, &sweep.covariates, grid, settings.seed, subjects)?)
@@ -134,5 +138,5 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
     };
     let plots = concentration_plots(&analysis);
     let document = build(&analysis, &plots);
-    Ok(Report { document, plots, notes })
+    Ok(Report { document, plots, notices: Notices { notes, warnings } })
 }

@@ -79,6 +79,7 @@ impl Study {
             _ => None,
         };
         let (subjects, mut notices) = problems.finish_with(matched)?;
+        notices.warnings.extend(model.iter().flat_map(|m| m.warnings.iter().cloned()));
         notices.warnings.extend(crate::covariates::unusual(subjects.iter().map(|s| &s.covariates)));
         Ok(Study { model, subjects, notices })
     }

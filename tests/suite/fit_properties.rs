@@ -141,6 +141,7 @@ fn model_with(omega2_cl: f64, omega2_v: f64, residual: Residual) -> PopulationMo
         correlation_cl_v: 0.3,
         absorption: None,
         residual,
+        warnings: Vec::new(),
     }
 }
 

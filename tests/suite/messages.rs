@@ -433,3 +433,54 @@ fn implausible_values_in_files_are_warned_about_per_column() {
     let ran = run(d, &args);
     assert!(ran.stderr.contains("warning: --covariate: weight_kg = 70000 is unusual"), "{}", ran.stderr);
 }
+
+/// Values of TOML keys drew no warning either: a typical clearance of 0.004 L/h in the model
+/// (a half-life of months), a 60-hour infusion and a peak limit of 60,000 mg/L in a case file.
+/// Each now draws a warning at its key and line, with the unit the value was read in; the run
+/// goes on.
+#[test]
+fn implausible_values_in_toml_keys_are_warned_about_at_their_key() {
+    let dir = demo_copy();
+    let d = dir.path();
+    let model = std::fs::read_to_string(d.join("model.toml")).unwrap();
+    let line = model.lines().position(|l| l.starts_with("typical_l_h")).unwrap() + 1;
+    let typical = model.lines().find(|l| l.starts_with("typical_l_h")).unwrap();
+    write(d, "slow.toml", model.replace(typical, "typical_l_h = 0.004").as_bytes());
+    let ran = run(d, &["check", "slow.toml"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let expected = format!(
+        "warning: slow.toml: line {line}, key clearance.typical_l_h: 0.004 L/h is an unusual clearance"
+    );
+    assert!(ran.stderr.contains(&expected), "{}", ran.stderr);
+    assert!(ran.stderr.contains("read in L/h"), "{}", ran.stderr);
+
+    let case = std::fs::read_to_string(d.join("p01.toml")).unwrap();
+    let case: String = case
+        .lines()
+        .map(|l| match l {
+            l if l.starts_with("durations =") => "durations = \"1h,60\"".to_string(),
+            l if l.starts_with("max_peak =") => "max_peak = \"60000\"".to_string(),
+            l => l.replace("subjects = 2000", "subjects = 200"),
+        })
+        .map(|l| l + "\n")
+        .collect();
+    write(d, "w.toml", case.as_bytes());
+    let at = |key: &str| case.lines().position(|l| l.starts_with(key)).unwrap() + 1;
+    for args in [&["plan", "--case", "w.toml", "--draws", "200"][..], &["report", "w.toml", "--draws", "200"]]
+    {
+        let ran = run(d, args);
+        assert_eq!(ran.code, 0, "{args:?}: {}", ran.stderr);
+        let durations =
+            format!("warning: w.toml: line {}, key plan.durations: an infusion of 60 h", at("durations"));
+        let peak = format!(
+            "warning: w.toml: line {}, key limits.max_peak: 60000 mg/L is an unusual",
+            at("max_peak")
+        );
+        assert!(
+            ran.stderr.contains(&durations) && ran.stderr.contains("read in h"),
+            "{args:?}: {}",
+            ran.stderr
+        );
+        assert!(ran.stderr.contains(&peak), "{args:?}: {}", ran.stderr);
+    }
+}
