@@ -94,6 +94,12 @@ impl Covariates {
         ))
     }
 
+    /// The covariates the user entered, with where: those computed or given through the
+    /// library are left out.
+    pub fn entered(&self) -> impl Iterator<Item = (&str, f64, &Origin)> {
+        self.origins.iter().filter_map(|(k, o)| Some((k.as_str(), self.get(k)?, o)))
+    }
+
     /// All numeric covariates in name order.
     pub fn iter(&self) -> impl Iterator<Item = (&str, f64)> {
         self.values.iter().map(|(k, v)| (k.as_str(), *v))
@@ -171,6 +177,45 @@ impl Covariates {
         }
         Ok(())
     }
+}
+
+/// One warning per covariate column (or flag) whose entered values lie outside the plausible
+/// range of the covariate ([`crate::limits::implausible_covariate`]), naming the file, column
+/// and lines (the first few), or the flag; each place counted once however many subjects share
+/// it (a value given for all subjects).
+pub fn unusual<'a>(all: impl IntoIterator<Item = &'a Covariates>) -> Vec<String> {
+    // (where: the file and column, or the flag; the covariate) → (lines, the first warning).
+    let mut groups: Vec<((String, &str), Vec<u64>, String)> = Vec::new();
+    let mut seen = std::collections::HashSet::new();
+    for cov in all {
+        for (name, value, origin) in cov.entered() {
+            let Some(warning) = crate::limits::implausible_covariate(name, value) else { continue };
+            if !seen.insert((origin.clone(), name)) {
+                continue;
+            }
+            let (place, line) = match origin {
+                Origin::File { path, line, place: Some(crate::error::Place::Column(c)) } => {
+                    (format!("{path}: column {c}"), *line)
+                }
+                other => (other.to_string(), None),
+            };
+            match groups.iter_mut().find(|g| g.0 == (place.clone(), name)) {
+                Some(g) => g.1.extend(line),
+                None => groups.push(((place, name), line.into_iter().collect(), warning)),
+            }
+        }
+    }
+    groups
+        .into_iter()
+        .map(|((place, _), mut lines, first)| {
+            lines.sort_unstable();
+            match lines.len() {
+                0 => format!("{place}: {first}"),
+                1 => format!("{place}, {}: {first}", crate::error::lines_phrase(&lines)),
+                _ => format!("{place}, {}: for one, {first}", crate::error::lines_phrase(&lines)),
+            }
+        })
+        .collect()
 }
 
 /// Creatinine clearance (mL/min) by Cockcroft–Gault; serum creatinine in mg/dL.

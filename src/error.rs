@@ -228,18 +228,29 @@ impl fmt::Display for InputError {
     }
 }
 
-/// How many subjects first shown in a list of subjects.
+/// How many subjects (or lines) first shown in a list of them.
 const SUBJECTS_SHOWN: usize = 3;
 
 /// `subject P01`, or for several `3 subjects (P01, P02, P03)`, the list cut after the first
 /// few (`50 subjects (P01, P02, P03, …)`): one line however many subjects share a problem.
 pub fn subjects_phrase(ids: &[String]) -> String {
-    match ids {
-        [one] => format!("subject {one}"),
+    counted_phrase(("subject", "subjects"), ids)
+}
+
+/// `line 7`, or for several `4 lines (7, 9, 12, …)`: where a grouped warning about the values
+/// of a column holds, one line however many rows share it.
+pub fn lines_phrase(lines: &[u64]) -> String {
+    counted_phrase(("line", "lines"), &lines.iter().map(u64::to_string).collect::<Vec<_>>())
+}
+
+/// `WHAT x`, or `N WHATs (x, y, z, …)` with the list cut after the first few.
+fn counted_phrase((one, many): (&str, &str), items: &[String]) -> String {
+    match items {
+        [only] => format!("{one} {only}"),
         _ => {
-            let shown = ids.iter().take(SUBJECTS_SHOWN).map(String::as_str).collect::<Vec<_>>().join(", ");
-            let more = if ids.len() > SUBJECTS_SHOWN { ", …" } else { "" };
-            format!("{} subjects ({shown}{more})", ids.len())
+            let shown = items.iter().take(SUBJECTS_SHOWN).map(String::as_str).collect::<Vec<_>>().join(", ");
+            let more = if items.len() > SUBJECTS_SHOWN { ", …" } else { "" };
+            format!("{} {many} ({shown}{more})", items.len())
         }
     }
 }

@@ -55,6 +55,39 @@ pub fn range(kind: Kind) -> Range {
 /// mg/dL, clearance in mL/min, height in cm) comes near either end.
 pub const COVARIATE: Range = Range { smallest: 1e-6, largest: 1e6, plausible: (1e-6, 1e6) };
 
+/// The plausible range of a covariate of the trade for a human patient, in the unit its name
+/// gives, and the name of the same quantity in another unit when the tool reads one (common
+/// practice, no source: wide enough for neonates and for the heaviest adults). A value outside
+/// it is read as written and earns a warning; `None` for a covariate not listed.
+pub fn covariate_plausible(name: &str) -> Option<((f64, f64), Option<&'static str>)> {
+    Some(match name {
+        "weight_kg" | "ibw_kg" => ((0.3, 350.0), None),
+        "age_y" => ((0.0, 120.0), None),
+        "height_cm" => ((25.0, 250.0), None),
+        "scr_mg_dl" => ((0.1, 20.0), Some("scr_umol_l")),
+        "scr_umol_l" => ((5.0, 1800.0), Some("scr_mg_dl")),
+        "crcl_ml_min" => ((1.0, 300.0), None),
+        "bsa_m2" => ((0.1, 3.5), None),
+        _ => return None,
+    })
+}
+
+/// A warning when a covariate's positive value lies outside its plausible range
+/// ([`covariate_plausible`]), else `None`.
+pub fn implausible_covariate(name: &str, value: f64) -> Option<String> {
+    let ((lo, hi), other) = covariate_plausible(name)?;
+    let unit = name.split_once('_').map_or("", |(_, u)| u).replace('_', "/");
+    let other = other.map_or_else(String::new, |o| format!("; if it is in another unit, name it {o}"));
+    (value > 0.0 && !(lo..=hi).contains(&value)).then(|| {
+        format!(
+            "{name} = {} is unusual (expected {} to {} {unit}, the unit in the name{other})",
+            number(value),
+            number(lo),
+            number(hi)
+        )
+    })
+}
+
 /// The base unit of `kind` as people write it (`mg/L`, `L/h`), for messages.
 pub fn unit_text(kind: Kind) -> &'static str {
     match kind {

@@ -203,6 +203,9 @@ pub struct PopulationModel {
     /// Values population estimation holds at the file's value: keys of [`HOLDABLE`], or
     /// `clearance.covariates.NAME` / `volume.covariates.NAME` for a covariate effect.
     pub hold: Vec<String>,
+    /// Warnings reading the file drew: values outside the plausible limits of their quantity
+    /// ([`limits::implausible`]), each at its key and line; read as written.
+    pub warnings: Vec<String>,
 }
 
 #[derive(Deserialize)]
@@ -292,6 +295,7 @@ struct RawCovariate {
 struct Checker<'a> {
     text: &'a TomlText,
     errors: Vec<InputError>,
+    warnings: Vec<String>,
 }
 
 impl Checker<'_> {
@@ -313,8 +317,24 @@ impl Checker<'_> {
                 None => limits::check_range(&limits::COVARIATE, x, "a covariate reference", "").map(drop),
             }
         };
+        if let (Ok(()), Some(kind)) = (&checked, kind) {
+            self.plausible(kind, v, key);
+        }
         self.within(checked, v, key);
         x
+    }
+
+    /// A warning at the value's key when it lies outside the plausible limits of `kind`.
+    fn plausible(&mut self, kind: Kind, v: &Spanned<f64>, key: &str) {
+        if let Some(unusual) = limits::implausible(kind, *v.get_ref()) {
+            let unit = limits::unit_text(kind);
+            let at = self.text.error_at(
+                v.span(),
+                key,
+                format!("{unusual} (read in {unit}, the unit in the key's name)"),
+            );
+            self.warnings.push(at.to_string());
+        }
     }
 
     /// Record a failed limit check at the value's key.
@@ -448,7 +468,7 @@ impl PopulationModel {
     /// Parse and validate a model file's text, reporting every problem found.
     pub fn parse(text: &TomlText) -> Result<PopulationModel, Vec<InputError>> {
         let raw: RawModel = text.parse().map_err(|e| vec![e])?;
-        let mut c = Checker { text, errors: Vec::new() };
+        let mut c = Checker { text, errors: Vec::new(), warnings: Vec::new() };
         let cl_cv = c.cv(&raw.clearance.bsv_cv, "clearance.bsv_cv", false);
         let clearance = Parameter {
             typical: c.positive(&raw.clearance.typical_l_h, "clearance.typical_l_h", Some(Kind::Clearance)),
@@ -486,6 +506,7 @@ impl PopulationModel {
                     &format!("expected a lag time >= 0, found {}", limits::number(x)),
                 );
                 c.within(limits::check(Kind::Time, x).map(drop), t, "absorption.tlag_h");
+                c.plausible(Kind::Time, t, "absorption.tlag_h");
                 x
             });
             Absorption {
@@ -580,6 +601,7 @@ impl PopulationModel {
             absorption,
             residual: Residual { additive_mg_l: additive, proportional_cv: proportional },
             hold,
+            warnings: c.warnings,
         })
     }
 

@@ -10,7 +10,7 @@
 
 use crate::dosing::{Regimen, Route};
 use crate::engine::Params;
-use crate::error::{Error, InputError, Origin, Problems, Result};
+use crate::error::{Error, InputError, Origin, Place, Problems, Result};
 use crate::plan::candidates::{
     DEFAULT_DURATION_H, DEFAULT_EVERY_H, Durations, default_amounts, grid, parse_amounts, positive_list,
 };
@@ -273,6 +273,9 @@ pub struct Grid {
     pub limits: Limits,
     /// How the candidates not given were derived, for the output.
     pub notes: Vec<String>,
+    /// Values given that are implausible for their quantity, or infusion durations longer than
+    /// every interval, each at its origin (a case key and line, or a flag).
+    pub warnings: Vec<String>,
 }
 
 /// Where the candidates not given (amounts, intervals, infusion durations) come from.
@@ -469,14 +472,15 @@ impl GridSpec {
             let list = if usual.is_empty() { limits.min_every_h.into_iter().collect() } else { usual };
             let text: Vec<String> = list.iter().map(|t| format!("{t}h")).collect();
             notes.push(format!(
-                "intervals {}: the usual ones{}; give --every to choose",
+                "intervals {}: the usual ones{}; {}",
                 text.join(","),
-                if limits.min_every_h.is_some() { " from the shortest allowed" } else { "" }
+                if limits.min_every_h.is_some() { " from the shortest allowed" } else { "" },
+                to_choose(&self.every)
             ));
             list
         });
         if let (Durations::Fixed(d), None, Route::Infusion) = (&durations, &self.durations.value, route) {
-            notes.push(format!("infusions over {} h; give --durations to choose", d[0]));
+            notes.push(format!("infusions over {} h; {}", d[0], to_choose(&self.durations)));
         }
         let amounts = match (amounts, fallback) {
             (Some(a), _) => a,
@@ -487,11 +491,48 @@ impl GridSpec {
                 };
                 let (a, what) = default_amounts(point, &targets, &every, route, duration, limits.max_dose_mg)
                     .map_err(|m| Error::from(self.amounts.problem(m)))?;
-                notes.push(what);
+                notes.push(format!("{what}; {}", to_choose(&self.amounts)));
                 a
             }
             (None, _) => return Ok(None),
         };
+        let mut warnings: Vec<String> = [
+            unusual(&self.amounts, Kind::Amount, &amounts),
+            unusual(&self.every, Kind::Time, &every),
+            unusual(&self.limits.max_dose, Kind::Amount, &limits.max_dose_mg.into_iter().collect::<Vec<_>>()),
+            unusual(
+                &self.limits.max_daily,
+                Kind::Amount,
+                &limits.max_daily_mg.into_iter().collect::<Vec<_>>(),
+            ),
+            unusual(
+                &self.limits.max_peak,
+                Kind::Concentration,
+                &limits.max_peak_mg_l.into_iter().collect::<Vec<_>>(),
+            ),
+            unusual(
+                &self.limits.max_trough,
+                Kind::Concentration,
+                &limits.max_trough_mg_l.into_iter().collect::<Vec<_>>(),
+            ),
+        ]
+        .into_iter()
+        .flatten()
+        .collect();
+        if let Durations::Fixed(d) = &durations {
+            warnings.extend(unusual(&self.durations, Kind::Time, d));
+            let longest_every = every.iter().copied().fold(0.0, f64::max);
+            if let Some(long) = d.iter().find(|&&h| h > longest_every) {
+                warnings.push(format!(
+                    "{}: an infusion of {} h lasts longer than every dosing interval (at most {} h), so \
+                     those candidates are left out{}",
+                    self.durations.origin,
+                    crate::limits::number(*long),
+                    crate::limits::number(longest_every),
+                    bare_hint(Kind::Time)
+                ));
+            }
+        }
         let candidates =
             grid(&amounts, &every, route, &durations).map_err(|m| Error::from(self.amounts.problem(m)))?;
         // A target over day N continues each candidate to that day: bound the doses it adds.
@@ -509,7 +550,32 @@ impl GridSpec {
                     )))
                 })?;
         }
-        Ok(Some(Grid { candidates, targets, limits, notes }))
+        Ok(Some(Grid { candidates, targets, limits, notes, warnings }))
+    }
+}
+
+/// A warning when a value a setting gives lies outside the plausible limits of `kind`: the
+/// first such value, at the setting's origin (a case key and line, or a flag).
+fn unusual(setting: &Setting<String>, kind: Kind, values: &[f64]) -> Option<String> {
+    setting.value.as_ref()?;
+    let first = values.iter().find_map(|&v| crate::limits::implausible(kind, v))?;
+    Some(format!("{}: {first}{}", setting.origin, bare_hint(kind)))
+}
+
+/// The unit a number without one is read in, and another to write.
+fn bare_hint(kind: Kind) -> String {
+    let other = kind
+        .another_unit(1.0)
+        .map_or_else(String::new, |u| format!("; write the unit to mean another, e.g. {u}"));
+    format!(" (a number without a unit is read in {}{other})", crate::limits::unit_text(kind))
+}
+
+/// Where to give a setting that was derived instead: its flag, or its key in the case file
+/// (`report` reads only the case).
+fn to_choose(setting: &Setting<String>) -> String {
+    match &setting.origin {
+        Origin::File { path, place: Some(Place::Key(key)), .. } => format!("set {key} in {path} to choose"),
+        other => format!("give {other} to choose"),
     }
 }
 

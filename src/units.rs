@@ -68,6 +68,13 @@ impl Kind {
         }
     }
 
+    /// A unit of another size than one whose factor is `factor`, as people write it (`min`
+    /// beside `h`, `h` beside `min`): the example of how to write a value in another unit.
+    pub fn another_unit(self, factor: f64) -> Option<String> {
+        let size = |f: f64| (f / factor - 1.0).abs() > 1e-12;
+        self.units().iter().find(|(_, f)| size(*f)).map(|(u, _)| u.replace('_', "/"))
+    }
+
     /// The base unit's spelling, as used in output column names.
     pub fn base_unit(self) -> &'static str {
         self.units()[0].0

@@ -194,10 +194,9 @@ pub fn bare_unit(kind: Kind, text: &str) -> String {
         return String::new();
     }
     // The first unit of another size than the base one (for time `min`, not the spelling `hr`).
-    let other =
-        kind.units().iter().find(|(_, f)| (f - 1.0).abs() > 1e-12).map_or_else(String::new, |(u, _)| {
-            format!("; write the unit to mean another, e.g. {}{}", text.trim(), u.replace('_', "/"))
-        });
+    let other = kind
+        .another_unit(1.0)
+        .map_or_else(String::new, |u| format!("; write the unit to mean another, e.g. {}{u}", text.trim()));
     format!(" (a bare number is read in {}{other})", limits::unit_text(kind))
 }
 

@@ -93,7 +93,9 @@ fn check_file(path: &str) -> Result<(String, Notices), Error> {
     }
     if table.subject_column()?.is_some() {
         let subjects = parse_covariates(&table)?;
-        return Ok((format!("covariates file, {} subject(s)", subjects.len()), Notices::default()));
+        let warnings = cistern::covariates::unusual(subjects.iter().map(|(_, c)| c));
+        let notices = Notices { notes: Vec::new(), warnings };
+        return Ok((format!("covariates file, {} subject(s)", subjects.len()), notices));
     }
     Err(InputError::in_file(
         path,
@@ -108,7 +110,8 @@ fn check_file(path: &str) -> Result<(String, Notices), Error> {
 fn check_model(path: &str) -> Result<(String, Notices), Error> {
     let model = PopulationModel::read(path)?;
     let drug = model.drug.as_deref().unwrap_or("unnamed drug");
-    Ok((format!("population model of {drug}"), Notices::default()))
+    let notices = Notices { notes: Vec::new(), warnings: model.warnings.clone() };
+    Ok((format!("population model of {drug}"), notices))
 }
 
 /// A case file: its settings, and the study it names, read as `plan --case` reads them.

@@ -6,7 +6,8 @@ use super::args::{OutputArgs, choice, flag_value, whole};
 use super::regimen_grid::GridArgs;
 use super::study::StudyArgs;
 use cistern::error::Problems;
-use cistern::spec::{DEFAULT_DRAWS, Fallback, Needs, Stated};
+use cistern::spec::{DEFAULT_DRAWS, Stated};
+use cistern::workflow::plan::plan_settings;
 use cistern::workflow::{NextLevel, PlanSubject, Required, Study, plan};
 use cistern::{InputError, Origin, Seeds};
 use std::path::PathBuf;
@@ -139,8 +140,7 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
         }
     };
     // Candidates not given are derived for the subject's point estimate.
-    let fallback = subject.as_ref().map_or(Fallback::Unknown, |s| Fallback::Derived(&s.posterior.point));
-    let settings = problems.take_all(spec.resolve_with(Needs { grid: true }, fallback));
+    let settings = problems.take_all(plan_settings(&spec, subject.as_ref()));
     let ((settings, subject), sample_after_h) =
         problems.finish_with(settings.zip(subject).zip(sample_after_h))?;
     let Some(grid) = &settings.grid else {
@@ -155,6 +155,7 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
     for n in &grid.notes {
         args.output.note(&format!("candidates: {n}"));
     }
+    grid.warnings.iter().for_each(|w| super::args::warn(w));
     let next_level = NextLevel {
         exposure: args.advise_on,
         intervals: if args.no_advice { 0 } else { args.advise_intervals },

@@ -99,7 +99,7 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
         sink.finish()?;
     }
     pdf_sink.finish()?;
-    made.notes.iter().for_each(|n| args.notify.note(n));
+    args.notify.notices(&made.notices);
     args.notify.note(&format!("wrote {output}"));
     eprintln!("caution: {CAUTION}");
     Ok(())

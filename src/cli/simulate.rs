@@ -12,6 +12,7 @@ use cistern::io::output::{
 };
 use cistern::io::table::Table;
 use cistern::limits::{check_output_size, reported_conc};
+use cistern::report::content::curve_times;
 use cistern::report::layout::{DoseTick, PlotSpec, Series, Stroke};
 use cistern::report::svg;
 use cistern::units::Kind;
@@ -332,33 +333,8 @@ fn write_csv(
 /// Outputs of at least this many values (times × subjects) show progress on a terminal.
 const PROGRESS_FROM: u64 = 1_000_000;
 
-/// Points the plot samples between two events, besides its requested times.
-const PLOT_POINTS: usize = 800;
-
-/// The times a plot of the curve over `[lo, hi]` samples: an even grid, every dose start and
-/// infusion end (where the exact curve has its corners: an infusion's peak is at its end), and
-/// a point just before each (so a bolus shows as a jump, not a ramp). The engine is exact at
-/// every time, so the plot is the exact curve at these points, whatever grid the table used.
-fn plot_times(params: &Params, doses: &[Dose], (lo, hi): (f64, f64)) -> Vec<f64> {
-    let span = hi - lo;
-    if span <= 0.0 {
-        return vec![lo];
-    }
-    let mut times: Vec<f64> = (0..=PLOT_POINTS).map(|i| lo + span * i as f64 / PLOT_POINTS as f64).collect();
-    let just_before = span * 1e-9;
-    for d in doses {
-        let start = d.time_h + if d.route == cistern::dosing::Route::Oral { params.tlag_h } else { 0.0 };
-        for corner in [start, start + d.duration_h] {
-            times.extend([corner - just_before, corner].into_iter().filter(|t| (lo..=hi).contains(t)));
-        }
-    }
-    times.sort_by(f64::total_cmp);
-    times.dedup();
-    times
-}
-
 /// The simulated curves as plot panels, linear and logarithmic, one line per subject, each
-/// the exact curve ([`plot_times`]) with its doses ticked in its colour.
+/// the exact curve ([`curve_times`]) with its doses ticked in its colour.
 fn curve_plots(params: &Params, subjects: &[(Option<String>, Vec<Dose>)], span: (f64, f64)) -> Vec<PlotSpec> {
     const COLORS: [(f32, f32, f32); 6] = [
         (0.12, 0.35, 0.65),
@@ -372,7 +348,7 @@ fn curve_plots(params: &Params, subjects: &[(Option<String>, Vec<Dose>)], span: 
         .iter()
         .enumerate()
         .map(|(i, (who, doses))| {
-            let xs = plot_times(params, doses, span);
+            let xs = curve_times(params, doses, span);
             Series {
                 label: who.clone().unwrap_or_else(|| "concentration".into()),
                 ys: engine::concentrations(params, doses, &xs),

@@ -146,8 +146,9 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
         problems.push(InputError::flag("--format", "a shard writes its state as JSON; leave out --format"));
     }
     let ((grid, shard), virtual_population) = problems.finish_with(grid.zip(shard).zip(population))?;
-    let VirtualPopulation { population, subjects, described, notes } = virtual_population;
-    notes.iter().for_each(|n| args.output.note(n));
+    let VirtualPopulation { population, subjects, described, notices } = virtual_population;
+    args.output.notify.notices(&notices);
+    grid.warnings.iter().for_each(|w| super::args::warn(w));
     let Grid { candidates, targets, limits, .. } = grid;
     let seed = spec.seed();
     let sweep =

@@ -73,7 +73,12 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
     .into_iter()
     .flatten()
     .collect();
-    let notices = table.ignored_columns(&used);
+    let mut notices = table.ignored_columns(&used);
+    let quantities: Vec<&Column> =
+        [Some(&time), Some(&amount), duration.as_ref(), every.as_ref()].into_iter().flatten().collect();
+    notices.warnings.extend(table.unusual_values(&quantities));
+    // Infusions that last longer than their row's dosing interval overlap the next dose.
+    let mut overlapping = Vec::new();
 
     let mut subjects: Vec<(Option<String>, Vec<Dose>)> = Vec::new();
     let mut slot_of: HashMap<Option<String>, usize> = HashMap::new();
@@ -128,6 +133,9 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
             subjects.len() - 1
         });
         let (step, n) = repeat.unwrap_or((0.0, 1));
+        if n > 1 && r == Route::Infusion && d > step {
+            overlapping.push(row.line);
+        }
         expanded += n;
         if let Err(m) = check_doses(expanded) {
             let place = count.as_ref().or(Some(&time));
@@ -140,6 +148,16 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
             route: r,
             duration_h: d,
         }));
+    }
+    if let (Some(d), Some(e), false) = (&duration, &every, overlapping.is_empty()) {
+        notices.warnings.push(format!(
+            "{src}: column {}, {}: the infusion lasts longer than its dosing interval ({}), so \
+             infusions overlap{}",
+            d.name,
+            crate::error::lines_phrase(&overlapping),
+            e.name,
+            d.unit_hint(Kind::Time)
+        ));
     }
     if errors.is_empty() {
         for (_, doses) in &mut subjects {

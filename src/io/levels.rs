@@ -62,6 +62,8 @@ pub fn parse_levels(table: &Table) -> Result<LevelFile, Vec<InputError>> {
     let used: Vec<_> =
         [Some(&time), Some(&conc), lloq.as_ref(), subject.as_ref()].into_iter().flatten().collect();
     let mut notices = table.ignored_columns(&used);
+    let quantities: Vec<_> = [Some(&time), Some(&conc), lloq.as_ref()].into_iter().flatten().collect();
+    notices.warnings.extend(table.unusual_values(&quantities));
     let mut subjects: Vec<(Option<String>, Vec<Level>)> = Vec::new();
     let mut slot_of: HashMap<Option<String>, usize> = HashMap::new();
     let mut seen_times: HashSet<(usize, u64)> = HashSet::new();

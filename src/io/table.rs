@@ -325,6 +325,51 @@ impl Table {
     }
 }
 
+impl Table {
+    /// One warning per column of `columns` whose values lie outside the plausible limits of
+    /// its quantity ([`crate::limits::implausible`]): read as written, but perhaps in another
+    /// unit than meant. The warning names the file and column, the lines (the first few), the
+    /// first such value, the unit the column's name gives, and how to name another. Values
+    /// that do not parse are the readers' problem, not this one's; `<x` is read as `x`.
+    pub(crate) fn unusual_values(&self, columns: &[&Column]) -> Vec<String> {
+        let mut warnings = Vec::new();
+        for column in columns {
+            let Some(kind) = column.kind else { continue };
+            let mut lines = Vec::new();
+            let mut first = None;
+            for row in &self.rows {
+                let text = row.text(column).trim_start_matches('<').trim();
+                let Ok(x) = text.parse::<f64>() else { continue };
+                if let Some(unusual) = crate::limits::implausible(kind, x * column.factor) {
+                    lines.push(row.line);
+                    first.get_or_insert(unusual);
+                }
+            }
+            let Some(first) = first else { continue };
+            let which = if lines.len() == 1 { "" } else { "the first: " };
+            warnings.push(format!(
+                "{}: column {}, {}: {which}{first}{}",
+                self.source,
+                column.name,
+                crate::error::lines_phrase(&lines),
+                column.unit_hint(kind)
+            ));
+        }
+        warnings
+    }
+}
+
+impl Column {
+    /// Which unit the column's name gives, and how to name the column for another.
+    pub(crate) fn unit_hint(&self, kind: Kind) -> String {
+        let (quantity, unit) = self.name.split_once('_').unwrap_or((self.name.as_str(), ""));
+        let other = kind.another_unit(self.factor).map_or_else(String::new, |u| {
+            format!("; name it {quantity}_{} to mean {u}", u.replace('/', "_"))
+        });
+        format!(" (read in {}, the unit in the column's name{other})", unit.replace('_', "/"))
+    }
+}
+
 impl Row {
     /// The trimmed text of a column ("" when empty).
     pub fn text<'a>(&'a self, column: &Column) -> &'a str {

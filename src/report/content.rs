@@ -2,7 +2,7 @@
 
 use super::layout::{Band, Block, Document, DoseTick, HLine, Marker, PlotSpec, Series, Stroke, Table};
 use crate::covariates::Covariates;
-use crate::dosing::Dose;
+use crate::dosing::{Dose, Route};
 use crate::engine::{self, Params};
 use crate::fit::{Estimate, FitResult};
 use crate::io::labels::{label, name_and_unit};
@@ -48,6 +48,8 @@ pub struct Analysis<'a> {
     pub targets: &'a [Target],
     /// Limits.
     pub limits: &'a Limits,
+    /// How the candidates the case did not give were derived (the grid's notes).
+    pub candidates_derived: &'a [String],
     /// The history and the new regimen's start.
     pub course: Course<'a>,
     /// The ranked candidates and the recommendation.
@@ -91,6 +93,32 @@ fn band(b: &recommend::Band) -> String {
     format!("{} ({} – {})", r3(b.median), r3(b.p05), r3(b.p95))
 }
 
+/// Points a plot samples evenly over its span, besides the corners of the curve.
+const PLOT_POINTS: usize = 800;
+
+/// The times a plot of the exact curve over `[lo, hi]` samples: an even grid, every dose start
+/// and infusion end (where the exact curve has its corners: an infusion's peak is at its end),
+/// and a point just before each (so a bolus shows as a jump, not a ramp). The engine is exact
+/// at every time, so the plot is the exact curve at these points. `simulate --svg` and the
+/// report's concentration plot both sample here.
+pub fn curve_times(params: &Params, doses: &[Dose], (lo, hi): (f64, f64)) -> Vec<f64> {
+    let span = hi - lo;
+    if span <= 0.0 {
+        return vec![lo];
+    }
+    let mut times: Vec<f64> = (0..=PLOT_POINTS).map(|i| lo + span * i as f64 / PLOT_POINTS as f64).collect();
+    let just_before = span * 1e-9;
+    for d in doses {
+        let start = d.time_h + if d.route == Route::Oral { params.tlag_h } else { 0.0 };
+        for corner in [start, start + d.duration_h] {
+            times.extend([corner - just_before, corner].into_iter().filter(|t| (lo..=hi).contains(t)));
+        }
+    }
+    times.sort_by(f64::total_cmp);
+    times.dedup();
+    times
+}
+
 /// The concentration plot, linear and logarithmic: observed levels, the individual prediction
 /// over the history and the recommended regimen, a 90 % prediction band (parameter draws plus
 /// residual error), the target band, the LLOQ line and the doses.
@@ -106,8 +134,7 @@ pub fn concentration_plots(a: &Analysis) -> Vec<PlotSpec> {
         Some(r) => a.course.continued(&r.assessment.regimen, r.loading_dose_mg, end),
         None => a.doses.to_vec(),
     };
-    let n = 400;
-    let times: Vec<f64> = (0..=n).map(|i| first + (end - first) * i as f64 / n as f64).collect();
+    let times = curve_times(&a.point, &doses, (first, end));
     let point = engine::concentrations(&a.point, &doses, &times);
     // Prediction band: every draw (up to 400) with residual error, 5th–95th percentile per time.
     let residual = a.fit.and_then(|f| f.residual).unwrap_or(a.model.residual);
@@ -305,6 +332,9 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
     }
     for n in &a.plan.notes {
         b.push(Block::Note(format!("Note: {n}.")));
+    }
+    for n in a.candidates_derived {
+        b.push(Block::Note(format!("Candidates: {n}.")));
     }
     let alt_rows = a
         .plan

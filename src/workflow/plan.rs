@@ -14,7 +14,7 @@ use crate::plan::session::{
     DEFAULT_SAMPLE_AFTER_H, Exposure, Outcome, Posterior, Record, Settings, plan_subject,
 };
 use crate::seeds::Seeds;
-use crate::spec::{Grid, Setting, Stated};
+use crate::spec::{Fallback, Grid, Needs, Resolved, Setting, Spec, Stated};
 use crate::sweep::population::{CovariateSource, Population};
 use serde::Deserialize;
 use std::path::PathBuf;
@@ -213,6 +213,16 @@ impl PlanSubject {
             a_priori: false,
         })
     }
+}
+
+/// The settings of a plan for `subject`: every value of the spec read and checked, with the
+/// candidate grid, whose candidates not given (amounts, intervals, infusion durations) are
+/// derived for the subject's point estimate; their derivation is stated in the grid's notes.
+/// `None` for a subject that could not be read (its own problem is reported elsewhere): the
+/// grid is then checked without deriving. `plan` and `report` both resolve their settings here.
+pub fn plan_settings(spec: &Spec, subject: Option<&PlanSubject>) -> Result<Resolved> {
+    let fallback = subject.map_or(Fallback::Unknown, |s| Fallback::Derived(&s.posterior.point));
+    spec.resolve_with(Needs { grid: true }, fallback)
 }
 
 /// Whether to advise on the next level, and how.

@@ -1,18 +1,19 @@
 //! The regimen report of a spec: fit the subject, plan, sweep when asked, and lay the whole
 //! analysis out as a document, ready to render as PDF (feature `pdf`) or its plots as SVG.
 
-use super::plan::{NextLevel, PlanSubject, plan};
+use super::plan::{NextLevel, PlanSubject, plan, plan_settings};
 use super::study::{Required, Study};
 use crate::error::{Error, Problems, Result};
 use crate::io::digest::sha256_hex;
 use crate::io::input;
 use crate::io::output::CAUTION;
+use crate::io::table::Notices;
 use crate::plan::Course;
 use crate::plan::session::Outcome;
 use crate::report::content::{Analysis, build, concentration_plots};
 use crate::report::layout::{Document, PlotSpec};
 use crate::seeds::Seeds;
-use crate::spec::{Needs, Spec};
+use crate::spec::{DEFAULT_DRAWS, Spec};
 
 /// Where a report came from, supplied by the caller: the command line that asked for it and
 /// the creation time to print (the library reads neither the process's arguments nor the clock).
@@ -31,8 +32,9 @@ pub struct Report {
     pub document: Document,
     /// The concentration plots (also on the document's pages).
     pub plots: Vec<PlotSpec>,
-    /// Notes for the user (where the new regimen starts, and the like).
-    pub notes: Vec<String>,
+    /// What to tell the user: notes (where the new regimen starts, how candidates not given
+    /// were derived) and the warnings reading the study drew (implausible values).
+    pub notices: Notices,
 }
 
 impl Report {
@@ -68,17 +70,26 @@ impl Report {
 /// ```
 pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
     let mut problems = Problems::new();
-    let settings = problems.take_all(spec.resolve(Needs { grid: true }));
     let study = problems.take_all(Study::load(&spec.inputs, Required { model: true, levels: false }));
-    let (settings, study) = problems.finish_with(settings.zip(study))?;
-    let (Some(grid), Some(model)) = (&settings.grid, &study.model) else {
+    // A bad --draws is reported with the other settings below.
+    let draws = spec.draws().unwrap_or(DEFAULT_DRAWS as usize);
+    let seeds = Seeds(spec.seed());
+    let subject = study.as_ref().and_then(|study| {
+        let model = study.model.as_ref()?;
+        let data = problems.take(study.subject(&spec.subject))?;
+        problems.take_all(PlanSubject::of(data, model, seeds, draws)).map(|planned| (data, planned))
+    });
+    // Candidates not given are derived for the subject's point estimate, as `plan` does.
+    let settings = problems.take_all(plan_settings(spec, subject.as_ref().map(|(_, (s, _))| s)));
+    let (settings, (data, (subject, fit))) = problems.finish_with(settings.zip(subject))?;
+    let (Some(grid), Some(model)) = (&settings.grid, study.as_ref().and_then(|s| s.model.as_ref())) else {
         return Err(Error::Usage("the report needs a population model and a candidate grid".into()));
     };
-    let seeds = Seeds(settings.seed);
-    let data = study.subject(&spec.subject)?;
-    let (subject, fit) = PlanSubject::of(data, model, seeds, settings.draws)?;
-    let Outcome { start_h, plan: planned, advice, notes } =
+    let Outcome { start_h, plan: planned, advice, notes: plan_notes } =
         plan(&subject, grid, settings.start_h, NextLevel::default(), seeds)?;
+    let notes = grid.notes.iter().map(|n| format!("candidates: {n}")).chain(plan_notes).collect();
+    let read = study.as_ref().map(|s| s.notices.warnings.clone()).unwrap_or_default();
+    let warnings = read.into_iter().chain(grid.warnings.iter().cloned()).collect();
     let sweep = match (&spec.sweep, settings.sweep_subjects) {
         (Some(sweep), Some(subjects)) => {
             Some(super::sweep::summary(model, &sweep.covariates, grid, settings.seed, subjects)?)
@@ -109,6 +120,7 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
         draws: &subject.posterior.draws,
         targets: &grid.targets,
         limits: &grid.limits,
+        candidates_derived: &grid.notes,
         course: Course {
             history: &data.doses,
             start_h,
@@ -126,5 +138,5 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
     };
     let plots = concentration_plots(&analysis);
     let document = build(&analysis, &plots);
-    Ok(Report { document, plots, notes })
+    Ok(Report { document, plots, notices: Notices { notes, warnings } })
 }

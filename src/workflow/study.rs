@@ -78,7 +78,9 @@ impl Study {
             (Some(d), Some(l)) => assemble(inputs, d, l, model.as_ref(), &mut problems),
             _ => None,
         };
-        let (subjects, notices) = problems.finish_with(matched)?;
+        let (subjects, mut notices) = problems.finish_with(matched)?;
+        notices.warnings.extend(model.iter().flat_map(|m| m.warnings.iter().cloned()));
+        notices.warnings.extend(crate::covariates::unusual(subjects.iter().map(|s| &s.covariates)));
         Ok(Study { model, subjects, notices })
     }
 

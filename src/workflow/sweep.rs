@@ -6,7 +6,7 @@ use crate::error::{Error, InputError, Problems, Result};
 use crate::io::digest::sha256_hex;
 use crate::io::input;
 use crate::io::output::full;
-use crate::io::table::Table;
+use crate::io::table::{Notices, Table};
 use crate::model::PopulationModel;
 use crate::spec::{Grid, Setting, Spec, Stated};
 use crate::sweep::Sweep;
@@ -46,8 +46,8 @@ pub struct VirtualPopulation {
     /// Its source, fingerprinted, for the sweep's setup (so shards can tell they read the same
     /// inputs).
     pub described: serde_json::Value,
-    /// Notes for the user.
-    pub notes: Vec<String>,
+    /// Notes and warnings for the user (the model's implausible values among them).
+    pub notices: Notices,
 }
 
 fn text(p: &Path) -> String {
@@ -90,7 +90,8 @@ pub fn population(spec: &Spec, source: &Source, oral: bool) -> Result<VirtualPop
                 "tlag_h": full(*tlag_h),
             });
             let subjects = rows.len() as u64;
-            Ok(VirtualPopulation { population: Population::from_params(rows), subjects, described, notes })
+            let notices = Notices { notes, warnings: Vec::new() };
+            Ok(VirtualPopulation { population: Population::from_params(rows), subjects, described, notices })
         }
         Source::Model { draws } => model_population(spec, draws, oral),
     }
@@ -144,9 +145,10 @@ fn model_population(spec: &Spec, draws: &[Stated<String>], oral: bool) -> Result
         (CovariateSource::Pool(_), Some(p)) => crate::Origin::file(text(p)),
         _ => crate::Origin::file(text(&model_path)),
     };
+    let notices = Notices { notes: Vec::new(), warnings: model.warnings.clone() };
     let population =
         Population::from_model(model, covariates).map_err(|m| Error::from(InputError::at(blame, m)))?;
-    Ok(VirtualPopulation { population, subjects, described, notes: Vec::new() })
+    Ok(VirtualPopulation { population, subjects, described, notices })
 }
 
 /// A whole (unsharded) sweep of the grid over `subjects` virtual subjects drawn from `model`,

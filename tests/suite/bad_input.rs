@@ -5,6 +5,7 @@
 //! writes no output file (`-o` is always given) and leaves the input untouched. Doses-file
 //! cases are also run through `cistern check`, which must locate the problem the same way.
 
+use crate::common::entries;
 use std::path::Path;
 use std::process::Command;
 
@@ -148,16 +149,6 @@ fn catalog() -> Vec<Case> {
         with_file(GOOD, flags("-o onto the input file", &format!("{SIM} --doses doses.csv -o doses.csv"), "-o", "refusing to write the output over the input file 'doses.csv'")),
         with_file(GOOD, flags("-o onto the input by another path", &format!("{SIM} --doses doses.csv -o ./doses.csv"), "-o", "refusing to write the output over the input file 'doses.csv'")),
     ]
-}
-
-/// The names in a directory, sorted.
-fn entries(dir: &Path) -> Vec<String> {
-    let mut names: Vec<String> = std::fs::read_dir(dir)
-        .unwrap()
-        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
-        .collect();
-    names.sort();
-    names
 }
 
 /// Run `args` in `dir` and return every way the run broke the contract.

@@ -7,7 +7,7 @@
 //! — in the output directory. Then: flags override the case, and the paths in a case are
 //! relative to the case file, not to the working directory.
 
-use crate::common::{Ran, cistern_at, demo_copy, page_texts, squeeze};
+use crate::common::{Ran, cistern_at, demo_copy, entries, page_texts, squeeze};
 use serde_json::Value;
 use std::path::Path;
 
@@ -45,8 +45,9 @@ use Cmd::{Fit, Plan, Report, Sweep};
 const ALL: &[Cmd] = &[Report, Plan, Fit, Sweep];
 /// The commands that read the targets, limits and candidates.
 const GRID: &[Cmd] = &[Report, Plan, Sweep];
-/// The commands that need the candidates stated: `plan` derives those not given (issue 10).
-const STATED_CANDIDATES: &[Cmd] = &[Report, Sweep];
+/// The commands that need the candidates stated: `plan` and `report` derive those not given
+/// (issue 10).
+const STATED_CANDIDATES: &[Cmd] = &[Sweep];
 
 impl Cmd {
     /// The command line for `case`, writing into the working directory.
@@ -144,16 +145,6 @@ fn catalog() -> Vec<Bad> {
         // Without levels `plan` and `report` plan a priori (issue 10); `fit` needs them.
         bad("no levels", &[("levels = ", None)], &[(&[Fit], &["bad.toml: key inputs.levels"])]),
     ]
-}
-
-/// The names in a directory, sorted.
-fn entries(dir: &Path) -> Vec<String> {
-    let mut names: Vec<String> = std::fs::read_dir(dir)
-        .unwrap()
-        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
-        .collect();
-    names.sort();
-    names
 }
 
 /// Every way `cmd` on the case broke the contract.

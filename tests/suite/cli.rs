@@ -7,7 +7,7 @@
 //! independent ODE solver and published cases elsewhere; a few exact identities and published
 //! values are repeated here so a wrong wiring (say, `--k` read as clearance) cannot pass.
 
-use crate::common::{assert_published, assert_rel};
+use crate::common::{assert_published, assert_rel, entries};
 use cistern::dosing::{Dose, Regimen, Route, Schedule};
 use cistern::engine::steady::SteadyCurve;
 use cistern::engine::{self, Params};
@@ -433,16 +433,6 @@ fn the_caution_travels_with_every_format() {
             }
         }
     }
-}
-
-/// The names in a directory, sorted.
-fn entries(dir: &Path) -> Vec<String> {
-    let mut names: Vec<String> = std::fs::read_dir(dir)
-        .unwrap()
-        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
-        .collect();
-    names.sort();
-    names
 }
 
 #[test]

@@ -79,23 +79,7 @@ pub fn ran(mut command: std::process::Command) -> Ran {
 /// Fit the demo study in `dir` (a [`demo_copy`]) and save it with 2,000 posterior draws as
 /// `fit.json`, the input of `cistern plan --fit`; panics unless the fit succeeds.
 pub fn save_demo_fit(dir: &std::path::Path) {
-    let args = [
-        "fit",
-        "--model",
-        "model.toml",
-        "--doses",
-        "doses.csv",
-        "--levels",
-        "levels.csv",
-        "--covariates",
-        "covariates.csv",
-        "--keep-draws",
-        "2000",
-        "--format",
-        "json",
-        "-o",
-        "fit.json",
-    ];
+    let args = demo_args("fit", &["--keep-draws", "2000", "--format", "json", "-o", "fit.json"]);
     let fit = cistern_at(dir, &args, "0");
     assert_eq!(fit.code, 0, "{}", fit.stderr);
 }
@@ -111,6 +95,34 @@ pub fn demo_copy() -> tempfile::TempDir {
         }
     }
     dir
+}
+
+/// The names in a directory, sorted: what a run left behind, compared before and after.
+pub fn entries(dir: &std::path::Path) -> Vec<String> {
+    let mut names: Vec<String> = std::fs::read_dir(dir)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    names.sort();
+    names
+}
+
+/// The demo study's files as flags, for a command run in a [`demo_copy`].
+pub const DEMO_STUDY: [&str; 8] = [
+    "--model",
+    "model.toml",
+    "--doses",
+    "doses.csv",
+    "--levels",
+    "levels.csv",
+    "--covariates",
+    "covariates.csv",
+];
+
+/// `command`, the demo study's flags ([`DEMO_STUDY`]) and `rest`: a command line for a
+/// [`demo_copy`].
+pub fn demo_args<'a>(command: &'a str, rest: &[&'a str]) -> Vec<&'a str> {
+    [command].into_iter().chain(DEMO_STUDY).chain(rest.iter().copied()).collect()
 }
 
 /// Whitespace removed, so that text wrapped over lines still matches.

@@ -5,6 +5,7 @@
 //! `line N` where the problem is on a line) and says what is wrong, show no panic, write
 //! nothing (`-o out.json` is always given) and leave the inputs as they were.
 
+use crate::common::{DEMO_STUDY, entries};
 use std::path::Path;
 use std::process::Command;
 
@@ -140,29 +141,6 @@ fn catalog() -> Vec<Case> {
     ]
 }
 
-/// The names in a directory, sorted.
-fn entries(dir: &Path) -> Vec<String> {
-    let mut names: Vec<String> = std::fs::read_dir(dir)
-        .unwrap()
-        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
-        .collect();
-    names.sort();
-    names
-}
-
-const ARGS: [&str; 10] = [
-    "fit",
-    "--model",
-    "model.toml",
-    "--doses",
-    "doses.csv",
-    "--levels",
-    "levels.csv",
-    "--covariates",
-    "covariates.csv",
-    "--intervals=laplace",
-];
-
 /// Write the four files, `replace` swapping one of them, into a new directory.
 fn setup(replace: Option<(&str, &str)>) -> tempfile::TempDir {
     let dir = tempfile::tempdir().unwrap();
@@ -178,8 +156,9 @@ fn setup(replace: Option<(&str, &str)>) -> tempfile::TempDir {
 
 fn run(dir: &Path) -> std::process::Output {
     Command::new(env!("CARGO_BIN_EXE_cistern"))
-        .args(ARGS)
-        .args(["-o", "out.json"])
+        .arg("fit")
+        .args(DEMO_STUDY)
+        .args(["--intervals=laplace", "-o", "out.json"])
         .current_dir(dir)
         .output()
         .expect("the cistern binary runs")

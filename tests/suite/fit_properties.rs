@@ -142,6 +142,7 @@ fn model_with(omega2_cl: f64, omega2_v: f64, residual: Residual) -> PopulationMo
         absorption: None,
         residual,
         hold: Vec::new(),
+        warnings: Vec::new(),
     }
 }
 

@@ -1,7 +1,7 @@
 //! The library as a Rust user calls it: analyses through the spec and the workflow, errors that
 //! carry where a value came from, and a batch whose failing subject does not abort the others.
 
-use crate::common::{cistern_at, demo_copy};
+use crate::common::{cistern_at, demo_args, demo_copy};
 use cistern::spec::{Needs, Spec, Stated};
 use cistern::workflow::{Required, Study};
 use cistern::{Error, Origin, case};
@@ -64,21 +64,7 @@ fn a_subject_that_cannot_be_fitted_does_not_abort_the_others() {
     let start = model.find("[absorption]").unwrap();
     let end = model.find("[residual]").unwrap();
     std::fs::write(dir.path().join("model.toml"), format!("{}{}", &model[..start], &model[end..])).unwrap();
-    let args = [
-        "fit",
-        "--model",
-        "model.toml",
-        "--doses",
-        "doses.csv",
-        "--levels",
-        "levels.csv",
-        "--covariates",
-        "covariates.csv",
-        "--format",
-        "csv",
-        "--draws",
-        "200",
-    ];
+    let args = demo_args("fit", &["--format", "csv", "--draws", "200"]);
     let ran = cistern_at(dir.path(), &args, "0");
     assert_eq!(ran.code, 1, "{}", ran.stderr);
     let subjects: Vec<&str> = ran.stdout.lines().skip(1).filter_map(|l| l.split(',').next()).collect();

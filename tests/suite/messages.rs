@@ -2,7 +2,7 @@
 //! runs the real binary on the input that showed the problem and checks the exit code and the
 //! message (file, line, column or key, the value entered).
 
-use crate::common::{Ran, cistern_at, demo_copy};
+use crate::common::{DEMO_STUDY, Ran, cistern_at, demo_copy};
 use std::path::Path;
 
 /// Run `cistern ARGS` in `dir`.
@@ -314,18 +314,7 @@ fn check_recognises_every_input_kind() {
         "{}",
         ran.stdout
     );
-    let study = [
-        "--model",
-        "model.toml",
-        "--doses",
-        "doses.csv",
-        "--levels",
-        "levels.csv",
-        "--covariates",
-        "covariates.csv",
-        "--draws",
-        "200",
-    ];
+    let study = [&DEMO_STUDY[..], &["--draws", "200"]].concat();
     let fit = |rest: &[&str]| {
         let ran = run(dir.path(), &[&["fit"][..], &study, rest].concat());
         assert_eq!(ran.code, 0, "{}", ran.stderr);
@@ -399,4 +388,99 @@ fn quiet_is_accepted_by_every_command_and_plan_help_has_no_method() {
     }
     let help = run(dir.path(), &["plan", "--help"]).stdout;
     assert!(!help.contains("--method"), "{help}");
+}
+
+/// Values read from files drew no warning however implausible, unlike the same values given
+/// by flags: a 60-hour infusion every 12 h, a dose of a kilogram, a level given in ng/mL in a
+/// column named mg/L, a creatinine in µmol/L in a column named mg/dL. Each now draws one
+/// warning per column naming the file, the column, the lines (the first few, with the count),
+/// the unit the column's name gives and how to name another; the run goes on (exit 0).
+#[test]
+fn implausible_values_in_files_are_warned_about_per_column() {
+    let dir = demo_copy();
+    let d = dir.path();
+    write(
+        d,
+        "d.csv",
+        b"subject,time_h,amount_mg,route,duration_h,every_h,count\n\
+          S1,0,1000,infusion,60,12,3\nS2,0,1000000,infusion,1,12,3\nS3,0,2000000,infusion,14,12,3\n\
+          S4,0,3000000,infusion,1,12,3\nS5,0,4000000,infusion,1,12,3\n",
+    );
+    write(d, "l.csv", b"subject,time_h,conc_mg_l\nS1,2,20000\nS2,2,20\nS3,2,20\nS4,2,20\nS5,2,20\n");
+    write(d, "c.csv", b"subject,age_y,sex,weight_kg,scr_mg_dl\nS1,60,F,70,88\nS2,60,M,70,1\nS3,60,M,70,1\nS4,60,M,70,1\nS5,60,M,70,1\n");
+    let ran = run(d, &["check", "d.csv", "l.csv", "c.csv"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let warnings: Vec<&str> = ran.stderr.lines().filter(|l| l.starts_with("warning: ")).collect();
+    let one = |needles: &[&str]| {
+        let found: Vec<_> = warnings.iter().filter(|w| needles.iter().all(|n| w.contains(n))).collect();
+        assert_eq!(found.len(), 1, "one warning with {needles:?} in:\n{}", ran.stderr);
+    };
+    one(&["d.csv: column amount_mg, 4 lines (3, 4, 5, …)", "1000000 mg", "read in mg", "amount_g"]);
+    one(&["d.csv: column duration_h, 2 lines (2, 4)", "longer than its dosing interval", "duration_min"]);
+    one(&["l.csv: column conc_mg_l, line 2", "20000 mg/L", "conc_ug_l"]);
+    one(&["c.csv: column scr_mg_dl, line 2", "scr_mg_dl = 88", "scr_umol_l"]);
+    assert_eq!(warnings.len(), 4, "{}", ran.stderr);
+    // The same through a command that reads the study, and a covariate given by flag.
+    let ran = run(
+        d,
+        &["fit", "--model", "model.toml", "--doses", "d.csv", "--levels", "l.csv", "--covariates", "c.csv"],
+    );
+    assert!(ran.stderr.contains("warning: c.csv: column scr_mg_dl, line 2"), "{}", ran.stderr);
+    assert!(ran.stderr.contains("warning: d.csv: column amount_mg, 4 lines"), "{}", ran.stderr);
+    let flags = ["plan", "--model", "model.toml", "--covariate", "age_y=60", "--covariate", "sex=F"];
+    let rest = ["--covariate", "weight_kg=70000", "--covariate", "scr_mg_dl=1", "--target", "auc24=400..600"];
+    let args: Vec<&str> = flags.iter().chain(&rest).copied().collect();
+    let ran = run(d, &args);
+    assert!(ran.stderr.contains("warning: --covariate: weight_kg = 70000 is unusual"), "{}", ran.stderr);
+}
+
+/// Values of TOML keys drew no warning either: a typical clearance of 0.004 L/h in the model
+/// (a half-life of months), a 60-hour infusion and a peak limit of 60,000 mg/L in a case file.
+/// Each now draws a warning at its key and line, with the unit the value was read in; the run
+/// goes on.
+#[test]
+fn implausible_values_in_toml_keys_are_warned_about_at_their_key() {
+    let dir = demo_copy();
+    let d = dir.path();
+    let model = std::fs::read_to_string(d.join("model.toml")).unwrap();
+    let line = model.lines().position(|l| l.starts_with("typical_l_h")).unwrap() + 1;
+    let typical = model.lines().find(|l| l.starts_with("typical_l_h")).unwrap();
+    write(d, "slow.toml", model.replace(typical, "typical_l_h = 0.004").as_bytes());
+    let ran = run(d, &["check", "slow.toml"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let expected = format!(
+        "warning: slow.toml: line {line}, key clearance.typical_l_h: 0.004 L/h is an unusual clearance"
+    );
+    assert!(ran.stderr.contains(&expected), "{}", ran.stderr);
+    assert!(ran.stderr.contains("read in L/h"), "{}", ran.stderr);
+
+    let case = std::fs::read_to_string(d.join("p01.toml")).unwrap();
+    let case: String = case
+        .lines()
+        .map(|l| match l {
+            l if l.starts_with("durations =") => "durations = \"1h,60\"".to_string(),
+            l if l.starts_with("max_peak =") => "max_peak = \"60000\"".to_string(),
+            l => l.replace("subjects = 2000", "subjects = 200"),
+        })
+        .map(|l| l + "\n")
+        .collect();
+    write(d, "w.toml", case.as_bytes());
+    let at = |key: &str| case.lines().position(|l| l.starts_with(key)).unwrap() + 1;
+    for args in [&["plan", "--case", "w.toml", "--draws", "200"][..], &["report", "w.toml", "--draws", "200"]]
+    {
+        let ran = run(d, args);
+        assert_eq!(ran.code, 0, "{args:?}: {}", ran.stderr);
+        let durations =
+            format!("warning: w.toml: line {}, key plan.durations: an infusion of 60 h", at("durations"));
+        let peak = format!(
+            "warning: w.toml: line {}, key limits.max_peak: 60000 mg/L is an unusual",
+            at("max_peak")
+        );
+        assert!(
+            ran.stderr.contains(&durations) && ran.stderr.contains("read in h"),
+            "{args:?}: {}",
+            ran.stderr
+        );
+        assert!(ran.stderr.contains(&peak), "{args:?}: {}", ran.stderr);
+    }
 }

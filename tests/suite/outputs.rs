@@ -4,7 +4,7 @@
 //! every output is opened before the work, and an input cannot exhaust memory. Each test is
 //! named for what broke (issue 9, section 1).
 
-use crate::common::{Ran, demo_copy, ran};
+use crate::common::{Ran, demo_copy, entries, ran};
 use std::path::Path;
 use std::process::Command;
 use std::time::{Duration, Instant};
@@ -33,16 +33,6 @@ fn simulate(out: &str) -> Vec<&str> {
         "-o",
         out,
     ]
-}
-
-/// The names in `dir`, sorted.
-fn entries(dir: &Path) -> Vec<String> {
-    let mut names: Vec<String> = std::fs::read_dir(dir)
-        .unwrap()
-        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
-        .collect();
-    names.sort();
-    names
 }
 
 /// The temporary files left in `dir`.

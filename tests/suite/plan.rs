@@ -8,7 +8,9 @@
 //! fictional drug); the one published value is the AUC24 window of the 2020 consensus
 //! guideline, used as a check value only.
 
-use crate::common::{Ran, assert_abs, assert_published, assert_rel, cistern_at, demo_copy, save_demo_fit};
+use crate::common::{
+    Ran, assert_abs, assert_published, assert_rel, cistern_at, demo_args, demo_copy, save_demo_fit,
+};
 use cistern::dosing::{Regimen, Route};
 use cistern::engine::Params;
 use cistern::engine::steady::SteadyCurve;
@@ -814,18 +816,6 @@ fn time_in_a_window_matches_dense_sampling_in_the_plan() {
 // 6. Bad input
 // ---------------------------------------------------------------------------------------------
 
-const DEMO: [&str; 9] = [
-    "plan",
-    "--model",
-    "model.toml",
-    "--doses",
-    "doses.csv",
-    "--levels",
-    "levels.csv",
-    "--covariates",
-    "covariates.csv",
-];
-
 /// A grid that is fine, to which each case adds or replaces one thing.
 const GOOD: [&str; 10] = [
     "--target",
@@ -861,7 +851,7 @@ fn bad_input_is_refused_with_exit_code_2_and_nothing_written() {
     )
     .unwrap();
     let with = |replace: &[(&str, &str)], add: &[&str]| -> Vec<String> {
-        let mut args: Vec<String> = DEMO.iter().map(|s| s.to_string()).collect();
+        let mut args: Vec<String> = demo_args("plan", &[]).iter().map(|s| s.to_string()).collect();
         let mut good: Vec<String> = GOOD.iter().map(|s| s.to_string()).collect();
         for (flag, value) in replace {
             let at = good.iter().position(|g| g == flag).expect("a flag of GOOD");
@@ -964,7 +954,7 @@ fn bad_input_is_refused_with_exit_code_2_and_nothing_written() {
 fn csv_json_and_table_carry_the_same_plan() {
     let dir = demo_copy();
     let d = dir.path();
-    let mut args = DEMO.to_vec();
+    let mut args = demo_args("plan", &[]);
     args.extend(GOOD);
     args.extend(["--max-peak", "40mg/l"]);
     let json = json_of(d, &args);
@@ -1021,7 +1011,7 @@ fn a_plan_from_a_saved_fit_equals_the_plan_from_the_levels() {
     let d = dir.path();
     save_demo_fit(d);
     let grid = ["--target", "trough=..15", "--max-peak", "60mg/l"];
-    let mut direct: Vec<&str> = DEMO.to_vec();
+    let mut direct: Vec<&str> = demo_args("plan", &[]);
     direct.extend(GOOD);
     direct.extend(grid);
     let mut saved: Vec<&str> = vec!["plan", "--fit", "fit.json", "--doses", "doses.csv"];

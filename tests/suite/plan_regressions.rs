@@ -2,7 +2,7 @@
 //! on the input that showed it (the invented demo scenario, `demo-regimens/`), and the a priori
 //! plan checked against the closed forms of a log-normal clearance.
 
-use crate::common::{Ran, cistern_at, demo_copy, page_texts, save_demo_fit, squeeze};
+use crate::common::{Ran, cistern_at, demo_args, demo_copy, page_texts, save_demo_fit, squeeze};
 use serde_json::Value;
 use statrs::distribution::{ContinuousCDF, Normal};
 use std::path::Path;
@@ -23,23 +23,12 @@ fn num(v: &Value) -> f64 {
     v.as_f64().unwrap_or_else(|| panic!("not a number: {v}"))
 }
 
-/// The demo study, and a grid of 1-h infusions.
-const DEMO: [&str; 9] = [
-    "plan",
-    "--model",
-    "model.toml",
-    "--doses",
-    "doses.csv",
-    "--levels",
-    "levels.csv",
-    "--covariates",
-    "covariates.csv",
-];
+/// A grid of 1-h infusions for the demo study.
 const GRID: [&str; 8] =
     ["--target", "auc24=400..600", "--amounts", "500..2000/250", "--every", "8h,12h", "--durations", "1h"];
 
 fn demo_plan(dir: &Path, extra: &[&str]) -> (Value, String) {
-    let args: Vec<&str> = DEMO.iter().chain(&GRID).chain(extra).copied().collect();
+    let args: Vec<&str> = demo_args("plan", &[&GRID[..], extra].concat());
     json_of(dir, &args)
 }
 
@@ -266,11 +255,7 @@ fn an_a_priori_report_says_so() {
 fn a_plan_without_candidates_derives_a_stated_grid() {
     let dir = demo_copy();
     let d = dir.path();
-    let args: Vec<&str> = DEMO
-        .iter()
-        .copied()
-        .chain(["--target", "auc24=400..600", "--subject", "P01", "--no-advice"])
-        .collect();
+    let args = demo_args("plan", &["--target", "auc24=400..600", "--subject", "P01", "--no-advice"]);
     let (plan, stderr) = json_of(d, &args);
     assert!(stderr.contains("candidates: intervals 6h,8h,12h,24h"), "{stderr}");
     assert!(
@@ -302,9 +287,38 @@ fn a_plan_without_candidates_derives_a_stated_grid() {
         assert!(num(&c["amount_mg"]) <= 1000.0 && num(&c["every_h"]) >= 8.0, "{c}");
     }
     // Amounts cannot be derived from a time-above target alone: refused, naming the flag.
-    let above: Vec<&str> =
-        DEMO.iter().copied().chain(["--target", "above=10mg/l..", "--subject", "P01"]).collect();
+    let above: Vec<&str> = demo_args("plan", &["--target", "above=10mg/l..", "--subject", "P01"]);
     let ran = cistern(d, &above);
     assert_eq!(ran.code, 2, "{}", ran.stderr);
     assert!(ran.stderr.contains("--amounts"), "{}", ran.stderr);
+}
+
+/// `report` refused a case without candidate amounts, intervals or durations, which `plan`
+/// derives. It now derives the same grid through the same function, states it on stderr and in
+/// the report, and ranks the same candidates as `plan --case` on the same case.
+#[test]
+fn a_report_without_candidates_derives_the_grid_plan_derives() {
+    let dir = demo_copy();
+    let d = dir.path();
+    let case = std::fs::read_to_string(d.join("p01.toml")).unwrap();
+    let case: String = case
+        .lines()
+        .filter(|l| !["amounts =", "every =", "durations ="].iter().any(|k| l.starts_with(k)))
+        .map(|l| format!("{}\n", l.replace("subjects = 2000", "subjects = 200")))
+        .collect();
+    std::fs::write(d.join("new.toml"), case).unwrap();
+    let (plan, plan_stderr) = json_of(d, &["plan", "--case", "new.toml", "--draws", "300"]);
+    let ran = cistern(d, &["report", "new.toml", "--draws", "300", "-o", "new.pdf"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let stated = |stderr: &str| -> Vec<String> {
+        stderr.lines().filter(|l| l.starts_with("note: candidates: ")).map(str::to_string).collect()
+    };
+    let notes = stated(&ran.stderr);
+    assert!(notes.iter().any(|n| n.contains("intervals 6h,8h,12h,24h")), "{}", ran.stderr);
+    assert!(notes.iter().any(|n| n.contains("set plan.amounts in new.toml to choose")), "{}", ran.stderr);
+    assert_eq!(notes, stated(&plan_stderr), "report and plan state the same derived grid");
+    let text = squeeze(&page_texts(&std::fs::read(d.join("new.pdf")).unwrap()).join(" "));
+    assert!(text.contains(&squeeze("Candidates: intervals 6h,8h,12h,24h")), "the report states the grid");
+    let n = plan["candidates"].as_array().unwrap().len();
+    assert!(text.contains(&squeeze(&format!("of {n} regimens"))), "the report ranks plan's {n} candidates");
 }

@@ -344,3 +344,47 @@ fn the_sweep_page_says_what_it_shows_and_why_a_regimen_is_starred() {
     }
     assert!(starred > 0, "the demo's sweep page has starred regimens");
 }
+
+/// The report's concentration plot sampled 400 evenly spaced times, so an infusion's end (the
+/// peak of the exact curve) fell between two of them and the plot was cut below the peak. It
+/// now samples where `simulate --svg` does (every dose start and infusion end): the highest
+/// point of the individual prediction is the engine's concentration at the end of the highest
+/// infusion, the true maximum of a one-compartment curve under infusions.
+#[test]
+fn the_report_plot_reaches_the_exact_infusion_peak() {
+    use cistern::plan::Course;
+    use cistern::workflow::plan::plan_settings;
+    use cistern::workflow::report::{Provenance, report};
+    use cistern::workflow::{NextLevel, PlanSubject, Required, Study, plan};
+
+    let case = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-regimens/p01.toml");
+    let mut spec = cistern::case::read(case.to_str().unwrap()).unwrap();
+    spec.draws.value = Some(200);
+    spec.sweep = None;
+    let provenance = Provenance { command_line: "test".into(), created_iso: CREATED.into() };
+    let made = report(&spec, provenance).unwrap();
+    let prediction = &made.plots[0].series[0];
+    assert_eq!(prediction.label, "individual prediction");
+    let plotted = prediction.ys.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+
+    // The same subject and plan through the library, and the engine at every infusion's end.
+    let study = Study::load(&spec.inputs, Required { model: true, levels: false }).unwrap();
+    let data = study.subject(&spec.subject).unwrap();
+    let seeds = cistern::Seeds(spec.seed());
+    let (subject, _) = PlanSubject::of(data, study.model.as_ref().unwrap(), seeds, 200).unwrap();
+    let settings = plan_settings(&spec, Some(&subject)).unwrap();
+    let grid = settings.grid.as_ref().unwrap();
+    let outcome = plan(&subject, grid, settings.start_h, NextLevel::default(), seeds).unwrap();
+    let rec = outcome.plan.recommended.as_ref().expect("the demo recommends a regimen");
+    let regimen = &rec.assessment.regimen;
+    assert!(regimen.duration_h > 0.0, "the demo's regimen is an infusion");
+    let end = rec.start_h + 3.0 * regimen.every_h;
+    let course =
+        Course { history: &data.doses, start_h: outcome.start_h, therapy_start_h: data.doses[0].time_h };
+    let doses = course.continued(regimen, rec.loading_dose_mg, end);
+    let ends: Vec<f64> = doses.iter().map(|d| d.time_h + d.duration_h).filter(|&t| t <= end).collect();
+    let peak = cistern::engine::concentrations(&subject.posterior.point, &doses, &ends)
+        .into_iter()
+        .fold(f64::NEG_INFINITY, f64::max);
+    crate::common::assert_rel(plotted, peak, 1e-12, 1e-9, "the plotted maximum against the exact peak");
+}

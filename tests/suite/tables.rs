@@ -3,7 +3,7 @@
 //! precision, `fit` summarises a study one line per subject, and the outputs that come with a
 //! fit or a simulation (`--levels-out`, `--svg`) agree exactly with `simulate`.
 
-use crate::common::demo_copy;
+use crate::common::{DEMO_STUDY, demo_copy};
 use std::path::Path;
 use std::process::Command;
 
@@ -36,17 +36,6 @@ fn table_at_80(dir: &Path, args: &[&str]) -> String {
     assert!(out.contains("Not clinical advice"), "{out}");
     out
 }
-
-const STUDY: [&str; 8] = [
-    "--model",
-    "model.toml",
-    "--doses",
-    "doses.csv",
-    "--levels",
-    "levels.csv",
-    "--covariates",
-    "covariates.csv",
-];
 
 const GRID: [&str; 12] = [
     "--amounts",
@@ -91,7 +80,7 @@ fn the_verify_table_fits_80_columns() {
 fn the_plan_table_fits_80_columns() {
     let dir = demo_copy();
     let mut args = vec!["plan", "--subject", "P01", "--draws", "300"];
-    args.extend(STUDY);
+    args.extend(DEMO_STUDY);
     args.extend(GRID);
     let out = table_at_80(dir.path(), &args);
     assert!(out.contains("Recommended:") && out.contains("PTA"), "{out}");
@@ -101,7 +90,7 @@ fn the_plan_table_fits_80_columns() {
 fn the_fit_tables_fit_80_columns() {
     let dir = demo_copy();
     let mut args = vec!["fit", "--draws", "300"];
-    args.extend(STUDY);
+    args.extend(DEMO_STUDY);
     table_at_80(dir.path(), &args);
     args.push("--details");
     table_at_80(dir.path(), &args);
@@ -176,7 +165,7 @@ fn verify_prints_expected_and_computed_values_at_the_same_precision() {
 fn fit_summarises_a_study_in_one_line_per_subject() {
     let dir = demo_copy();
     let mut args = vec!["fit", "--draws", "300", "--format", "table"];
-    args.extend(STUDY);
+    args.extend(DEMO_STUDY);
     let (code, out, err) = run(dir.path(), &args, None);
     assert_eq!(code, 0, "{err}");
     for id in ["P01", "P02", "P03"] {
@@ -207,7 +196,7 @@ fn csv_rows(text: &str) -> Vec<std::collections::HashMap<String, String>> {
 fn levels_out_holds_the_predictions_simulate_gives_at_the_fitted_parameters() {
     let dir = demo_copy();
     let mut args = vec!["fit", "--draws", "300", "--format", "csv", "--levels-out", "levels-fit.csv"];
-    args.extend(STUDY);
+    args.extend(DEMO_STUDY);
     let (code, fits, err) = run(dir.path(), &args, None);
     assert_eq!(code, 0, "{err}");
     let levels = csv_rows(&std::fs::read_to_string(dir.path().join("levels-fit.csv")).unwrap());
