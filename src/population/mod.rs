@@ -116,8 +116,10 @@ struct Run<'a> {
     nodes: Vec<usize>,
 }
 
-/// Largest −2LL change, and step in φ, between adaptations taken as converged.
-const OBJECTIVE_TOLERANCE: f64 = 1e-6;
+/// Largest −2LL change, and step in φ, between adaptations taken as converged. A change of
+/// 1e-4 in −2LL is far below any difference a likelihood-ratio test reads, and above the noise
+/// the conditional modes' own tolerance leaves in Laplace's objective.
+const OBJECTIVE_TOLERANCE: f64 = 1e-4;
 const STEP_TOLERANCE: f64 = 1e-4;
 /// A gradient (−2LL per unit of φ) small enough to call the optimum found.
 const GRADIENT_TOLERANCE: f64 = 1e-3;
@@ -341,23 +343,28 @@ impl<'a> Run<'a> {
         let mut convergence =
             Convergence { adaptations: 1, iterations: 0, gradient_norm: 0.0, reason: "evaluated".into() };
         let mut settled = evaluate;
+        let mut relaxation = Relaxation::default();
         while !settled && convergence.adaptations < MAX_ADAPTATIONS {
-            let (next, iterations) = self.minimise_held(&phi, &adapted);
+            let (held_optimum, iterations) = self.minimise_held(&phi, &adapted);
             convergence.iterations += iterations;
+            let residual: Vec<f64> = held_optimum.iter().zip(&phi).map(|(a, b)| a - b).collect();
+            let weight = relaxation.weight(&residual);
+            let next: Vec<f64> = phi.iter().zip(&residual).map(|(x, r)| x + weight * r).collect();
             let next_adapted = self.adapt(&next, Some(&adapted))?;
-            let (next_value, _) = self.objective(&next, &next_adapted);
+            let (next_value, gradient) = self.objective(&next, &next_adapted);
             convergence.adaptations += 1;
             if !next_value.is_finite() {
                 convergence.reason = "the objective became infinite".into();
                 break;
             }
-            let step = next.iter().zip(&phi).fold(0.0f64, |m, (a, b)| m.max((a - b).abs()));
-            settled = step < STEP_TOLERANCE && (next_value - value).abs() < OBJECTIVE_TOLERANCE;
+            let step = residual.iter().fold(0.0f64, |m, r| m.max(r.abs()));
+            let steep = gradient.iter().any(|g| g.abs() >= GRADIENT_TOLERANCE);
+            settled = step < STEP_TOLERANCE && (next_value - value).abs() < OBJECTIVE_TOLERANCE && !steep;
             phi = next;
             adapted = next_adapted;
             value = next_value;
             convergence.reason = if settled {
-                "the estimates and the objective stopped moving between adaptations".into()
+                "the estimates and the objective stopped moving between adaptations, and the gradient is small".into()
             } else {
                 format!("stopped after {MAX_ADAPTATIONS} adaptations")
             };
@@ -371,6 +378,44 @@ impl<'a> Run<'a> {
         let converged =
             settled && modes_found && (evaluate || convergence.gradient_norm < GRADIENT_TOLERANCE);
         Ok(Found { phi, adapted, minus2ll: value, convergence, converged })
+    }
+}
+
+/// The step taken along the fixed-point residual r = T(φ) − φ, where T(φ) is the optimum with
+/// the nodes (or, for Laplace, the modes) adapted at φ. T is not always a good contraction:
+/// where a subject's posterior is far from Gaussian the rule's error moves with the nodes and
+/// T overshoots (successive residuals point in opposite directions, and the plain iteration
+/// φ ← T(φ) oscillates or settles into a cycle); with Laplace's held modes T undershoots
+/// (residuals shrink by a steady factor near 0.8, and the plain iteration crawls). Near the
+/// fixed point T is close to linear, r(φₖ₊₁) ≈ (1 − w(1 − λ))·r(φₖ) along the residual for a step
+/// w·r and a slope λ of T, so the ratio of successive residuals estimates λ and w = 1/(1 − λ)
+/// cancels it (a scalar secant step on the residual, derived here; with the last weight w′ and
+/// the ratio ρ of the residuals' projections, λ = 1 + (ρ − 1)/w′). The weight is kept within
+/// [0.1, 5]: a residual that stops shrinking (ρ ≥ 1) falls back to the plain step.
+const MIN_WEIGHT: f64 = 0.1;
+const MAX_WEIGHT: f64 = 5.0;
+
+#[derive(Default)]
+struct Relaxation {
+    previous: Option<(Vec<f64>, f64)>,
+}
+
+impl Relaxation {
+    fn weight(&mut self, residual: &[f64]) -> f64 {
+        let weight = match &self.previous {
+            Some((last, w)) => {
+                let norm2: f64 = last.iter().map(|x| x * x).sum();
+                let ratio = residual.iter().zip(last).map(|(a, b)| a * b).sum::<f64>() / norm2;
+                if norm2 > 0.0 && ratio < 1.0 {
+                    (w / (1.0 - ratio)).clamp(MIN_WEIGHT, MAX_WEIGHT)
+                } else {
+                    1.0
+                }
+            }
+            None => 1.0,
+        };
+        self.previous = Some((residual.to_vec(), weight));
+        weight
     }
 }
 
@@ -460,4 +505,36 @@ pub fn estimate(
         successive_rules_differ_by: accuracy,
     });
     Ok(summary::Estimation::new(outcome, covariance, bootstrap, subjects, options, notes, nodes))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::Relaxation;
+
+    /// Iterates the relaxed step on a linear map T(φ) = λφ + c (fixed point c/(1 − λ)) and
+    /// returns how many steps bring φ within 1e-10 of it.
+    fn steps_to_fixed_point(lambda: f64) -> usize {
+        let fixed = 1.0 / (1.0 - lambda);
+        let (mut phi, mut relaxation) = (0.0, Relaxation::default());
+        for k in 1..=200 {
+            let residual = lambda * phi + 1.0 - phi;
+            phi += relaxation.weight(&[residual]) * residual;
+            if (phi - fixed).abs() < 1e-10 {
+                return k;
+            }
+        }
+        usize::MAX
+    }
+
+    #[test]
+    fn relaxation_solves_a_linear_map_in_a_few_steps() {
+        // The plain iteration needs about ln(1e-10)/ln|λ| steps: 103 at λ = 0.8, 219 at −0.9,
+        // and never ends at λ = −1.5. The secant weight is exact on a line after its first
+        // measured ratio (within the weight's bounds).
+        assert!(steps_to_fixed_point(0.8) <= 3, "{}", steps_to_fixed_point(0.8));
+        assert!(steps_to_fixed_point(-0.9) <= 3, "{}", steps_to_fixed_point(-0.9));
+        assert!(steps_to_fixed_point(-1.5) <= 3, "{}", steps_to_fixed_point(-1.5));
+        // λ = 0.95 needs w = 20, beyond the bound of 5: then it contracts by 1 − 5·0.05 = 0.75.
+        assert!(steps_to_fixed_point(0.95) < 120, "{}", steps_to_fixed_point(0.95));
+    }
 }
