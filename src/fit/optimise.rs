@@ -42,13 +42,15 @@ struct Adapter<'a> {
     spent: &'a Cell<u64>,
 }
 
+fn budget_spent() -> ArgminError {
+    ArgminError::msg(format!("stopped after {MAX_EVALUATIONS} evaluations of the objective"))
+}
+
 impl Adapter<'_> {
     fn spend(&self) -> Result<(), ArgminError> {
         self.spent.set(self.spent.get() + 1);
         if self.spent.get() > MAX_EVALUATIONS {
-            return Err(ArgminError::msg(format!(
-                "stopped after {MAX_EVALUATIONS} evaluations of the objective"
-            )));
+            return Err(budget_spent());
         }
         Ok(())
     }
@@ -101,6 +103,11 @@ fn nelder_mead(
     start: &[f64],
     spent: &Cell<u64>,
 ) -> Result<(Vec<f64>, u64, String), ArgminError> {
+    // argmin's Nelder–Mead unwraps the costs of its first simplex, so an exhausted budget must
+    // not be met there: it would panic instead of ending the solver.
+    if spent.get() + problem.n as u64 + 1 > MAX_EVALUATIONS {
+        return Err(budget_spent());
+    }
     let mut simplex = vec![start.to_vec()];
     for i in 0..problem.n {
         let mut p = start.to_vec();

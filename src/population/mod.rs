@@ -118,11 +118,22 @@ struct Run<'a> {
 
 /// Largest −2LL change, and step in φ, between adaptations taken as converged. A change of
 /// 1e-4 in −2LL is far below any difference a likelihood-ratio test reads, and above the noise
-/// the conditional modes' own tolerance leaves in Laplace's objective.
+/// the conditional modes' own tolerance leaves in the objective of a small study.
 const OBJECTIVE_TOLERANCE: f64 = 1e-4;
 const STEP_TOLERANCE: f64 = 1e-4;
-/// A gradient (−2LL per unit of φ) small enough to call the optimum found.
+/// A gradient (−2LL per unit of φ) small enough to call the optimum found, in a small study.
 const GRADIENT_TOLERANCE: f64 = 1e-3;
+/// Studies up to this many subjects use the tolerances as they are.
+const TOLERANCE_SUBJECTS: f64 = 100.0;
+
+/// How much the objective and gradient tolerances grow with the study: √(N/100) beyond 100
+/// subjects. Both are sums over subjects, each carrying the rounding of its own conditional
+/// mode, so their noise grows as √N; and a gradient g displaces the optimum by about H⁻¹g ∝ g/N,
+/// which is the same fraction of a standard error (∝ 1/√N) when g grows as √N.
+fn tolerance_scale(subjects: usize) -> f64 {
+    (subjects as f64 / TOLERANCE_SUBJECTS).max(1.0).sqrt()
+}
+
 /// Most adaptations before giving up.
 const MAX_ADAPTATIONS: usize = 60;
 
@@ -344,6 +355,7 @@ impl<'a> Run<'a> {
             Convergence { adaptations: 1, iterations: 0, gradient_norm: 0.0, reason: "evaluated".into() };
         let mut settled = evaluate;
         let mut relaxation = Relaxation::default();
+        let scale = tolerance_scale(self.subjects.len());
         while !settled && convergence.adaptations < MAX_ADAPTATIONS {
             let (held_optimum, iterations) = self.minimise_held(&phi, &adapted);
             convergence.iterations += iterations;
@@ -358,8 +370,9 @@ impl<'a> Run<'a> {
                 break;
             }
             let step = residual.iter().fold(0.0f64, |m, r| m.max(r.abs()));
-            let steep = gradient.iter().any(|g| g.abs() >= GRADIENT_TOLERANCE);
-            settled = step < STEP_TOLERANCE && (next_value - value).abs() < OBJECTIVE_TOLERANCE && !steep;
+            let steep = gradient.iter().any(|g| g.abs() >= GRADIENT_TOLERANCE * scale);
+            settled =
+                step < STEP_TOLERANCE && (next_value - value).abs() < OBJECTIVE_TOLERANCE * scale && !steep;
             phi = next;
             adapted = next_adapted;
             value = next_value;
@@ -376,7 +389,7 @@ impl<'a> Run<'a> {
             convergence.reason += "; some conditional modes were not found";
         }
         let converged =
-            settled && modes_found && (evaluate || convergence.gradient_norm < GRADIENT_TOLERANCE);
+            settled && modes_found && (evaluate || convergence.gradient_norm < GRADIENT_TOLERANCE * scale);
         Ok(Found { phi, adapted, minus2ll: value, convergence, converged })
     }
 }

@@ -393,6 +393,32 @@ fn bad_studies_are_refused_with_exit_code_2_and_nothing_written() {
 }
 
 #[test]
+fn a_model_the_data_cannot_inform_ends_with_warnings_not_an_error() {
+    // Three random effects, their typical values and two residual terms from one level per
+    // subject for four subjects: nothing is identified. The run ends (exit code 0), says it did
+    // not converge, names what the data do not identify, and warns of the shrinkage.
+    let tmp = tempfile::tempdir().unwrap();
+    let case = reference().join("cases").join("several_oral");
+    std::fs::copy(case.join("doses.csv"), tmp.path().join("doses.csv")).unwrap();
+    std::fs::write(
+        tmp.path().join("levels.csv"),
+        "# Invented: one level per subject of the several_oral case.\nsubject,time_h,conc_mg_l\n\
+         R1,6,6.4\nR2,11.5,4.5\nR3,4,11.0\nR4,3,9.4\n",
+    )
+    .unwrap();
+    let out = output(&population(
+        tmp.path(),
+        &case.join("model.toml"),
+        &["--method", "laplace", "--format", "json"],
+    ));
+    assert_eq!(out["converged"], Value::Bool(false), "{out}");
+    let warnings = out["warnings"].to_string();
+    for expected in ["did not converge", "do not identify", "absorption.bsv_cv", "η-shrinkage of ka"] {
+        assert!(warnings.contains(expected), "{expected}: {warnings}");
+    }
+}
+
+#[test]
 fn held_values_stay_at_the_model_files_values() {
     let dir = reference().join("cases").join("several_infusion");
     let tmp = tempfile::tempdir().unwrap();
