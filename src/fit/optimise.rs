@@ -222,3 +222,26 @@ pub fn minimise_from(problem: &Problem, starts: &[[f64; MAX]], fallback: &[[f64;
     };
     (best, others)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::dosing::{Dose, Route};
+    use crate::fit::objective::{Fixed, Likelihood, Weighting};
+    use crate::io::levels::Level;
+
+    #[test]
+    fn nelder_mead_with_the_budget_spent_ends_with_an_error_not_a_panic() {
+        // argmin's Nelder–Mead unwraps the costs of its first simplex; once the shared budget
+        // of evaluations is spent, it must not be started at all.
+        let doses = [Dose { time_h: 0.0, amount_mg: 1000.0, route: Route::Bolus, duration_h: 0.0 }];
+        let levels = [Level { time_h: 2.0, conc_mg_l: Some(10.0), lloq_mg_l: None, line: 0 }];
+        let fixed = Fixed { n: 2, ka_per_h: None, f: 1.0, tlag_h: 0.0 };
+        let problem = Problem::new(&doses, &levels, fixed, Likelihood::LeastSquares(Weighting::None), None);
+        let spent = Cell::new(MAX_EVALUATIONS - 1);
+        let error = nelder_mead(&problem, &[1.0, 3.0], &spent).expect_err("the budget is spent");
+        assert!(error.to_string().contains("evaluations of the objective"), "{error}");
+        // With budget left it runs.
+        assert!(nelder_mead(&problem, &[1.0, 3.0], &Cell::new(0)).is_ok());
+    }
+}
