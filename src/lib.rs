@@ -49,6 +49,7 @@ pub mod stats;
 pub mod sweep;
 pub mod units;
 pub mod verify;
+pub mod warning;
 pub mod workflow;
 
 pub use covariates::Covariates;

@@ -252,7 +252,7 @@ pub(super) fn write_csv(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std
             let found = named.get(i);
             row.extend(estimate_cells(found.map(|n| n.2), found.and_then(|n| n.3)));
         }
-        row.push(r.warnings.join("; "));
+        row.push(r.warnings.iter().map(|w| w.message.as_str()).collect::<Vec<_>>().join("; "));
         w.row(&row)?;
     }
     w.finish().map(drop)

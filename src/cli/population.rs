@@ -105,7 +105,7 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         }
     }
     for w in &result.warnings {
-        warn(w);
+        warn(&w.message);
     }
     if let Some(s) = model_sink.as_mut() {
         let header = format!(
