@@ -32,6 +32,7 @@
 pub mod case;
 pub mod choice;
 pub mod covariates;
+pub mod diagnostics;
 pub mod dosing;
 pub mod engine;
 pub mod error;

@@ -316,6 +316,18 @@ fn absorption(
     Ok(Absorption { estimate_ka, fixed_ka: fixed_ka.or(model_abs.map(|a| a.ka.typical)), f, tlag_h })
 }
 
+/// What a MAP fit of `subject` against `model` estimates (n) and holds (ka, F, lag): the view
+/// of the model the diagnostics use for every method.
+pub(crate) fn map_fixed(
+    subject: &SubjectData,
+    model: &PopulationModel,
+    options: &FitOptions,
+) -> Result<objective::Fixed, String> {
+    let map = FitOptions { method: Method::Map, ..options.clone() };
+    let abs = absorption(subject, Some(model), &map)?;
+    Ok(abs.fixed(if abs.estimate_ka { 3 } else { 2 }))
+}
+
 /// Fit one subject with its own `seed`. A subject whose data or options cannot be fitted as
 /// asked is an [`Error::Usage`] naming what is wrong.
 ///
