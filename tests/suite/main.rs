@@ -7,6 +7,7 @@ mod advisor;
 mod bad_input;
 mod case_files;
 mod cli;
+mod diagnostics;
 mod engine_properties;
 mod engine_vs_ode;
 mod every_command;
