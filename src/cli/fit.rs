@@ -89,6 +89,7 @@ pub struct FitArgs {
 struct FitJson<'a> {
     subjects: &'a [FitResult],
     diagnostics: &'a Diagnostics,
+    warnings: &'a [cistern::warning::Warning],
 }
 
 /// Run the command.
@@ -182,12 +183,14 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     if fits.is_empty() && !failures.is_empty() {
         return Err(Error::Usage(failures.join("\n")));
     }
-    let diagnostics = for_fits(&fitted, &fits, model.as_ref(), &options, SIMULATIONS);
+    let diagnostics = for_fits(&fitted, &mut fits, model.as_ref(), &options, SIMULATIONS);
     let format = args.output.format();
     let out = sink.writer();
     match format {
         Format::Json => {
-            write_json(out, &FitJson { subjects: &fits, diagnostics: &diagnostics }).map_err(io_failure)?
+            let json =
+                FitJson { subjects: &fits, diagnostics: &diagnostics, warnings: &diagnostics.warnings };
+            write_json(out, &json).map_err(io_failure)?
         }
         Format::Csv => write_csv(out, &fits).map_err(io_failure)?,
         Format::Table => {
@@ -198,6 +201,9 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     }
     if let Some(levels) = levels_sink.as_mut() {
         write_levels(levels.writer(), &fits).map_err(io_failure)?;
+    }
+    for w in &diagnostics.warnings {
+        super::args::warn(&w.message);
     }
     if let Some(s) = diagnostics_sink.as_mut() {
         write_diagnostics(s.writer(), &diagnostics.rows).map_err(io_failure)?;

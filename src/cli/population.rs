@@ -106,8 +106,9 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         bootstrap: args.bootstrap as usize,
         seed: settings.seed,
     };
-    let result = estimate(&subjects, &model, &options)?;
+    let mut result = estimate(&subjects, &model, &options)?;
     let diagnostics = for_population(&subjects, &result, settings.seed, SIMULATIONS);
+    result.warnings.extend(diagnostics.warnings.iter().cloned());
     for note in &result.notes {
         args.output.note(note);
     }

@@ -4,6 +4,7 @@
 //! `cistern fit` (every method) and `cistern population` compute them; docs/methods.md,
 //! section 11, gives the definitions and sources.
 
+pub mod misfit;
 pub mod residuals;
 
 use crate::fit::linalg::MAX;
@@ -12,12 +13,16 @@ use crate::fit::{FitOptions, FitResult, Intervals, Method, SubjectData};
 use crate::model::PopulationModel;
 use crate::population::summary::Estimation;
 use crate::seeds::Seeds;
+use crate::warning::{Code, Warning};
 use rayon::prelude::*;
 use residuals::Typical;
 use serde::Serialize;
 
 /// Simulated data sets per subject for the NPDE, unless asked otherwise.
 pub const SIMULATIONS: usize = 1000;
+/// An individual estimate further than this many SD (ω) from its typical value is in the tail
+/// of the population distribution (two-sided p ≈ 0.003 under the model).
+pub const TAIL_Z: f64 = 3.0;
 
 /// One level with its diagnostics.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -87,6 +92,10 @@ pub struct Diagnostics {
     /// One row per level, in the order of the subjects and their levels (`--diagnostics-out`).
     #[serde(skip)]
     pub rows: Vec<LevelDiagnostics>,
+    /// The study's warnings (misfit over the study; with a population estimation also each
+    /// subject's misfit and estimates far in the tail), for the JSON's `warnings`.
+    #[serde(skip)]
+    pub warnings: Vec<Warning>,
 }
 
 impl Diagnostics {
@@ -98,6 +107,7 @@ impl Diagnostics {
             iwres: Moments::of(rows.iter().filter_map(|r| r.iwres)),
             cwres: Moments::of(rows.iter().filter_map(|r| r.cwres)),
             npde: Moments::of(rows.iter().filter_map(|r| r.npde)),
+            warnings: misfit::study(&rows),
             rows,
         }
     }
@@ -174,7 +184,7 @@ fn log_parameters(p: &crate::Params) -> [f64; MAX] {
 /// MAP fit against the model, so that CWRES mean the same for every method).
 pub fn for_fits(
     subjects: &[&SubjectData],
-    fits: &[FitResult],
+    fits: &mut [FitResult],
     model: Option<&PopulationModel>,
     options: &FitOptions,
     simulations: usize,
@@ -182,7 +192,7 @@ pub fn for_fits(
     let seeds = Seeds(options.seed);
     let rows: Vec<Vec<LevelDiagnostics>> = subjects
         .par_iter()
-        .zip(fits)
+        .zip(fits.par_iter_mut())
         .map(|(s, fit)| {
             let times: Vec<f64> = s.levels.iter().map(|l| l.time_h).collect();
             let ipred = crate::engine::concentrations(&fit.parameters, &s.doses, &times);
@@ -222,10 +232,50 @@ pub fn for_fits(
                 Some(Conditional { typical: typical(m, s, fixed)?, mode })
             });
             let seed = seeds.diagnostics(s.id.as_deref());
-            subject_rows(s, &ipred, &iwres, conditional.as_ref(), simulations, seed)
+            let rows = subject_rows(s, &ipred, &iwres, conditional.as_ref(), simulations, seed);
+            fit.warnings.extend(misfit::subject(&rows));
+            if fit.method == Method::Wls {
+                fit.warnings.extend(weighting_dependence(s, model, options, fit));
+            }
+            rows
         })
         .collect();
     Diagnostics::new(rows.into_iter().flatten().collect(), simulations)
+}
+
+/// Least squares: refit with the other weightings; warn when clearance or volume moves by more
+/// than half (a ratio above 1.5 between the largest and smallest estimate), a sign that the
+/// model does not describe the levels (derived here).
+fn weighting_dependence(
+    subject: &SubjectData,
+    model: Option<&PopulationModel>,
+    options: &FitOptions,
+    fit: &FitResult,
+) -> Option<Warning> {
+    use crate::fit::objective::Weighting;
+    let mut cl = vec![fit.parameters.cl_l_h];
+    let mut v = vec![fit.parameters.v_l];
+    for w in [Weighting::None, Weighting::InvY, Weighting::InvY2] {
+        if w == options.weighting {
+            continue;
+        }
+        let other = FitOptions { weighting: w, intervals: Intervals::None, ..options.clone() };
+        let refit = crate::fit::fit_subject(subject, model, &other, 0).ok().filter(|f| f.converged)?;
+        cl.push(refit.parameters.cl_l_h);
+        v.push(refit.parameters.v_l);
+    }
+    let ratio =
+        |x: &[f64]| x.iter().copied().fold(0.0, f64::max) / x.iter().copied().fold(f64::INFINITY, f64::min);
+    let (rc, rv) = (ratio(&cl), ratio(&v));
+    (rc > 1.5 || rv > 1.5).then(|| {
+        Warning::new(
+            Code::WeightingDependent,
+            format!(
+                "the estimates depend strongly on the weighting (none, 1/y, 1/y^2): clearance moves {rc:.1}-fold \
+                 and volume {rv:.1}-fold; the model may not describe these levels"
+            ),
+        )
+    })
 }
 
 /// Diagnostics of a population estimation: IPRED at each subject's conditional mode, PRED,
@@ -238,7 +288,7 @@ pub fn for_population(
 ) -> Diagnostics {
     let seeds = Seeds(seed);
     let model = &estimation.model;
-    let rows: Vec<Vec<LevelDiagnostics>> = subjects
+    let rows: Vec<(Vec<LevelDiagnostics>, Vec<Warning>)> = subjects
         .par_iter()
         .zip(&estimation.subjects)
         .map(|(s, e)| {
@@ -271,15 +321,29 @@ pub fn for_population(
                 })
                 .collect();
             let conditional = typical(model, s, fixed).map(|typical| Conditional { typical, mode });
-            subject_rows(
-                s,
-                &ipred,
-                &iwres,
-                conditional.as_ref(),
-                simulations,
-                seeds.diagnostics(s.id.as_deref()),
-            )
+            let name = s.id.as_deref().unwrap_or("(unnamed)");
+            let mut warnings: Vec<Warning> = Vec::new();
+            if let Some(c) = &conditional {
+                for (i, p) in ["clearance", "volume", "ka"].iter().enumerate().take(fixed.n) {
+                    let z = (mode[i] - c.typical.mean[i]) / c.typical.omega[i][i].sqrt();
+                    if z.abs() > TAIL_Z {
+                        warnings.push(Warning::new(
+                            Code::FarFromTypical,
+                            format!("subject {name}: the {p} estimate is {z:.1} SD from the population typical value"),
+                        ));
+                    }
+                }
+            }
+            let seed = seeds.diagnostics(s.id.as_deref());
+            let rows = subject_rows(s, &ipred, &iwres, conditional.as_ref(), simulations, seed);
+            warnings.extend(
+                misfit::subject(&rows).map(|w| Warning { message: format!("subject {name}: {}", w.message), ..w }),
+            );
+            (rows, warnings)
         })
         .collect();
-    Diagnostics::new(rows.into_iter().flatten().collect(), simulations)
+    let subject_warnings: Vec<Warning> = rows.iter().flat_map(|r| r.1.iter().cloned()).collect();
+    let mut d = Diagnostics::new(rows.into_iter().flat_map(|r| r.0).collect(), simulations);
+    d.warnings.extend(subject_warnings);
+    d
 }

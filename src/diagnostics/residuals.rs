@@ -62,7 +62,7 @@ impl Typical {
 fn inverse_sqrt(m: DMatrix<f64>) -> Option<DMatrix<f64>> {
     let e = m.symmetric_eigen();
     let largest = e.eigenvalues.iter().fold(0.0f64, |a, b| a.max(b.abs()));
-    if e.eigenvalues.iter().any(|&l| !(l > 1e-12 * largest) || !l.is_finite()) {
+    if e.eigenvalues.iter().any(|&l| !l.is_finite() || l <= 1e-12 * largest) {
         return None;
     }
     let d = DMatrix::from_diagonal(&e.eigenvalues.map(|l| 1.0 / l.sqrt()));

@@ -18,6 +18,7 @@ mod fit_reference;
 mod library;
 mod limits;
 mod messages;
+mod misfit;
 mod nca;
 mod outputs;
 mod parser_fuzz;
