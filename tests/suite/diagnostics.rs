@@ -178,3 +178,38 @@ fn fit_writes_one_diagnostics_row_per_level_the_same_whatever_the_thread_count()
     let mean = npde.iter().sum::<f64>() / npde.len() as f64;
     assert_rel(num(&json["diagnostics"]["npde"]["mean"]), mean, 1e-12, 0.0, "NPDE mean in the JSON");
 }
+
+#[test]
+fn population_writes_diagnostics_against_the_estimated_model() {
+    // R's Theoph (tests/reference/population/theoph), first-order absorption: one row per
+    // level, every level with PRED, CWRES and NPDE, their summary in the JSON, warnings as
+    // {code, message} objects and no misfit warning.
+    let r = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("tests/reference/population/theoph");
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("diagnostics.csv");
+    let mut command = std::process::Command::new(env!("CARGO_BIN_EXE_cistern"));
+    command.arg("population").arg("--model").arg(r.join("start_model.toml"));
+    for f in ["doses", "levels", "covariates"] {
+        command.arg(format!("--{f}")).arg(r.join(format!("{f}.csv")));
+    }
+    command.args(["--format", "json", "-q", "--diagnostics-out"]).arg(&out);
+    let ran = ran(command);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let json: Value = serde_json::from_str(&ran.stdout).unwrap();
+    let text = std::fs::read_to_string(&out).unwrap();
+    let rows: Vec<Vec<&str>> = text.lines().skip(1).map(|l| l.split(',').collect()).collect();
+    assert_eq!(rows.len(), json["objective"]["n_observations"].as_u64().unwrap() as usize);
+    assert_eq!(json["diagnostics"]["cwres"]["count"].as_u64().unwrap() as usize, rows.len());
+    assert!(rows.iter().all(|r| !r[6].is_empty() && !r[9].is_empty() && !r[10].is_empty()));
+    for w in json["warnings"].as_array().unwrap() {
+        assert!(w["code"].is_string() && w["message"].is_string(), "{w}");
+        assert_ne!(w["code"], "model_misfit", "{w}");
+    }
+    // At the estimate the CWRES and NPDE are centred and of unit spread, within what 132
+    // levels of 12 subjects allow.
+    for key in ["cwres", "npde"] {
+        let m = &json["diagnostics"][key];
+        assert!(num(&m["mean"]).abs() < 0.25, "{key}: {m}");
+        assert!((num(&m["sd"]) - 1.0).abs() < 0.2, "{key}: {m}");
+    }
+}
