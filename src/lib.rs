@@ -32,6 +32,7 @@
 pub mod case;
 pub mod choice;
 pub mod covariates;
+pub mod diagnostics;
 pub mod dosing;
 pub mod engine;
 pub mod error;
@@ -49,6 +50,7 @@ pub mod stats;
 pub mod sweep;
 pub mod units;
 pub mod verify;
+pub mod warning;
 pub mod workflow;
 
 pub use covariates::Covariates;

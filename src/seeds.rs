@@ -14,6 +14,8 @@
 //! | [`Seeds::plan`] (planner and next-level advisor) | 1 | — |
 //! | [`Seeds::report_bands`] | 2 | — |
 //! | [`Seeds::virtual_subject`] (a sweep's i-th subject) | 3 | i |
+//! | [`Seeds::bootstrap_replicate`] | 4 | the replicate |
+//! | [`Seeds::diagnostics`] (the NPDE simulations of one subject) | 5 | the subject's key |
 
 use sha2::{Digest, Sha256};
 
@@ -27,6 +29,7 @@ const PLAN: u64 = 1;
 const REPORT_BANDS: u64 = 2;
 const VIRTUAL_SUBJECTS: u64 = 3;
 const BOOTSTRAP: u64 = 4;
+const DIAGNOSTICS: u64 = 5;
 
 impl Seeds {
     /// The draws of one subject's parameters — its posterior sampling when fitted, its prior
@@ -56,6 +59,12 @@ impl Seeds {
     /// The resampling of the `index`-th bootstrap replicate of a population estimation.
     pub fn bootstrap_replicate(self, index: u64) -> u64 {
         mix(mix(self.0, BOOTSTRAP), index)
+    }
+
+    /// The simulations of one subject's design behind its NPDE, keyed like [`Seeds::subject`]:
+    /// the same for a subject whatever the thread count and the other subjects.
+    pub fn diagnostics(self, id: Option<&str>) -> u64 {
+        mix(mix(self.0, DIAGNOSTICS), subject_key(id))
     }
 
     /// The uniform offset of a systematic resample of the `seed`'s draws.

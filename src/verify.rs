@@ -530,7 +530,10 @@ fn case6_fit() -> Result<[f64; 3], String> {
     };
     let fit = fit_subject(&subject, None, &options, 1).map_err(|e| e.to_string())?;
     if !fit.converged {
-        return Err(format!("the fit did not converge: {}", fit.warnings.join("; ")));
+        return Err(format!(
+            "the fit did not converge: {}",
+            fit.warnings.iter().map(|w| w.message.as_str()).collect::<Vec<_>>().join("; ")
+        ));
     }
     let e = &fit.estimates;
     let (k, v) = (e.k_per_h.value, e.v_l.value);

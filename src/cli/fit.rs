@@ -2,6 +2,7 @@
 
 use super::args::{OutputArgs, choice, flag_number, flag_value, invalid_flag, whole};
 use super::study::StudyArgs;
+use cistern::diagnostics::{Diagnostics, LevelDiagnostics, SIMULATIONS, for_fits};
 use cistern::engine::validate_absorption;
 use cistern::error::{Problems, subjects_phrase};
 use cistern::fit::objective::Weighting;
@@ -75,6 +76,10 @@ pub struct FitArgs {
     /// subject and level)
     #[arg(long, value_name = "FILE")]
     levels_out: Option<String>,
+    /// Also write every level's diagnostics (PRED, IPRED, IWRES, CWRES, NPDE) to FILE (CSV, one
+    /// row per subject and level)
+    #[arg(long, value_name = "FILE")]
+    diagnostics_out: Option<String>,
     #[command(flatten)]
     output: OutputArgs,
 }
@@ -83,6 +88,8 @@ pub struct FitArgs {
 #[derive(Serialize)]
 struct FitJson<'a> {
     subjects: &'a [FitResult],
+    diagnostics: &'a Diagnostics,
+    warnings: &'a [cistern::warning::Warning],
 }
 
 /// Run the command.
@@ -125,6 +132,11 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     let mut sink = args.output.sink(&mut files)?;
     let mut levels_sink =
         args.levels_out.as_deref().map(|p| files.open(Origin::Flag("--levels-out".into()), p)).transpose()?;
+    let mut diagnostics_sink = args
+        .diagnostics_out
+        .as_deref()
+        .map(|p| files.open(Origin::Flag("--diagnostics-out".into()), p))
+        .transpose()?;
     let options = FitOptions {
         method,
         intervals: args.intervals,
@@ -140,6 +152,7 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     // the failures reported after them.
     // The same failure of several subjects is one line naming them.
     let mut fits = Vec::with_capacity(subjects.len());
+    let mut fitted = Vec::with_capacity(subjects.len());
     let mut failures: Vec<(String, Vec<String>)> = Vec::new();
     let bar = match subjects.len() {
         0 | 1 => indicatif::ProgressBar::hidden(),
@@ -149,7 +162,10 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     bar.finish_and_clear();
     for (s, outcome) in subjects.iter().zip(outcomes) {
         match outcome {
-            Ok(r) => fits.push(r),
+            Ok(r) => {
+                fits.push(r);
+                fitted.push(s);
+            }
             Err(e) => {
                 let e = e.to_string();
                 match failures.iter_mut().find(|(m, _)| *m == e) {
@@ -167,10 +183,15 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     if fits.is_empty() && !failures.is_empty() {
         return Err(Error::Usage(failures.join("\n")));
     }
+    let diagnostics = for_fits(&fitted, &mut fits, model.as_ref(), &options, SIMULATIONS);
     let format = args.output.format();
     let out = sink.writer();
     match format {
-        Format::Json => write_json(out, &FitJson { subjects: &fits }).map_err(io_failure)?,
+        Format::Json => {
+            let json =
+                FitJson { subjects: &fits, diagnostics: &diagnostics, warnings: &diagnostics.warnings };
+            write_json(out, &json).map_err(io_failure)?
+        }
         Format::Csv => write_csv(out, &fits).map_err(io_failure)?,
         Format::Table => {
             let width = args.output.table_width();
@@ -181,13 +202,22 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     if let Some(levels) = levels_sink.as_mut() {
         write_levels(levels.writer(), &fits).map_err(io_failure)?;
     }
-    // The levels file is CSV: pure data, its caution on stderr.
-    if format == Format::Csv || levels_sink.is_some() {
+    for w in &diagnostics.warnings {
+        super::args::warn(&w.message);
+    }
+    if let Some(s) = diagnostics_sink.as_mut() {
+        write_diagnostics(s.writer(), &diagnostics.rows).map_err(io_failure)?;
+    }
+    // The levels and diagnostics files are CSV: pure data, their caution on stderr.
+    if format == Format::Csv || levels_sink.is_some() || diagnostics_sink.is_some() {
         eprintln!("caution: {CAUTION}");
     }
     sink.finish()?;
     if let Some(levels) = levels_sink {
         levels.finish()?;
+    }
+    if let Some(s) = diagnostics_sink {
+        s.finish()?;
     }
     if failures.is_empty() {
         Ok(())
@@ -252,7 +282,7 @@ pub(super) fn write_csv(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std
             let found = named.get(i);
             row.extend(estimate_cells(found.map(|n| n.2), found.and_then(|n| n.3)));
         }
-        row.push(r.warnings.join("; "));
+        row.push(r.warnings.iter().map(|w| w.message.as_str()).collect::<Vec<_>>().join("; "));
         w.row(&row)?;
     }
     w.finish().map(drop)
@@ -291,6 +321,46 @@ fn write_levels(out: &mut dyn std::io::Write, fits: &[FitResult]) -> std::io::Re
             }
             w.end_row()?;
         }
+    }
+    w.finish().map(drop)
+}
+
+/// `--diagnostics-out` of `fit` and `population`: one row per subject and level.
+pub(super) fn write_diagnostics(
+    out: &mut dyn std::io::Write,
+    rows: &[LevelDiagnostics],
+) -> std::io::Result<()> {
+    let mut w = CsvWriter::new(out);
+    w.row([
+        "subject",
+        "time_h",
+        "time_after_dose_h",
+        "observed_mg_l",
+        "lloq_mg_l",
+        "blq",
+        "pred_mg_l",
+        "ipred_mg_l",
+        "iwres",
+        "cwres",
+        "npde",
+    ])?;
+    for r in rows {
+        w.text(r.subject.as_deref().unwrap_or(""))?;
+        w.number(r.time_h)?;
+        w.number(r.time_after_dose_h)?;
+        let optional = |w: &mut CsvWriter<&mut dyn std::io::Write>, x: Option<f64>| match x {
+            Some(x) => w.number(x),
+            None => w.text(""),
+        };
+        optional(&mut w, r.observed_mg_l)?;
+        optional(&mut w, r.lloq_mg_l)?;
+        w.text(if r.blq { "true" } else { "false" })?;
+        optional(&mut w, r.pred_mg_l)?;
+        w.number(r.ipred_mg_l)?;
+        for x in [r.iwres, r.cwres, r.npde] {
+            optional(&mut w, x)?;
+        }
+        w.end_row()?;
     }
     w.finish().map(drop)
 }

@@ -2,6 +2,7 @@
 
 use super::args::{OutputArgs, choice, warn, whole};
 use super::study::StudyArgs;
+use cistern::diagnostics::{Diagnostics, SIMULATIONS, for_population};
 use cistern::error::Problems;
 use cistern::fit::{FitOptions, Intervals, fit_all};
 use cistern::io::output::{
@@ -57,8 +58,20 @@ pub struct PopulationArgs {
     /// Write every subject's individual estimates to FILE (CSV, the columns of `fit`'s CSV)
     #[arg(long, value_name = "FILE")]
     subjects_out: Option<String>,
+    /// Write every level's diagnostics (PRED, IPRED, IWRES, CWRES, NPDE) to FILE (CSV, the
+    /// columns of `fit --diagnostics-out`)
+    #[arg(long, value_name = "FILE")]
+    diagnostics_out: Option<String>,
     #[command(flatten)]
     output: OutputArgs,
+}
+
+/// The JSON output: the estimation and the diagnostics' summary.
+#[derive(serde::Serialize)]
+struct PopulationJson<'a> {
+    #[serde(flatten)]
+    estimation: &'a Estimation,
+    diagnostics: &'a Diagnostics,
 }
 
 /// Run the command.
@@ -81,6 +94,11 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         .as_deref()
         .map(|p| files.open(Origin::Flag("--subjects-out".into()), p))
         .transpose()?;
+    let mut diagnostics_sink = args
+        .diagnostics_out
+        .as_deref()
+        .map(|p| files.open(Origin::Flag("--diagnostics-out".into()), p))
+        .transpose()?;
     let options = Options {
         method: args.method,
         nodes: args.nodes.map(|n| n as usize),
@@ -88,13 +106,16 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         bootstrap: args.bootstrap as usize,
         seed: settings.seed,
     };
-    let result = estimate(&subjects, &model, &options)?;
+    let mut result = estimate(&subjects, &model, &options)?;
+    let diagnostics = for_population(&subjects, &result, settings.seed, SIMULATIONS);
+    result.warnings.extend(diagnostics.warnings.iter().cloned());
     for note in &result.notes {
         args.output.note(note);
     }
     let out = sink.writer();
     match args.output.format() {
-        Format::Json => write_json(out, &result).map_err(io_failure)?,
+        Format::Json => write_json(out, &PopulationJson { estimation: &result, diagnostics: &diagnostics })
+            .map_err(io_failure)?,
         Format::Csv => {
             write_csv(out, &result).map_err(io_failure)?;
             eprintln!("caution: {CAUTION}");
@@ -105,7 +126,7 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         }
     }
     for w in &result.warnings {
-        warn(w);
+        warn(&w.message);
     }
     if let Some(s) = model_sink.as_mut() {
         let header = format!(
@@ -128,7 +149,16 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
             eprintln!("caution: {CAUTION}");
         }
     }
+    if let Some(s) = diagnostics_sink.as_mut() {
+        super::fit::write_diagnostics(s.writer(), &diagnostics.rows).map_err(io_failure)?;
+        if args.output.format() != Format::Csv && subjects_sink.is_none() {
+            eprintln!("caution: {CAUTION}");
+        }
+    }
     sink.finish()?;
+    if let Some(s) = diagnostics_sink {
+        s.finish()?;
+    }
     if let Some(s) = model_sink {
         s.finish()?;
     }

@@ -23,6 +23,7 @@ use crate::error::Error;
 use crate::io::levels::Level;
 use crate::model::{PopulationModel, Residual};
 use crate::seeds::Seeds;
+use crate::warning::{Code, Warning};
 use linalg::{MAX, Mat, spd_inverse};
 use objective::{Likelihood, Prior, Problem, Weighting};
 use rayon::prelude::*;
@@ -216,8 +217,8 @@ pub struct FitResult {
     pub two_level: Option<two_level::TwoLevel>,
     /// Each level with its prediction and residuals.
     pub levels: Vec<LevelFit>,
-    /// Things the user should know.
-    pub warnings: Vec<String>,
+    /// Things the user should know, each with its stable code.
+    pub warnings: Vec<Warning>,
     /// The point estimate as a full parameter set (with the fixed ka, F and lag), for
     /// continuing predictions.
     pub parameters: Params,
@@ -313,6 +314,18 @@ fn absorption(
         );
     }
     Ok(Absorption { estimate_ka, fixed_ka: fixed_ka.or(model_abs.map(|a| a.ka.typical)), f, tlag_h })
+}
+
+/// What a MAP fit of `subject` against `model` estimates (n) and holds (ka, F, lag): the view
+/// of the model the diagnostics use for every method.
+pub(crate) fn map_fixed(
+    subject: &SubjectData,
+    model: &PopulationModel,
+    options: &FitOptions,
+) -> Result<objective::Fixed, String> {
+    let map = FitOptions { method: Method::Map, ..options.clone() };
+    let abs = absorption(subject, Some(model), &map)?;
+    Ok(abs.fixed(if abs.estimate_ka { 3 } else { 2 }))
 }
 
 /// Fit one subject with its own `seed`. A subject whose data or options cannot be fitted as
@@ -436,7 +449,7 @@ fn level_fits(
         .collect()
 }
 
-fn plausibility(model: Option<&PopulationModel>, e: &Estimates, warnings: &mut Vec<String>) {
+fn plausibility(model: Option<&PopulationModel>, e: &Estimates, warnings: &mut Vec<Warning>) {
     let Some(m) = model else { return };
     let ka = e.ka_per_h.zip(m.absorption.as_ref().and_then(|a| a.ka.plausible));
     let checks = [
@@ -448,7 +461,10 @@ fn plausibility(model: Option<&PopulationModel>, e: &Estimates, warnings: &mut V
         if let Some((lo, hi)) = range
             && !(lo..=hi).contains(&value)
         {
-            warnings.push(format!("the {name} estimate {value:.4} {unit} is outside the model's plausible range {lo}–{hi} {unit}"));
+            warnings.push(Warning::new(
+                Code::ImplausibleEstimate,
+                format!("the {name} estimate {value:.4} {unit} is outside the model's plausible range {lo}–{hi} {unit}"),
+            ));
         }
     }
 }
@@ -498,22 +514,26 @@ fn check_point_masses(subject: &SubjectData, residual: &Residual, tlag_h: f64) -
     }
 }
 
-fn convergence_warnings(opt: &optimise::Optimum, others: optimise::Others, warnings: &mut Vec<String>) {
+fn convergence_warnings(opt: &optimise::Optimum, others: optimise::Others, warnings: &mut Vec<Warning>) {
     if !opt.converged {
-        warnings.push(format!(
-            "the optimiser did not converge ({}; largest gradient component {:.2e})",
-            opt.reason, opt.gradient_norm
+        warnings.push(Warning::new(
+            Code::NotConverged,
+            format!(
+                "the optimiser did not converge ({}; largest gradient component {:.2e})",
+                opt.reason, opt.gradient_norm
+            ),
         ));
     }
     match others {
         optimise::Others::None => {}
-        optimise::Others::WorseOptimum => {
-            warnings.push("another start found a different, worse local optimum; the best is reported".into())
-        }
-        optimise::Others::EqualOptimum => warnings.push(
-            "another, different set of parameters fits equally well: the levels cannot tell them apart"
-                .into(),
-        ),
+        optimise::Others::WorseOptimum => warnings.push(Warning::new(
+            Code::WorseOptimum,
+            "another start found a different, worse local optimum; the best is reported",
+        )),
+        optimise::Others::EqualOptimum => warnings.push(Warning::new(
+            Code::EqualOptimum,
+            "another, different set of parameters fits equally well: the levels cannot tell them apart",
+        )),
     }
 }
 
@@ -524,7 +544,7 @@ fn prefer_absorption_faster(
     problem: &Problem,
     opt: optimise::Optimum,
     others: optimise::Others,
-    warnings: &mut Vec<String>,
+    warnings: &mut Vec<Warning>,
 ) -> (optimise::Optimum, optimise::Others) {
     if problem.n != 3 {
         return (opt, others);
@@ -538,11 +558,11 @@ fn prefer_absorption_faster(
     if !(same_fit && distinct) {
         return (opt, others);
     }
-    warnings.push(
+    warnings.push(Warning::new(
+        Code::FlipFlop,
         "absorption and elimination rates can be exchanged with the same fit (flip-flop); the solution \
-         with ka > k is reported"
-            .into(),
-    );
+         with ka > k is reported",
+    ));
     let faster = |o: &optimise::Optimum| o.theta[2] > o.theta[0] - o.theta[1];
     let chosen = if faster(&opt) {
         opt
@@ -634,9 +654,12 @@ fn fit_map(
                 Some(draws) => {
                     effective_draws = Some(draws.ess);
                     if draws.ess < 0.1 * options.draws as f64 {
-                        warnings.push(format!(
-                            "only {:.0} effective posterior draws of {}; intervals are rough (raise --draws)",
-                            draws.ess, options.draws
+                        warnings.push(Warning::new(
+                            Code::FewEffectiveDraws,
+                            format!(
+                                "only {:.0} effective posterior draws of {}; intervals are rough (raise --draws)",
+                                draws.ess, options.draws
+                            ),
                         ));
                     }
                     if options.keep_draws > 0 {
@@ -650,10 +673,10 @@ fn fit_map(
                     from_draws(&theta, &draws, n)
                 }
                 None => {
-                    warnings.push(
-                        "the posterior could not be sampled (curvature not positive definite); no intervals"
-                            .into(),
-                    );
+                    warnings.push(Warning::new(
+                        Code::NoPosterior,
+                        "the posterior could not be sampled (curvature not positive definite); no intervals",
+                    ));
                     from_covariance(&theta, None, n, 0.0)
                 }
             }
@@ -664,25 +687,31 @@ fn fit_map(
     for i in 0..n {
         let z = (theta[i] - mean[i]) / sd[i];
         if z.abs() > 3.0 {
-            warnings
-                .push(format!("the {} estimate is {z:.1} SD from the population typical value", names[i]));
+            warnings.push(Warning::new(
+                Code::FarFromTypical,
+                format!("the {} estimate is {z:.1} SD from the population typical value", names[i]),
+            ));
         }
     }
     if let Some(c) = &laplace
         && c[1][1].sqrt() > 0.9 * sd[1]
     {
-        warnings.push(
-            "the levels carry little information on volume: its estimate stays close to the prior".into(),
-        );
+        warnings.push(Warning::new(
+            Code::LittleInformation,
+            "the levels carry little information on volume: its estimate stays close to the prior",
+        ));
     }
     let residual = model.residual;
     let levels = level_fits(&problem, &theta, |_, f| Some(1.0 / residual.variance(f).sqrt()));
     for l in &levels {
         if l.weighted_residual.is_some_and(|w| w.abs() > 4.0) {
-            warnings.push(format!(
-                "the level at {} h is {:.1} SD from its prediction: check it (outlier?)",
-                l.time_h,
-                l.weighted_residual.unwrap_or(0.0)
+            warnings.push(Warning::new(
+                Code::Outlier,
+                format!(
+                    "the level at {} h is {:.1} SD from its prediction: check it (outlier?)",
+                    l.time_h,
+                    l.weighted_residual.unwrap_or(0.0)
+                ),
             ));
         }
     }
@@ -735,7 +764,10 @@ fn fit_wls(
         return Err("1/y weighting needs every level above zero".into());
     }
     if m < subject.levels.len() {
-        warnings.push("levels below the quantification limit are left out of least squares".into());
+        warnings.push(Warning::new(
+            Code::BlqLeftOut,
+            "levels below the quantification limit are left out of least squares",
+        ));
     }
     // Coarse log-grid for starting points: no prior to start from.
     let mut grid = Vec::new();
@@ -792,18 +824,27 @@ fn fit_wls(
         det / d.iter().product::<f64>()
     };
     if information.is_none() || diag_ratio < 1e-8 {
-        warnings.push("the design cannot identify both clearance and volume: the levels fit many combinations equally well".into());
+        warnings.push(Warning::new(
+            Code::NotIdentifiable,
+            "the design cannot identify both clearance and volume: the levels fit many combinations equally well",
+        ));
     }
     let (cl, v) = (theta[0].exp(), theta[1].exp());
     if !(1e-4..=1e4).contains(&cl) || !(1e-3..=1e6).contains(&v) {
-        warnings.push(format!(
-            "the estimates ran off to implausible values (CL {cl:.3e} L/h, V {v:.3e} L): \
-             the levels do not follow a one-compartment course for this dose history"
+        warnings.push(Warning::new(
+            Code::RanOff,
+            format!(
+                "the estimates ran off to implausible values (CL {cl:.3e} L/h, V {v:.3e} L): \
+                 the levels do not follow a one-compartment course for this dose history"
+            ),
         ));
     }
     let dof = m - n;
     let estimates = if dof == 0 {
-        warnings.push("as many levels as parameters: the curve passes through the levels and no standard errors can be given".into());
+        warnings.push(Warning::new(
+            Code::NoStandardErrors,
+            "as many levels as parameters: the curve passes through the levels and no standard errors can be given",
+        ));
         from_covariance(&theta, None, n, 0.0)
     } else if options.intervals == Intervals::None {
         from_covariance(&theta, None, n, 0.0)

@@ -14,6 +14,7 @@
 
 use crate::dosing::{Dose, Route};
 use crate::io::levels::Level;
+use crate::warning::{Code, Warning};
 use serde::Serialize;
 
 /// What the two-level method gives.
@@ -54,7 +55,7 @@ pub fn two_level(c1: f64, t1: f64, c2: f64, t2: f64, dose: &Dose, every_h: f64) 
 /// Apply the method to a subject's history: the two quantified levels must follow the same
 /// intravenous dose, after its infusion ends and before the next dose. Returns the estimate and
 /// the assumptions it rests on that the data do not show, as warnings.
-pub fn from_history(doses: &[Dose], levels: &[Level]) -> Result<(TwoLevel, Vec<String>), String> {
+pub fn from_history(doses: &[Dose], levels: &[Level]) -> Result<(TwoLevel, Vec<Warning>), String> {
     let quantified: Vec<&Level> = levels.iter().filter(|l| !l.is_blq()).collect();
     let [a, b] = quantified[..] else {
         return Err(format!(
@@ -85,7 +86,10 @@ pub fn from_history(doses: &[Dose], levels: &[Level]) -> Result<(TwoLevel, Vec<S
         return Err("both levels must be quantified".into());
     };
     let estimate = two_level(c1, t1, c2, t2, dose, every)?;
-    let mut warnings = vec!["two-level method: assumes steady state, one compartment and complete distribution before the first level".to_string()];
+    let mut warnings = vec![Warning::new(
+        Code::TwoLevelAssumptions,
+        "two-level method: assumes steady state, one compartment and complete distribution before the first level",
+    )];
     let regular = doses[..=index].windows(2).rev().take_while(|w| {
         (w[1].time_h - w[0].time_h - every).abs() < 1e-6 * every
             && (w[1].amount_mg - w[0].amount_mg).abs() <= 1e-9 * w[0].amount_mg
@@ -93,9 +97,12 @@ pub fn from_history(doses: &[Dose], levels: &[Level]) -> Result<(TwoLevel, Vec<S
     let span = regular.count() as f64 * every;
     let half_life = std::f64::consts::LN_2 / estimate.k_per_h;
     if span < 4.0 * half_life {
-        warnings.push(format!(
-            "the regimen had run {span:.1} h unchanged before the levels, under 4 half-lives ({:.1} h): it may not be at steady state",
-            4.0 * half_life
+        warnings.push(Warning::new(
+            Code::NotSteadyState,
+            format!(
+                "the regimen had run {span:.1} h unchanged before the levels, under 4 half-lives ({:.1} h): it may not be at steady state",
+                4.0 * half_life
+            ),
         ));
     }
     Ok((estimate, warnings))

@@ -10,6 +10,7 @@ use super::{Convergence, Method, Options, Outcome};
 use crate::fit::{Estimate, SubjectData};
 use crate::model::PopulationModel;
 use crate::stats::interpolated_quantile;
+use crate::warning::{Code, Warning};
 use serde::ser::{Serialize, SerializeMap, Serializer};
 
 /// The 97.5 % quantile of the standard normal.
@@ -152,8 +153,8 @@ pub struct Estimation {
     pub subjects: Vec<SubjectEstimate>,
     /// What was held or left out, and why.
     pub notes: Vec<String>,
-    /// Things the user should know.
-    pub warnings: Vec<String>,
+    /// Things the user should know, each with its stable code.
+    pub warnings: Vec<Warning>,
     /// The estimated model, as `--model-out` writes it.
     #[serde(skip)]
     pub model: PopulationModel,
@@ -237,10 +238,13 @@ impl Estimation {
         let p = outcome.phi.len();
         let mut warnings = Vec::new();
         if !options.evaluate && !outcome.converged {
-            warnings.push(format!(
-                "the estimation did not converge ({}; largest gradient component {:.2e}): treat the estimates as \
-                 provisional",
-                outcome.convergence.reason, outcome.convergence.gradient_norm
+            warnings.push(Warning::new(
+                Code::NotConverged,
+                format!(
+                    "the estimation did not converge ({}; largest gradient component {:.2e}): treat the estimates \
+                     as provisional",
+                    outcome.convergence.reason, outcome.convergence.gradient_norm
+                ),
             ));
         }
         let matrix = covariance.as_ref().and_then(|c| c.matrix.as_ref());
@@ -248,10 +252,13 @@ impl Estimation {
             && !c.unidentified.is_empty()
         {
             let names: Vec<String> = c.unidentified.iter().map(|&k| space.name(k)).collect();
-            warnings.push(format!(
-                "the observed information is not positive definite: the data do not identify {} (hold it with \
-                 [estimation] hold, or drop it from the model); no standard errors",
-                names.join(", ")
+            warnings.push(Warning::new(
+                Code::NotIdentifiable,
+                format!(
+                    "the observed information is not positive definite: the data do not identify {} (hold it \
+                     with [estimation] hold, or drop it from the model); no standard errors",
+                    names.join(", ")
+                ),
             ));
         }
         // Bootstrap values on the reporting scale, per entry of φ.
@@ -301,9 +308,12 @@ impl Estimation {
             .collect();
         for (name, s) in &shrinkage {
             if *s > 50.0 {
-                warnings.push(format!(
-                    "η-shrinkage of {name} is {s:.0} %: the individual {name} estimates say little about the \
-                     individuals, and its variability is poorly informed by these data"
+                warnings.push(Warning::new(
+                    Code::HighShrinkage,
+                    format!(
+                        "η-shrinkage of {name} is {s:.0} %: the individual {name} estimates say little about \
+                         the individuals, and its variability is poorly informed by these data"
+                    ),
                 ));
             }
         }

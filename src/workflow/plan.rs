@@ -122,7 +122,7 @@ impl PlanSubject {
             history: subject.doses.clone(),
             last_level_h: latest(subject.levels.iter().map(|l| l.time_h)),
             posterior: Posterior { point: fit.parameters, draws: fit.draws.clone(), residual: fit.residual },
-            warnings: fit.warnings.clone(),
+            warnings: fit.warnings.iter().map(|w| w.message.clone()).collect(),
             a_priori: false,
         };
         Ok((planned, fit))

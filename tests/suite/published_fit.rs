@@ -78,9 +78,11 @@ fn two_level_method_reproduces_case_8_with_the_rounded_levels() {
     // CL = k·V (exact identity).
     assert_rel(num(&e["cl_l_h"]["value"]), k * v, 1e-15, 0.0, "CL = k·V");
     // The method is reported with its assumptions, and the regimen had reached steady state.
-    let warnings: Vec<&str> = s["warnings"].as_array().unwrap().iter().map(|w| w.as_str().unwrap()).collect();
+    // Each warning is an object with a stable code beside its message.
+    let warnings = s["warnings"].as_array().unwrap();
     assert_eq!(warnings.len(), 1, "{warnings:?}");
-    assert!(warnings[0].contains("steady state"), "{warnings:?}");
+    assert_eq!(warnings[0]["code"], "two_level_assumptions", "{warnings:?}");
+    assert!(warnings[0]["message"].as_str().unwrap().contains("steady state"), "{warnings:?}");
 }
 
 #[test]
