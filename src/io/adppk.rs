@@ -20,6 +20,7 @@
 
 use super::doses::DoseFile;
 use super::levels::{Level, LevelFile};
+use super::output::CsvWriter;
 use super::table::{Column, Notices, Row, Table};
 use crate::covariates::{Covariates, is_name, parse_covariate_value, parse_sex};
 use crate::dosing::{Dose, Route, validate_dose};
@@ -46,6 +47,16 @@ pub struct Adppk {
     pub levels: LevelFile,
     /// Baseline covariates per subject, in order of first appearance.
     pub covariates: Vec<(String, Covariates)>,
+    /// What the file says of the study besides the data.
+    pub labels: AdppkLabels,
+    /// Notes and warnings (columns not read, rows not used).
+    pub notices: Notices,
+}
+
+/// What an ADPPK file says of its study besides the data, for results written in the
+/// standard's terms (SDTM PP).
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct AdppkLabels {
     /// `STUDYID` of each subject that has one.
     pub study_ids: HashMap<String, String>,
     /// Every analyte (`PARAMCD`) of the observation rows, sorted.
@@ -54,8 +65,11 @@ pub struct Adppk {
     pub analyte: Option<String>,
     /// The concentration unit as the file writes it (`AVALU`), when one unit holds for all levels.
     pub conc_unit: Option<String>,
-    /// Notes and warnings (columns not read, rows not used).
-    pub notices: Notices,
+}
+
+/// Read and parse the ADPPK file at `path`.
+pub fn read_adppk(path: &str, options: &AdppkOptions) -> Result<Adppk, Vec<InputError>> {
+    parse_adppk(&Table::read(path)?, options)
 }
 
 /// Baseline covariates read without a `--map`: (their column, our name). Their units are the
@@ -460,10 +474,7 @@ pub fn parse_adppk(table: &Table, options: &AdppkOptions) -> Result<Adppk, Vec<I
         doses: DoseFile { subjects: doses, notices: Notices::default() },
         levels: LevelFile { subjects: levels, notices: Notices::default() },
         covariates,
-        study_ids,
-        analytes,
-        analyte,
-        conc_unit,
+        labels: AdppkLabels { study_ids, analytes, analyte, conc_unit },
         notices,
     })
 }
@@ -767,6 +778,108 @@ fn unread_columns(table: &Table, cols: &Columns, notices: &mut Notices) {
     }
 }
 
+impl Adppk {
+    /// One line saying what the file holds: subjects, doses, levels (below the limit),
+    /// covariates and analytes.
+    pub fn summary(&self) -> String {
+        let doses: usize = self.doses.subjects.iter().map(|(_, d)| d.len()).sum();
+        let levels: Vec<&Level> = self.levels.subjects.iter().flat_map(|(_, l)| l).collect();
+        let blq = levels.iter().filter(|l| l.is_blq()).count();
+        let names: BTreeSet<&str> = self
+            .covariates
+            .iter()
+            .flat_map(|(_, c)| c.iter().map(|(n, _)| n).chain(c.sex.map(|_| "sex")))
+            .collect();
+        let list = |items: Vec<&str>| if items.is_empty() { "none".to_string() } else { items.join(", ") };
+        let analytes = match &self.labels.analyte {
+            Some(a) if self.labels.analytes.len() > 1 => {
+                format!("{} (read: {a})", self.labels.analytes.join(", "))
+            }
+            _ => list(self.labels.analytes.iter().map(String::as_str).collect()),
+        };
+        format!(
+            "ADPPK file, {} subject(s), {doses} dose(s), {} level(s), {blq} below the limit; \
+             covariates: {}; analytes: {analytes}",
+            self.covariates.len(),
+            levels.len(),
+            list(names.into_iter().collect()),
+        )
+    }
+
+    /// Write what was read in our own formats: the doses, levels and covariates files
+    /// (docs/formats.md), base units, full precision.
+    pub fn write_ours(
+        &self,
+        doses: &mut dyn std::io::Write,
+        levels: &mut dyn std::io::Write,
+        covariates: &mut dyn std::io::Write,
+    ) -> std::io::Result<()> {
+        let mut w = CsvWriter::new(doses);
+        w.row(["subject", "time_h", "amount_mg", "route", "duration_h"])?;
+        for (id, list) in &self.doses.subjects {
+            for d in list {
+                w.text(id.as_deref().unwrap_or(""))?;
+                w.number(d.time_h)?;
+                w.number(d.amount_mg)?;
+                w.text(&d.route.to_string())?;
+                if d.route == Route::Infusion {
+                    w.number(d.duration_h)?
+                } else {
+                    w.text("")?
+                }
+                w.end_row()?;
+            }
+        }
+        w.finish()?;
+        let mut w = CsvWriter::new(levels);
+        w.row(["subject", "time_h", "conc_mg_l", "lloq_mg_l"])?;
+        for (id, list) in &self.levels.subjects {
+            for l in list {
+                w.text(id.as_deref().unwrap_or(""))?;
+                w.number(l.time_h)?;
+                match l.conc_mg_l {
+                    Some(c) => w.number(c)?,
+                    None => w.text("BLQ")?,
+                }
+                match l.lloq_mg_l {
+                    Some(x) => w.number(x)?,
+                    None => w.text("")?,
+                }
+                w.end_row()?;
+            }
+        }
+        w.finish()?;
+        let names: BTreeSet<&str> =
+            self.covariates.iter().flat_map(|(_, c)| c.iter().map(|(n, _)| n)).collect();
+        let with_sex = self.covariates.iter().any(|(_, c)| c.sex.is_some());
+        let mut w = CsvWriter::new(covariates);
+        let mut header = vec!["subject"];
+        header.extend(names.iter().copied());
+        if with_sex {
+            header.push("sex");
+        }
+        w.row(&header)?;
+        for (id, c) in &self.covariates {
+            w.text(id)?;
+            for n in &names {
+                match c.get(n) {
+                    Some(x) => w.number(x)?,
+                    None => w.text("")?,
+                }
+            }
+            if with_sex {
+                w.text(match c.sex {
+                    Some(crate::covariates::Sex::Male) => "M",
+                    Some(crate::covariates::Sex::Female) => "F",
+                    None => "",
+                })?;
+            }
+            w.end_row()?;
+        }
+        w.finish().map(drop)
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -802,7 +915,7 @@ mod tests {
         assert!(l[1].is_blq() && (l[1].lloq_mg_l.unwrap() - 0.1).abs() < 1e-15);
         let c = &f.covariates[0].1;
         assert_eq!((c.get("weight_kg"), c.sex), (Some(70.0), Some(crate::covariates::Sex::Female)));
-        assert_eq!(f.conc_unit.as_deref(), Some("ng/mL"));
+        assert_eq!(f.labels.conc_unit.as_deref(), Some("ng/mL"));
         assert_eq!(f.notices.notes, ["a.csv: MDV 1, not used: line 5", "a.csv: columns not read: XYZ"]);
     }
 
