@@ -177,11 +177,26 @@ impl Columns {
                 }
             };
             let placed = match ours.as_str() {
-                "subject" => Ok(cols.subject = Some(column)),
-                "route" => Ok(cols.route = Some(column)),
-                "analyte" => Ok(cols.analyte = Some(column)),
-                "rate" => Ok(cols.rate = Some(column)),
-                "conc" => Ok(cols.conc = vec![column]),
+                "subject" => {
+                    cols.subject = Some(column);
+                    Ok(())
+                }
+                "route" => {
+                    cols.route = Some(column);
+                    Ok(())
+                }
+                "analyte" => {
+                    cols.analyte = Some(column);
+                    Ok(())
+                }
+                "rate" => {
+                    cols.rate = Some(column);
+                    Ok(())
+                }
+                "conc" => {
+                    cols.conc = vec![column];
+                    Ok(())
+                }
                 _ if ours.starts_with("time_") => unit(Kind::Time, "time")
                     .map(|f| cols.time = f.map(|f| Column { factor: f, kind: Some(Kind::Time), ..column })),
                 _ if ours.starts_with("amount_") => unit(Kind::Amount, "amount").map(|f| {
@@ -291,12 +306,24 @@ impl Columns {
     }
 }
 
+/// A code 1 or 0 (also as exports write numeric columns, `1.0`, `0.0`): true or false.
+#[allow(clippy::float_cmp)] // codes, exact in binary floating point
+fn zero_one(text: &str) -> Option<bool> {
+    let x = text.parse::<f64>().ok()?;
+    if x == 1.0 {
+        Some(true)
+    } else if x == 0.0 {
+        Some(false)
+    } else {
+        None
+    }
+}
+
 /// The event of a row: `EVID` 0 or 1.
 fn event(row: &Row, src: &str, evid: &Column) -> Result<bool, InputError> {
-    match row.text(evid).parse::<f64>() {
-        Ok(x) if x == 1.0 => Ok(true),
-        Ok(x) if x == 0.0 => Ok(false),
-        _ => Err(row.error(
+    match zero_one(row.text(evid)) {
+        Some(dose) => Ok(dose),
+        None => Err(row.error(
             src,
             Some(evid),
             format!(
@@ -311,11 +338,10 @@ fn event(row: &Row, src: &str, evid: &Column) -> Result<bool, InputError> {
 /// A 0/1 flag (`MDV`, `BLQFN`, `SS`): `None` when empty.
 fn flag01(row: &Row, src: &str, column: &Column, what: &str) -> Result<Option<bool>, InputError> {
     let text = row.text(column);
-    match text.parse::<f64>() {
+    match zero_one(text) {
         _ if text.is_empty() => Ok(None),
-        Ok(x) if x == 1.0 => Ok(Some(true)),
-        Ok(x) if x == 0.0 => Ok(Some(false)),
-        _ => Err(row.error(src, Some(column), format!("expected {what} 0 or 1, found '{text}'"))),
+        Some(x) => Ok(Some(x)),
+        None => Err(row.error(src, Some(column), format!("expected {what} 0 or 1, found '{text}'"))),
     }
 }
 
@@ -514,7 +540,7 @@ fn read_dose(row: &Row, src: &str, cols: &Columns, errors: &mut Vec<InputError>)
         Some(c) => match row.text(c) {
             "" => None,
             text => match text.parse::<f64>() {
-                Ok(r) if r == 0.0 => None,
+                Ok(0.0) => None,
                 Ok(r) if r > 0.0 && r.is_finite() => Some(r),
                 _ => {
                     errors.push(row.error(

@@ -429,7 +429,7 @@ fn the_map_states_units_and_names_and_unread_columns_are_listed_once() {
     let text = "USUBJID,EVID,AFRLT,AMT,ROUTE,AVAL,AVALU,CRCLBL,SITE\n\
                 A,1,0,100,ORAL,,,90,x\n\
                 A,0,1,,,2.5,ug/mL,90,y\n";
-    std::fs::write(&file, &text).unwrap();
+    std::fs::write(&file, text).unwrap();
     let f = file.to_str().unwrap();
     let r = cistern(&["check", f, "--map", "amount_g=AMT"]);
     assert_eq!(r.code, 0, "{text}\n{}", r.stderr);
