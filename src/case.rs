@@ -164,7 +164,7 @@ pub fn read(path: &str) -> Result<Spec> {
     spec.inputs.covariates = file(&inputs.covariates, "inputs.covariates");
     spec.inputs.adppk = file(&inputs.adppk, "inputs.adppk");
     let no_doses = (inputs.doses.is_none() && inputs.adppk.is_none())
-        .then(|| spec.inputs.doses.problem("the case needs its doses: give doses (or adppk)"));
+        .then(|| spec.inputs.doses.problem("missing `doses` (or `adppk`, an ADPPK dataset)"));
     let options = &mut spec.inputs.adppk_options;
     options.analyte = inputs
         .analyte
