@@ -39,6 +39,9 @@ Examples:
   # one level per subject (destructive sampling): the mean curve, Bailer's standard error
   cistern nca --doses doses.csv --levels levels.csv --sparse
 
+  # an ADPPK dataset in, SDTM PP records out
+  cistern nca --adppk adppk.csv --map amount_mg=AMT --format sdtm-pp --specimen PLASMA -o pp.csv
+
 Times in --lambda-z-window and --partial are hours after each dose. A level at the dose time
 is used as measured; without one, the first dose's level then is 0 after an oral dose or an
 infusion and back-extrapolated after a bolus (--explain says which, and every level below the
