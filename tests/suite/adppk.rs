@@ -460,3 +460,43 @@ fn the_map_states_units_and_names_and_unread_columns_are_listed_once() {
     assert!(r.stderr.contains("--map: unknown amount unit 'kg'"), "{}", r.stderr);
     assert!(r.stderr.contains("--map: expected OURS=THEIRS"), "{}", r.stderr);
 }
+
+#[test]
+fn a_report_from_an_adppk_case_shows_what_the_same_case_from_our_files_shows() {
+    let dir = tempfile::tempdir().unwrap();
+    for (from, to) in [
+        (PathBuf::from(adppk("theoph_ug.csv")), "adppk.csv"),
+        (theoph().join("nlme_model.toml"), "model.toml"),
+        (theoph().join("doses.csv"), "doses.csv"),
+        (theoph().join("levels.csv"), "levels.csv"),
+        (theoph().join("covariates.csv"), "covariates.csv"),
+    ] {
+        std::fs::copy(from, dir.path().join(to)).unwrap();
+    }
+    let plan = "[plan]\ntargets = [\"auc24=50..150\"]\namounts = \"200..600/100\"\nevery = \"12h\"\nroute = \"oral\"\n";
+    let inputs = [
+        "adppk = \"adppk.csv\"\nmap = [\"amount_mg=AMT\", \"subject=SUBJID\"]\n",
+        "doses = \"doses.csv\"\nlevels = \"levels.csv\"\ncovariates = \"covariates.csv\"\n",
+    ];
+    let mut pages = Vec::new();
+    for (i, input) in inputs.iter().enumerate() {
+        let case = format!("[case]\nsubject = \"S01\"\n\n[inputs]\nmodel = \"model.toml\"\n{input}\n{plan}");
+        std::fs::write(dir.path().join(format!("case{i}.toml")), case).unwrap();
+        let r = crate::common::cistern_at(
+            dir.path(),
+            &["report", &format!("case{i}.toml"), "-o", &format!("r{i}.pdf")],
+            "0",
+        );
+        assert_eq!(r.code, 0, "{}", r.stderr);
+        pages.push(crate::common::page_texts(&std::fs::read(dir.path().join(format!("r{i}.pdf"))).unwrap()));
+    }
+    // The estimates, the plan and the advice are the same: every page, up to the block that
+    // lists the input files and their digests.
+    let before_inputs = |pages: &[String]| -> Vec<String> {
+        let n = pages.iter().position(|p| p.contains("Reproducibility\n")).expect("the inputs block") + 1;
+        pages[..n].iter().map(|p| p.split("Reproducibility\n").next().unwrap().to_string()).collect()
+    };
+    let (a, b) = (before_inputs(&pages[0]), before_inputs(&pages[1]));
+    assert!(a.len() >= 3 && a[0].contains("clearance (L/h)\n1.715"), "{a:?}");
+    assert_eq!(a, b);
+}
