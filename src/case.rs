@@ -14,6 +14,10 @@
 //! doses = "doses.csv"
 //! levels = "levels.csv"
 //! covariates = "covariates.csv"
+//! # or, instead of doses, levels and covariates, an ADPPK dataset:
+//! # adppk = "adppk.csv"
+//! # analyte = "THEO"           # its PARAMCD, when it holds several
+//! # map = ["amount_mg=AMT"]    # OURS=THEIRS column names
 //!
 //! [plan]
 //! targets = ["auc24=400..600", "trough=..15"]
@@ -59,9 +63,12 @@ struct RawHeader {
 #[serde(deny_unknown_fields)]
 struct RawInputs {
     model: Option<Spanned<String>>,
-    doses: Spanned<String>,
+    doses: Option<Spanned<String>>,
     levels: Option<Spanned<String>>,
     covariates: Option<Spanned<String>>,
+    adppk: Option<Spanned<String>>,
+    analyte: Option<Spanned<String>>,
+    map: Option<Vec<Spanned<String>>>,
 }
 
 #[derive(Deserialize)]
@@ -152,9 +159,23 @@ pub fn read(path: &str) -> Result<Spec> {
     };
     let inputs = &raw.inputs;
     spec.inputs.model = file(&inputs.model, "inputs.model");
-    spec.inputs.doses = file(&Some(inputs.doses.clone()), "inputs.doses");
+    spec.inputs.doses = file(&inputs.doses, "inputs.doses");
     spec.inputs.levels = file(&inputs.levels, "inputs.levels");
     spec.inputs.covariates = file(&inputs.covariates, "inputs.covariates");
+    spec.inputs.adppk = file(&inputs.adppk, "inputs.adppk");
+    let no_doses = (inputs.doses.is_none() && inputs.adppk.is_none())
+        .then(|| spec.inputs.doses.problem("missing `doses` (or `adppk`, an ADPPK dataset)"));
+    let options = &mut spec.inputs.adppk_options;
+    options.analyte = inputs
+        .analyte
+        .as_ref()
+        .map(|a| Stated { value: a.get_ref().clone(), origin: at("inputs.analyte", Some(a.span())) });
+    options.map = inputs
+        .map
+        .iter()
+        .flatten()
+        .map(|m| Stated { value: m.get_ref().clone(), origin: at("inputs.map", Some(m.span())) })
+        .collect();
     spec.sweep = raw.sweep.as_ref().map(|s| SweepSpec {
         subjects: typed("sweep.subjects", Some(&s.subjects)),
         covariates: file(&s.covariates, "sweep.covariates"),
@@ -202,5 +223,6 @@ pub fn read(path: &str) -> Result<Spec> {
         author: raw.report.as_ref().and_then(|r| r.author.clone()),
         note: header.and_then(|h| h.note.clone()),
     };
+    errors.extend(no_doses);
     if errors.is_empty() { Ok(spec) } else { Err(errors.into()) }
 }

@@ -248,13 +248,13 @@ fn covariate_value(name: &str, v: f64) -> Result<f64, String> {
 
 /// Whether `name` can name a covariate: letters, digits and `_`, starting with a letter
 /// (`weight_kg`, `crcl_ml_min`), as the model file's covariate names are.
-fn is_name(name: &str) -> bool {
+pub(crate) fn is_name(name: &str) -> bool {
     name.starts_with(|c: char| c.is_ascii_alphabetic())
         && name.chars().all(|c| c.is_ascii_alphanumeric() || c == '_')
 }
 
 /// The sex written `text` (M, F, male, female, in any case).
-fn parse_sex(text: &str) -> Result<Sex, String> {
+pub(crate) fn parse_sex(text: &str) -> Result<Sex, String> {
     match text.to_ascii_uppercase().as_str() {
         "M" | "MALE" => Ok(Sex::Male),
         "F" | "FEMALE" => Ok(Sex::Female),
@@ -263,7 +263,7 @@ fn parse_sex(text: &str) -> Result<Sex, String> {
 }
 
 /// A covariate's value: a finite, non-negative number.
-fn parse_covariate_value(name: &str, text: &str) -> Result<f64, String> {
+pub(crate) fn parse_covariate_value(name: &str, text: &str) -> Result<f64, String> {
     match text.parse::<f64>() {
         Ok(v) if v.is_finite() && v >= 0.0 => covariate_value(name, v),
         _ => Err(format!("expected a non-negative number for {name}, found '{text}'")),

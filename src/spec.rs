@@ -92,6 +92,10 @@ pub struct Inputs {
     pub covariates: Setting<PathBuf>,
     /// Covariates for every subject, `NAME=VALUE`.
     pub covariate: Vec<Stated<String>>,
+    /// An ADPPK dataset (CSV) holding the doses, levels and covariates instead of the three files.
+    pub adppk: Setting<PathBuf>,
+    /// How to read it: the analyte and the columns the user names.
+    pub adppk_options: crate::io::adppk::AdppkOptions,
 }
 
 /// The candidate regimens, the targets and the limits, as stated.
@@ -185,6 +189,8 @@ impl Spec {
                 levels: Setting::unset(origin("inputs.levels")),
                 covariates: Setting::unset(origin("inputs.covariates")),
                 covariate: Vec::new(),
+                adppk: Setting::unset(origin("inputs.adppk")),
+                adppk_options: Default::default(),
             },
             subject: Setting::unset(origin("case.subject")),
             seed: Setting::unset(origin("case.seed")),
@@ -250,7 +256,11 @@ impl Spec {
         self.case
             .iter()
             .cloned()
-            .chain([&i.model, &i.doses, &i.levels, &i.covariates].into_iter().filter_map(|s| s.value.clone()))
+            .chain(
+                [&i.model, &i.doses, &i.levels, &i.covariates, &i.adppk]
+                    .into_iter()
+                    .filter_map(|s| s.value.clone()),
+            )
             .chain(sweep_pool)
             .collect()
     }

@@ -1,7 +1,9 @@
 //! `cistern check`: validate input files and report every problem found.
 
 use super::args::Notify;
+use super::study::AdppkArgs;
 use cistern::covariates::parse_covariates;
+use cistern::io::adppk::{AdppkOptions, looks_like_adppk, parse_adppk};
 use cistern::io::doses::parse_doses;
 use cistern::io::levels::parse_levels;
 use cistern::io::table::{Notices, Table};
@@ -25,7 +27,8 @@ Examples:
 The kind of each file is told from its content. A TOML file with an [inputs] table is a case
 file: its settings and every file it names are checked together, as `plan --case` reads them;
 other TOML files are population models. A CSV with an amount_<unit> column is a doses file,
-one with a conc_<unit> column a levels file, one with cl_<unit> and v_<unit> columns a
+one with a conc_<unit> column a levels file, one with EVID and USUBJID columns an ADPPK
+dataset (read with --analyte and --map as the commands read it), one with cl_<unit> and v_<unit> columns a
 parameters file (the CSV output of `cistern fit`, read by `sweep --params`), and one with a
 subject column and none of these a covariates file. A JSON file is a sweep state (from `sweep
 --shard`) or the JSON output of `cistern fit` (read by `plan --fit`). Exit code 0 when every
@@ -34,6 +37,12 @@ pub struct CheckArgs {
     /// Files to check
     #[arg(required = true, value_name = "FILE")]
     files: Vec<String>,
+    /// The analyte (PARAMCD) to read from an ADPPK file that holds several
+    #[arg(long, value_name = "PARAMCD")]
+    analyte: Option<String>,
+    /// For ADPPK files: read our variable OURS from their column THEIRS (e.g. amount_mg=AMT); repeatable
+    #[arg(long, value_name = "OURS=THEIRS")]
+    map: Vec<String>,
     #[command(flatten)]
     notify: Notify,
 }
@@ -46,7 +55,7 @@ fn has_quantity(table: &Table, quantity: &str) -> bool {
 }
 
 /// What one valid file holds, in a line, and what reading it had to say.
-fn check_file(path: &str) -> Result<(String, Notices), Error> {
+fn check_file(path: &str, adppk: &AdppkOptions) -> Result<(String, Notices), Error> {
     let bytes =
         std::fs::read(path).map_err(|e| InputError::in_file(path, format!("cannot read the file: {e}")))?;
     let extension = std::path::Path::new(path).extension().and_then(|e| e.to_str()).unwrap_or("");
@@ -68,6 +77,10 @@ fn check_file(path: &str) -> Result<(String, Notices), Error> {
         .into());
     }
     let table = Table::parse(path, &bytes)?;
+    if looks_like_adppk(&table) {
+        let file = parse_adppk(&table, adppk)?;
+        return Ok((file.summary(), file.notices));
+    }
     if has_quantity(&table, "amount") {
         let file = parse_doses(&table)?;
         let doses: usize = file.subjects.iter().map(|(_, d)| d.len()).sum();
@@ -170,8 +183,11 @@ fn check_json(path: &str, bytes: &[u8]) -> Result<(String, Notices), Error> {
 pub fn run(args: CheckArgs) -> Result<(), Error> {
     let mut all = Vec::new();
     let mut other = None;
+    let adppk = AdppkArgs { adppk: None, analyte: args.analyte.clone(), map: args.map.clone() };
+    let mut spec = cistern::spec::Spec::new();
+    adppk.apply(&mut spec.inputs);
     for path in &args.files {
-        match check_file(path) {
+        match check_file(path, &spec.inputs.adppk_options) {
             Ok((summary, notices)) => {
                 println!("ok: {path}: {summary}");
                 args.notify.notices(&notices);

@@ -119,7 +119,7 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
         &spec.inputs,
         Required { model: args.method == Some(Method::Map), levels: true },
     ));
-    let (((Study { model, subjects, notices }, settings), (ka, f)), tlag) =
+    let (((Study { model, subjects, notices, .. }, settings), (ka, f)), tlag) =
         problems.finish_with(study.zip(settings).zip(ka.zip(f)).zip(tlag))?;
     let method = args.method.unwrap_or(if model.is_some() { Method::Map } else { Method::Wls });
     args.output.notify.notices(&notices);

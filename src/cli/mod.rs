@@ -2,6 +2,7 @@
 
 mod args;
 mod check;
+mod convert;
 mod exposure;
 mod fit;
 mod merge;
@@ -48,6 +49,7 @@ enum Command {
     Population(population::PopulationArgs),
     Report(report::ReportArgs),
     Check(check::CheckArgs),
+    Convert(convert::ConvertArgs),
     Sweep(sweep::SweepArgs),
     Merge(merge::MergeArgs),
     Nca(nca::NcaArgs),
@@ -73,6 +75,7 @@ pub fn run() -> ExitCode {
         Command::Population(a) => population::run(a),
         Command::Report(a) => report::run(a),
         Command::Check(a) => check::run(a),
+        Command::Convert(a) => convert::run(a),
         Command::Sweep(a) => sweep::run(a),
         Command::Merge(a) => merge::run(a),
         Command::Nca(a) => nca::run(a),

@@ -1,7 +1,8 @@
 //! `cistern nca`: non-compartmental analysis of a study's levels, per subject and dosing
 //! interval, or the mean curve of a sparse design.
 
-use super::args::{OutputArgs, choice, flag_value};
+use super::args::{Notify, OutputArgs, choice, flag_value};
+use super::study::AdppkArgs;
 use cistern::error::Problems;
 use cistern::io::output::{
     CAUTION, Column, CsvWriter, Format, RunFiles, fit_to_width, io_failure, number_column, readable,
@@ -11,6 +12,7 @@ use cistern::nca::auc::AucRule;
 use cistern::nca::compare::{Comparison, DISAGREEMENT_PCT, compare};
 use cistern::nca::intervals::BlqRule;
 use cistern::nca::lambda_z::read_times;
+use cistern::nca::pp::{NcaFormat, PpLabels, write_pp};
 use cistern::nca::sparse::{MeanCurve, mean_curve};
 use cistern::nca::{IntervalNca, LambdaZChoice, NcaOptions, analyse};
 use cistern::spec::Spec;
@@ -37,17 +39,22 @@ Examples:
   # one level per subject (destructive sampling): the mean curve, Bailer's standard error
   cistern nca --doses doses.csv --levels levels.csv --sparse
 
+  # an ADPPK dataset in, SDTM PP records out
+  cistern nca --adppk adppk.csv --map amount_mg=AMT --format sdtm-pp --specimen PLASMA -o pp.csv
+
 Times in --lambda-z-window and --partial are hours after each dose. A level at the dose time
 is used as measured; without one, the first dose's level then is 0 after an oral dose or an
 infusion and back-extrapolated after a bolus (--explain says which, and every level below the
 limit counted as zero or left out, and how λz was chosen).")]
 pub struct NcaArgs {
     /// Doses CSV (time_<unit>, amount_<unit>, route, optional subject and duration_<unit>)
-    #[arg(long, value_name = "FILE", required = true)]
-    doses: String,
+    #[arg(long, value_name = "FILE", required_unless_present = "adppk")]
+    doses: Option<String>,
     /// Levels CSV (time_<unit>, conc_<unit>, optional subject and lloq_<unit>)
-    #[arg(long, value_name = "FILE", required = true)]
-    levels: String,
+    #[arg(long, value_name = "FILE", required_unless_present = "adppk")]
+    levels: Option<String>,
+    #[command(flatten)]
+    adppk: AdppkArgs,
     /// The rule for the area between two levels
     #[arg(long, value_parser = choice::<AucRule>(), default_value = "linear-up-log-down")]
     auc_rule: AucRule,
@@ -81,8 +88,22 @@ pub struct NcaArgs {
     /// choice of λz (on stderr)
     #[arg(long)]
     explain: bool,
+    /// Output format [default: table on a terminal, csv when piped or from the -o extension];
+    /// sdtm-pp writes SDTM PP records (CSV)
+    #[arg(long, value_parser = choice::<NcaFormat>())]
+    format: Option<NcaFormat>,
+    /// STUDYID of the SDTM PP records [default: the ADPPK file's STUDYID]
+    #[arg(long, value_name = "ID")]
+    study_id: Option<String>,
+    /// PPSPEC of the SDTM PP records, the specimen the levels were measured in (e.g. PLASMA)
+    #[arg(long, value_name = "SPECIMEN")]
+    specimen: Option<String>,
+    /// Write the output to FILE (atomically; never over an input or another output; through
+    /// a symbolic link to its target); `-` is stdout
+    #[arg(short = 'o', long = "output", value_name = "FILE")]
+    output_file: Option<String>,
     #[command(flatten)]
-    output: OutputArgs,
+    notify: Notify,
 }
 
 /// `A..B` as two times, A ≥ 0, A < B.
@@ -120,8 +141,57 @@ struct SparseJson<'a> {
 /// What a sparse result is, stated with it.
 const POPULATION_MEAN: &str = "the mean curve across subjects: a population mean, not any subject's values";
 
+/// The labels of SDTM PP records: the flags over what the ADPPK file says.
+fn pp_labels(args: &NcaArgs, study: &Study) -> Result<PpLabels, InputError> {
+    let labels = study.labels.clone().unwrap_or_default();
+    let specimen = args.specimen.clone().ok_or_else(|| {
+        InputError::flag("--specimen", "SDTM PP records need the specimen (PPSPEC), e.g. --specimen PLASMA")
+    })?;
+    if let Some(s) = study.subjects.iter().find(|s| {
+        s.id.as_ref().is_none_or(|id| args.study_id.is_none() && !labels.study_ids.contains_key(id))
+    }) {
+        return Err(match &s.id {
+            None => InputError::flag(
+                "--format",
+                "SDTM PP records need subject identifiers (USUBJID): the levels have no subject column",
+            ),
+            Some(id) => InputError::flag(
+                "--study-id",
+                format!(
+                    "SDTM PP records need STUDYID, and subject {id} has none in the file: give --study-id"
+                ),
+            ),
+        });
+    }
+    let conc_unit = match &labels.conc_unit {
+        Some(u) => (u.clone(), Kind::Concentration.factor(u).unwrap_or(1.0)),
+        None => ("mg/L".to_string(), 1.0),
+    };
+    Ok(PpLabels {
+        study_id: args.study_id.clone(),
+        study_ids: labels.study_ids,
+        specimen,
+        analyte: labels.analyte.unwrap_or_default(),
+        conc_unit,
+    })
+}
+
 /// Run the command.
 pub fn run(args: NcaArgs) -> Result<(), Error> {
+    let pp = args.format == Some(NcaFormat::SdtmPp);
+    let plain = args.format.map(|f| match f {
+        NcaFormat::Table => Format::Table,
+        NcaFormat::Json => Format::Json,
+        NcaFormat::Csv | NcaFormat::SdtmPp => Format::Csv,
+    });
+    let output = OutputArgs { format: plain, output: args.output_file.clone(), notify: args.notify.clone() };
+    if pp && args.sparse {
+        return Err(InputError::flag(
+            "--format",
+            "sdtm-pp writes per-subject records; --sparse gives a mean curve",
+        )
+        .into());
+    }
     let mut problems = Problems::new();
     let lambda_z = match &args.lambda_z_window {
         Some(t) => problems.take(window("--lambda-z-window", t)).map(|(a, b)| LambdaZChoice::Window(a, b)),
@@ -130,8 +200,9 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
     let partials: Vec<Option<(f64, f64)>> =
         args.partial.iter().map(|t| problems.take(window("--partial", t))).collect();
     let mut spec = Spec::new();
-    spec.inputs.doses.set("--doses", Some(PathBuf::from(&args.doses)));
-    spec.inputs.levels.set("--levels", Some(PathBuf::from(&args.levels)));
+    spec.inputs.doses.set("--doses", args.doses.as_ref().map(PathBuf::from));
+    spec.inputs.levels.set("--levels", args.levels.as_ref().map(PathBuf::from));
+    args.adppk.apply(&mut spec.inputs);
     let study = problems.take_all(Study::load(&spec.inputs, Required { model: false, levels: true }));
     let fit = match &args.fit {
         Some(path) => problems.take_all(SavedFit::read(path)).map(Some),
@@ -143,6 +214,7 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
     };
     let (((study, lambda_z), fit), lambda_z_times) =
         problems.finish_with(study.zip(lambda_z).zip(fit).zip(listed))?;
+    let pp_labels = if pp { Some(pp_labels(&args, &study)?) } else { None };
     let options = NcaOptions {
         auc_rule: args.auc_rule,
         blq: args.blq,
@@ -150,7 +222,7 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
         partials: partials.into_iter().flatten().collect(),
         lambda_z_times,
     };
-    args.output.notify.notices(&study.notices);
+    output.notify.notices(&study.notices);
     let sparse = if args.sparse {
         Some(mean_curve(&study.subjects, args.blq).map_err(|m| InputError::flag("--sparse", m))?)
     } else {
@@ -159,16 +231,16 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
     let mut inputs = spec.files();
     inputs.extend(args.fit.iter().chain(&args.lambda_z_times).map(PathBuf::from));
     let mut files = RunFiles::new(inputs);
-    let mut sink = args.output.sink(&mut files)?;
+    let mut sink = output.sink(&mut files)?;
     let mut svg_sink =
         args.svg.as_deref().map(|p| files.open(cistern::Origin::Flag("--svg".into()), p)).transpose()?;
-    let format = args.output.format();
-    let width = args.output.table_width();
+    let format = output.format();
+    let width = output.table_width();
     let out = sink.writer();
     match &sparse {
         Some(curve) => {
             for n in &curve.notes {
-                args.output.note(n);
+                output.note(n);
             }
             match format {
                 Format::Json => {
@@ -186,8 +258,7 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
                 write!(svg.writer(), "{}", cistern::report::svg::render_svg(&panels, CAUTION))
                     .map_err(io_failure)?;
             }
-            let comparisons =
-                fit.as_ref().map(|fit| versus_fit(&study.subjects, &results, fit, &args.output));
+            let comparisons = fit.as_ref().map(|fit| versus_fit(&study.subjects, &results, fit, &output));
             if args.explain {
                 for r in &results {
                     for e in &r.explain {
@@ -199,12 +270,13 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
                 for n in &r.notes {
                     match n.strip_prefix("warning: ") {
                         Some(w) => eprintln!("warning: {}: {}", who(r), super::printable(w)),
-                        None => args.output.note(&format!("{}: {n}", who(r))),
+                        None => output.note(&format!("{}: {n}", who(r))),
                     }
                 }
             }
-            match format {
-                Format::Json => write_json(
+            match (format, &pp_labels) {
+                (_, Some(labels)) => write_pp(out, &results, options.auc_rule, labels),
+                (Format::Json, None) => write_json(
                     out,
                     &NcaJson {
                         auc_rule: options.auc_rule.to_string(),
@@ -213,8 +285,8 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
                         fit_comparison: comparisons.as_deref(),
                     },
                 ),
-                Format::Csv => write_csv(out, &results, &options),
-                Format::Table => {
+                (Format::Csv, None) => write_csv(out, &results, &options),
+                (Format::Table, None) => {
                     let mut text = table(&results, width);
                     if let Some(c) = &comparisons {
                         text += &comparison_table(c, width);
@@ -225,7 +297,7 @@ pub fn run(args: NcaArgs) -> Result<(), Error> {
             .map_err(io_failure)?;
         }
     }
-    args.output.caution_for_csv(format);
+    output.caution_for_csv(format);
     sink.finish()?;
     svg_sink.map_or(Ok(()), |s| s.finish())
 }

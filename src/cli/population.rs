@@ -81,7 +81,7 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
     let mut problems = Problems::new();
     let settings = problems.take_all(spec.resolve(Needs::default()));
     let study = problems.take_all(Study::load(&spec.inputs, Required { model: true, levels: true }));
-    let (Study { model, subjects, notices }, settings) = problems.finish_with(study.zip(settings))?;
+    let (Study { model, subjects, notices, .. }, settings) = problems.finish_with(study.zip(settings))?;
     args.output.notify.notices(&notices);
     let model =
         model.ok_or_else(|| Error::Usage("population estimation needs a start model (--model)".into()))?;

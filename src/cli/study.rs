@@ -1,8 +1,8 @@
 //! The flags that name a study's files (or a case file naming them), shared by the commands
-//! that read one (`fit`, `plan`).
+//! that read one (`fit`, `plan`, `population`; `nca` and `check` take the ADPPK flags).
 
 use cistern::Origin;
-use cistern::spec::{Spec, Stated};
+use cistern::spec::{Inputs, Spec, Stated};
 use cistern::{Error, case};
 use clap::Args;
 use std::path::PathBuf;
@@ -28,6 +28,40 @@ pub struct StudyArgs {
     /// A covariate for every subject, NAME=VALUE (e.g. weight_kg=70, sex=F); repeatable
     #[arg(long = "covariate", value_name = "NAME=VALUE")]
     pub covariate: Vec<String>,
+    #[command(flatten)]
+    pub adppk: AdppkArgs,
+}
+
+/// An ADPPK dataset instead of the doses, levels and covariates files.
+#[derive(Args, Debug, Clone, Default)]
+pub struct AdppkArgs {
+    /// ADPPK dataset (CSV, CDISC ADaM population PK) holding the doses, levels and baseline
+    /// covariates, instead of --doses, --levels and --covariates
+    #[arg(long, value_name = "FILE")]
+    pub adppk: Option<String>,
+    /// The analyte (PARAMCD) to read from an ADPPK file that holds several
+    #[arg(long, value_name = "PARAMCD")]
+    pub analyte: Option<String>,
+    /// Read our variable OURS from the ADPPK column THEIRS, stating a unit where ADPPK has none
+    /// (e.g. amount_mg=AMT, crcl_ml_min=CRCLBL, duration_h=TINF); repeatable
+    #[arg(long, value_name = "OURS=THEIRS")]
+    pub map: Vec<String>,
+}
+
+impl AdppkArgs {
+    /// Put the ADPPK flags into the inputs, over a case file's.
+    pub fn apply(&self, inputs: &mut Inputs) {
+        inputs.adppk.set("--adppk", self.adppk.as_ref().map(PathBuf::from));
+        let options = &mut inputs.adppk_options;
+        if let Some(a) = &self.analyte {
+            options.analyte = Some(Stated { value: a.clone(), origin: Origin::Flag("--analyte".into()) });
+        }
+        if !self.map.is_empty() {
+            let flag = Origin::Flag("--map".into());
+            options.map =
+                self.map.iter().map(|m| Stated { value: m.clone(), origin: flag.clone() }).collect();
+        }
+    }
 }
 
 impl StudyArgs {
@@ -46,6 +80,7 @@ impl StudyArgs {
         let flag = Origin::Flag("--covariate".into());
         i.covariate =
             self.covariate.iter().map(|c| Stated { value: c.clone(), origin: flag.clone() }).collect();
+        self.adppk.apply(i);
         Ok(spec)
     }
 }

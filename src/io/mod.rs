@@ -1,6 +1,7 @@
 //! Readers and writers: input files read under one size cap, CSV tables with located errors,
 //! dose files, output formats and safe output files, digests.
 
+pub mod adppk;
 pub(crate) mod digest;
 pub mod doses;
 pub mod input;

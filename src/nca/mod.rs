@@ -12,6 +12,7 @@ pub mod compare;
 pub mod intervals;
 pub mod lambda_z;
 pub mod plot;
+pub mod pp;
 pub mod sparse;
 
 use crate::dosing::Route;

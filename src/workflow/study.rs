@@ -5,8 +5,9 @@ use crate::covariates::{Covariates, parse_assignment, parse_covariates};
 use crate::dosing::Dose;
 use crate::error::{InputError, Origin, Problems, Result};
 use crate::fit::SubjectData;
+use crate::io::adppk::{AdppkLabels, read_adppk};
 use crate::io::doses::{DoseFile, parse_doses};
-use crate::io::levels::parse_levels;
+use crate::io::levels::{LevelFile, parse_levels};
 use crate::io::table::{Notices, Table};
 use crate::model::PopulationModel;
 use crate::spec::{Inputs, Setting, Stated};
@@ -22,6 +23,8 @@ pub struct Study {
     pub subjects: Vec<SubjectData>,
     /// Notes and warnings for the user (ignored columns, subjects left out).
     pub notices: Notices,
+    /// What an ADPPK file said of the study (study ids, analyte, unit), when it was read from one.
+    pub labels: Option<AdppkLabels>,
 }
 
 /// What a study must hold for the analysis at hand.
@@ -59,7 +62,20 @@ impl Study {
     /// ```
     pub fn load(inputs: &Inputs, required: Required) -> Result<Study> {
         let mut problems = Problems::new();
-        let (doses, levels) = if required.levels {
+        let from_adppk = inputs.adppk.value.is_some();
+        if from_adppk {
+            for file in
+                [&inputs.doses, &inputs.levels, &inputs.covariates].into_iter().filter(|f| f.value.is_some())
+            {
+                problems.push(file.problem(format!(
+                    "give an ADPPK file ({}) or the doses, levels and covariates files, not both",
+                    inputs.adppk.origin
+                )));
+            }
+        }
+        let (doses, levels) = if from_adppk {
+            (Some(None), Some(None))
+        } else if required.levels {
             let doses = problems.take(inputs.doses.required("the doses file is required"));
             let levels = problems.take(inputs.levels.required("the levels file is required"));
             (doses.map(|p| Some(p.as_path())), levels.map(|p| Some(p.as_path())))
@@ -74,14 +90,15 @@ impl Study {
             }
             None => None,
         };
+        let mut labels = None;
         let matched = match (doses, levels) {
-            (Some(d), Some(l)) => assemble(inputs, d, l, model.as_ref(), &mut problems),
+            (Some(d), Some(l)) => assemble(inputs, d, l, model.as_ref(), &mut labels, &mut problems),
             _ => None,
         };
         let (subjects, mut notices) = problems.finish_with(matched)?;
         notices.warnings.extend(model.iter().flat_map(|m| m.warnings.iter().cloned()));
         notices.warnings.extend(crate::covariates::unusual(subjects.iter().map(|s| &s.covariates)));
-        Ok(Study { model, subjects, notices })
+        Ok(Study { model, subjects, notices, labels })
     }
 
     /// The subject a spec asks for, or the only one.
@@ -131,7 +148,7 @@ fn common_covariates(items: &[Stated<String>], problems: &mut Problems) -> Covar
 /// Where the covariates of the subjects came from (or would be given), for a problem with one
 /// that is missing or was not entered by the user.
 fn covariates_origin(inputs: &Inputs) -> Origin {
-    match (&inputs.covariates.value, inputs.covariate.first()) {
+    match (inputs.covariates.value.as_ref().or(inputs.adppk.value.as_ref()), inputs.covariate.first()) {
         (Some(path), _) => Origin::file(text(path)),
         (None, Some(first)) => first.origin.clone(),
         (None, None) => inputs.covariates.origin.clone(),
@@ -151,14 +168,41 @@ fn check_covariates(
     }
 }
 
-/// Match doses, levels and covariates by subject, and derive the covariates the model needs.
-fn assemble(
+/// What a study's data files hold, each `None` when it could not be read (its problems recorded).
+struct Sources {
+    doses: Option<Option<DoseFile>>,
+    /// The levels with the path of the file that held them.
+    levels: Option<Option<(String, LevelFile)>>,
+    covariates: Option<Vec<(String, Covariates)>>,
+    /// The file that held the doses, for messages.
+    doses_path: String,
+}
+
+/// Read the study's data: the ADPPK file, or the doses, levels and covariates files named.
+fn read_sources(
     inputs: &Inputs,
     doses_path: Option<&Path>,
     levels_path: Option<&Path>,
-    model: Option<&PopulationModel>,
+    labels: &mut Option<AdppkLabels>,
     problems: &mut Problems,
-) -> Option<(Vec<SubjectData>, Notices)> {
+) -> Sources {
+    if let Some(path) = &inputs.adppk.value {
+        let path = text(path);
+        let Some(adppk) = problems.take_all(read_adppk(&path, &inputs.adppk_options).map_err(Into::into))
+        else {
+            return Sources { doses: None, levels: None, covariates: None, doses_path: path };
+        };
+        *labels = Some(adppk.labels);
+        let doses = DoseFile { notices: adppk.notices, ..adppk.doses };
+        // A file with no observation rows of the analyte holds no levels.
+        let levels = (!adppk.levels.subjects.is_empty()).then(|| (path.clone(), adppk.levels));
+        return Sources {
+            doses: Some(Some(doses)),
+            levels: Some(levels),
+            covariates: Some(adppk.covariates),
+            doses_path: path,
+        };
+    }
     let doses = match doses_path.map(text) {
         Some(path) => {
             problems.take_all(Table::read(&path).and_then(|t| parse_doses(&t)).map_err(Into::into)).map(Some)
@@ -182,12 +226,27 @@ fn assemble(
         }
         None => Some(Vec::new()),
     };
+    Sources { doses, levels, covariates, doses_path: doses_path.map(text).unwrap_or_default() }
+}
+
+/// Match doses, levels and covariates by subject, and derive the covariates the model needs.
+fn assemble(
+    inputs: &Inputs,
+    doses_path: Option<&Path>,
+    levels_path: Option<&Path>,
+    model: Option<&PopulationModel>,
+    labels: &mut Option<AdppkLabels>,
+    problems: &mut Problems,
+) -> Option<(Vec<SubjectData>, Notices)> {
+    let Sources { doses, levels, covariates, doses_path } =
+        read_sources(inputs, doses_path, levels_path, labels, problems);
     let common = common_covariates(&inputs.covariate, problems);
     let (doses, levels, covariates) = (doses?, levels?, covariates?);
     let needed = model.map(|m| m.covariates_needed()).unwrap_or_default();
     // Without a covariates file every subject has the values given for all: check them once,
     // so that a missing covariate is one problem, not one per subject.
     if inputs.covariates.value.is_none()
+        && inputs.adppk.value.is_none()
         && let Err(mut e) = check_covariates(&mut common.clone(), &needed, model)
     {
         if inputs.covariate.is_empty() {
@@ -203,7 +262,6 @@ fn assemble(
         problems.push(inputs.doses.problem("the doses file is required with levels"));
         return None;
     };
-    let doses_path = doses_path.map(text).unwrap_or_default();
     let mut notices = doses.notices.clone();
     notices.extend(levels.notices.clone());
     let dose_ids = doses.subjects.iter().any(|(s, _)| s.is_some());

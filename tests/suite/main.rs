@@ -3,6 +3,7 @@
 
 mod common;
 
+mod adppk;
 mod advisor;
 mod bad_input;
 mod case_files;
