@@ -59,7 +59,7 @@ struct RawHeader {
 #[serde(deny_unknown_fields)]
 struct RawInputs {
     model: Option<Spanned<String>>,
-    doses: Spanned<String>,
+    doses: Option<Spanned<String>>,
     levels: Option<Spanned<String>>,
     covariates: Option<Spanned<String>>,
 }
@@ -152,7 +152,7 @@ pub fn read(path: &str) -> Result<Spec> {
     };
     let inputs = &raw.inputs;
     spec.inputs.model = file(&inputs.model, "inputs.model");
-    spec.inputs.doses = file(&Some(inputs.doses.clone()), "inputs.doses");
+    spec.inputs.doses = file(&inputs.doses, "inputs.doses");
     spec.inputs.levels = file(&inputs.levels, "inputs.levels");
     spec.inputs.covariates = file(&inputs.covariates, "inputs.covariates");
     spec.sweep = raw.sweep.as_ref().map(|s| SweepSpec {

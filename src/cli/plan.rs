@@ -316,7 +316,10 @@ fn table(
         Column::text("limits"),
     ];
     text += &render_table(&columns, &rows, width);
-    text += "Medians over the posterior draws, with their 5th to 95th percentiles (90 %).\n";
+    text += &format!(
+        "Medians over the {}, with their 5th to 95th percentiles (90 %).\n",
+        cistern::plan::draws_name(post.a_priori)
+    );
     if plan.candidates.len() > SHOWN {
         text +=
             &format!("… and {} more candidates (--format csv lists all)\n", plan.candidates.len() - SHOWN);

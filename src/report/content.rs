@@ -9,10 +9,10 @@ use crate::io::labels::{label, name_and_unit};
 use crate::io::levels::Level;
 use crate::io::output::{plain, readable};
 use crate::model::PopulationModel;
-use crate::plan::Course;
 use crate::plan::advisor::Advice;
 use crate::plan::recommend::{self, Plan};
 use crate::plan::targets::{Limits, Metric, Target};
+use crate::plan::{Course, draws_name};
 use crate::sweep::summary::{Summary, SummaryRow};
 use rand::SeedableRng;
 use rand::distr::Distribution;
@@ -367,11 +367,11 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
         rows: alt_rows,
         right: vec![true, false, true, true, true, true, false],
     }));
-    b.push(Block::Note(
-        "Alternatives ranked by PTA, then lower daily dose, then longer interval; medians over the posterior \
-         draws (peak and trough in mg/L, AUC24 in mg·h/L)."
-            .into(),
-    ));
+    b.push(Block::Note(format!(
+        "Alternatives ranked by PTA, then lower daily dose, then longer interval; medians over the {} \
+         (peak and trough in mg/L, AUC24 in mg·h/L).",
+        draws_name(a.fit.is_none())
+    )));
     if let Some(adv) = a.advice {
         b.push(Block::Heading("When to draw the next level".into()));
         let (exposure, unit) = name_and_unit(&adv.exposure);
@@ -667,11 +667,18 @@ fn methods(a: &Analysis, b: &mut Vec<Block>) {
         );
     }
     b.push(Block::Paragraph(prior + "."));
+    let estimation = if a.fit.is_some() {
+        "Estimation: maximum a posteriori (Bayesian) with the levels below the quantification limit \
+         entering by the M3 likelihood; intervals from adaptive importance sampling of the exact posterior \
+         (seeded). Planning: each candidate is evaluated at steady state for every posterior draw"
+    } else {
+        "Estimation: none, as no levels are on record; the parameters are drawn (seeded) from the \
+         population model's between-subject distribution for this subject's covariates, the population \
+         prior. Planning: each candidate is evaluated at steady state for every draw from that prior"
+    };
     b.push(Block::Paragraph(format!(
-        "Residual error: σ² = a² + (b·f)² with a = {} mg/L and b = {}. Estimation: maximum a posteriori \
-         (Bayesian) with the levels below the quantification limit entering by the M3 likelihood; intervals \
-         from adaptive importance sampling of the exact posterior (seeded). Planning: each candidate is \
-         evaluated at steady state for every posterior draw; PTA is the share of draws meeting every target.",
+        "Residual error: σ² = a² + (b·f)² with a = {} mg/L and b = {}. {estimation}; PTA is the share of \
+         draws meeting every target.",
         plain(m.residual.additive_mg_l),
         plain(m.residual.proportional_cv)
     )));

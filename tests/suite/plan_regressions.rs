@@ -322,3 +322,41 @@ fn a_report_without_candidates_derives_the_grid_plan_derives() {
     let n = plan["candidates"].as_array().unwrap().len();
     assert!(text.contains(&squeeze(&format!("of {n} regimens"))), "the report ranks plan's {n} candidates");
 }
+
+/// A case file for a new patient named no doses: `report --case` and `plan --case` failed with
+/// "missing field `doses`", and a doses file with a header and no rows was refused. Both now
+/// plan a priori (the same plan), and neither the table nor the report speaks of a posterior.
+/// With levels, an empty doses file is still an error naming it.
+#[test]
+fn a_case_without_doses_plans_a_priori() {
+    let dir = demo_copy();
+    let d = dir.path();
+    let case = std::fs::read_to_string(d.join("p01.toml")).unwrap();
+    let without = |case: &str| {
+        case.replace("levels = \"levels.csv\"\n", "").replace("subjects = 2000", "subjects = 200")
+    };
+    std::fs::write(d.join("new.toml"), without(&case.replace("doses = \"doses.csv\"\n", ""))).unwrap();
+    std::fs::write(d.join("none.csv"), "subject,time_h,amount_mg,route\n").unwrap();
+    let header_only = case.replace("doses = \"doses.csv\"", "doses = \"none.csv\"");
+    std::fs::write(d.join("empty.toml"), without(&header_only)).unwrap();
+    let (plan, stderr) = json_of(d, &["plan", "--case", "new.toml", "--draws", "500", "--no-advice"]);
+    assert_eq!(plan["a_priori"], Value::Bool(true), "{stderr}");
+    let (same, _) = json_of(d, &["plan", "--case", "empty.toml", "--draws", "500", "--no-advice"]);
+    assert_eq!(same, plan, "a header-only doses file is zero doses");
+    let table = cistern(d, &["plan", "--case", "new.toml", "--draws", "500", "--format", "table"]);
+    assert_eq!(table.code, 0, "{}", table.stderr);
+    assert!(table.stdout.contains("Medians over the draws from the population prior"), "{}", table.stdout);
+    assert!(!table.stdout.contains("posterior draws"), "{}", table.stdout);
+    let ran = cistern(d, &["report", "--case", "new.toml", "--draws", "500", "-o", "new.pdf"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let text = squeeze(&page_texts(&std::fs::read(d.join("new.pdf")).unwrap()).join(" "));
+    assert!(text.contains(&squeeze("medians over the draws from the population prior")));
+    for wrong in ["medians over the posterior", "maximum a posteriori", "every posterior draw"] {
+        assert!(!text.contains(&squeeze(wrong)), "an a priori report says '{wrong}'");
+    }
+    std::fs::write(d.join("levels-no-doses.toml"), header_only).unwrap();
+    let refused = cistern(d, &["plan", "--case", "levels-no-doses.toml", "--draws", "500"]);
+    assert_eq!(refused.code, 2, "{}", refused.stderr);
+    assert!(refused.stderr.contains("none.csv"), "{}", refused.stderr);
+    assert!(!d.join("new.csv").exists());
+}
