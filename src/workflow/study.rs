@@ -237,11 +237,9 @@ fn assemble(
         let Some(d) = dose_of.get(id) else {
             let first_row = lv.iter().map(|l| l.line).min().unwrap_or(0);
             problems.push(
-                InputError::in_file(
-                    &levels_path,
-                    format!("subject {name} has levels but no doses in {doses_path}"),
-                )
-                .at_line(first_row),
+                InputError::in_file(&levels_path, format!("levels but no doses in {doses_path}"))
+                    .at_line(first_row)
+                    .for_subject(name),
             );
             continue;
         };

@@ -484,3 +484,65 @@ fn implausible_values_in_toml_keys_are_warned_about_at_their_key() {
         assert!(ran.stderr.contains(&peak), "{args:?}: {}", ran.stderr);
     }
 }
+
+#[test]
+fn all_missing_inputs_are_reported_at_once() {
+    // Was: `cistern sweep` with no flags named only --model; fixing it showed the next one.
+    let dir = tempfile::tempdir().unwrap();
+    let err = refused(dir.path(), &["sweep"]);
+    for flag in ["--model", "--target", "--amounts", "--every", "--subjects"] {
+        assert!(err.contains(&format!("error: {flag}: ")), "{flag} missing from:\n{err}");
+    }
+    let err = refused(dir.path(), &["fit"]);
+    for flag in ["--doses", "--levels"] {
+        assert!(err.contains(&format!("error: {flag}: ")), "{flag} missing from:\n{err}");
+    }
+    let err = refused(dir.path(), &["plan"]);
+    for flag in ["--model", "--target"] {
+        assert!(err.contains(&format!("error: {flag}: ")), "{flag} missing from:\n{err}");
+    }
+}
+
+#[test]
+fn derived_amounts_state_the_unit_of_the_target() {
+    // Was: "candidates: amounts …: up to twice the amount per dose that puts trough at 7.5 for
+    // the point estimate" — a number without its unit.
+    let dir = demo_copy();
+    let args = [
+        &DEMO_STUDY[..],
+        &["--subject", "P01", "--draws", "200", "--target", "trough=..15", "--every", "12h", "--no-advice"],
+    ]
+    .concat();
+    let ran = run(dir.path(), &[&["plan"][..], &args, &["--format", "json"]].concat());
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    assert!(ran.stderr.contains("puts trough at 7.5 mg/L for the point estimate"), "{}", ran.stderr);
+    let ran = run(
+        dir.path(),
+        &[&["plan"][..], &args, &["--target", "auc24=400..600", "--format", "json"]].concat(),
+    );
+    assert!(ran.stderr.contains("puts trough at 7.5 mg/L"), "the first target: {}", ran.stderr);
+}
+
+#[test]
+fn levels_of_many_subjects_without_doses_are_one_line() {
+    // Was: 30 lines "levels.csv: line N: subject Sxx has levels but no doses in d.csv".
+    let dir = demo_copy();
+    let mut levels = String::from("subject,time_h,conc_mg_l\nS00,2,20\n");
+    for i in 1..=30 {
+        levels += &format!("S{i:02},2,20\nS{i:02},10,10\n");
+    }
+    write(dir.path(), "d.csv", b"subject,time_h,amount_mg,route,duration_h\nS00,0,1000,infusion,1\n");
+    write(dir.path(), "l.csv", levels.as_bytes());
+    let err =
+        refused(dir.path(), &fit_with(&["--covariate", "weight_kg=70", "--covariate", "crcl_ml_min=90"]));
+    assert_eq!(err.lines().count(), 1, "{err}");
+    assert!(
+        err.contains("error: l.csv: 30 subjects (S01, S02, S03, …): levels but no doses in d.csv"),
+        "{err}"
+    );
+    // One such subject keeps its line.
+    write(dir.path(), "l.csv", b"subject,time_h,conc_mg_l\nS00,2,20\nS07,2,20\n");
+    let err =
+        refused(dir.path(), &fit_with(&["--covariate", "weight_kg=70", "--covariate", "crcl_ml_min=90"]));
+    assert!(err.contains("error: l.csv: line 3: subject S07: levels but no doses in d.csv"), "{err}");
+}
