@@ -161,8 +161,11 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
         intervals: if args.no_advice { 0 } else { args.advise_intervals },
         sample_after_h,
     };
-    let Outcome { start_h, plan: result, advice, notes } =
+    let Outcome { start_h, plan: result, advice, notes, warnings } =
         plan(&subject, grid, settings.start_h, next_level, seeds)?;
+    for w in &warnings {
+        super::args::warn(w);
+    }
     let targets = &grid.targets;
     let limits = &grid.limits;
     for n in &notes {

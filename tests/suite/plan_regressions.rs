@@ -56,7 +56,18 @@ fn a_start_before_recorded_data_is_warned_about() {
     let dir = demo_copy();
     let (plan, stderr) = demo_plan(dir.path(), &["--subject", "P02", "--no-advice", "--start", "69h"]);
     assert!((num(&plan["start_h"]) - 69.0).abs() < 1e-12);
-    assert!(stderr.contains("before the last recorded level at 90 h"), "{stderr}");
+    assert!(
+        stderr.contains(
+            "warning: the new regimen starts at 69 h, before the last recorded event, the level at 90 h:"
+        ),
+        "{stderr}"
+    );
+    // Was a note that named only the level: a warning that counts the doses after the start.
+    let (_, stderr) = demo_plan(dir.path(), &["--subject", "P02", "--no-advice", "--start", "10h"]);
+    assert!(
+        stderr.contains("warning: the new regimen starts at 10 h, before the last recorded event, the level at 90 h (4 recorded doses come after it)"),
+        "{stderr}"
+    );
     let (_, stderr) = demo_plan(dir.path(), &["--subject", "P02", "--no-advice", "--start", "100h"]);
     assert!(!stderr.contains("before the last recorded"), "{stderr}");
 }
