@@ -371,3 +371,23 @@ fn a_case_without_doses_plans_a_priori() {
     assert!(refused.stderr.contains("none.csv"), "{}", refused.stderr);
     assert!(!d.join("new.csv").exists());
 }
+
+/// The report's tables printed each number on its own: dose times `0`, `8.0000`, `20.500` in
+/// one column, next-level times `132.20` beside `96.200`. Each column now has one number of
+/// decimals (enough for the significant digits of its largest value, no more than its values
+/// need): the demo's dose times print as 0.00, 12.50, 23.75, 36.20, the advice's as 132.2, 96.2.
+#[test]
+fn report_columns_print_one_number_of_decimals_each() {
+    let dir = demo_copy();
+    let d = dir.path();
+    let ran = cistern(d, &["report", "--case", "p01.toml", "-o", "p.pdf"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let text = page_texts(&std::fs::read(d.join("p.pdf")).unwrap()).join("\n");
+    let tokens: Vec<&str> = text.split_whitespace().collect();
+    for cell in ["0.00", "12.50", "23.75", "36.20", "48.20", "60.20", "132.2", "96.2"] {
+        assert!(tokens.contains(&cell), "no cell '{cell}' in the report");
+    }
+    for odd in ["96.200", "132.20", "12.500", "36.200"] {
+        assert!(!tokens.contains(&odd), "a cell '{odd}' of another format in its column");
+    }
+}
