@@ -645,3 +645,72 @@ fn a_vanishing_auc_prints_as_a_bound_not_its_digits() {
     assert!(ran.stdout.contains("AUC 1000–1001 h = < 1e-6 mg·h/L"), "{}", ran.stdout);
     assert!(!ran.stdout.contains("e-4"), "{}", ran.stdout);
 }
+
+#[test]
+fn sweep_params_reads_the_fit_csv_and_names_the_csv_for_its_json() {
+    // Was: `sweep --params fits.json` failed with a CSV reader's complaint about the JSON.
+    let dir = demo_copy();
+    let study = [&DEMO_STUDY[..], &["--draws", "200"]].concat();
+    for (format, out) in [("json", "fits.json"), ("csv", "fits.csv")] {
+        let ran = run(dir.path(), &[&["fit"][..], &study, &["--format", format, "-o", out]].concat());
+        assert_eq!(ran.code, 0, "{}", ran.stderr);
+    }
+    let sweep = [
+        "--amounts",
+        "1g",
+        "--every",
+        "12h",
+        "--durations",
+        "1h",
+        "--target",
+        "auc24=400..600",
+        "--format",
+        "json",
+    ];
+    let ran = run(dir.path(), &[&["sweep", "--params", "fits.csv"][..], &sweep].concat());
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let v: serde_json::Value = serde_json::from_str(&ran.stdout).unwrap();
+    assert_eq!(v["subjects"].as_u64(), Some(3), "{}", ran.stdout);
+    let err = refused(dir.path(), &[&["sweep", "--params", "fits.json"][..], &sweep].concat());
+    assert!(err.contains("fits.json: this is JSON") && err.contains("cistern fit --format csv"), "{err}");
+}
+
+#[test]
+fn the_advisor_key_is_interval_narrowing_pct_not_shrinkage() {
+    // "shrinkage" means the pull of individual estimates to the population; the advisor's
+    // figure is how much one more level narrows an interval, and is named so.
+    let dir = demo_copy();
+    let args = [
+        &["plan"][..],
+        &DEMO_STUDY,
+        &[
+            "--subject",
+            "P01",
+            "--draws",
+            "200",
+            "--target",
+            "auc24=400..600",
+            "--amounts",
+            "1g",
+            "--every",
+            "12h",
+            "--durations",
+            "1h",
+            "--format",
+            "json",
+        ],
+    ]
+    .concat();
+    let ran = run(dir.path(), &args);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let v: serde_json::Value = serde_json::from_str(&ran.stdout).unwrap();
+    let times = v["next_level"]["times"].as_array().expect("next-level times");
+    assert!(!times.is_empty());
+    for t in times {
+        let p = t["interval_narrowing_pct"].as_f64().expect("interval_narrowing_pct");
+        // At most 100 %; with 200 draws a time that adds nothing may come out a little negative.
+        assert!(p.is_finite() && p <= 100.0, "{t}");
+        assert!(t.get("shrinkage_pct").is_none(), "{t}");
+    }
+    assert!(!ran.stdout.contains("shrinkage"), "{}", ran.stdout);
+}
