@@ -374,16 +374,22 @@ impl Problems {
 
     /// `Ok` when nothing went wrong, else every problem recorded, each once (problems with
     /// inputs first: they are what the user can fix). The same problem of several subjects
-    /// (same origin, same message) is one problem naming them all.
+    /// (same file, column or key, same message) is one problem naming them all; when their
+    /// lines differ (each subject's rows), the one problem names no line.
     pub fn finish(self) -> Result<()> {
         use std::collections::{HashMap, HashSet};
         let mut errors: Vec<InputError> = Vec::with_capacity(self.errors.len());
         let mut subjects_of: Vec<HashSet<String>> = Vec::new();
         let mut index: HashMap<(Origin, String, bool), usize> = HashMap::new();
         for e in self.errors {
-            let key = (e.origin.clone(), e.message.clone(), e.subjects.is_empty());
+            let per_subject = !e.subjects.is_empty();
+            let origin = if per_subject { e.origin.without_line() } else { e.origin.clone() };
+            let key = (origin, e.message.clone(), per_subject);
             match index.get(&key) {
                 Some(&i) => {
+                    if errors[i].origin != e.origin {
+                        errors[i].origin = errors[i].origin.without_line();
+                    }
                     for s in e.subjects {
                         if subjects_of[i].insert(s.clone()) {
                             errors[i].subjects.push(s);

@@ -142,6 +142,23 @@ pub fn implausible(kind: Kind, value: f64) -> Option<String> {
     })
 }
 
+/// The unit in which `number`, read in a unit of `factor` (1 for the base unit) and implausible
+/// there, would have been plausible for `kind`: of the kind's other units, the one that puts
+/// it nearest the middle of the plausible range on a log scale (`1000000` mg → `mcg`, as
+/// 1,000,000 µg is 1 g); `None` when no unit does (`0.004` L/h is tiny in every unit).
+pub fn plausible_unit(kind: Kind, number: f64, factor: f64) -> Option<String> {
+    let (lo, hi) = range(kind).plausible;
+    let middle = (lo.ln() + hi.ln()) / 2.0;
+    let off_middle = |v: f64| (v.ln() - middle).abs();
+    kind.units()
+        .iter()
+        .filter(|(_, f)| (f / factor - 1.0).abs() > 1e-12)
+        .map(|(u, f)| (u, number * f))
+        .filter(|(_, v)| (lo..=hi).contains(v))
+        .min_by(|a, b| off_middle(a.1).total_cmp(&off_middle(b.1)))
+        .map(|(u, _)| u.replace('_', "/"))
+}
+
 /// A number for messages: at most four significant digits, never a 300-digit expansion.
 pub fn number(x: f64) -> String {
     if !x.is_finite() {
@@ -176,6 +193,16 @@ pub const MAX_EVALUATIONS: u64 = 20_000;
 /// Concentrations below this (mg/L) are printed as 0: they are below any assay by a factor
 /// of a million, and the digits of a subnormal number (3.5e-323) mean nothing.
 pub const CONC_FLOOR_MG_L: f64 = 1e-12;
+
+/// The smallest AUC a message prints in digits (mg·h/L), a thousandth of the smallest
+/// plausible one: a message says `< 1e-6` below it, never the digits of a vanishing number
+/// (`9.3e-43`, the AUC of a window long after the dose). CSV and JSON keep the value.
+pub const AUC_FLOOR_MG_H_L: f64 = 1e-6;
+
+/// An AUC for a message: `text` of it, or `< 1e-6` below [`AUC_FLOOR_MG_H_L`] (0 stays 0).
+pub fn auc_message(auc: f64, text: impl Fn(f64) -> String) -> String {
+    if auc != 0.0 && auc.abs() < AUC_FLOOR_MG_H_L { "< 1e-6".into() } else { text(auc) }
+}
 
 /// A computed concentration as reported: flushed to 0 below [`CONC_FLOOR_MG_L`].
 pub fn reported_conc(c: f64) -> f64 {

@@ -539,7 +539,7 @@ impl GridSpec {
                     self.durations.origin,
                     crate::limits::number(*long),
                     crate::limits::number(longest_every),
-                    bare_hint(Kind::Time)
+                    bare_hint(Kind::Time, Kind::Time.another_unit(1.0))
                 ));
             }
         }
@@ -568,15 +568,15 @@ impl GridSpec {
 /// first such value, at the setting's origin (a case key and line, or a flag).
 fn unusual(setting: &Setting<String>, kind: Kind, values: &[f64]) -> Option<String> {
     setting.value.as_ref()?;
-    let first = values.iter().find_map(|&v| crate::limits::implausible(kind, v))?;
-    Some(format!("{}: {first}{}", setting.origin, bare_hint(kind)))
+    let (value, first) = values.iter().find_map(|&v| Some((v, crate::limits::implausible(kind, v)?)))?;
+    let meant = crate::limits::plausible_unit(kind, value, 1.0);
+    Some(format!("{}: {first}{}", setting.origin, bare_hint(kind, meant)))
 }
 
-/// The unit a number without one is read in, and another to write.
-fn bare_hint(kind: Kind) -> String {
-    let other = kind
-        .another_unit(1.0)
-        .map_or_else(String::new, |u| format!("; write the unit to mean another, e.g. {u}"));
+/// The unit a number without one is read in, and `other` to write (the unit it was perhaps
+/// meant in).
+fn bare_hint(kind: Kind, other: Option<String>) -> String {
+    let other = other.map_or_else(String::new, |u| format!("; write the unit to mean another, e.g. {u}"));
     format!(" (a number without a unit is read in {}{other})", crate::limits::unit_text(kind))
 }
 

@@ -183,19 +183,19 @@ pub fn invalid_flag(invalid: InputError) -> InputError {
 pub fn flag_value(flag: &str, kind: Kind, text: &str) -> Result<f64, InputError> {
     let value = parse_value(kind, text).map_err(|m| InputError::flag(flag, m))?;
     if let Some(unusual) = limits::implausible(kind, value) {
-        warn(&format!("{flag} {}: {unusual}{}", text.trim(), bare_unit(kind, text)));
+        let meant = limits::plausible_unit(kind, value, 1.0);
+        warn(&format!("{flag} {}: {unusual}{}", text.trim(), bare_unit(kind, text, meant)));
     }
     Ok(value)
 }
 
-/// For a bare number, which unit it was read in and how to write another.
-pub fn bare_unit(kind: Kind, text: &str) -> String {
+/// For a bare number, which unit it was read in and how to write `other` (the unit it was
+/// perhaps meant in).
+pub fn bare_unit(kind: Kind, text: &str, other: Option<String>) -> String {
     if !is_bare(text) {
         return String::new();
     }
-    // The first unit of another size than the base one (for time `min`, not the spelling `hr`).
-    let other = kind
-        .another_unit(1.0)
+    let other = other
         .map_or_else(String::new, |u| format!("; write the unit to mean another, e.g. {}{u}", text.trim()));
     format!(" (a bare number is read in {}{other})", limits::unit_text(kind))
 }
@@ -271,7 +271,11 @@ impl ParamArgs {
                 limits::number(half_life / YEAR_H),
                 flag.0,
                 self.v.as_deref().unwrap_or_default(),
-                bare_unit(flag.1, given)
+                bare_unit(
+                    flag.1,
+                    given,
+                    parse_value(flag.1, given).ok().and_then(|v| limits::plausible_unit(flag.1, v, 1.0))
+                )
             ));
         }
         Some(params)
@@ -382,7 +386,7 @@ impl RegimenArgs {
                         text.trim(),
                         limits::number(duration_h),
                         limits::number(every_h),
-                        bare_unit(Kind::Time, text)
+                        bare_unit(Kind::Time, text, Kind::Time.another_unit(1.0))
                     ));
                 }
                 let check = match self.count {

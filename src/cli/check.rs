@@ -8,6 +8,7 @@ use cistern::io::doses::parse_doses;
 use cistern::io::levels::parse_levels;
 use cistern::io::table::{Notices, Table};
 use cistern::model::PopulationModel;
+use cistern::nca::lambda_z::parse_times;
 use cistern::spec::Needs;
 use cistern::sweep::population::parse_params;
 use cistern::sweep::state::SweepState;
@@ -28,8 +29,9 @@ The kind of each file is told from its content. A TOML file with an [inputs] tab
 file: its settings and every file it names are checked together, as `plan --case` reads them;
 other TOML files are population models. A CSV with an amount_<unit> column is a doses file,
 one with a conc_<unit> column a levels file, one with EVID and USUBJID columns an ADPPK
-dataset (read with --analyte and --map as the commands read it), one with cl_<unit> and v_<unit> columns a
-parameters file (the CSV output of `cistern fit`, read by `sweep --params`), and one with a
+dataset (read with --analyte and --map as the commands read it), one with cl_<unit> and
+v_<unit> columns a parameters file (the CSV output of `cistern fit`, read by `sweep --params`),
+one with a time_<unit> column and none of these the times of `nca --lambda-z-times`, and one with a
 subject column and none of these a covariates file. A JSON file is a sweep state (from `sweep
 --shard`) or the JSON output of `cistern fit` (read by `plan --fit`). Exit code 0 when every
 file is valid, 2 when any problem is found.")]
@@ -104,6 +106,16 @@ fn check_file(path: &str, adppk: &AdppkOptions) -> Result<(String, Notices), Err
         let summary = format!("parameters file, {} subject(s)", rows.len());
         return Ok((summary, Notices { notes, warnings: Vec::new() }));
     }
+    // Times alone (and subjects): the levels chosen for terminal lines, `nca --lambda-z-times`.
+    if has_quantity(&table, "time") {
+        let chosen = parse_times(&table)?;
+        let times: usize = chosen.values().map(Vec::len).sum();
+        let summary = format!(
+            "terminal-line times file (nca --lambda-z-times), {} subject(s), {times} time(s)",
+            chosen.len()
+        );
+        return Ok((summary, Notices::default()));
+    }
     if table.subject_column()?.is_some() {
         let subjects = parse_covariates(&table)?;
         let warnings = cistern::covariates::unusual(subjects.iter().map(|(_, c)| c));
@@ -113,8 +125,8 @@ fn check_file(path: &str, adppk: &AdppkOptions) -> Result<(String, Notices), Err
     Err(InputError::in_file(
         path,
         "cannot tell what kind of file this is: expected an amount_<unit> column (doses), a \
-         conc_<unit> column (levels), cl_<unit> and v_<unit> columns (parameters) or a subject \
-         column (covariates)",
+         conc_<unit> column (levels), cl_<unit> and v_<unit> columns (parameters), a time_<unit> \
+         column alone (terminal-line times) or a subject column (covariates)",
     )
     .at_line(table.header_line)
     .into())

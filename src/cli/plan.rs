@@ -161,8 +161,11 @@ pub fn run(args: PlanArgs) -> Result<(), Error> {
         intervals: if args.no_advice { 0 } else { args.advise_intervals },
         sample_after_h,
     };
-    let Outcome { start_h, plan: result, advice, notes } =
+    let Outcome { start_h, plan: result, advice, notes, warnings } =
         plan(&subject, grid, settings.start_h, next_level, seeds)?;
+    for w in &warnings {
+        super::args::warn(w);
+    }
     let targets = &grid.targets;
     let limits = &grid.limits;
     for n in &notes {
@@ -316,7 +319,10 @@ fn table(
         Column::text("limits"),
     ];
     text += &render_table(&columns, &rows, width);
-    text += "Medians over the posterior draws, with their 5th to 95th percentiles (90 %).\n";
+    text += &format!(
+        "Medians over the {}, with their 5th to 95th percentiles (90 %).\n",
+        cistern::plan::draws_name(post.a_priori)
+    );
     if plan.candidates.len() > SHOWN {
         text +=
             &format!("… and {} more candidates (--format csv lists all)\n", plan.candidates.len() - SHOWN);

@@ -11,6 +11,7 @@ use cistern::io::output::{
     render_table, write_json,
 };
 use cistern::io::table::Table;
+use cistern::limits::auc_message;
 use cistern::limits::{check_output_size, reported_conc};
 use cistern::report::content::curve_times;
 use cistern::report::layout::{DoseTick, PlotSpec, Series, Stroke};
@@ -259,7 +260,8 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
             bar.finish_and_clear();
             for ((who, _), (_, auc)) in subjects.iter().zip(&curves) {
                 let name = who.as_deref().map(|s| format!("subject {s}: ")).unwrap_or_default();
-                args.output.note(&format!("{name}AUC from {t_lo} h to {t_hi} h = {} mg·h/L", full(*auc)));
+                let auc = auc_message(*auc, full);
+                args.output.note(&format!("{name}AUC from {t_lo} h to {t_hi} h = {auc} mg·h/L"));
             }
         }
         Format::Table => {
@@ -285,8 +287,8 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
             text.push('\n');
             for ((who, _), (_, auc)) in subjects.iter().zip(&curves) {
                 let name = who.as_deref().map(|s| format!("subject {s}: ")).unwrap_or_default();
-                text +=
-                    &format!("{name}AUC {t_lo}–{t_hi} h = {} mg·h/L (exact integral)\n", readable(*auc, 5));
+                let auc = auc_message(*auc, |a| readable(a, 5));
+                text += &format!("{name}AUC {t_lo}–{t_hi} h = {auc} mg·h/L (exact integral)\n");
             }
             text += &format!("\n{CAUTION}\n");
             write!(out, "{}", fit_to_width(&text, width)).map_err(io_failure)?;

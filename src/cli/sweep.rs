@@ -52,7 +52,7 @@ pub struct SweepArgs {
     #[arg(long, value_name = "FILE", conflicts_with = "params")]
     case: Option<String>,
     /// Population model (TOML) to draw subjects from
-    #[arg(long, value_name = "FILE", required_unless_present_any = ["params", "case"])]
+    #[arg(long, value_name = "FILE")]
     model: Option<String>,
     /// Covariates CSV (subject plus covariate columns) to resample subjects' covariates from,
     /// uniformly with replacement

@@ -17,6 +17,33 @@ pub struct DoseFile {
     pub notices: Notices,
 }
 
+/// A time unit smaller than the one of `factor` (`min` beside `h`): the unit in which an
+/// infusion too long for its interval was perhaps meant; `None` for minutes.
+fn shorter_unit(factor: f64) -> Option<String> {
+    Kind::Time.another_unit(factor).filter(|u| Kind::Time.factor(u).is_some_and(|f| f < factor))
+}
+
+/// The lines of infusions that last past the start of the subject's next dose when that dose
+/// comes from another row. `doses` holds every expanded dose as (subject slot, start, infusion
+/// duration or 0, line).
+fn rows_overlapping_the_next(doses: &mut [(usize, f64, f64, u64)]) -> Vec<u64> {
+    doses.sort_by(|a, b| a.0.cmp(&b.0).then(a.1.total_cmp(&b.1)));
+    let mut lines = Vec::new();
+    for (i, &(slot, t, d, line)) in doses.iter().enumerate() {
+        let next = doses[i + 1..].iter().take_while(|o| o.0 == slot).find(|o| o.1 > t);
+        if let Some(&(_, u, _, next_line)) = next
+            && d > 0.0
+            && t + d > u
+            && next_line != line
+        {
+            lines.push(line);
+        }
+    }
+    lines.sort_unstable();
+    lines.dedup();
+    lines
+}
+
 /// Parse a doses table, reporting every problem found.
 pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
     let src = table.source.as_str();
@@ -77,8 +104,10 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
     let quantities: Vec<&Column> =
         [Some(&time), Some(&amount), duration.as_ref(), every.as_ref()].into_iter().flatten().collect();
     notices.warnings.extend(table.unusual_values(&quantities));
-    // Infusions that last longer than their row's dosing interval overlap the next dose.
+    // Infusions that last longer than their row's dosing interval overlap the next dose; so do
+    // infusions of separate rows that last past the next dose of the subject.
     let mut overlapping = Vec::new();
+    let mut every_dose: Vec<(usize, f64, f64, u64)> = Vec::new();
 
     let mut subjects: Vec<(Option<String>, Vec<Dose>)> = Vec::new();
     let mut slot_of: HashMap<Option<String>, usize> = HashMap::new();
@@ -136,6 +165,10 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
         if n > 1 && r == Route::Infusion && d > step {
             overlapping.push(row.line);
         }
+        if expanded + n <= MAX_DOSES {
+            let length = if r == Route::Infusion { d } else { 0.0 };
+            every_dose.extend((0..n).map(|i| (slot, t + i as f64 * step, length, row.line)));
+        }
         expanded += n;
         if let Err(m) = check_doses(expanded) {
             let place = count.as_ref().or(Some(&time));
@@ -156,8 +189,20 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
             d.name,
             crate::error::lines_phrase(&overlapping),
             e.name,
-            d.unit_hint(Kind::Time)
+            d.unit_hint(shorter_unit(d.factor))
         ));
+    }
+    if let Some(d) = &duration {
+        let past_next = rows_overlapping_the_next(&mut every_dose);
+        if !past_next.is_empty() {
+            notices.warnings.push(format!(
+                "{src}: column {}, {}: the infusion lasts past the subject's next dose (a later row), \
+                 so infusions overlap{}",
+                d.name,
+                crate::error::lines_phrase(&past_next),
+                d.unit_hint(shorter_unit(d.factor))
+            ));
+        }
     }
     if errors.is_empty() {
         for (_, doses) in &mut subjects {

@@ -342,17 +342,18 @@ impl Table {
                 let Ok(x) = text.parse::<f64>() else { continue };
                 if let Some(unusual) = crate::limits::implausible(kind, x * column.factor) {
                     lines.push(row.line);
-                    first.get_or_insert(unusual);
+                    first.get_or_insert((x, unusual));
                 }
             }
-            let Some(first) = first else { continue };
+            let Some((x, first)) = first else { continue };
+            let meant = crate::limits::plausible_unit(kind, x, column.factor);
             let which = if lines.len() == 1 { "" } else { "the first: " };
             warnings.push(format!(
                 "{}: column {}, {}: {which}{first}{}",
                 self.source,
                 column.name,
                 crate::error::lines_phrase(&lines),
-                column.unit_hint(kind)
+                column.unit_hint(meant)
             ));
         }
         warnings
@@ -360,10 +361,11 @@ impl Table {
 }
 
 impl Column {
-    /// Which unit the column's name gives, and how to name the column for another.
-    pub(crate) fn unit_hint(&self, kind: Kind) -> String {
+    /// Which unit the column's name gives, and how to name the column for `other` (the unit
+    /// its values were perhaps meant in).
+    pub(crate) fn unit_hint(&self, other: Option<String>) -> String {
         let (quantity, unit) = self.name.split_once('_').unwrap_or((self.name.as_str(), ""));
-        let other = kind.another_unit(self.factor).map_or_else(String::new, |u| {
+        let other = other.map_or_else(String::new, |u| {
             format!("; name it {quantity}_{} to mean {u}", u.replace('/', "_"))
         });
         format!(" (read in {}, the unit in the column's name{other})", unit.replace('_', "/"))

@@ -25,7 +25,12 @@ pub type ChosenTimes = HashMap<Option<String>, Vec<f64>>;
 /// Read a CSV of `time_<unit>` (and `subject`) naming the levels of each subject's terminal
 /// line, every problem located.
 pub fn read_times(path: &str) -> Result<ChosenTimes, Vec<InputError>> {
-    let table = Table::read(path)?;
+    parse_times(&Table::read(path)?)
+}
+
+/// [`read_times`] of a table already read (`cistern check` tells the file's kind first).
+pub fn parse_times(table: &Table) -> Result<ChosenTimes, Vec<InputError>> {
+    let path = table.source.as_str();
     let time = table.unit_column("time", Kind::Time).map_err(|e| vec![e])?.ok_or_else(|| {
         vec![InputError::in_file(path, "expected a time column (e.g. time_h)").at_line(table.header_line)]
     })?;

@@ -171,12 +171,14 @@ pub fn default_amounts(
     }
     let amounts: Vec<f64> = (1..=n).map(|i| i as f64 * step).collect();
     let what = format!(
-        "amounts {}..{}/{} mg: up to twice the amount per dose that puts {} at {middle} for the point \
+        "amounts {}..{}/{} mg: up to twice the amount per dose that puts {} at {} {} for the point \
          estimate at the longest interval ({} mg every {longest} h)",
         amounts[0],
         amounts[n - 1],
         step,
         target.name(),
+        crate::limits::number(middle),
+        target.metric.unit(),
         crate::io::output::readable(needed(longest)?, 4)
     );
     Ok((amounts, what))

@@ -17,6 +17,12 @@ use crate::engine::{self, Params};
 use crate::error::InputError;
 use targets::{Limits, Metric, Target};
 
+/// What a plan's draws are, for every text that names them: the subject's posterior when levels
+/// were fitted, the population prior for the subject's covariates when planned a priori.
+pub fn draws_name(a_priori: bool) -> &'static str {
+    if a_priori { "draws from the population prior" } else { "posterior draws" }
+}
+
 /// Where a candidate regimen starts: after the doses already given.
 #[derive(Debug, Clone, Copy)]
 pub struct Course<'a> {

@@ -280,7 +280,7 @@ pub fn plan(input: &PlanInput) -> Result<Plan, InputError> {
     match &recommended {
         None => notes.push("no candidate respects every limit: nothing is recommended".into()),
         Some(r) if r.assessment.pta < 0.5 => notes.push(format!(
-            "the best acceptable candidate meets the targets in only {:.0} % of the posterior draws",
+            "the best acceptable candidate meets the targets in only {:.0} % of the draws",
             100.0 * r.assessment.pta
         )),
         _ => {}

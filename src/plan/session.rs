@@ -109,6 +109,8 @@ pub struct Outcome {
     pub advice: Option<Advice>,
     /// Notes for the user.
     pub notes: Vec<String>,
+    /// Warnings for the user (a stated start before recorded data).
+    pub warnings: Vec<String>,
 }
 
 /// Where the new regimen starts by default: one interval after the last dose (the interval
@@ -134,16 +136,21 @@ pub(crate) fn default_start(record: &Record) -> (f64, String) {
 /// A warning when a stated start lies before recorded data: the plan's curves and day-N AUCs
 /// then assume the new regimen was already running when those doses or levels were recorded.
 fn start_before_record(start_h: f64, record: &Record) -> Option<String> {
-    let last_dose = record.history.iter().map(|d| d.time_h).reduce(f64::max);
-    let last = [last_dose.map(|t| (t, "dose")), record.last_level_h.map(|t| (t, "level"))]
+    let later: Vec<f64> = record.history.iter().map(|d| d.time_h).filter(|&t| t > start_h).collect();
+    let last_dose = later.iter().copied().reduce(f64::max);
+    let (last_h, last) = [last_dose.map(|t| (t, "dose")), record.last_level_h.map(|t| (t, "level"))]
         .into_iter()
         .flatten()
         .filter(|(t, _)| *t > start_h)
         .max_by(|a, b| a.0.total_cmp(&b.0))?;
+    let doses = match later.len() {
+        0 => String::new(),
+        1 => " (1 recorded dose comes after it)".into(),
+        n => format!(" ({n} recorded doses come after it)"),
+    };
     Some(format!(
-        "the new regimen starts at {start_h} h, before the last recorded {} at {} h: the plan \
-         continues the history from {start_h} h as if that {} had not been recorded",
-        last.1, last.0, last.1
+        "the new regimen starts at {start_h} h, before the last recorded event, the {last} at {last_h} h{doses}: \
+         the plan continues the history from {start_h} h as if what was recorded after it had not been"
     ))
 }
 
@@ -192,9 +199,10 @@ pub fn plan_subject(record: &Record, posterior: &Posterior, s: &Settings) -> Res
     };
     let history = record.history;
     let mut notes = Vec::new();
+    let mut warnings = Vec::new();
     let start_h = match s.start_h {
         Some(t) => {
-            notes.extend(start_before_record(t, record));
+            warnings.extend(start_before_record(t, record));
             t
         }
         None => {
@@ -254,5 +262,5 @@ pub fn plan_subject(record: &Record, posterior: &Posterior, s: &Settings) -> Res
             }))
         }
     };
-    Ok(Outcome { start_h, plan, advice, notes })
+    Ok(Outcome { start_h, plan, advice, notes, warnings })
 }

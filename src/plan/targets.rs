@@ -49,6 +49,17 @@ pub struct Target {
     pub hi: Option<f64>,
 }
 
+impl Metric {
+    /// The unit of the metric's values, for messages that print one.
+    pub fn unit(&self) -> &'static str {
+        match self {
+            Metric::Auc24 | Metric::AucDay { .. } => "mg·h/L",
+            Metric::Trough | Metric::Peak | Metric::Cavg => "mg/L",
+            Metric::Above { .. } => "% of the interval",
+        }
+    }
+}
+
 impl Target {
     /// Whether `value` meets the target.
     pub fn met(&self, value: f64) -> bool {

@@ -7,12 +7,12 @@ use crate::engine::{self, Params};
 use crate::fit::{Estimate, FitResult};
 use crate::io::labels::{label, name_and_unit};
 use crate::io::levels::Level;
-use crate::io::output::{plain, readable};
+use crate::io::output::{column_decimals, fixed, plain, readable};
 use crate::model::PopulationModel;
-use crate::plan::Course;
 use crate::plan::advisor::Advice;
 use crate::plan::recommend::{self, Plan};
 use crate::plan::targets::{Limits, Metric, Target};
+use crate::plan::{Course, draws_name};
 use crate::sweep::summary::{Summary, SummaryRow};
 use rand::SeedableRng;
 use rand::distr::Distribution;
@@ -77,6 +77,20 @@ const GREY: (f32, f32, f32) = (0.45, 0.45, 0.45);
 
 fn r3(x: f64) -> String {
     readable(x, 3)
+}
+
+/// One table column's numbers, all with the decimals chosen for the column
+/// ([`column_decimals`]: `digits` significant digits of its largest value), so that `0`, `8`
+/// and `20.5` print as `0.0`, `8.0` and `20.5`; a missing value is an empty cell.
+fn column(values: &[Option<f64>], digits: usize) -> Vec<String> {
+    let decimals = column_decimals(values.iter().flatten().copied(), digits);
+    values.iter().map(|x| x.map_or_else(String::new, |x| fixed(x, decimals))).collect()
+}
+
+/// Table rows from columns of cells (all of one length).
+fn rows_of(columns: Vec<Vec<String>>) -> Vec<Vec<String>> {
+    let n = columns.first().map_or(0, Vec::len);
+    (0..n).map(|i| columns.iter().map(|c| c[i].clone()).collect()).collect()
 }
 
 fn estimate_cells(e: &Estimate) -> [String; 3] {
@@ -260,18 +274,13 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
     for d in &a.covariates.derivations {
         b.push(Block::Note(format!("Derived: {d}.")));
     }
-    let dose_rows = a
-        .doses
-        .iter()
-        .map(|d| {
-            vec![
-                readable(d.time_h, 5),
-                plain(d.amount_mg),
-                d.route.to_string(),
-                if d.duration_h > 0.0 { plain(d.duration_h) } else { String::new() },
-            ]
-        })
-        .collect();
+    let of = |f: fn(&Dose) -> Option<f64>| a.doses.iter().map(f).collect::<Vec<_>>();
+    let dose_rows = rows_of(vec![
+        column(&of(|d| Some(d.time_h)), 5),
+        column(&of(|d| Some(d.amount_mg)), 5),
+        a.doses.iter().map(|d| d.route.to_string()).collect(),
+        column(&of(|d| (d.duration_h > 0.0).then_some(d.duration_h)), 3),
+    ]);
     b.push(Block::Table(Table {
         headers: vec!["dose time (h)".into(), "amount (mg)".into(), "route".into(), "duration (h)".into()],
         rows: dose_rows,
@@ -336,24 +345,22 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
     for n in a.candidates_derived {
         b.push(Block::Note(format!("Candidates: {n}.")));
     }
-    let alt_rows = a
-        .plan
-        .candidates
-        .iter()
-        .take(12)
-        .enumerate()
-        .map(|(i, c)| {
-            vec![
-                (i + 1).to_string(),
-                c.regimen.describe(),
-                format!("{:.1}", 100.0 * c.pta),
-                r3(c.predicted.peak_mg_l.median),
-                r3(c.predicted.trough_mg_l.median),
-                r3(c.predicted.auc24_mg_h_l.median),
-                if c.limits_broken.is_empty() { "—".into() } else { c.limits_broken.join("; ") },
-            ]
-        })
-        .collect();
+    let shown: Vec<_> = a.plan.candidates.iter().take(12).collect();
+    let median = |f: fn(&recommend::Assessment) -> f64| {
+        column(&shown.iter().map(|c| Some(f(c))).collect::<Vec<_>>(), 3)
+    };
+    let alt_rows = rows_of(vec![
+        (1..=shown.len()).map(|i| i.to_string()).collect(),
+        shown.iter().map(|c| c.regimen.describe()).collect(),
+        shown.iter().map(|c| format!("{:.1}", 100.0 * c.pta)).collect(),
+        median(|c| c.predicted.peak_mg_l.median),
+        median(|c| c.predicted.trough_mg_l.median),
+        median(|c| c.predicted.auc24_mg_h_l.median),
+        shown
+            .iter()
+            .map(|c| if c.limits_broken.is_empty() { "—".into() } else { c.limits_broken.join("; ") })
+            .collect(),
+    ]);
     b.push(Block::Table(Table {
         headers: vec![
             "rank".into(),
@@ -367,11 +374,11 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
         rows: alt_rows,
         right: vec![true, false, true, true, true, true, false],
     }));
-    b.push(Block::Note(
-        "Alternatives ranked by PTA, then lower daily dose, then longer interval; medians over the posterior \
-         draws (peak and trough in mg/L, AUC24 in mg·h/L)."
-            .into(),
-    ));
+    b.push(Block::Note(format!(
+        "Alternatives ranked by PTA, then lower daily dose, then longer interval; medians over the {} \
+         (peak and trough in mg/L, AUC24 in mg·h/L).",
+        draws_name(a.fit.is_none())
+    )));
     if let Some(adv) = a.advice {
         b.push(Block::Heading("When to draw the next level".into()));
         let (exposure, unit) = name_and_unit(&adv.exposure);
@@ -380,19 +387,16 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
              (now {} {unit} wide) the most.",
             r3(adv.current_ci90_width)
         )));
-        let rows = adv
-            .times
-            .iter()
-            .take(6)
-            .map(|s| {
-                vec![
-                    readable(s.time_h, 5),
-                    r3(s.after_dose_h),
-                    r3(s.expected_ci90_width),
-                    format!("{:.0} %", s.interval_narrowing_pct),
-                ]
-            })
-            .collect();
+        let times: Vec<_> = adv.times.iter().take(6).collect();
+        let of = |f: fn(&&crate::plan::advisor::SampleValue) -> f64| {
+            times.iter().map(|s| Some(f(s))).collect::<Vec<_>>()
+        };
+        let rows = rows_of(vec![
+            column(&of(|s| s.time_h), 5),
+            column(&of(|s| s.after_dose_h), 3),
+            column(&of(|s| s.expected_ci90_width), 3),
+            times.iter().map(|s| format!("{:.0} %", s.interval_narrowing_pct)).collect(),
+        ]);
         b.push(Block::Table(Table {
             headers: vec![
                 "time (h)".into(),
@@ -420,22 +424,20 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
 
 /// The levels against the fit, the estimates and the fit's diagnostics.
 fn fit_section(fit: &FitResult, b: &mut Vec<Block>) {
-    let level_rows = fit
-        .levels
-        .iter()
-        .map(|l| {
-            vec![
-                readable(l.time_h, 5),
-                match (l.observed_mg_l, l.lloq_mg_l) {
-                    (Some(y), _) => readable(y, 4),
-                    (None, Some(q)) => format!("<{} (BLQ)", r3(q)),
-                    (None, None) => "BLQ".into(),
-                },
-                readable(l.predicted_mg_l, 4),
-                l.weighted_residual.map(|w| readable(w, 3)).unwrap_or_default(),
-            ]
-        })
-        .collect();
+    let of = |f: fn(&crate::fit::LevelFit) -> Option<f64>| fit.levels.iter().map(f).collect::<Vec<_>>();
+    let observed = column(&of(|l| l.observed_mg_l), 4).into_iter().zip(&fit.levels).map(|(y, l)| {
+        match (l.observed_mg_l, l.lloq_mg_l) {
+            (Some(_), _) => y,
+            (None, Some(q)) => format!("<{} (BLQ)", r3(q)),
+            (None, None) => "BLQ".into(),
+        }
+    });
+    let level_rows = rows_of(vec![
+        column(&of(|l| Some(l.time_h)), 5),
+        observed.collect(),
+        column(&of(|l| Some(l.predicted_mg_l)), 4),
+        column(&of(|l| l.weighted_residual), 3),
+    ]);
     b.push(Block::Table(Table {
         headers: vec![
             "level time (h)".into(),
@@ -521,7 +523,7 @@ fn sweep_page(s: &Summary, b: &mut Vec<Block>) {
     rows.truncate(SWEEP_ROWS);
     let breaks = |r: &SummaryRow| !(r.dose_limits_broken.is_empty() && r.exposure_limits_broken.is_empty());
     let label = |r: &SummaryRow| format!("{}{}", r.regimen.describe(), if breaks(r) { " *" } else { "" });
-    let cell = |x: Option<f64>| x.map(|v| readable(v, 3)).unwrap_or_default();
+    let cells = |f: fn(&SummaryRow) -> Option<f64>| column(&rows.iter().map(|r| f(r)).collect::<Vec<_>>(), 3);
     let headers: Vec<String> = [
         "regimen",
         "PTA (%)",
@@ -551,22 +553,17 @@ fn sweep_page(s: &Summary, b: &mut Vec<Block>) {
     b.push(Block::Table(Table {
         right: headers.iter().map(|h| h != "regimen").collect(),
         headers,
-        rows: rows
-            .iter()
-            .map(|r| {
-                vec![
-                    label(r),
-                    format!("{:.1}", 100.0 * r.pta),
-                    cell(r.trough_mg_l.p05),
-                    cell(r.trough_mg_l.p50),
-                    cell(r.trough_mg_l.p95),
-                    cell(r.peak_mg_l.p50),
-                    cell(r.auc24_mg_h_l.p05),
-                    cell(r.auc24_mg_h_l.p50),
-                    cell(r.auc24_mg_h_l.p95),
-                ]
-            })
-            .collect(),
+        rows: rows_of(vec![
+            rows.iter().map(|r| label(r)).collect(),
+            rows.iter().map(|r| format!("{:.1}", 100.0 * r.pta)).collect(),
+            cells(|r| r.trough_mg_l.p05),
+            cells(|r| r.trough_mg_l.p50),
+            cells(|r| r.trough_mg_l.p95),
+            cells(|r| r.peak_mg_l.p50),
+            cells(|r| r.auc24_mg_h_l.p05),
+            cells(|r| r.auc24_mg_h_l.p50),
+            cells(|r| r.auc24_mg_h_l.p95),
+        ]),
     }));
     b.push(Block::Note(format!(
         "Best first: {shown}, by PTA, then the lower daily dose. PTA: share of the virtual subjects meeting \
@@ -667,11 +664,18 @@ fn methods(a: &Analysis, b: &mut Vec<Block>) {
         );
     }
     b.push(Block::Paragraph(prior + "."));
+    let estimation = if a.fit.is_some() {
+        "Estimation: maximum a posteriori (Bayesian) with the levels below the quantification limit \
+         entering by the M3 likelihood; intervals from adaptive importance sampling of the exact posterior \
+         (seeded). Planning: each candidate is evaluated at steady state for every posterior draw"
+    } else {
+        "Estimation: none, as no levels are on record; the parameters are drawn (seeded) from the \
+         population model's between-subject distribution for this subject's covariates, the population \
+         prior. Planning: each candidate is evaluated at steady state for every draw from that prior"
+    };
     b.push(Block::Paragraph(format!(
-        "Residual error: σ² = a² + (b·f)² with a = {} mg/L and b = {}. Estimation: maximum a posteriori \
-         (Bayesian) with the levels below the quantification limit entering by the M3 likelihood; intervals \
-         from adaptive importance sampling of the exact posterior (seeded). Planning: each candidate is \
-         evaluated at steady state for every posterior draw; PTA is the share of draws meeting every target.",
+        "Residual error: σ² = a² + (b·f)² with a = {} mg/L and b = {}. {estimation}; PTA is the share of \
+         draws meeting every target.",
         plain(m.residual.additive_mg_l),
         plain(m.residual.proportional_cv)
     )));

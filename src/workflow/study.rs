@@ -205,7 +205,9 @@ fn read_sources(
     }
     let doses = match doses_path.map(text) {
         Some(path) => {
-            problems.take_all(Table::read(&path).and_then(|t| parse_doses(&t)).map_err(Into::into)).map(Some)
+            // A doses file with a header and no rows is no doses (a new patient), as is no file.
+            let parsed = Table::read_maybe_empty(&path).and_then(|t| parse_doses(&t));
+            problems.take_all(parsed.map_err(Into::into)).map(|d| Some(d).filter(|d| !d.subjects.is_empty()))
         }
         None => Some(None),
     };
@@ -259,7 +261,13 @@ fn assemble(
         return without_levels(inputs, doses, &covariates, &common, (&needed, model), problems);
     };
     let Some(doses) = doses else {
-        problems.push(inputs.doses.problem("the doses file is required with levels"));
+        problems.push(match &inputs.doses.value {
+            Some(path) => InputError::in_file(
+                text(path),
+                "the file has no doses, and levels need the doses before them",
+            ),
+            None => inputs.doses.problem("the doses file is required with levels"),
+        });
         return None;
     };
     let mut notices = doses.notices.clone();
@@ -287,11 +295,9 @@ fn assemble(
         let Some(d) = dose_of.get(id) else {
             let first_row = lv.iter().map(|l| l.line).min().unwrap_or(0);
             problems.push(
-                InputError::in_file(
-                    &levels_path,
-                    format!("subject {name} has levels but no doses in {doses_path}"),
-                )
-                .at_line(first_row),
+                InputError::in_file(&levels_path, format!("levels but no doses in {doses_path}"))
+                    .at_line(first_row)
+                    .for_subject(name),
             );
             continue;
         };

@@ -115,7 +115,8 @@ fn catalog() -> Vec<Bad> {
         bad("unknown key in [limits]", &[("max_peak = ", Some("max_peek = \"60mg/l\""))], &[(ALL, &["bad.toml: line {line}, key limits", "`max_peek`"])]),
         appended,
         bad("TOML syntax error", &[("[limits]", Some("[limits"))], &[(ALL, &["bad.toml: line {line}"])]),
-        bad("no doses key", &[("doses = ", None)], &[(ALL, &["bad.toml: ", "`doses`"])]),
+        // Doses are optional (a new patient, issue 10), but the levels need them.
+        bad("levels without a doses key", &[("doses = ", None)], &[(&[Report, Plan, Fit], &["bad.toml: key inputs.doses", "doses file is required"])]),
         // Values that do not parse: the key and its line.
         bad("target bounds reversed", &[("targets = ", Some("targets = [\"auc24=600..400\", \"trough=..15\"]"))], &[(ALL, &["bad.toml: line {line}, key plan.targets", "600..400"])]),
         bad("unknown target metric", &[("targets = ", Some("targets = [\"auc25=400..600\"]"))], &[(ALL, &["bad.toml: line {line}, key plan.targets", "auc25"])]),

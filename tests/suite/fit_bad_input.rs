@@ -135,7 +135,7 @@ fn catalog() -> Vec<Case> {
         edit("time not a number", l, "A,23.5", "A,noon", Some(3), "'noon'"),
         edit("unknown concentration unit", l, "conc_mg_l", "conc_mg_pint", Some(1), "unit"),
         edit("no concentration column", l, "conc_mg_l", "value", Some(1), "concentration column"),
-        edit("levels for a subject with no doses", l, "B,2,14.2", "C,2,14.2", Some(4), "subject C has levels but no doses"),
+        edit("levels for a subject with no doses", l, "B,2,14.2", "C,2,14.2", Some(4), "subject C: levels but no doses"),
         edit("subject column in one file only", l, "subject,time_h,conc_mg_l\nA,13.5,25.1\nA,23.5,12.0\nB,2,14.2\nB,11.5,<0.5\n", "time_h,conc_mg_l\n13.5,25.1\n", None, "both have a subject column"),
         edit("empty levels file", l, LEVELS, "", None, "empty"),
     ]

@@ -415,7 +415,7 @@ fn implausible_values_in_files_are_warned_about_per_column() {
         let found: Vec<_> = warnings.iter().filter(|w| needles.iter().all(|n| w.contains(n))).collect();
         assert_eq!(found.len(), 1, "one warning with {needles:?} in:\n{}", ran.stderr);
     };
-    one(&["d.csv: column amount_mg, 4 lines (3, 4, 5, …)", "1000000 mg", "read in mg", "amount_g"]);
+    one(&["d.csv: column amount_mg, 4 lines (3, 4, 5, …)", "1000000 mg", "read in mg", "amount_mcg"]);
     one(&["d.csv: column duration_h, 2 lines (2, 4)", "longer than its dosing interval", "duration_min"]);
     one(&["l.csv: column conc_mg_l, line 2", "20000 mg/L", "conc_ug_l"]);
     one(&["c.csv: column scr_mg_dl, line 2", "scr_mg_dl = 88", "scr_umol_l"]);
@@ -483,4 +483,234 @@ fn implausible_values_in_toml_keys_are_warned_about_at_their_key() {
         );
         assert!(ran.stderr.contains(&peak), "{args:?}: {}", ran.stderr);
     }
+}
+
+#[test]
+fn all_missing_inputs_are_reported_at_once() {
+    // Was: `cistern sweep` with no flags named only --model; fixing it showed the next one.
+    let dir = tempfile::tempdir().unwrap();
+    let err = refused(dir.path(), &["sweep"]);
+    for flag in ["--model", "--target", "--amounts", "--every", "--subjects"] {
+        assert!(err.contains(&format!("error: {flag}: ")), "{flag} missing from:\n{err}");
+    }
+    let err = refused(dir.path(), &["fit"]);
+    for flag in ["--doses", "--levels"] {
+        assert!(err.contains(&format!("error: {flag}: ")), "{flag} missing from:\n{err}");
+    }
+    let err = refused(dir.path(), &["plan"]);
+    for flag in ["--model", "--target"] {
+        assert!(err.contains(&format!("error: {flag}: ")), "{flag} missing from:\n{err}");
+    }
+}
+
+#[test]
+fn derived_amounts_state_the_unit_of_the_target() {
+    // Was: "candidates: amounts …: up to twice the amount per dose that puts trough at 7.5 for
+    // the point estimate" — a number without its unit.
+    let dir = demo_copy();
+    let args = [
+        &DEMO_STUDY[..],
+        &["--subject", "P01", "--draws", "200", "--target", "trough=..15", "--every", "12h", "--no-advice"],
+    ]
+    .concat();
+    let ran = run(dir.path(), &[&["plan"][..], &args, &["--format", "json"]].concat());
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    assert!(ran.stderr.contains("puts trough at 7.5 mg/L for the point estimate"), "{}", ran.stderr);
+    let ran = run(
+        dir.path(),
+        &[&["plan"][..], &args, &["--target", "auc24=400..600", "--format", "json"]].concat(),
+    );
+    assert!(ran.stderr.contains("puts trough at 7.5 mg/L"), "the first target: {}", ran.stderr);
+}
+
+#[test]
+fn levels_of_many_subjects_without_doses_are_one_line() {
+    // Was: 30 lines "levels.csv: line N: subject Sxx has levels but no doses in d.csv".
+    let dir = demo_copy();
+    let mut levels = String::from("subject,time_h,conc_mg_l\nS00,2,20\n");
+    for i in 1..=30 {
+        levels += &format!("S{i:02},2,20\nS{i:02},10,10\n");
+    }
+    write(dir.path(), "d.csv", b"subject,time_h,amount_mg,route,duration_h\nS00,0,1000,infusion,1\n");
+    write(dir.path(), "l.csv", levels.as_bytes());
+    let err =
+        refused(dir.path(), &fit_with(&["--covariate", "weight_kg=70", "--covariate", "crcl_ml_min=90"]));
+    assert_eq!(err.lines().count(), 1, "{err}");
+    assert!(
+        err.contains("error: l.csv: 30 subjects (S01, S02, S03, …): levels but no doses in d.csv"),
+        "{err}"
+    );
+    // One such subject keeps its line.
+    write(dir.path(), "l.csv", b"subject,time_h,conc_mg_l\nS00,2,20\nS07,2,20\n");
+    let err =
+        refused(dir.path(), &fit_with(&["--covariate", "weight_kg=70", "--covariate", "crcl_ml_min=90"]));
+    assert!(err.contains("error: l.csv: line 3: subject S07: levels but no doses in d.csv"), "{err}");
+}
+
+#[test]
+fn check_reads_a_lambda_z_times_file_as_one() {
+    // Was: `cistern check lz.csv` on an `nca --lambda-z-times` file read it as covariates.
+    let dir = tempfile::tempdir().unwrap();
+    write(dir.path(), "lz.csv", b"subject,time_h\nA,8\nA,12\nA,24\nB,6\nB,12\nB,24\n");
+    let ran = run(dir.path(), &["check", "lz.csv"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    assert!(
+        ran.stdout
+            .contains("ok: lz.csv: terminal-line times file (nca --lambda-z-times), 2 subject(s), 6 time(s)"),
+        "{}",
+        ran.stdout
+    );
+    // Without subjects, and in minutes; a time that does not parse is located.
+    write(dir.path(), "one.csv", b"time_min\n480\n720\n");
+    let ran = run(dir.path(), &["check", "one.csv"]);
+    assert!(ran.stdout.contains("1 subject(s), 2 time(s)"), "{}", ran.stdout);
+    write(dir.path(), "bad.csv", b"subject,time_h\nA,8\nA,soon\n");
+    let err = refused(dir.path(), &["check", "bad.csv"]);
+    assert!(err.contains("bad.csv: line 3, column time_h") && !err.contains("covariate"), "{err}");
+}
+
+#[test]
+fn unit_hints_suggest_the_unit_in_which_the_value_is_plausible() {
+    // Was: `--dose 1000000` suggested `1000000g` (a tonne), `--cl 0.004` suggested `ml/min`
+    // (still tinier), `--at 0.001` suggested `min`.
+    let dir = tempfile::tempdir().unwrap();
+    let sim = |extra: &[&str]| {
+        let base =
+            ["simulate", "--cl", "4", "--v", "40", "--route", "bolus", "--format", "csv", "-o", "s.csv"];
+        let ran = run(dir.path(), &[&base[..], extra].concat());
+        assert_eq!(ran.code, 0, "{}", ran.stderr);
+        ran.stderr
+    };
+    let err = sim(&["--dose", "1000000", "--at", "1"]);
+    // 1,000,000 µg = 1 g: plausible; 1,000,000 g is not.
+    assert!(err.contains("e.g. 1000000mcg)"), "{err}");
+    let err = sim(&["--dose", "1g", "--at", "0.001"]);
+    // 0.001 d = 1.44 min, the only unit that puts it at or above a minute.
+    assert!(err.contains("--at 0.001: ") && err.contains("e.g. 0.001d)"), "{err}");
+    let ran = run(
+        dir.path(),
+        &["simulate", "--dose", "1g", "--cl", "0.004", "--v", "40", "--route", "bolus", "--at", "1"],
+    );
+    assert!(ran.stderr.contains("--cl 0.004: 0.004 L/h is an unusual clearance"), "{}", ran.stderr);
+    assert!(!ran.stderr.contains("ml/min"), "no unit makes 0.004 a plausible clearance: {}", ran.stderr);
+}
+
+#[test]
+fn infusions_of_separate_rows_that_overlap_are_warned() {
+    // Was: 60-h infusions 12 h apart on separate rows (no every_h) passed without a word.
+    let dir = tempfile::tempdir().unwrap();
+    write(
+        dir.path(),
+        "d.csv",
+        b"time_h,amount_mg,route,duration_h\n0,1000,infusion,60\n12,1000,infusion,60\n24,1000,infusion,60\n",
+    );
+    let ran = run(dir.path(), &["check", "d.csv"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    assert!(
+        ran.stderr.contains(
+            "warning: d.csv: column duration_h, 2 lines (2, 3): the infusion lasts past the subject's next dose \
+             (a later row), so infusions overlap (read in h, the unit in the column's name; name it \
+             duration_min to mean min)"
+        ),
+        "{}",
+        ran.stderr
+    );
+    // Each subject's doses are its own; infusions that end before the next dose are fine.
+    write(dir.path(), "d.csv", b"subject,time_h,amount_mg,route,duration_h\nA,0,1000,infusion,1\nB,0.5,1000,infusion,1\nA,12,1000,infusion,1\n");
+    let ran = run(dir.path(), &["check", "d.csv"]);
+    assert!(!ran.stderr.contains("overlap"), "{}", ran.stderr);
+}
+
+#[test]
+fn a_vanishing_auc_prints_as_a_bound_not_its_digits() {
+    // Was: "note: AUC from 1000 h to 1001 h = 9.3e-43 mg·h/L".
+    let dir = tempfile::tempdir().unwrap();
+    let args = [
+        "simulate",
+        "--dose",
+        "1g",
+        "--cl",
+        "4",
+        "--v",
+        "40",
+        "--route",
+        "bolus",
+        "--times",
+        "1000:1001h:1h",
+    ];
+    let ran = run(dir.path(), &[&args[..], &["--format", "csv", "-o", "s.csv"]].concat());
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    assert!(ran.stderr.contains("AUC from 1000 h to 1001 h = < 1e-6 mg·h/L"), "{}", ran.stderr);
+    let ran = run(dir.path(), &[&args[..], &["--format", "table"]].concat());
+    assert!(ran.stdout.contains("AUC 1000–1001 h = < 1e-6 mg·h/L"), "{}", ran.stdout);
+    assert!(!ran.stdout.contains("e-4"), "{}", ran.stdout);
+}
+
+#[test]
+fn sweep_params_reads_the_fit_csv_and_names_the_csv_for_its_json() {
+    // Was: `sweep --params fits.json` failed with a CSV reader's complaint about the JSON.
+    let dir = demo_copy();
+    let study = [&DEMO_STUDY[..], &["--draws", "200"]].concat();
+    for (format, out) in [("json", "fits.json"), ("csv", "fits.csv")] {
+        let ran = run(dir.path(), &[&["fit"][..], &study, &["--format", format, "-o", out]].concat());
+        assert_eq!(ran.code, 0, "{}", ran.stderr);
+    }
+    let sweep = [
+        "--amounts",
+        "1g",
+        "--every",
+        "12h",
+        "--durations",
+        "1h",
+        "--target",
+        "auc24=400..600",
+        "--format",
+        "json",
+    ];
+    let ran = run(dir.path(), &[&["sweep", "--params", "fits.csv"][..], &sweep].concat());
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let v: serde_json::Value = serde_json::from_str(&ran.stdout).unwrap();
+    assert_eq!(v["subjects"].as_u64(), Some(3), "{}", ran.stdout);
+    let err = refused(dir.path(), &[&["sweep", "--params", "fits.json"][..], &sweep].concat());
+    assert!(err.contains("fits.json: this is JSON") && err.contains("cistern fit --format csv"), "{err}");
+}
+
+#[test]
+fn the_advisor_key_is_interval_narrowing_pct_not_shrinkage() {
+    // "shrinkage" means the pull of individual estimates to the population; the advisor's
+    // figure is how much one more level narrows an interval, and is named so.
+    let dir = demo_copy();
+    let args = [
+        &["plan"][..],
+        &DEMO_STUDY,
+        &[
+            "--subject",
+            "P01",
+            "--draws",
+            "200",
+            "--target",
+            "auc24=400..600",
+            "--amounts",
+            "1g",
+            "--every",
+            "12h",
+            "--durations",
+            "1h",
+            "--format",
+            "json",
+        ],
+    ]
+    .concat();
+    let ran = run(dir.path(), &args);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let v: serde_json::Value = serde_json::from_str(&ran.stdout).unwrap();
+    let times = v["next_level"]["times"].as_array().expect("next-level times");
+    assert!(!times.is_empty());
+    for t in times {
+        let p = t["interval_narrowing_pct"].as_f64().expect("interval_narrowing_pct");
+        // At most 100 %; with 200 draws a time that adds nothing may come out a little negative.
+        assert!(p.is_finite() && p <= 100.0, "{t}");
+        assert!(t.get("shrinkage_pct").is_none(), "{t}");
+    }
+    assert!(!ran.stdout.contains("shrinkage"), "{}", ran.stdout);
 }

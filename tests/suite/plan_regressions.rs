@@ -56,7 +56,18 @@ fn a_start_before_recorded_data_is_warned_about() {
     let dir = demo_copy();
     let (plan, stderr) = demo_plan(dir.path(), &["--subject", "P02", "--no-advice", "--start", "69h"]);
     assert!((num(&plan["start_h"]) - 69.0).abs() < 1e-12);
-    assert!(stderr.contains("before the last recorded level at 90 h"), "{stderr}");
+    assert!(
+        stderr.contains(
+            "warning: the new regimen starts at 69 h, before the last recorded event, the level at 90 h:"
+        ),
+        "{stderr}"
+    );
+    // Was a note that named only the level: a warning that counts the doses after the start.
+    let (_, stderr) = demo_plan(dir.path(), &["--subject", "P02", "--no-advice", "--start", "10h"]);
+    assert!(
+        stderr.contains("warning: the new regimen starts at 10 h, before the last recorded event, the level at 90 h (4 recorded doses come after it)"),
+        "{stderr}"
+    );
     let (_, stderr) = demo_plan(dir.path(), &["--subject", "P02", "--no-advice", "--start", "100h"]);
     assert!(!stderr.contains("before the last recorded"), "{stderr}");
 }
@@ -321,4 +332,62 @@ fn a_report_without_candidates_derives_the_grid_plan_derives() {
     assert!(text.contains(&squeeze("Candidates: intervals 6h,8h,12h,24h")), "the report states the grid");
     let n = plan["candidates"].as_array().unwrap().len();
     assert!(text.contains(&squeeze(&format!("of {n} regimens"))), "the report ranks plan's {n} candidates");
+}
+
+/// A case file for a new patient named no doses: `report --case` and `plan --case` failed with
+/// "missing field `doses`", and a doses file with a header and no rows was refused. Both now
+/// plan a priori (the same plan), and neither the table nor the report speaks of a posterior.
+/// With levels, an empty doses file is still an error naming it.
+#[test]
+fn a_case_without_doses_plans_a_priori() {
+    let dir = demo_copy();
+    let d = dir.path();
+    let case = std::fs::read_to_string(d.join("p01.toml")).unwrap();
+    let without = |case: &str| {
+        case.replace("levels = \"levels.csv\"\n", "").replace("subjects = 2000", "subjects = 200")
+    };
+    std::fs::write(d.join("new.toml"), without(&case.replace("doses = \"doses.csv\"\n", ""))).unwrap();
+    std::fs::write(d.join("none.csv"), "subject,time_h,amount_mg,route\n").unwrap();
+    let header_only = case.replace("doses = \"doses.csv\"", "doses = \"none.csv\"");
+    std::fs::write(d.join("empty.toml"), without(&header_only)).unwrap();
+    let (plan, stderr) = json_of(d, &["plan", "--case", "new.toml", "--draws", "500", "--no-advice"]);
+    assert_eq!(plan["a_priori"], Value::Bool(true), "{stderr}");
+    let (same, _) = json_of(d, &["plan", "--case", "empty.toml", "--draws", "500", "--no-advice"]);
+    assert_eq!(same, plan, "a header-only doses file is zero doses");
+    let table = cistern(d, &["plan", "--case", "new.toml", "--draws", "500", "--format", "table"]);
+    assert_eq!(table.code, 0, "{}", table.stderr);
+    assert!(table.stdout.contains("Medians over the draws from the population prior"), "{}", table.stdout);
+    assert!(!table.stdout.contains("posterior draws"), "{}", table.stdout);
+    let ran = cistern(d, &["report", "--case", "new.toml", "--draws", "500", "-o", "new.pdf"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let text = squeeze(&page_texts(&std::fs::read(d.join("new.pdf")).unwrap()).join(" "));
+    assert!(text.contains(&squeeze("medians over the draws from the population prior")));
+    for wrong in ["medians over the posterior", "maximum a posteriori", "every posterior draw"] {
+        assert!(!text.contains(&squeeze(wrong)), "an a priori report says '{wrong}'");
+    }
+    std::fs::write(d.join("levels-no-doses.toml"), header_only).unwrap();
+    let refused = cistern(d, &["plan", "--case", "levels-no-doses.toml", "--draws", "500"]);
+    assert_eq!(refused.code, 2, "{}", refused.stderr);
+    assert!(refused.stderr.contains("none.csv"), "{}", refused.stderr);
+    assert!(!d.join("new.csv").exists());
+}
+
+/// The report's tables printed each number on its own: dose times `0`, `8.0000`, `20.500` in
+/// one column, next-level times `132.20` beside `96.200`. Each column now has one number of
+/// decimals (enough for the significant digits of its largest value, no more than its values
+/// need): the demo's dose times print as 0.00, 12.50, 23.75, 36.20, the advice's as 132.2, 96.2.
+#[test]
+fn report_columns_print_one_number_of_decimals_each() {
+    let dir = demo_copy();
+    let d = dir.path();
+    let ran = cistern(d, &["report", "--case", "p01.toml", "-o", "p.pdf"]);
+    assert_eq!(ran.code, 0, "{}", ran.stderr);
+    let text = page_texts(&std::fs::read(d.join("p.pdf")).unwrap()).join("\n");
+    let tokens: Vec<&str> = text.split_whitespace().collect();
+    for cell in ["0.00", "12.50", "23.75", "36.20", "48.20", "60.20", "132.2", "96.2"] {
+        assert!(tokens.contains(&cell), "no cell '{cell}' in the report");
+    }
+    for odd in ["96.200", "132.20", "12.500", "36.200"] {
+        assert!(!tokens.contains(&odd), "a cell '{odd}' of another format in its column");
+    }
 }

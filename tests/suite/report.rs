@@ -132,16 +132,21 @@ fn the_report_prints_the_numbers_of_plan_and_sweep() {
     // The alternatives table, row by row in the plan's order: rank, regimen, PTA and medians.
     let candidates = plan["candidates"].as_array().unwrap();
     assert!(candidates.len() >= 12, "{} candidates", candidates.len());
-    for (i, c) in candidates.iter().take(12).enumerate() {
-        let p = &c["predicted"];
+    // Each column with one number of decimals, chosen for the column (issue 10).
+    let shown = &candidates[..12];
+    let median = |c: &serde_json::Value, m: &str| num(&c["predicted"][m]["median"]);
+    let decimals = ["peak_mg_l", "trough_mg_l", "auc24_mg_h_l"]
+        .map(|m| cistern::io::output::column_decimals(shown.iter().map(|c| median(c, m)), 3));
+    for (i, c) in shown.iter().enumerate() {
+        let cell = |m: &str, d: usize| format!("{:.d$}", median(c, m));
         let row = format!(
             "{} {} {} {} {} {}",
             i + 1,
             regimen(c),
             pct(num(&c["pta"])),
-            sig(num(&p["peak_mg_l"]["median"]), 3),
-            sig(num(&p["trough_mg_l"]["median"]), 3),
-            sig(num(&p["auc24_mg_h_l"]["median"]), 3)
+            cell("peak_mg_l", decimals[0]),
+            cell("trough_mg_l", decimals[1]),
+            cell("auc24_mg_h_l", decimals[2])
         );
         has(&format!("alternative {}", i + 1), &row);
         for why in c["limits_broken"].as_array().unwrap() {
@@ -160,14 +165,19 @@ fn the_report_prints_the_numbers_of_plan_and_sweep() {
             cistern::io::labels::name_and_unit(advice["exposure"].as_str().unwrap()).1
         ),
     );
-    let best = &advice["times"][0];
+    let times: Vec<&Value> = advice["times"].as_array().unwrap().iter().take(6).collect();
+    let best = times[0];
+    let in_column = |key: &str, digits: usize| {
+        let d = cistern::io::output::column_decimals(times.iter().map(|t| num(&t[key])), digits);
+        format!("{:.d$}", num(&best[key]))
+    };
     has(
         "best sampling time",
         &format!(
             "{} {} {} {:.0} %",
-            sig(num(&best["time_h"]), 5),
-            sig(num(&best["after_dose_h"]), 3),
-            sig(num(&best["expected_ci90_width"]), 3),
+            in_column("time_h", 5),
+            in_column("after_dose_h", 3),
+            in_column("expected_ci90_width", 3),
             num(&best["interval_narrowing_pct"])
         ),
     );
@@ -183,7 +193,11 @@ fn the_report_prints_the_numbers_of_plan_and_sweep() {
     for r in rows.iter().take(5) {
         let broken = !r["dose_limits_broken"].as_array().unwrap().is_empty()
             || !r["exposure_limits_broken"].as_array().unwrap().is_empty();
-        let q = |m: &str, p: &str| sig(num(&r[m][p]), 3);
+        // Each column's decimals are chosen over the rows the page shows (at most 20).
+        let q = |m: &str, p: &str| {
+            let d = cistern::io::output::column_decimals(rows.iter().take(20).map(|o| num(&o[m][p])), 3);
+            format!("{:.d$}", num(&r[m][p]))
+        };
         has(
             "sweep row",
             &format!(

@@ -316,3 +316,48 @@ fn svg_is_well_formed_with_labels_and_one_path_per_series() {
     assert_eq!(svg.matches(r#"<path class="series""#).count(), series);
     assert_eq!(svg.matches("<circle").count(), 2 * (4 + 2), "4 levels and 2 legend dots per panel");
 }
+
+/// The y coordinates of the first path of `svg` whose tag holds `marker`.
+fn path_ys(svg: &str, marker: &str) -> Vec<f64> {
+    let tag =
+        svg.split("<path").find(|t| t.contains(marker)).unwrap_or_else(|| panic!("no path with {marker}"));
+    let d = tag.split("d=\"").nth(1).unwrap().split('"').next().unwrap();
+    d.split(['M', 'L', 'Z'])
+        .filter(|p| !p.is_empty())
+        .map(|p| p.split(' ').nth(1).unwrap().parse().unwrap())
+        .collect()
+}
+
+/// A one-sided target (`trough ≤ 15`) filled most of a logarithmic panel as a stripe down to
+/// the axis. It is now a line at its bound with a 10-pt shade on the side that meets it; a
+/// two-sided target stays a stripe between its bounds, without the line.
+#[test]
+fn a_one_sided_target_is_a_line_with_a_shaded_side() {
+    let shade = "fill=\"#ccebcc\"";
+    let mut upper = panel(true);
+    upper.target = Some((0.0, 15.0, "trough target: at most 15 mg/L".into()));
+    let svg = render_svg(&[upper], "caution");
+    let fill = path_ys(&svg, shade);
+    let (top, bottom) =
+        (fill.iter().copied().fold(f64::INFINITY, f64::min), fill.iter().copied().fold(0.0, f64::max));
+    assert!((bottom - top - 10.0).abs() < 0.02, "the shade is 10 pt high, not {}", bottom - top);
+    let line = path_ys(&svg, "class=\"target\"");
+    assert!(
+        line.iter().all(|y| (y - top).abs() < 0.02),
+        "the line {line:?} lies on the bound at {top}, the shade below it"
+    );
+    let mut lower = panel(true);
+    lower.target = Some((5.0, f64::INFINITY, "at least 5 mg/L".into()));
+    let svg = render_svg(&[lower], "caution");
+    let fill = path_ys(&svg, shade);
+    let bottom = fill.iter().copied().fold(0.0, f64::max);
+    let line = path_ys(&svg, "class=\"target\"");
+    assert!(line.iter().all(|y| (y - bottom).abs() < 0.02), "the shade lies above the lower bound's line");
+    // Two-sided: a stripe from 5 to 15 mg/L, taller than the shade, and no line.
+    let svg = render_svg(&[panel(true)], "caution");
+    let fill = path_ys(&svg, shade);
+    let height =
+        fill.iter().copied().fold(0.0, f64::max) - fill.iter().copied().fold(f64::INFINITY, f64::min);
+    assert!(height > 20.0, "{height}");
+    assert!(!svg.contains("class=\"target\""));
+}

@@ -418,3 +418,115 @@ fn a_piped_simulate_shows_no_progress() {
     assert_eq!(code, 0, "{stderr}");
     assert!(!stderr.contains("rows written"), "{stderr}");
 }
+
+/// Long fits and sweeps were silent for tens of seconds. Both now show progress on stderr
+/// when it is a terminal (stdout goes to a file here, so what shows is stderr), and none with
+/// `-q`.
+#[test]
+fn fit_and_sweep_show_progress_on_stderr_and_none_with_quiet() {
+    let dir = crate::common::demo_copy();
+    let fit = [
+        "fit",
+        "--model",
+        "model.toml",
+        "--doses",
+        "doses.csv",
+        "--levels",
+        "levels.csv",
+        "--covariates",
+        "covariates.csv",
+        "--draws",
+        "200",
+        "-o",
+        "fit.csv",
+    ];
+    let sweep = [
+        "sweep",
+        "--model",
+        "model.toml",
+        "--covariates",
+        "population.csv",
+        "--subjects",
+        "200000",
+        "--amounts",
+        "1g",
+        "--every",
+        "12h",
+        "--durations",
+        "1h",
+        "--target",
+        "auc24=400..600",
+        "-o",
+        "s.csv",
+    ];
+    for (args, what) in [(&fit[..], "subjects fitted"), (&sweep[..], "/200000 subjects")] {
+        let Some(shown) = on_a_terminal(dir.path(), args) else {
+            eprintln!("skipped: the progress check needs util-linux `script` for a pseudo-terminal");
+            return;
+        };
+        assert!(shown.contains(what), "no progress ({what}) shown:\n{shown}");
+        let quiet = on_a_terminal(dir.path(), &[args, &["-q"]].concat()).unwrap();
+        assert!(!quiet.contains(what), "-q still shows progress:\n{quiet}");
+    }
+}
+
+/// Tables printed raw keys (`auc24_mg_h_l`, `pta_%`) as headers. The plan and sweep tables now
+/// use human labels with units; the keys stay in CSV and JSON.
+#[test]
+fn tables_use_human_labels_with_units_not_keys() {
+    let dir = crate::common::demo_copy();
+    let plan = [
+        "plan",
+        "--model",
+        "model.toml",
+        "--doses",
+        "doses.csv",
+        "--levels",
+        "levels.csv",
+        "--covariates",
+        "covariates.csv",
+        "--subject",
+        "P01",
+        "--draws",
+        "200",
+        "--target",
+        "auc24=400..600",
+        "--amounts",
+        "1g",
+        "--every",
+        "12h",
+        "--durations",
+        "1h",
+        "--format",
+        "table",
+    ];
+    let sweep = [
+        "sweep",
+        "--model",
+        "model.toml",
+        "--covariates",
+        "population.csv",
+        "--subjects",
+        "200",
+        "--amounts",
+        "1g",
+        "--every",
+        "12h",
+        "--durations",
+        "1h",
+        "--target",
+        "auc24=400..600",
+        "--format",
+        "table",
+    ];
+    for args in [&plan[..], &sweep[..]] {
+        let (code, out, err) = run(dir.path(), args, Some("200"));
+        assert_eq!(code, 0, "{err}");
+        for key in ["auc24_mg_h_l", "trough_mg_l", "pta_%", "peak_mg_l", "every_h", "amount_mg"] {
+            assert!(!out.contains(key), "the key {key} in a table:\n{out}");
+        }
+        assert!(out.contains("AUC24") && out.contains("mg·h/L") && out.contains("PTA"), "{out}");
+    }
+    let (_, csv, _) = run(dir.path(), &[&sweep[..sweep.len() - 2], &["--format", "csv"]].concat(), None);
+    assert!(csv.lines().next().unwrap().contains("auc24_p50_mg_h_l") || csv.contains("auc24"), "{csv}");
+}
