@@ -163,8 +163,6 @@ pub fn read(path: &str) -> Result<Spec> {
     spec.inputs.levels = file(&inputs.levels, "inputs.levels");
     spec.inputs.covariates = file(&inputs.covariates, "inputs.covariates");
     spec.inputs.adppk = file(&inputs.adppk, "inputs.adppk");
-    let no_doses = (inputs.doses.is_none() && inputs.adppk.is_none())
-        .then(|| spec.inputs.doses.problem("missing `doses` (or `adppk`, an ADPPK dataset)"));
     let options = &mut spec.inputs.adppk_options;
     options.analyte = inputs
         .analyte
@@ -223,6 +221,5 @@ pub fn read(path: &str) -> Result<Spec> {
         author: raw.report.as_ref().and_then(|r| r.author.clone()),
         note: header.and_then(|h| h.note.clone()),
     };
-    errors.extend(no_doses);
     if errors.is_empty() { Ok(spec) } else { Err(errors.into()) }
 }
