@@ -394,6 +394,11 @@ impl<'a> Run<'a> {
     }
 }
 
+/// The bounds of the relaxation weight: below 0.1 the iteration would stall, and above 5 one
+/// extrapolation could carry φ far past a fixed point the ratio misjudged.
+const MIN_WEIGHT: f64 = 0.1;
+const MAX_WEIGHT: f64 = 5.0;
+
 /// The step taken along the fixed-point residual r = T(φ) − φ, where T(φ) is the optimum with
 /// the nodes (or, for Laplace, the modes) adapted at φ. T is not always a good contraction:
 /// where a subject's posterior is far from Gaussian the rule's error moves with the nodes and
@@ -405,9 +410,6 @@ impl<'a> Run<'a> {
 /// cancels it (a scalar secant step on the residual, derived here; with the last weight w′ and
 /// the ratio ρ of the residuals' projections, λ = 1 + (ρ − 1)/w′). The weight is kept within
 /// [0.1, 5]: a residual that stops shrinking (ρ ≥ 1) falls back to the plain step.
-const MIN_WEIGHT: f64 = 0.1;
-const MAX_WEIGHT: f64 = 5.0;
-
 #[derive(Default)]
 struct Relaxation {
     previous: Option<(Vec<f64>, f64)>,
@@ -418,7 +420,8 @@ impl Relaxation {
         let weight = match &self.previous {
             Some((last, w)) => {
                 let norm2: f64 = last.iter().map(|x| x * x).sum();
-                let ratio = residual.iter().zip(last).map(|(a, b)| a * b).sum::<f64>() / norm2;
+                let ratio =
+                    residual.iter().zip(last).map(|(a, b)| a * b).sum::<f64>() / norm2.max(f64::MIN_POSITIVE);
                 if norm2 > 0.0 && ratio < 1.0 {
                     (w / (1.0 - ratio)).clamp(MIN_WEIGHT, MAX_WEIGHT)
                 } else {
