@@ -54,6 +54,19 @@ pub struct NcaOptions {
     pub lambda_z_times: lambda_z::ChosenTimes,
 }
 
+impl Default for NcaOptions {
+    /// The defaults of `cistern nca` (the report's NCA section uses them too).
+    fn default() -> Self {
+        NcaOptions {
+            auc_rule: AucRule::LinearUpLogDown,
+            blq: BlqRule::ZeroThenDrop,
+            lambda_z: LambdaZChoice::Automatic,
+            partials: Vec::new(),
+            lambda_z_times: Default::default(),
+        }
+    }
+}
+
 /// A partial area: AUC between two times after the dose.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct PartialAuc {
