@@ -20,6 +20,7 @@ use crate::fit::SubjectData;
 use auc::{AucRule, Curve, Sample};
 use intervals::{BlqRule, Interval, Start};
 use lambda_z::Terminal;
+use rayon::prelude::*;
 use serde::Serialize;
 
 /// The share of AUC0–∞ extrapolated past the last level above which a warning is given
@@ -205,9 +206,10 @@ pub struct IntervalNca {
     pub terminal: Option<Terminal>,
 }
 
-/// The analysis of every subject of a study: one result per dosing interval with levels.
+/// The analysis of every subject of a study: one result per dosing interval with levels, in
+/// the subjects' order. Subjects are independent, so they are analysed in parallel (rayon).
 pub fn analyse(subjects: &[SubjectData], options: &NcaOptions) -> Vec<IntervalNca> {
-    subjects.iter().flat_map(|s| analyse_subject(s, options)).collect()
+    subjects.par_iter().flat_map_iter(|s| analyse_subject(s, options)).collect()
 }
 
 /// One subject's intervals.
