@@ -16,6 +16,8 @@ use crate::engine::{Params, auc, concentrations};
 use crate::fit::objective::{Weighting, blq_term, quantified_term};
 use crate::fit::{FitOptions, FitResult, Intervals, Method, SubjectData, fit_subject};
 use crate::io::levels::Level;
+use crate::nca::auc::AucRule;
+use crate::nca::{IntervalNca, LambdaZChoice, NcaOptions, analyse_subject};
 use serde::Serialize;
 
 /// Where an expected value comes from.
@@ -143,6 +145,8 @@ pub fn run_all() -> Vec<Outcome> {
 pub const BOURNE_NOTES: &str = "D. W. A. Bourne, Basic Pharmacokinetics online course notes (PHAR 7633), \
 University of Oklahoma College of Pharmacy, 2001–2014";
 
+const BOURNE_1997: &str = "Bourne notes, homework 1997-1 P2";
+const BOURNE_1995: &str = "Bourne notes, homework 1995-1 P2";
 const BOURNE_6: &str = "Bourne notes, ch. 6";
 const BOURNE_8: &str = "Bourne notes, ch. 8";
 const BOURNE_9: &str = "Bourne notes, ch. 9 (method of residuals)";
@@ -166,6 +170,108 @@ pub fn cases() -> Vec<Case> {
     let ratio = 1.0 / -(-p.k_per_h() * tau).exp_m1();
     let bolus_trough = amount / p.v_l * (-p.k_per_h() * tau).exp() * ratio;
     vec![
+        Case {
+            name: "NCA, bolus, linear trapezoid 0–1 h",
+            unit: "mg·h/L",
+            source: BOURNE_1997,
+            kind: Printed,
+            expected: 38.8,
+            // Printed to three figures (12.18 as 12.2).
+            tolerance: Absolute(0.05),
+            compute: || partial(&case2(AucRule::Linear)?, 0),
+        },
+        Case {
+            name: "NCA, bolus, linear trapezoid 1–2 h",
+            unit: "mg·h/L",
+            source: BOURNE_1997,
+            kind: Printed,
+            expected: 25.0,
+            tolerance: Absolute(0.05),
+            compute: || partial(&case2(AucRule::Linear)?, 1),
+        },
+        Case {
+            name: "NCA, bolus, linear trapezoid 2–6 h",
+            unit: "mg·h/L",
+            source: BOURNE_1997,
+            kind: Printed,
+            expected: 47.6,
+            tolerance: Absolute(0.05),
+            compute: || partial(&case2(AucRule::Linear)?, 2),
+        },
+        Case {
+            name: "NCA, bolus, linear trapezoid 6–12 h",
+            unit: "mg·h/L",
+            source: BOURNE_1997,
+            kind: Printed,
+            expected: 12.2,
+            tolerance: Absolute(0.05),
+            compute: || partial(&case2(AucRule::Linear)?, 3),
+        },
+        Case {
+            name: "NCA, bolus, λz through the levels 1–12 h",
+            unit: "1/h",
+            source: BOURNE_1997,
+            kind: Printed,
+            expected: 0.432,
+            tolerance: half_digit(1e-3),
+            compute: || value(case2(AucRule::Linear)?.lambda_z_per_h),
+        },
+        Case {
+            name: "NCA, bolus, AUC0–∞ (linear)",
+            unit: "mg·h/L",
+            source: BOURNE_1997,
+            kind: Printed,
+            expected: 124.2,
+            tolerance: Absolute(0.1),
+            compute: || value(case2(AucRule::Linear)?.auc_inf_obs_mg_h_l),
+        },
+        Case {
+            name: "NCA, bolus, AUC0–12 (linear-up/log-down)",
+            unit: "mg·h/L",
+            source: BOURNE_1997,
+            kind: Derived,
+            expected: 109.73,
+            tolerance: Absolute(0.1),
+            compute: || value(case2(AucRule::LinearUpLogDown)?.auc_last_mg_h_l),
+        },
+        Case {
+            name: "NCA, bolus, AUC0–∞ (linear-up/log-down)",
+            unit: "mg·h/L",
+            source: BOURNE_1997,
+            kind: Derived,
+            expected: 110.33,
+            tolerance: Absolute(0.1),
+            compute: || value(case2(AucRule::LinearUpLogDown)?.auc_inf_obs_mg_h_l),
+        },
+        Case {
+            name: "NCA, bolus 300 mg, λz through the levels 1–12 h",
+            unit: "1/h",
+            source: BOURNE_1995,
+            kind: Derived,
+            expected: 0.14441,
+            tolerance: half_digit(1e-5),
+            compute: || value(case3(AucRule::Linear)?.lambda_z_per_h),
+        },
+        Case {
+            name: "NCA, bolus 300 mg, AUC0–∞ (linear)",
+            unit: "mg·h/L",
+            source: BOURNE_1995,
+            kind: Printed,
+            expected: 132.8,
+            tolerance: Absolute(0.1),
+            compute: || value(case3(AucRule::Linear)?.auc_inf_obs_mg_h_l),
+        },
+        Case {
+            name: "NCA, bolus 300 mg, AUC0–∞ (linear-up/log-down)",
+            unit: "mg·h/L",
+            source: BOURNE_1995,
+            kind: Derived,
+            expected: 129.44,
+            // The source's tolerance. The derived 129.44 adds the tail with the printed k = 0.144;
+            // with the fitted λz the tail is 22.16, 0.065 less.
+            tolerance: Absolute(0.1),
+            compute: || value(case3(AucRule::LinearUpLogDown)?.auc_inf_obs_mg_h_l),
+        },
         Case {
             name: "short infusion, level at its end",
             unit: "mg/L",
@@ -245,6 +351,53 @@ pub fn cases() -> Vec<Case> {
             expected: 1.993,
             tolerance: Relative(0.02),
             compute: || Ok(case6_fit()?[2]),
+        },
+        Case {
+            name: "NCA, oral data, AUC0–7 (linear)",
+            unit: "mg·h/L",
+            source: BOURNE_9,
+            kind: Derived,
+            expected: 18.093,
+            // The sum of the trapezoids is 18.0925 exactly, which 18.093 rounds at the tie: half a
+            // unit would fail on the last bit, so a whole unit.
+            tolerance: Absolute(0.001),
+            compute: || value(case6_nca(AucRule::Linear)?.auc_last_mg_h_l),
+        },
+        Case {
+            name: "NCA, oral data, λz from the last 4 levels",
+            unit: "1/h",
+            source: BOURNE_9,
+            kind: Derived,
+            expected: 0.19925,
+            tolerance: half_digit(1e-5),
+            compute: || value(case6_nca(AucRule::Linear)?.lambda_z_per_h),
+        },
+        Case {
+            name: "NCA, oral data, AUC0–∞ (linear)",
+            unit: "mg·h/L",
+            source: BOURNE_9,
+            kind: Derived,
+            expected: 24.97,
+            tolerance: half_digit(1e-2),
+            compute: || value(case6_nca(AucRule::Linear)?.auc_inf_obs_mg_h_l),
+        },
+        Case {
+            name: "NCA, oral data, AUC0–7 (linear-up/log-down)",
+            unit: "mg·h/L",
+            source: BOURNE_9,
+            kind: Derived,
+            expected: 18.056,
+            tolerance: half_digit(1e-3),
+            compute: || value(case6_nca(AucRule::LinearUpLogDown)?.auc_last_mg_h_l),
+        },
+        Case {
+            name: "NCA, oral data, AUC0–∞ (linear-up/log-down)",
+            unit: "mg·h/L",
+            source: BOURNE_9,
+            kind: Derived,
+            expected: 24.93,
+            tolerance: half_digit(1e-2),
+            compute: || value(case6_nca(AucRule::LinearUpLogDown)?.auc_inf_obs_mg_h_l),
         },
         Case {
             name: "tmax, ka 3 /h, k 0.2 /h",
@@ -460,6 +613,63 @@ pub fn cases() -> Vec<Case> {
             },
         },
     ]
+}
+
+/// One subject's first interval through `nca::analyse_subject`, the code path of `cistern nca`:
+/// one dose, levels at `times`, the terminal line through the levels in `window` (h), the
+/// partial areas asked for.
+fn nca(
+    given: Dose,
+    (times, conc): (&[f64], &[f64]),
+    rule: AucRule,
+    window: (f64, f64),
+    partials: Vec<(f64, f64)>,
+) -> Result<IntervalNca, String> {
+    let subject = SubjectData {
+        id: None,
+        doses: vec![given],
+        levels: sampled(times, conc),
+        covariates: Covariates::default(),
+    };
+    let options = NcaOptions {
+        auc_rule: rule,
+        lambda_z: LambdaZChoice::Window(window.0, window.1),
+        partials,
+        ..NcaOptions::default()
+    };
+    analyse_subject(&subject, &options).into_iter().next().ok_or_else(|| "no interval analysed".into())
+}
+
+/// A value the analysis should have given.
+fn value(x: Option<f64>) -> Result<f64, String> {
+    x.ok_or_else(|| "not computed".into())
+}
+
+/// The `i`-th partial area of a result.
+fn partial(r: &IntervalNca, i: usize) -> Result<f64, String> {
+    value(r.partial_aucs.get(i).and_then(|p| p.auc_mg_h_l))
+}
+
+/// Case 2: 500 mg bolus, the printed back-extrapolated C0 = 47.6 mg/L as the level at 0 h, the
+/// printed trapezoids as partial areas, the line through the four measured levels.
+fn case2(rule: AucRule) -> Result<IntervalNca, String> {
+    let levels: (&[f64], &[f64]) = (&[0.0, 1.0, 2.0, 6.0, 12.0], &[47.6, 30.0, 20.0, 3.8, 0.26]);
+    let pieces = vec![(0.0, 1.0), (1.0, 2.0), (2.0, 6.0), (6.0, 12.0)];
+    nca(dose(0.0, 500.0, Route::Bolus, 0.0), levels, rule, (1.0, 12.0), pieces)
+}
+
+/// Case 3: 300 mg bolus, the printed C0 = 18.6 mg/L as the level at 0 h.
+fn case3(rule: AucRule) -> Result<IntervalNca, String> {
+    let levels: (&[f64], &[f64]) = (&[0.0, 1.0, 2.0, 6.0, 12.0], &[18.6, 15.7, 13.8, 8.3, 3.2]);
+    nca(dose(0.0, 300.0, Route::Bolus, 0.0), levels, rule, (1.0, 12.0), Vec::new())
+}
+
+/// Case 6's levels after an oral dose (C(0) = 0: no level at the dose time), the line through
+/// the last four.
+fn case6_nca(rule: AucRule) -> Result<IntervalNca, String> {
+    let times = [0.25, 0.5, 0.75, 1.0, 1.5, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0];
+    let conc = [1.91, 2.98, 3.54, 3.80, 3.84, 3.62, 3.04, 2.49, 2.04, 1.67, 1.37];
+    nca(dose(0.0, 100.0, Route::Oral, 0.0), (&times, &conc), rule, (4.0, 7.0), Vec::new())
 }
 
 fn dose(time_h: f64, amount_mg: f64, route: Route, duration_h: f64) -> Dose {

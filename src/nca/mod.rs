@@ -20,6 +20,7 @@ use crate::fit::SubjectData;
 use auc::{AucRule, Curve, Sample};
 use intervals::{BlqRule, Interval, Start};
 use lambda_z::Terminal;
+use rayon::prelude::*;
 use serde::Serialize;
 
 /// The share of AUC0–∞ extrapolated past the last level above which a warning is given
@@ -52,6 +53,19 @@ pub struct NcaOptions {
     /// The levels of the terminal line listed per subject (times on the levels file's clock);
     /// a subject listed here takes them instead of `lambda_z`.
     pub lambda_z_times: lambda_z::ChosenTimes,
+}
+
+impl Default for NcaOptions {
+    /// The defaults of `cistern nca` (the report's NCA section uses them too).
+    fn default() -> Self {
+        NcaOptions {
+            auc_rule: AucRule::LinearUpLogDown,
+            blq: BlqRule::ZeroThenDrop,
+            lambda_z: LambdaZChoice::Automatic,
+            partials: Vec::new(),
+            lambda_z_times: Default::default(),
+        }
+    }
 }
 
 /// A partial area: AUC between two times after the dose.
@@ -192,9 +206,10 @@ pub struct IntervalNca {
     pub terminal: Option<Terminal>,
 }
 
-/// The analysis of every subject of a study: one result per dosing interval with levels.
+/// The analysis of every subject of a study: one result per dosing interval with levels, in
+/// the subjects' order. Subjects are independent, so they are analysed in parallel (rayon).
 pub fn analyse(subjects: &[SubjectData], options: &NcaOptions) -> Vec<IntervalNca> {
-    subjects.iter().flat_map(|s| analyse_subject(s, options)).collect()
+    subjects.par_iter().flat_map_iter(|s| analyse_subject(s, options)).collect()
 }
 
 /// One subject's intervals.

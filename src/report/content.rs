@@ -9,6 +9,7 @@ use crate::io::labels::{label, name_and_unit};
 use crate::io::levels::Level;
 use crate::io::output::{column_decimals, fixed, plain, readable};
 use crate::model::PopulationModel;
+use crate::nca::IntervalNca;
 use crate::plan::advisor::Advice;
 use crate::plan::recommend::{self, Plan};
 use crate::plan::targets::{Limits, Metric, Target};
@@ -36,6 +37,8 @@ pub struct Analysis<'a> {
     pub doses: &'a [Dose],
     /// The levels.
     pub levels: &'a [Level],
+    /// The non-compartmental analysis of the subject's levels (`cistern nca`'s defaults).
+    pub nca: &'a [IntervalNca],
     /// The subject's identifier.
     pub subject: Option<&'a str>,
     /// The fit; `None` when the plan is a priori (no levels).
@@ -291,6 +294,7 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
         None => a_priori_section(a, &mut b),
     }
     b.extend(plots.iter().cloned().map(Block::Plot));
+    nca_section(a.nca, &mut b);
 
     // Recommendation.
     b.push(Block::Heading("Proposed regimen".into()));
@@ -420,6 +424,70 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
         author: a.author.clone(),
         blocks: b,
     }
+}
+
+/// The non-compartmental summary of the levels, without a model: a row per dosing interval with
+/// a measurable level, and the log-scale panel of each interval with a terminal line. An
+/// interval without one says why (its notes) instead of showing a line.
+fn nca_section(nca: &[IntervalNca], b: &mut Vec<Block>) {
+    let measured: Vec<&IntervalNca> = nca.iter().filter(|r| r.cmax_mg_l.is_some()).collect();
+    if measured.is_empty() {
+        return;
+    }
+    b.push(Block::Heading("Non-compartmental analysis".into()));
+    b.push(Block::Paragraph(
+        "Exposure from the measured levels alone, without the model (as cistern nca computes it by default: \
+         linear-up/log-down areas, λz chosen automatically; methods section 10). Times are hours after each dose."
+            .into(),
+    ));
+    // One decimal count per column ([`column`]), a dash where the levels do not give the value.
+    let values: [fn(&IntervalNca) -> Option<f64>; 6] = [
+        |r| r.cmax_mg_l,
+        |r| r.tmax_h,
+        |r| r.auc_last_mg_h_l,
+        |r| r.lambda_z_per_h,
+        |r| r.half_life_h,
+        |r| r.auc_inf_obs_mg_h_l,
+    ];
+    let mut columns = vec![measured.iter().map(|r| r.interval.to_string()).collect::<Vec<_>>()];
+    for value in values {
+        let cells = column(&measured.iter().map(|r| value(r)).collect::<Vec<_>>(), 4);
+        columns.push(cells.into_iter().map(|c| if c.is_empty() { "—".into() } else { c }).collect());
+    }
+    let rows = rows_of(columns);
+    b.push(Block::Table(Table {
+        headers: vec![
+            "dose".into(),
+            "Cmax (mg/L)".into(),
+            "Tmax (h)".into(),
+            "AUClast (mg·h/L)".into(),
+            "λz (1/h)".into(),
+            "half-life (h)".into(),
+            "AUC0–∞ (mg·h/L)".into(),
+        ],
+        rows,
+        right: vec![true; 7],
+    }));
+    b.push(Block::Note(
+        "Each column to 4 significant digits of its largest value; — where the levels do not give the value \
+         (the notes say why). AUC0–∞ uses the observed last level and is given for the first dose only."
+            .into(),
+    ));
+    for r in &measured {
+        for n in &r.notes {
+            b.push(Block::Note(format!("Dose {}: {n}.", r.interval)));
+        }
+    }
+    if measured.iter().all(|r| r.terminal.is_none()) {
+        b.push(Block::Note(
+            "No interval has the levels a terminal line needs, so no λz, half-life or AUC0–∞ is given and no \
+             line is drawn."
+                .into(),
+        ));
+    }
+    b.extend(
+        measured.iter().filter(|r| r.terminal.is_some()).map(|r| Block::Plot(crate::nca::plot::panel(r))),
+    );
 }
 
 /// The levels against the fit, the estimates and the fit's diagnostics.

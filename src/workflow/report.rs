@@ -102,6 +102,8 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
         let bytes = input::read(&f)?;
         digests.push((path, sha256_hex(&bytes)));
     }
+    // The subject's non-compartmental summary, by the defaults of `cistern nca`.
+    let nca = crate::nca::analyse_subject(data, &crate::nca::NcaOptions::default());
     let analysis = Analysis {
         title: spec
             .report
@@ -114,6 +116,7 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
         covariates: &data.covariates,
         doses: &data.doses,
         levels: &data.levels,
+        nca: &nca,
         subject: data.id.as_deref(),
         fit: fit.as_ref(),
         point: subject.posterior.point,

@@ -16,6 +16,7 @@ use crate::common::{
     Ran, cistern_at, count_pixels, decode_png, demo_copy, find, find_all, page_texts, poppler_available,
     render_pages, squeeze, words,
 };
+use cistern::io::output::{column_decimals, fixed};
 use serde_json::Value;
 use sha2::{Digest, Sha256};
 use std::path::Path;
@@ -401,4 +402,86 @@ fn the_report_plot_reaches_the_exact_infusion_peak() {
         .into_iter()
         .fold(f64::NEG_INFINITY, f64::max);
     crate::common::assert_rel(plotted, peak, 1e-12, 1e-9, "the plotted maximum against the exact peak");
+}
+
+/// The NCA rows of `subject` in `cistern nca --format json`, as the report's table prints them:
+/// intervals with a measured level only, each column with the decimals of the report's rule
+/// (4 significant digits of the column's largest value), a dash where a value is missing.
+fn nca_rows(dir: &Path, subject: &str) -> Vec<String> {
+    let nca = json(dir, &["nca", "--doses", "doses.csv", "--levels", "levels.csv", "--format", "json"]);
+    let measured: Vec<&Value> = nca["subjects"]
+        .as_array()
+        .expect("subjects[]")
+        .iter()
+        .filter(|s| s["subject"] == subject && !s["cmax_mg_l"].is_null())
+        .collect();
+    assert!(!measured.is_empty(), "no measured interval of {subject} in {nca}");
+    let keys =
+        ["cmax_mg_l", "tmax_h", "auc_last_mg_h_l", "lambda_z_per_h", "half_life_h", "auc_inf_obs_mg_h_l"];
+    let columns: Vec<Vec<String>> = keys
+        .iter()
+        .map(|k| {
+            let decimals = column_decimals(measured.iter().filter_map(|s| s[*k].as_f64()), 4);
+            measured
+                .iter()
+                .map(|s| s[*k].as_f64().map_or_else(|| "—".to_string(), |x| fixed(x, decimals)))
+                .collect()
+        })
+        .collect();
+    (0..measured.len())
+        .map(|i| {
+            format!(
+                "{} {}",
+                measured[i]["interval"],
+                columns.iter().map(|c| c[i].as_str()).collect::<Vec<_>>().join(" ")
+            )
+        })
+        .collect()
+}
+
+#[test]
+fn the_report_gives_the_nca_of_the_demo_subject_and_says_it_has_no_terminal_line() {
+    let (dir, pdf) = report(&[]);
+    let text = squeeze(&page_texts(&pdf).concat());
+    assert!(text.contains(&squeeze("Non-compartmental analysis")), "no NCA section");
+    for row in nca_rows(dir.path(), "P01") {
+        assert!(text.contains(&squeeze(&row)), "NCA row '{row}' not in the report");
+    }
+    // P01's levels are one or two per interval: no λz, said so, and no line drawn.
+    assert!(text.contains(&squeeze("No interval has the levels a terminal line needs")), "no honest note");
+    assert!(text.contains(&squeeze("no lambdaz: 0 measurable level(s) after the peak")), "no λz note");
+    assert!(!text.contains(&squeeze("terminal line, slope")), "a terminal line drawn without λz");
+}
+
+#[test]
+fn the_report_gives_the_nca_table_and_panel_of_a_rich_profile() {
+    let dir = demo_copy();
+    // Invented levels: P01's first dosing interval sampled richly, the demo's other levels kept.
+    let levels = std::fs::read_to_string(dir.path().join("levels.csv")).unwrap();
+    let rich =
+        "P01,1.0,20.0\nP01,2.0,18.3\nP01,4.0,15.1\nP01,6.0,12.4\nP01,8.0,10.1\nP01,10.0,8.3\nP01,12.0,6.8\n";
+    let levels =
+        levels.replacen("subject,time_h,conc_mg_l\n", &format!("subject,time_h,conc_mg_l\n{rich}"), 1);
+    std::fs::write(dir.path().join("levels.csv"), levels).unwrap();
+    run(dir.path(), &["report", "p01.toml", "-o", "out.pdf"]);
+    let pdf = std::fs::read(dir.path().join("out.pdf")).expect("the report was written");
+    let pages = page_texts(&pdf);
+    let text = squeeze(&pages.concat());
+    let rows = nca_rows(dir.path(), "P01");
+    assert!(
+        rows[0].starts_with("1 ") && !rows[0].contains('—'),
+        "the first interval has every value: {}",
+        rows[0]
+    );
+    for row in &rows {
+        assert!(text.contains(&squeeze(row)), "NCA row '{row}' not in the report");
+    }
+    // The panel of the first interval: its title, the marked levels and the fitted line.
+    for s in ["P01, dose 1", "levels of the terminal line", "terminal line, slope"] {
+        assert!(text.contains(&squeeze(s)), "'{s}' not in the report");
+    }
+    assert!(!text.contains(&squeeze("No interval has the levels a terminal line needs")));
+    for (i, page) in pages.iter().enumerate() {
+        assert!(squeeze(page).contains("CAUTION"), "page {} has no caution", i + 1);
+    }
 }
