@@ -3,7 +3,7 @@
 //! exact identities of the one-compartment curve, Bailer's variance by hand and by simulation,
 //! and bad input.
 
-use crate::common::{Ran, assert_abs, assert_rel, cistern_at};
+use crate::common::{Ran, assert_abs, assert_published, assert_rel, cistern_at};
 use cistern::Covariates;
 use cistern::dosing::{Dose, Route};
 use cistern::fit::SubjectData;
@@ -160,18 +160,21 @@ fn bourne_homework_1997_p2_trapezoid_pieces_tail_and_auc_to_infinity() {
     let mut args = vec!["--auc-rule", "linear", "--lambda-z-window", "1h..12h"];
     args.extend(pieces);
     let linear = one("0,500,bolus", &levels, &args);
-    // Printed pieces 38.8, 25, 47.6, 12.2 (to 0.05: printed to three figures).
-    for (i, printed) in [38.8, 25.0, 47.6, 12.2].into_iter().enumerate() {
-        assert_abs(partial(&linear, i), printed, 0.05, "trapezoid piece");
+    // The printed pieces, k and AUC0–∞, and the derived log-down areas: the values and
+    // tolerances of `cistern verify`'s catalogue (src/verify.rs; reference-cases.md case 2).
+    for (i, piece) in ["0–1 h", "1–2 h", "2–6 h", "6–12 h"].into_iter().enumerate() {
+        let name = format!("NCA, bolus, linear trapezoid {piece}");
+        assert_published(partial(&linear, i), &name, "trapezoid piece");
     }
-    // Printed k = 0.432 (the line through the four levels), tail 0.6, AUC0–∞ = 124.2.
-    assert_abs(number(&linear, "lambda_z_per_h"), 0.432, 0.0005, "k");
+    assert_published(number(&linear, "lambda_z_per_h"), "NCA, bolus, λz through the levels 1–12 h", "k");
+    // The printed tail, 0.6 (not in the catalogue).
     assert_abs(number(&linear, "auc_inf_obs_mg_h_l") - number(&linear, "auc_last_mg_h_l"), 0.6, 0.05, "tail");
-    assert_abs(number(&linear, "auc_inf_obs_mg_h_l"), 124.2, 0.1, "AUC0–∞, linear");
-    // Derived (reference-cases.md): linear-up/log-down AUC0–12 = 109.73, AUC0–∞ = 110.33.
+    assert_published(number(&linear, "auc_inf_obs_mg_h_l"), "NCA, bolus, AUC0–∞ (linear)", "AUC0–∞, linear");
     let log = one("0,500,bolus", &levels, &["--lambda-z-window", "1h..12h"]);
-    assert_abs(number(&log, "auc_last_mg_h_l"), 109.73, 0.1, "AUC0–12, log-down");
-    assert_abs(number(&log, "auc_inf_obs_mg_h_l"), 110.33, 0.1, "AUC0–∞, log-down");
+    let name = "NCA, bolus, AUC0–12 (linear-up/log-down)";
+    assert_published(number(&log, "auc_last_mg_h_l"), name, "AUC0–12, log-down");
+    let name = "NCA, bolus, AUC0–∞ (linear-up/log-down)";
+    assert_published(number(&log, "auc_inf_obs_mg_h_l"), name, "AUC0–∞, log-down");
 }
 
 #[test]
@@ -179,18 +182,21 @@ fn bourne_homework_1995_p2_slope_and_auc_to_infinity() {
     // 300 mg bolus; printed C0 = 18.6 given as the level at 0 h.
     let levels = [(0.0, "18.6"), (1.0, "15.7"), (2.0, "13.8"), (6.0, "8.3"), (12.0, "3.2")];
     let linear = one("0,300,bolus", &levels, &["--auc-rule", "linear", "--lambda-z-window", "1h..12h"]);
-    // Printed k = 0.144, tail 22.2, AUC0–∞ = 132.8 (linear); derived OLS k = 0.14441.
-    assert_abs(number(&linear, "lambda_z_per_h"), 0.14441, 0.00001, "k");
+    // The catalogue's k, AUC0–∞ (linear) and derived log-down AUC0–∞ (reference-cases.md
+    // case 3), and the printed tail 22.2 (not in the catalogue).
+    let name = "NCA, bolus 300 mg, λz through the levels 1–12 h";
+    assert_published(number(&linear, "lambda_z_per_h"), name, "k");
     assert_abs(
         number(&linear, "auc_inf_obs_mg_h_l") - number(&linear, "auc_last_mg_h_l"),
         22.2,
         0.05,
         "tail",
     );
-    assert_abs(number(&linear, "auc_inf_obs_mg_h_l"), 132.8, 0.1, "AUC0–∞, linear");
-    // Derived: log-down AUC0–∞ = 129.44.
+    let name = "NCA, bolus 300 mg, AUC0–∞ (linear)";
+    assert_published(number(&linear, "auc_inf_obs_mg_h_l"), name, "AUC0–∞, linear");
     let log = one("0,300,bolus", &levels, &["--lambda-z-window", "1h..12h"]);
-    assert_abs(number(&log, "auc_inf_obs_mg_h_l"), 129.44, 0.1, "AUC0–∞, log-down");
+    let name = "NCA, bolus 300 mg, AUC0–∞ (linear-up/log-down)";
+    assert_published(number(&log, "auc_inf_obs_mg_h_l"), name, "AUC0–∞, log-down");
 }
 
 #[test]
@@ -199,15 +205,20 @@ fn bourne_chapter_9_oral_areas_and_terminal_slope() {
     let times = [0.25, 0.5, 0.75, 1.0, 1.5, 2.0, 3.0, 4.0, 5.0, 6.0, 7.0];
     let conc = ["1.91", "2.98", "3.54", "3.80", "3.84", "3.62", "3.04", "2.49", "2.04", "1.67", "1.37"];
     let levels: Vec<(f64, &str)> = times.into_iter().zip(conc).collect();
-    // Derived (reference-cases.md): AUC0–7 linear 18.093, log-down 18.056; λz from the last
-    // four levels 0.19925; AUC0–∞ 24.97 (linear), 24.93 (log-down).
+    // The derived values of reference-cases.md case 6, as `cistern verify`'s catalogue holds them.
     let linear = one("0,100,oral", &levels, &["--auc-rule", "linear", "--lambda-z-window", "4h..7h"]);
-    assert_abs(number(&linear, "auc_last_mg_h_l"), 18.093, 0.001, "AUC0–7, linear");
-    assert_abs(number(&linear, "lambda_z_per_h"), 0.19925, 0.00001, "λz");
-    assert_abs(number(&linear, "auc_inf_obs_mg_h_l"), 24.97, 0.01, "AUC0–∞, linear");
+    assert_published(number(&linear, "auc_last_mg_h_l"), "NCA, oral data, AUC0–7 (linear)", "AUC0–7, linear");
+    assert_published(number(&linear, "lambda_z_per_h"), "NCA, oral data, λz from the last 4 levels", "λz");
+    assert_published(
+        number(&linear, "auc_inf_obs_mg_h_l"),
+        "NCA, oral data, AUC0–∞ (linear)",
+        "AUC0–∞, linear",
+    );
     let log = one("0,100,oral", &levels, &["--lambda-z-window", "4h..7h"]);
-    assert_abs(number(&log, "auc_last_mg_h_l"), 18.056, 0.001, "AUC0–7, log-down");
-    assert_abs(number(&log, "auc_inf_obs_mg_h_l"), 24.93, 0.01, "AUC0–∞, log-down");
+    let name = "NCA, oral data, AUC0–7 (linear-up/log-down)";
+    assert_published(number(&log, "auc_last_mg_h_l"), name, "AUC0–7, log-down");
+    let name = "NCA, oral data, AUC0–∞ (linear-up/log-down)";
+    assert_published(number(&log, "auc_inf_obs_mg_h_l"), name, "AUC0–∞, log-down");
 }
 
 // ---- Exact identities of the one-compartment curve ----
