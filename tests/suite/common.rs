@@ -107,6 +107,11 @@ pub fn entries(dir: &std::path::Path) -> Vec<String> {
     names
 }
 
+/// One 1-g regimen every 12 h as 1-h infusions, with an AUC24 target: the candidate grid and
+/// target of tests that need some regimen, not a particular one.
+pub const ONE_REGIMEN: [&str; 8] =
+    ["--amounts", "1g", "--every", "12h", "--durations", "1h", "--target", "auc24=400..600"];
+
 /// The demo study's files as flags, for a command run in a [`demo_copy`].
 pub const DEMO_STUDY: [&str; 8] = [
     "--model",

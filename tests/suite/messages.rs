@@ -2,7 +2,7 @@
 //! runs the real binary on the input that showed the problem and checks the exit code and the
 //! message (file, line, column or key, the value entered).
 
-use crate::common::{DEMO_STUDY, Ran, cistern_at, demo_copy};
+use crate::common::{DEMO_STUDY, ONE_REGIMEN, Ran, cistern_at, demo_copy};
 use std::path::Path;
 
 /// Run `cistern ARGS` in `dir`.
@@ -321,19 +321,7 @@ fn check_recognises_every_input_kind() {
     };
     fit(&["--format", "json", "--keep-draws", "100", "-o", "fits.json"]);
     fit(&["--format", "csv", "-o", "fits.csv"]);
-    let sweep = [
-        "sweep",
-        "--params",
-        "fits.csv",
-        "--amounts",
-        "1g",
-        "--every",
-        "12h",
-        "--durations",
-        "1h",
-        "--target",
-        "auc24=400..600",
-    ];
+    let sweep = [&["sweep", "--params", "fits.csv"][..], &ONE_REGIMEN].concat();
     let ran = run(dir.path(), &[&sweep[..], &["--shard", "1/2", "-o", "state.json"]].concat());
     assert_eq!(ran.code, 0, "{}", ran.stderr);
     let ran = run(dir.path(), &["check", "fits.json", "fits.csv", "state.json"]);
@@ -655,18 +643,7 @@ fn sweep_params_reads_the_fit_csv_and_names_the_csv_for_its_json() {
         let ran = run(dir.path(), &[&["fit"][..], &study, &["--format", format, "-o", out]].concat());
         assert_eq!(ran.code, 0, "{}", ran.stderr);
     }
-    let sweep = [
-        "--amounts",
-        "1g",
-        "--every",
-        "12h",
-        "--durations",
-        "1h",
-        "--target",
-        "auc24=400..600",
-        "--format",
-        "json",
-    ];
+    let sweep = [&ONE_REGIMEN[..], &["--format", "json"]].concat();
     let ran = run(dir.path(), &[&["sweep", "--params", "fits.csv"][..], &sweep].concat());
     assert_eq!(ran.code, 0, "{}", ran.stderr);
     let v: serde_json::Value = serde_json::from_str(&ran.stdout).unwrap();
@@ -683,22 +660,8 @@ fn the_advisor_key_is_interval_narrowing_pct_not_shrinkage() {
     let args = [
         &["plan"][..],
         &DEMO_STUDY,
-        &[
-            "--subject",
-            "P01",
-            "--draws",
-            "200",
-            "--target",
-            "auc24=400..600",
-            "--amounts",
-            "1g",
-            "--every",
-            "12h",
-            "--durations",
-            "1h",
-            "--format",
-            "json",
-        ],
+        &["--subject", "P01", "--draws", "200", "--format", "json"],
+        &ONE_REGIMEN,
     ]
     .concat();
     let ran = run(dir.path(), &args);

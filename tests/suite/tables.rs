@@ -3,7 +3,7 @@
 //! precision, `fit` summarises a study one line per subject, and the outputs that come with a
 //! fit or a simulation (`--levels-out`, `--svg`) agree exactly with `simulate`.
 
-use crate::common::{DEMO_STUDY, demo_args, demo_copy};
+use crate::common::{DEMO_STUDY, ONE_REGIMEN, demo_args, demo_copy};
 use std::path::Path;
 use std::process::Command;
 
@@ -423,27 +423,13 @@ fn a_piped_simulate_shows_no_progress() {
 /// when it is a terminal (stdout goes to a file here, so what shows is stderr), and none with
 /// `-q`.
 /// The demo sweep of one regimen, without the number of subjects or the output flags.
-const DEMO_SWEEP: [&str; 13] = [
-    "sweep",
-    "--model",
-    "model.toml",
-    "--covariates",
-    "population.csv",
-    "--amounts",
-    "1g",
-    "--every",
-    "12h",
-    "--durations",
-    "1h",
-    "--target",
-    "auc24=400..600",
-];
+const DEMO_SWEEP: [&str; 5] = ["sweep", "--model", "model.toml", "--covariates", "population.csv"];
 
 #[test]
 fn fit_and_sweep_show_progress_on_stderr_and_none_with_quiet() {
     let dir = crate::common::demo_copy();
     let fit = demo_args("fit", &["--draws", "200", "-o", "fit.csv"]);
-    let sweep = [&DEMO_SWEEP[..], &["--subjects", "200000", "-o", "s.csv"]].concat();
+    let sweep = [&DEMO_SWEEP[..], &ONE_REGIMEN, &["--subjects", "200000", "-o", "s.csv"]].concat();
     for (args, what) in [(&fit[..], "subjects fitted"), (&sweep[..], "/200000 subjects")] {
         let Some(shown) = on_a_terminal(dir.path(), args) else {
             eprintln!("skipped: the progress check needs util-linux `script` for a pseudo-terminal");
@@ -462,24 +448,9 @@ fn tables_use_human_labels_with_units_not_keys() {
     let dir = crate::common::demo_copy();
     let plan = demo_args(
         "plan",
-        &[
-            "--subject",
-            "P01",
-            "--draws",
-            "200",
-            "--target",
-            "auc24=400..600",
-            "--amounts",
-            "1g",
-            "--every",
-            "12h",
-            "--durations",
-            "1h",
-            "--format",
-            "table",
-        ],
+        &[&["--subject", "P01", "--draws", "200", "--format", "table"][..], &ONE_REGIMEN].concat(),
     );
-    let sweep = [&DEMO_SWEEP[..], &["--subjects", "200"]].concat();
+    let sweep = [&DEMO_SWEEP[..], &ONE_REGIMEN, &["--subjects", "200"]].concat();
     for args in [&plan, &[&sweep[..], &["--format", "table"]].concat()] {
         let (code, out, err) = run(dir.path(), args, Some("200"));
         assert_eq!(code, 0, "{err}");
