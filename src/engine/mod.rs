@@ -338,11 +338,22 @@ pub(crate) fn concentrations_with<R: Real>(kin: Kinetics<R>, doses: &[Dose], tim
 /// Concentrations at ascending `times` into `out`, for an event list built once and reused
 /// (the fitter evaluates the same history many times).
 pub(crate) fn predict<R: Real>(kin: Kinetics<R>, events: &Events, times: &[f64], out: &mut [R]) {
+    let mut slots = out.iter_mut();
+    predict_each(kin, events, times, |c| {
+        if let Some(slot) = slots.next() {
+            *slot = c;
+        }
+    });
+}
+
+/// The concentration at each of the ascending `times`, handed to `each` in order: an objective
+/// sums its terms as they come, without a vector per evaluation.
+pub(crate) fn predict_each<R: Real>(kin: Kinetics<R>, events: &Events, times: &[f64], mut each: impl FnMut(R)) {
     let start = events.first_time().unwrap_or(f64::INFINITY).min(times.first().copied().unwrap_or(0.0));
     let mut walker = Walker::new(kin, events, start).without_auc();
-    for (t, slot) in times.iter().zip(out) {
+    for t in times {
         walker.run_to(*t);
-        *slot = walker.concentration();
+        each(walker.concentration());
     }
 }
 

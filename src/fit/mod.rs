@@ -408,19 +408,27 @@ fn from_covariance(theta: &[f64], cov: Option<&Mat>, n: usize, z: f64) -> Estima
 }
 
 /// Estimates from weighted posterior draws: mode as value, posterior SD and 2.5–97.5 % quantiles.
+/// Every reported quantity is monotone in ln CL, ln V, ln k = ln CL − ln V or ln ka, so the
+/// draws are sorted once per key and each interval is read off that order.
 fn from_draws(theta: &[f64], draws: &posterior::WeightedDraws, n: usize) -> Estimates {
-    let est = |value: f64, f: &dyn Fn(&[f64; MAX]) -> f64| Estimate {
-        value,
-        se: Some(draws.mean_sd(f).1),
-        ci95: Some([draws.quantile(0.025, f), draws.quantile(0.975, f)]),
+    let est = |value: f64, order: &[usize], rising: bool, f: &dyn Fn(&[f64; MAX]) -> f64| {
+        let quantile = |p| {
+            if rising {
+                draws.quantile_along(order.iter().copied(), p, f)
+            } else {
+                draws.quantile_along(order.iter().rev().copied(), p, f)
+            }
+        };
+        Estimate { value, se: Some(draws.mean_sd(f).1), ci95: Some([quantile(0.025), quantile(0.975)]) }
     };
     let ln2 = std::f64::consts::LN_2;
+    let by_k = draws.order_by(|t| t[0] - t[1]);
     Estimates {
-        cl_l_h: est(theta[0].exp(), &|t| t[0].exp()),
-        v_l: est(theta[1].exp(), &|t| t[1].exp()),
-        k_per_h: est((theta[0] - theta[1]).exp(), &|t| (t[0] - t[1]).exp()),
-        half_life_h: est(ln2 / (theta[0] - theta[1]).exp(), &|t| ln2 / (t[0] - t[1]).exp()),
-        ka_per_h: (n == 3).then(|| est(theta[2].exp(), &|t| t[2].exp())),
+        cl_l_h: est(theta[0].exp(), &draws.order_by(|t| t[0]), true, &|t| t[0].exp()),
+        v_l: est(theta[1].exp(), &draws.order_by(|t| t[1]), true, &|t| t[1].exp()),
+        k_per_h: est((theta[0] - theta[1]).exp(), &by_k, true, &|t| (t[0] - t[1]).exp()),
+        half_life_h: est(ln2 / (theta[0] - theta[1]).exp(), &by_k, false, &|t| ln2 / (t[0] - t[1]).exp()),
+        ka_per_h: (n == 3).then(|| est(theta[2].exp(), &draws.order_by(|t| t[2]), true, &|t| t[2].exp())),
     }
 }
 

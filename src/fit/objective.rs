@@ -16,7 +16,7 @@ use super::linalg::{MAX, Mat};
 use crate::choice::choice_enum;
 use crate::dosing::Dose;
 use crate::engine::scalar::{Dual, Real};
-use crate::engine::{Events, Kinetics, predict};
+use crate::engine::{Events, Kinetics, predict, predict_each};
 use crate::io::levels::Level;
 use crate::model::Residual;
 use std::f64::consts::{PI, SQRT_2};
@@ -185,9 +185,10 @@ impl Problem {
 
     /// The objective at θ, in any number type.
     pub(crate) fn value<R: Real>(&self, theta: &[R]) -> R {
-        let f = self.predictions(theta);
         let mut total = R::cst(0.0);
-        for (level, fi) in self.levels.iter().zip(f) {
+        let mut levels = self.levels.iter();
+        predict_each(self.kinetics(theta), &self.events, &self.times, |fi| {
+            let Some(level) = levels.next() else { return };
             total += match &self.likelihood {
                 Likelihood::Bayes(res) => {
                     let var = R::cst(res.additive_mg_l.powi(2)) + fi * fi * res.proportional_cv.powi(2);
@@ -199,7 +200,7 @@ impl Problem {
                     r * r * weight(*w, y)
                 }
             };
-        }
+        });
         if let Some(prior) = &self.prior {
             for i in 0..self.n {
                 for j in 0..self.n {
@@ -223,11 +224,11 @@ impl Problem {
         // Carry only as many derivatives as there are parameters: a third of the work less for
         // intravenous fits.
         if self.n == 2 {
-            let duals: Vec<Dual<2>> = (0..2).map(|i| Dual::var(theta[i], i)).collect();
+            let duals: [Dual<2>; 2] = std::array::from_fn(|i| Dual::var(theta[i], i));
             let v = self.value(&duals);
             (v.v, [v.d[0], v.d[1], 0.0])
         } else {
-            let duals: Vec<D3> = (0..self.n).map(|i| D3::var(theta[i], i)).collect();
+            let duals: [D3; MAX] = std::array::from_fn(|i| D3::var(theta[i], i));
             let v = self.value(&duals);
             (v.v, v.d)
         }

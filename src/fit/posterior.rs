@@ -29,12 +29,25 @@ pub struct WeightedDraws {
 }
 
 impl WeightedDraws {
-    /// Weighted quantile `p` of a function of θ ([`crate::stats::weighted_quantile`]).
-    pub fn quantile(&self, p: f64, f: impl Fn(&[f64; MAX]) -> f64) -> f64 {
-        let mut pairs: Vec<(f64, f64)> =
-            self.theta.iter().zip(&self.weights).map(|(t, w)| (f(t), *w)).collect();
-        pairs.sort_by(|a, b| a.0.total_cmp(&b.0));
-        crate::stats::weighted_quantile(pairs, p)
+    /// The draws' indices in ascending order of `key(θ)`: sorted once, this order serves every
+    /// quantile of every function that rises with the key (read it backwards for one that
+    /// falls), instead of a sort per quantile.
+    pub fn order_by(&self, key: impl Fn(&[f64; MAX]) -> f64) -> Vec<usize> {
+        let keys: Vec<f64> = self.theta.iter().map(key).collect();
+        let mut order: Vec<usize> = (0..keys.len()).collect();
+        order.sort_by(|&a, &b| keys[a].total_cmp(&keys[b]));
+        order
+    }
+
+    /// Weighted quantile `p` ([`crate::stats::weighted_quantile`]) of a function `f` of θ whose
+    /// values rise along `order` (from [`WeightedDraws::order_by`], reversed for a falling `f`).
+    pub fn quantile_along(
+        &self,
+        order: impl IntoIterator<Item = usize>,
+        p: f64,
+        f: impl Fn(&[f64; MAX]) -> f64,
+    ) -> f64 {
+        crate::stats::weighted_quantile(order.into_iter().map(|i| (f(&self.theta[i]), self.weights[i])), p)
     }
 
     /// Weighted mean and standard deviation of a function of θ.
@@ -76,12 +89,15 @@ impl Proposal {
 
     /// ln q(θ) up to a constant shared by all draws of this proposal.
     fn ln_density(&self, theta: &[f64; MAX], n: usize) -> f64 {
-        let d: Vec<f64> = (0..n).map(|i| theta[i] - self.mean[i]).collect();
+        let d: [f64; MAX] = std::array::from_fn(|i| theta[i] - self.mean[i]);
         -0.5 * (NU + n as f64) * (quad_form(&self.precision, n, &d) / NU).ln_1p()
     }
 
     fn draw(&self, n: usize, rng: &mut StdRng, normal: &Normal, chi: &ChiSquared) -> [f64; MAX] {
-        let z: Vec<f64> = (0..n).map(|_| normal.sample(rng)).collect();
+        let mut z = [0.0; MAX];
+        for zi in z.iter_mut().take(n) {
+            *zi = normal.sample(rng);
+        }
         let scale = (NU / chi.sample(rng)).sqrt();
         let mut theta = self.mean;
         for i in 0..n {
