@@ -15,8 +15,10 @@ use std::time::Duration;
 /// The doses and levels files of `n` sparse subjects (invented benchmark data: 4–20 one-hour
 /// infusions and 2–4 levels each, as in `benches/fit.rs`), and `n / 10` with doses only.
 fn write_study(dir: &Path, n: usize) -> (String, String) {
-    let (mut doses, mut levels) =
-        (String::from("subject,time_h,amount_mg,route,duration_h\n"), String::from("subject,time_h,conc_mg_l\n"));
+    let (mut doses, mut levels) = (
+        String::from("subject,time_h,amount_mg,route,duration_h\n"),
+        String::from("subject,time_h,conc_mg_l\n"),
+    );
     for i in 0..n {
         let n_doses = 4 + i % 17;
         let mut last = 0.0;
@@ -49,7 +51,8 @@ fn benches(c: &mut Criterion) {
         g.throughput(Throughput::Elements(n as u64));
         g.bench_function(format!("study_{n}_subjects"), |b| {
             b.iter(|| {
-                let study = Study::load(&spec.inputs, Required { model: false, levels: true }).expect("study");
+                let study =
+                    Study::load(&spec.inputs, Required { model: false, levels: true }).expect("study");
                 black_box(study.subjects.len())
             })
         });

@@ -102,32 +102,41 @@ pub struct Rates<R> {
     pub ka: R,
 }
 
-/// e^(−x), φ1(x) and φ2(x) together, with one exponential.
-fn decay<R: Real>(x: R) -> (R, R, R) {
-    let e = (-x).exp();
+/// φ1(x) given e = e^(−x): the exponential is computed once per step and shared.
+fn phi1_from<R: Real>(x: R, e: R) -> R {
     if x.val().abs() < SERIES_BELOW {
-        (e, phi1(x), phi2(x))
+        phi1(x)
     } else {
         // 1 − e^(−x) ≥ 0.095 here, so the subtraction loses at most a digit.
-        let p1 = (R::cst(1.0) - e) / x;
-        (e, p1, (R::cst(1.0) - p1) / x)
+        (R::cst(1.0) - e) / x
     }
+}
+
+/// φ2(x) given φ1(x).
+fn phi2_from<R: Real>(x: R, p1: R) -> R {
+    if x.val().abs() < SERIES_BELOW { phi2(x) } else { (R::cst(1.0) - p1) / x }
 }
 
 /// Advance `state` by `t` hours under constant infusion rate `rate` (mg/h).
 /// Returns the new state and, when `integrate` is set, ∫A over the interval (mg·h).
+///
+/// φ1 and φ2 are computed only when used: predictions without an infusion running need the
+/// exponential alone (the fitter's objective evaluates mostly such steps).
 pub fn step<R: Real>(state: State<R>, rates: Rates<R>, rate: f64, t: f64, integrate: bool) -> (State<R>, R) {
     let kt = rates.k * t;
-    let (e, p1, p2) = decay(kt);
+    let e = (-kt).exp();
     let mut central = state.central * e;
     let mut integral = R::cst(0.0);
-    if integrate {
-        integral = state.central * p1 * t;
-    }
-    if rate != 0.0 {
-        central += p1 * (rate * t);
+    if integrate || rate != 0.0 {
+        let p1 = phi1_from(kt, e);
         if integrate {
-            integral += p2 * (rate * t * t);
+            integral = state.central * p1 * t;
+        }
+        if rate != 0.0 {
+            central += p1 * (rate * t);
+            if integrate {
+                integral += phi2_from(kt, p1) * (rate * t * t);
+            }
         }
     }
     let mut depot = state.depot;

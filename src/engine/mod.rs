@@ -348,7 +348,12 @@ pub(crate) fn predict<R: Real>(kin: Kinetics<R>, events: &Events, times: &[f64],
 
 /// The concentration at each of the ascending `times`, handed to `each` in order: an objective
 /// sums its terms as they come, without a vector per evaluation.
-pub(crate) fn predict_each<R: Real>(kin: Kinetics<R>, events: &Events, times: &[f64], mut each: impl FnMut(R)) {
+pub(crate) fn predict_each<R: Real>(
+    kin: Kinetics<R>,
+    events: &Events,
+    times: &[f64],
+    mut each: impl FnMut(R),
+) {
     let start = events.first_time().unwrap_or(f64::INFINITY).min(times.first().copied().unwrap_or(0.0));
     let mut walker = Walker::new(kin, events, start).without_auc();
     for t in times {

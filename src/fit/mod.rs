@@ -412,14 +412,19 @@ fn from_covariance(theta: &[f64], cov: Option<&Mat>, n: usize, z: f64) -> Estima
 /// draws are sorted once per key and each interval is read off that order.
 fn from_draws(theta: &[f64], draws: &posterior::WeightedDraws, n: usize) -> Estimates {
     let est = |value: f64, order: &[usize], rising: bool, f: &dyn Fn(&[f64; MAX]) -> f64| {
+        let values: Vec<f64> = draws.theta.iter().map(f).collect();
         let quantile = |p| {
             if rising {
-                draws.quantile_along(order.iter().copied(), p, f)
+                draws.quantile_along(order.iter().copied(), p, &values)
             } else {
-                draws.quantile_along(order.iter().rev().copied(), p, f)
+                draws.quantile_along(order.iter().rev().copied(), p, &values)
             }
         };
-        Estimate { value, se: Some(draws.mean_sd(f).1), ci95: Some([quantile(0.025), quantile(0.975)]) }
+        Estimate {
+            value,
+            se: Some(draws.mean_sd_of(&values).1),
+            ci95: Some([quantile(0.025), quantile(0.975)]),
+        }
     };
     let ln2 = std::f64::consts::LN_2;
     let by_k = draws.order_by(|t| t[0] - t[1]);

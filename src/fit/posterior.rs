@@ -33,26 +33,27 @@ impl WeightedDraws {
     /// quantile of every function that rises with the key (read it backwards for one that
     /// falls), instead of a sort per quantile.
     pub fn order_by(&self, key: impl Fn(&[f64; MAX]) -> f64) -> Vec<usize> {
-        let keys: Vec<f64> = self.theta.iter().map(key).collect();
-        let mut order: Vec<usize> = (0..keys.len()).collect();
-        order.sort_by(|&a, &b| keys[a].total_cmp(&keys[b]));
-        order
+        let mut keyed: Vec<(f64, usize)> = self.theta.iter().map(key).zip(0..).collect();
+        // Ties keep the draws' order, as a stable sort would, but the unstable sort of the
+        // pairs themselves is faster than a stable sort of indices.
+        keyed.sort_unstable_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+        keyed.into_iter().map(|(_, i)| i).collect()
     }
 
-    /// Weighted quantile `p` ([`crate::stats::weighted_quantile`]) of a function `f` of θ whose
-    /// values rise along `order` (from [`WeightedDraws::order_by`], reversed for a falling `f`).
-    pub fn quantile_along(
-        &self,
-        order: impl IntoIterator<Item = usize>,
-        p: f64,
-        f: impl Fn(&[f64; MAX]) -> f64,
-    ) -> f64 {
-        crate::stats::weighted_quantile(order.into_iter().map(|i| (f(&self.theta[i]), self.weights[i])), p)
+    /// Weighted quantile `p` ([`crate::stats::weighted_quantile`]) of `values` (one per draw)
+    /// that rise along `order` (from [`WeightedDraws::order_by`], reversed for falling values).
+    pub fn quantile_along(&self, order: impl IntoIterator<Item = usize>, p: f64, values: &[f64]) -> f64 {
+        crate::stats::weighted_quantile(order.into_iter().map(|i| (values[i], self.weights[i])), p)
     }
 
     /// Weighted mean and standard deviation of a function of θ.
     pub fn mean_sd(&self, f: impl Fn(&[f64; MAX]) -> f64) -> (f64, f64) {
         let values: Vec<f64> = self.theta.iter().map(&f).collect();
+        self.mean_sd_of(&values)
+    }
+
+    /// Weighted mean and standard deviation of `values` (one per draw).
+    pub fn mean_sd_of(&self, values: &[f64]) -> (f64, f64) {
         let mean: f64 = values.iter().zip(&self.weights).map(|(x, w)| x * w).sum();
         let var: f64 = values.iter().zip(&self.weights).map(|(x, w)| w * (x - mean).powi(2)).sum();
         (mean, var.sqrt())
