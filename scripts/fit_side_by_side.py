@@ -66,9 +66,9 @@ def write_files(subs, directory):
         lv.write("subject,time_h,conc_mg_l\n")
         for i, (t, amt, lt, ly) in enumerate(subs):
             for a, b in zip(t, amt):
-                d.write(f"S{i},{a!r},{b!r},infusion,1\n")
+                d.write(f"S{i},{float(a)!r},{float(b)!r},infusion,1\n")
             for a, b in zip(lt, ly):
-                lv.write(f"S{i},{a!r},{b!r}\n")
+                lv.write(f"S{i},{float(a)!r},{float(b)!r}\n")
     return doses, levels
 
 
