@@ -40,7 +40,8 @@ pub struct PopulationArgs {
     #[arg(long, value_parser = choice::<Method>(), default_value = "quadrature")]
     method: Method,
     /// Gauss–Hermite nodes per random effect (quadrature), 1 to 40 [default: chosen per
-    /// subject from 7, 10, 14, 20, 28, 40 until successive rules agree within 1e-7 in -2LL]
+    /// subject at the estimate from 7, 10, 14, 20, 28, 40: the smaller of the first two
+    /// successive rules that agree within 1e-7 in -2LL]
     #[arg(long, value_parser = clap::value_parser!(u32).range(1..=MAX_NODES as i64))]
     nodes: Option<u32>,
     /// Evaluate the objective and the individual estimates at the model's values, without estimating

@@ -48,9 +48,14 @@ choice_enum! {
 
 /// With the nodes chosen automatically, each subject's rule climbs this ladder of sizes (nodes
 /// per random effect) until two successive rules agree on its −2 ln Lᵢ within
-/// [`NODE_TOLERANCE`]; the larger is used. The error of GH rules falls geometrically with their
-/// size, so the difference bounds the smaller rule's error and the larger's is far below it.
+/// [`NODE_TOLERANCE`]; the smaller of the two is used. The error of GH rules falls
+/// geometrically with their size (on the theophylline data by a factor of 10 to 100 a rung), so
+/// the larger rule is nearly exact and the difference is the smaller rule's error.
 pub const NODE_LADDER: [usize; 6] = [7, 10, 14, 20, 28, 40];
+/// Rounds of choosing the rules at the current estimate and estimating again with them, after
+/// the first estimate with the ladder's first rule. A subject's rule only grows, so the rounds
+/// end once no rule needs to.
+const NODE_ROUNDS: usize = 4;
 /// The agreement asked of successive rules, in −2 ln Lᵢ.
 pub const NODE_TOLERANCE: f64 = 1e-7;
 
@@ -158,9 +163,10 @@ impl<'a> Run<'a> {
         Population::new(self.space.n, &values.omega, values.residual, self.absorption(&values.model))
     }
 
-    /// Choose each subject's rule at φ (see [`NODE_LADDER`]); returns the largest difference
-    /// between the last two rules of any subject, an estimate of the quadrature's error.
-    fn choose_nodes(&mut self, phi: &[f64]) -> Result<f64, String> {
+    /// Choose each subject's rule at φ (see [`NODE_LADDER`]), never smaller than its rule now;
+    /// returns whether any rule grew, and the largest difference between the last two rules of
+    /// any subject, an estimate of the chosen rules' error.
+    fn choose_nodes(&mut self, phi: &[f64]) -> Result<(bool, f64), String> {
         let values = self.space.values(phi);
         let population = self
             .population(&values)
@@ -179,19 +185,23 @@ impl<'a> Run<'a> {
                 };
                 let (mut last, mode) = value(NODE_LADDER[0], None);
                 let mut difference = f64::INFINITY;
-                for &n in &NODE_LADDER[1..] {
-                    let next = value(n, Some(&mode)).0;
+                for pair in NODE_LADDER.windows(2) {
+                    let next = value(pair[1], Some(&mode)).0;
                     difference = (next - last).abs();
                     last = next;
                     if difference <= NODE_TOLERANCE || difference.is_nan() {
-                        return (n, difference);
+                        return (pair[0], difference);
                     }
                 }
                 (quadrature::MAX_NODES, if difference.is_finite() { difference } else { 0.0 })
             })
             .collect();
-        self.nodes = chosen.iter().map(|c| c.0).collect();
-        Ok(chosen.iter().fold(0.0, |m, c| m.max(c.1)))
+        let mut grew = false;
+        for (now, (n, _)) in self.nodes.iter_mut().zip(&chosen) {
+            grew |= *n > *now;
+            *now = (*now).max(*n);
+        }
+        Ok((grew, chosen.iter().fold(0.0, |m, c| m.max(c.1))))
     }
 
     fn absorption(&self, model: &PopulationModel) -> (Option<f64>, f64, f64) {
@@ -490,18 +500,31 @@ pub fn estimate(
     }
     let (space, mut notes) = Space::new(model, oral);
     let mut run = Run::new(&space, subjects, options);
+    let mut found = run.estimate(&space.start(), options.evaluate).map_err(Error::Usage)?;
+    // Nodes chosen automatically: the first estimate used the ladder's first rule; choose the
+    // rules where the estimate is (the posteriors there, not at the start model, decide the
+    // accuracy of the objective reported) and estimate again from there until no rule grows.
     let mut accuracy = None;
     if options.method == Method::Quadrature && options.nodes.is_none() {
-        accuracy = Some(run.choose_nodes(&space.start()).map_err(Error::Usage)?);
+        for _ in 0..NODE_ROUNDS {
+            let (grew, difference) = run.choose_nodes(&found.phi).map_err(Error::Usage)?;
+            accuracy = Some(difference);
+            if !grew {
+                break;
+            }
+            let previous = found.convergence.clone();
+            found = run.estimate(&found.phi, options.evaluate).map_err(Error::Usage)?;
+            found.convergence.adaptations += previous.adaptations;
+            found.convergence.iterations += previous.iterations;
+        }
         let (lo, hi) =
             (run.nodes.iter().min().copied().unwrap_or(0), run.nodes.iter().max().copied().unwrap_or(0));
         notes.push(format!(
-            "Gauss–Hermite nodes per random effect chosen per subject: {lo} to {hi} (successive rules agree within {})",
+            "Gauss–Hermite nodes per random effect chosen per subject at the estimate: {lo} to {hi} (successive rules agree within {})",
             accuracy.map_or(String::new(), |a| format!("{a:.1e}"))
         ));
     }
-    let Found { phi, adapted, minus2ll, convergence, converged } =
-        run.estimate(&space.start(), options.evaluate).map_err(Error::Usage)?;
+    let Found { phi, adapted, minus2ll, convergence, converged } = found;
     let values = space.values(&phi);
     let modes = subjects
         .iter()
