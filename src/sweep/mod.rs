@@ -17,11 +17,12 @@ pub mod summary;
 
 use crate::dosing::{Dose, Regimen};
 use crate::engine::Params;
+use crate::engine::steady::{Exposure, unit_exposure};
 use crate::error::Error;
 use crate::io::digest::Digesting;
 use crate::io::output::{CsvWriter, io_failure};
 use crate::plan::targets::{Limits, Target};
-use crate::plan::{Course, evaluate, last_day_end};
+use crate::plan::{Course, judge, last_day_end};
 use population::{Population, Subject};
 use rayon::prelude::*;
 use state::{RowsWritten, Setup, Shard, SweepState, Tally};
@@ -49,6 +50,40 @@ pub(crate) struct Outcome {
     meets: bool,
     over_peak: bool,
     over_trough: bool,
+}
+
+/// The candidates by dosing shape (route, interval, infusion duration). Linear kinetics make
+/// the exposure to any amount of one shape that shape's exposure to 1 mg times the amount, so
+/// each subject evaluates the closed forms once per shape, not once per candidate.
+#[derive(Debug, Clone)]
+struct Shapes {
+    /// The first candidate of each shape, in grid order.
+    first: Vec<(usize, Regimen)>,
+    /// Each candidate's shape (an index into `first`).
+    of: Vec<usize>,
+}
+
+impl Shapes {
+    /// Group `candidates`, refusing an invalid one (its amount is checked here, its shape for
+    /// each subject).
+    fn new(candidates: &[Regimen]) -> Result<Shapes, Error> {
+        let same = |a: &Regimen, b: &Regimen| {
+            a.route == b.route && a.every_h == b.every_h && a.duration_h == b.duration_h
+        };
+        let mut first: Vec<(usize, Regimen)> = Vec::new();
+        let mut of = Vec::with_capacity(candidates.len());
+        for (k, c) in candidates.iter().enumerate() {
+            c.validate().map_err(|inv| Error::Usage(format!("regimen {}: {inv}", k + 1)))?;
+            of.push(match first.iter().position(|(_, f)| same(f, c)) {
+                Some(i) => i,
+                None => {
+                    first.push((k, *c));
+                    first.len() - 1
+                }
+            });
+        }
+        Ok(Shapes { first, of })
+    }
 }
 
 /// What to sweep.
@@ -79,13 +114,15 @@ impl Sweep<'_> {
     fn subjects(
         &self,
         span: Range<u64>,
+        shapes: &Shapes,
         doses: &[Option<Vec<Dose>>],
         rows: bool,
     ) -> Result<(Vec<Outcome>, Vec<u8>), Error> {
         let mut outcomes = Vec::with_capacity((span.end - span.start) as usize * self.candidates.len());
+        let mut unit = Vec::with_capacity(shapes.first.len());
         let mut csv = rows.then(|| CsvWriter::new(Vec::new()));
         for index in span {
-            self.subject(index, doses, &mut outcomes, csv.as_mut())?;
+            self.subject(index, shapes, doses, &mut unit, &mut outcomes, csv.as_mut())?;
         }
         let bytes = match csv {
             Some(w) => w.finish().map_err(io_failure)?,
@@ -94,27 +131,36 @@ impl Sweep<'_> {
         Ok((outcomes, bytes))
     }
 
-    /// Evaluate every candidate for subject `index` into `outcomes`; with `rows`, also write
-    /// its per-subject rows.
+    /// Evaluate every candidate for subject `index` into `outcomes` (`unit` is scratch for the
+    /// exposure to 1 mg of each shape); with `rows`, also write its per-subject rows.
     fn subject(
         &self,
         index: u64,
+        shapes: &Shapes,
         doses: &[Option<Vec<Dose>>],
+        unit: &mut Vec<Exposure>,
         outcomes: &mut Vec<Outcome>,
         mut rows: Option<&mut CsvWriter<Vec<u8>>>,
     ) -> Result<(), Error> {
         let Subject { params, origin } = self.population.subject(self.seed, index).map_err(Error::Usage)?;
-        for (k, (c, d)) in self.candidates.iter().zip(doses).enumerate() {
-            let e = evaluate(&params, c, self.targets, self.limits, &Course::fresh(), d.as_deref())
-                .map_err(|inv| Error::Usage(format!("subject {}, regimen {}: {inv}", index + 1, k + 1)))?;
-            let s = e.steady;
+        let refused =
+            |k: usize, inv| Error::Usage(format!("subject {}, regimen {}: {inv}", index + 1, k + 1));
+        unit.clear();
+        for (k, c) in &shapes.first {
+            unit.push(unit_exposure(&params, c).map_err(|inv| refused(*k, inv))?);
+        }
+        for (k, ((c, d), &shape)) in self.candidates.iter().zip(doses).zip(&shapes.of).enumerate() {
+            let steady = unit[shape].scaled(c.amount_mg);
+            let verdict =
+                judge(&params, c, &steady, self.targets, self.limits, &Course::fresh(), d.as_deref(), &mut |_| {})
+                    .map_err(|inv| refused(k, inv))?;
             let o = Outcome {
-                trough_mg_l: s.trough_mg_l,
-                peak_mg_l: s.peak_mg_l,
-                auc24_mg_h_l: s.auc24_mg_h_l,
-                meets: e.meets,
-                over_peak: e.over_peak,
-                over_trough: e.over_trough,
+                trough_mg_l: steady.trough_mg_l,
+                peak_mg_l: steady.peak_mg_l,
+                auc24_mg_h_l: steady.auc24_mg_h_l,
+                meets: verdict.meets,
+                over_peak: verdict.over_peak,
+                over_trough: verdict.over_trough,
             };
             if ![o.trough_mg_l, o.peak_mg_l, o.auc24_mg_h_l].iter().all(|x| x.is_finite() && *x >= 0.0) {
                 return Err(Error::Failure(format!(
@@ -166,7 +212,7 @@ impl Sweep<'_> {
     /// refuses (an oral regimen without absorption in the model, say) is reported before any
     /// work is done.
     pub fn check(&self) -> Result<(), Error> {
-        self.subjects(0..1, &self.course_doses(), false).map(|_| ())
+        self.subjects(0..1, &Shapes::new(self.candidates)?, &self.course_doses(), false).map(|_| ())
     }
 
     /// Sweep `shard` of the sweep `setup` (whose subjects are this population's) into its
@@ -202,6 +248,7 @@ impl Sweep<'_> {
         progress: &mut dyn FnMut(u64),
     ) -> Result<Vec<Tally>, Error> {
         let doses = self.course_doses();
+        let shapes = Shapes::new(self.candidates)?;
         let regimens = self.candidates.len();
         let mut tallies = vec![Tally::new(self.limits); regimens];
         if let Some(out) = per_subject.as_mut() {
@@ -219,7 +266,7 @@ impl Sweep<'_> {
                 .into_par_iter()
                 .map(|j| {
                     let first = start + j * per_task;
-                    self.subjects(first..end.min(first + per_task), &doses, rows)
+                    self.subjects(first..end.min(first + per_task), &shapes, &doses, rows)
                 })
                 .collect();
             // The first failure in subject order, so the message does not depend on threads.
