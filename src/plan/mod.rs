@@ -98,7 +98,7 @@ pub fn evaluate(
     let steady = steady::exposure(params, candidate)?;
     let mut values = Vec::with_capacity(targets.len());
     let verdict =
-        judge(params, candidate, &steady, targets, limits, course, course_doses, &mut |v| values.push(v))?;
+        judge(params, candidate, &steady, targets, limits, course, course_doses, |v| values.push(v))?;
     Ok(Evaluation {
         steady,
         values,
@@ -132,7 +132,7 @@ pub(crate) fn judge(
     limits: &Limits,
     course: &Course,
     course_doses: Option<&[Dose]>,
-    value: &mut dyn FnMut(f64),
+    mut value: impl FnMut(f64),
 ) -> Result<Verdict, InputError> {
     let mut curve = None;
     let mut meets = true;

@@ -152,7 +152,7 @@ impl Sweep<'_> {
         for (k, ((c, d), &shape)) in self.candidates.iter().zip(doses).zip(&shapes.of).enumerate() {
             let steady = unit[shape].scaled(c.amount_mg);
             let verdict =
-                judge(&params, c, &steady, self.targets, self.limits, &Course::fresh(), d.as_deref(), &mut |_| {})
+                judge(&params, c, &steady, self.targets, self.limits, &Course::fresh(), d.as_deref(), |_| {})
                     .map_err(|inv| refused(k, inv))?;
             let o = Outcome {
                 trough_mg_l: steady.trough_mg_l,
