@@ -123,6 +123,7 @@ pub(crate) struct Verdict {
 /// and limits, handing each target's value to `value` in target order. Nothing is allocated
 /// unless a target needs more than the exposure: the periodic curve for a time above a
 /// threshold, the dose history for an AUC over a day.
+#[inline]
 #[allow(clippy::too_many_arguments)] // the evaluation's inputs, passed through unchanged
 pub(crate) fn judge(
     params: &Params,

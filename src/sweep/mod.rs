@@ -22,8 +22,9 @@ use crate::error::Error;
 use crate::io::digest::Digesting;
 use crate::io::output::{CsvWriter, io_failure};
 use crate::plan::targets::{Limits, Target};
-use crate::plan::{Course, judge, last_day_end};
+use crate::plan::{Course, Verdict, judge, last_day_end};
 use population::{Population, Subject};
+use sketch::Slot;
 use rayon::prelude::*;
 use state::{RowsWritten, Setup, Shard, SweepState, Tally};
 use std::io::Write;
@@ -41,15 +42,12 @@ const TASKS_PER_CHUNK: u64 = 64;
 pub const PER_SUBJECT_HEADER: &str = "subject,origin,regimen,cl_l_h,v_l,ka_per_h,trough_mg_l,peak_mg_l,\
 auc24_mg_h_l,meets,over_peak,over_trough";
 
-/// One subject's exposure under one regimen.
+/// One subject's exposure under one regimen, as the tallies count it.
 #[derive(Debug, Clone, Copy)]
 pub(crate) struct Outcome {
-    trough_mg_l: f64,
-    peak_mg_l: f64,
-    auc24_mg_h_l: f64,
-    meets: bool,
-    over_peak: bool,
-    over_trough: bool,
+    /// The sketch slots of the trough, peak and AUC24.
+    slots: [Slot; 3],
+    verdict: Verdict,
 }
 
 /// The candidates by dosing shape (route, interval, infusion duration). Linear kinetics make
@@ -61,6 +59,9 @@ struct Shapes {
     first: Vec<(usize, Regimen)>,
     /// Each candidate's shape (an index into `first`).
     of: Vec<usize>,
+    /// ln of each candidate's amount: the logarithm of an exposure is ln amount + ln(the
+    /// exposure to 1 mg), so the sketch needs no logarithm per value.
+    ln_amount: Vec<f64>,
 }
 
 impl Shapes {
@@ -82,7 +83,7 @@ impl Shapes {
                 }
             });
         }
-        Ok(Shapes { first, of })
+        Ok(Shapes { first, of, ln_amount: candidates.iter().map(|c| c.amount_mg.ln()).collect() })
     }
 }
 
@@ -132,13 +133,14 @@ impl Sweep<'_> {
     }
 
     /// Evaluate every candidate for subject `index` into `outcomes` (`unit` is scratch for the
-    /// exposure to 1 mg of each shape); with `rows`, also write its per-subject rows.
+    /// exposure to 1 mg of each shape, with the logarithms of its trough, peak and AUC24); with
+    /// `rows`, also write its per-subject rows.
     fn subject(
         &self,
         index: u64,
         shapes: &Shapes,
         doses: &[Option<Vec<Dose>>],
-        unit: &mut Vec<Exposure>,
+        unit: &mut Vec<(Exposure, [f64; 3])>,
         outcomes: &mut Vec<Outcome>,
         mut rows: Option<&mut CsvWriter<Vec<u8>>>,
     ) -> Result<(), Error> {
@@ -147,22 +149,18 @@ impl Sweep<'_> {
             |k: usize, inv| Error::Usage(format!("subject {}, regimen {}: {inv}", index + 1, k + 1));
         unit.clear();
         for (k, c) in &shapes.first {
-            unit.push(unit_exposure(&params, c).map_err(|inv| refused(*k, inv))?);
+            let u = unit_exposure(&params, c).map_err(|inv| refused(*k, inv))?;
+            unit.push((u, [u.trough_mg_l.ln(), u.peak_mg_l.ln(), u.auc24_mg_h_l.ln()]));
         }
-        for (k, ((c, d), &shape)) in self.candidates.iter().zip(doses).zip(&shapes.of).enumerate() {
-            let steady = unit[shape].scaled(c.amount_mg);
+        let each = self.candidates.iter().zip(doses).zip(&shapes.of).zip(&shapes.ln_amount);
+        for (k, (((c, d), &shape), ln_amount)) in each.enumerate() {
+            let (u, ln_u) = &unit[shape];
+            let steady = u.scaled(c.amount_mg);
             let verdict =
                 judge(&params, c, &steady, self.targets, self.limits, &Course::fresh(), d.as_deref(), |_| {})
                     .map_err(|inv| refused(k, inv))?;
-            let o = Outcome {
-                trough_mg_l: steady.trough_mg_l,
-                peak_mg_l: steady.peak_mg_l,
-                auc24_mg_h_l: steady.auc24_mg_h_l,
-                meets: verdict.meets,
-                over_peak: verdict.over_peak,
-                over_trough: verdict.over_trough,
-            };
-            if ![o.trough_mg_l, o.peak_mg_l, o.auc24_mg_h_l].iter().all(|x| x.is_finite() && *x >= 0.0) {
+            let values = [steady.trough_mg_l, steady.peak_mg_l, steady.auc24_mg_h_l];
+            if !values.iter().all(|x| x.is_finite() && *x >= 0.0) {
                 return Err(Error::Failure(format!(
                     "subject {}, regimen {}: the exposure is not a finite number ({params:?})",
                     index + 1,
@@ -170,9 +168,9 @@ impl Sweep<'_> {
                 )));
             }
             if let Some(w) = rows.as_mut() {
-                self.write_row(w, index, origin, k, &params, &o).map_err(io_failure)?;
+                self.write_row(w, index, origin, k, &params, &steady, &verdict).map_err(io_failure)?;
             }
-            outcomes.push(o);
+            outcomes.push(Outcome { slots: ln_u.map(|l| Slot::of_ln(l + ln_amount)), verdict });
         }
         Ok(())
     }
@@ -185,7 +183,8 @@ impl Sweep<'_> {
         origin: Option<&str>,
         k: usize,
         params: &Params,
-        o: &Outcome,
+        steady: &Exposure,
+        verdict: &Verdict,
     ) -> std::io::Result<()> {
         let yes_no = |on: bool| if on { "true" } else { "false" };
         // Empty without the limit.
@@ -199,12 +198,12 @@ impl Sweep<'_> {
             Some(ka) => w.number(ka)?,
             None => w.text("")?,
         }
-        w.number(o.trough_mg_l)?;
-        w.number(o.peak_mg_l)?;
-        w.number(o.auc24_mg_h_l)?;
-        w.text(yes_no(o.meets))?;
-        w.text(over(self.limits.max_peak_mg_l, o.over_peak))?;
-        w.text(over(self.limits.max_trough_mg_l, o.over_trough))?;
+        w.number(steady.trough_mg_l)?;
+        w.number(steady.peak_mg_l)?;
+        w.number(steady.auc24_mg_h_l)?;
+        w.text(yes_no(verdict.meets))?;
+        w.text(over(self.limits.max_peak_mg_l, verdict.over_peak))?;
+        w.text(over(self.limits.max_trough_mg_l, verdict.over_trough))?;
         w.end_row()
     }
 
