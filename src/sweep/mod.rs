@@ -160,7 +160,8 @@ impl Sweep<'_> {
                 judge(&params, c, &steady, self.targets, self.limits, &Course::fresh(), d.as_deref(), |_| {})
                     .map_err(|inv| refused(k, inv))?;
             let values = [steady.trough_mg_l, steady.peak_mg_l, steady.auc24_mg_h_l];
-            if !values.iter().all(|x| x.is_finite() && *x >= 0.0) {
+            // Finite and non-negative (NaN fails too).
+            if !values.iter().all(|x| (0.0..f64::INFINITY).contains(x)) {
                 return Err(Error::Failure(format!(
                     "subject {}, regimen {}: the exposure is not a finite number ({params:?})",
                     index + 1,
