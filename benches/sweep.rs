@@ -76,9 +76,10 @@ fn sweep(c: &mut Criterion) {
     group.throughput(Throughput::Elements(MANY * 100));
     for threads in [1, 2] {
         let pool = rayon::ThreadPoolBuilder::new().num_threads(threads).build().expect("a thread pool");
-        group.bench_function(format!("summary_{threads}_thread{}", if threads > 1 { "s" } else { "" }), |b| {
-            b.iter(|| pool.install(|| summary_of(MANY, None)))
-        });
+        group
+            .bench_function(format!("summary_{threads}_thread{}", if threads > 1 { "s" } else { "" }), |b| {
+                b.iter(|| pool.install(|| summary_of(MANY, None)))
+            });
     }
     group.finish();
 }

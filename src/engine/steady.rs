@@ -430,7 +430,11 @@ mod tests {
     /// |got − want| ≤ 1e-12·|want|, or both below 1e-100 mg/L (essentially zero).
     fn agree(got: f64, want: f64, what: &str) -> Result<(), TestCaseError> {
         let ok = (got - want).abs() <= 1e-12 * want.abs() || (got.abs() < 1e-100 && want.abs() < 1e-100);
-        prop_assert!(ok, "{what}: closed form {got}, engine {want} (relative {:e})", (got / want - 1.0).abs());
+        prop_assert!(
+            ok,
+            "{what}: closed form {got}, engine {want} (relative {:e})",
+            (got / want - 1.0).abs()
+        );
         Ok(())
     }
 

@@ -16,7 +16,6 @@ pub mod state;
 pub mod summary;
 
 use crate::dosing::{Dose, Regimen};
-use crate::engine::Params;
 use crate::engine::steady::{Exposure, unit_exposure};
 use crate::error::Error;
 use crate::io::digest::Digesting;
@@ -24,8 +23,8 @@ use crate::io::output::{CsvWriter, io_failure};
 use crate::plan::targets::{Limits, Target};
 use crate::plan::{Course, Verdict, judge, last_day_end};
 use population::{Population, Subject};
-use sketch::Slot;
 use rayon::prelude::*;
+use sketch::Slot;
 use state::{RowsWritten, Setup, Shard, SweepState, Tally};
 use std::io::Write;
 use std::ops::Range;
@@ -68,9 +67,9 @@ impl Shapes {
     /// Group `candidates`, refusing an invalid one (its amount is checked here, its shape for
     /// each subject).
     fn new(candidates: &[Regimen]) -> Result<Shapes, Error> {
-        let same = |a: &Regimen, b: &Regimen| {
-            a.route == b.route && a.every_h == b.every_h && a.duration_h == b.duration_h
-        };
+        // A regimen's shape is the regimen of 1 mg.
+        let same =
+            |a: &Regimen, b: &Regimen| Regimen { amount_mg: 1.0, ..*a } == Regimen { amount_mg: 1.0, ..*b };
         let mut first: Vec<(usize, Regimen)> = Vec::new();
         let mut of = Vec::with_capacity(candidates.len());
         for (k, c) in candidates.iter().enumerate() {
@@ -144,7 +143,8 @@ impl Sweep<'_> {
         outcomes: &mut Vec<Outcome>,
         mut rows: Option<&mut CsvWriter<Vec<u8>>>,
     ) -> Result<(), Error> {
-        let Subject { params, origin } = self.population.subject(self.seed, index).map_err(Error::Usage)?;
+        let subject = self.population.subject(self.seed, index).map_err(Error::Usage)?;
+        let params = subject.params;
         let refused =
             |k: usize, inv| Error::Usage(format!("subject {}, regimen {}: {inv}", index + 1, k + 1));
         unit.clear();
@@ -169,7 +169,7 @@ impl Sweep<'_> {
                 )));
             }
             if let Some(w) = rows.as_mut() {
-                self.write_row(w, index, origin, k, &params, &steady, &verdict).map_err(io_failure)?;
+                self.write_row(w, index, &subject, k, &steady, &verdict).map_err(io_failure)?;
             }
             outcomes.push(Outcome { slots: ln_u.map(|l| Slot::of_ln(l + ln_amount)), verdict });
         }
@@ -181,12 +181,12 @@ impl Sweep<'_> {
         &self,
         w: &mut CsvWriter<Vec<u8>>,
         index: u64,
-        origin: Option<&str>,
+        subject: &Subject,
         k: usize,
-        params: &Params,
         steady: &Exposure,
         verdict: &Verdict,
     ) -> std::io::Result<()> {
+        let Subject { params, origin } = subject;
         let yes_no = |on: bool| if on { "true" } else { "false" };
         // Empty without the limit.
         let over = |limit: Option<f64>, on: bool| if limit.is_some() { yes_no(on) } else { "" };
