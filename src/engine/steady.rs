@@ -12,8 +12,14 @@
 //! is the state just before each dose. Peak, trough and AUC then follow from the exact
 //! propagator over one interval. A lag time only shifts the periodic curve, so it is computed
 //! without the lag and read off at the shifted phase.
+//!
+//! The exposure (peak, trough, AUC) that planning and sweeps evaluate for every draw and
+//! subject is computed directly per route from these closed forms ([`unit_exposure`]), with no
+//! events, no walker and no allocation; it is exactly proportional to the amount, so one
+//! evaluation per dosing shape serves every amount. [`SteadyCurve`] walks the periodic curve
+//! for what needs any phase (time above a threshold, the curve itself).
 
-use super::kernel::{State, depot_to_central};
+use super::kernel::{Rates, State, depot_to_central, step};
 use super::{Events, Kinetics, Params, Walker};
 use crate::dosing::{Dose, Regimen, Route};
 use crate::error::InputError;
@@ -35,6 +41,127 @@ pub struct Exposure {
     pub auc24_mg_h_l: f64,
     /// Average concentration AUC_τ/τ (mg/L).
     pub cavg_mg_l: f64,
+}
+
+impl Exposure {
+    /// The exposure to `amount_mg` times the dose: linear kinetics scale every concentration and
+    /// AUC, and leave the peak time.
+    pub fn scaled(self, amount_mg: f64) -> Exposure {
+        Exposure {
+            peak_mg_l: self.peak_mg_l * amount_mg,
+            peak_time_h: self.peak_time_h,
+            trough_mg_l: self.trough_mg_l * amount_mg,
+            auc_tau_mg_h_l: self.auc_tau_mg_h_l * amount_mg,
+            auc24_mg_h_l: self.auc24_mg_h_l * amount_mg,
+            cavg_mg_l: self.cavg_mg_l * amount_mg,
+        }
+    }
+}
+
+/// Refuses a regimen without a steady state for `params`: invalid values, an oral regimen
+/// without absorption, an infusion longer than the interval.
+fn check(params: &Params, regimen: &Regimen) -> Result<(), InputError> {
+    params.validate(&[regimen.dose_at(0.0)])?;
+    regimen.validate()?;
+    if regimen.route == Route::Infusion && regimen.duration_h > regimen.every_h {
+        return Err(InputError::field(
+            "duration_h",
+            format!(
+                "the infusion ({} h) is longer than the dosing interval ({} h); \
+                 simulate the overlapping doses instead",
+                regimen.duration_h, regimen.every_h
+            ),
+        ));
+    }
+    Ok(())
+}
+
+/// The steady-state exposure of `regimen` for `params`, in closed form.
+pub fn exposure(params: &Params, regimen: &Regimen) -> Result<Exposure, InputError> {
+    unit_exposure(params, regimen).map(|e| e.scaled(regimen.amount_mg))
+}
+
+/// The steady-state exposure to 1 mg given as `regimen` gives its doses (its route, interval
+/// and infusion duration; the amount is checked but not used), in closed form per route
+/// (docs/methods.md, section 5): with k = CL/V, q = 1 − e^(−kτ) and, for oral doses,
+/// qa = 1 − e^(−ka τ),
+///
+/// ```text
+/// bolus:     peak = 1/(V·q) at the dose          trough = peak·e^(−kτ)
+/// infusion:  peak = (1 − e^(−kT))/(T·CL·q) at T  trough = peak·e^(−k(τ − T))
+/// oral:      just after the dose enters, depot d = F/qa and central a = F·ka·G(τ)/(qa·q);
+///            peak at s* (section 5), where ka·D = k·A, so peak = ka·d·e^(−ka s*)/CL
+///            trough = a/V, or the state propagated to τ − (lag mod τ) after a lag
+/// AUC_τ = F/CL (F = 1 intravenously)
+/// ```
+///
+/// Every denominator is computed with expm1 and every term is non-negative, so nothing
+/// cancels.
+pub fn unit_exposure(params: &Params, regimen: &Regimen) -> Result<Exposure, InputError> {
+    check(params, regimen).map(|()| closed_form(params, regimen))
+}
+
+/// [`unit_exposure`] of a regimen already checked.
+fn closed_form(params: &Params, regimen: &Regimen) -> Exposure {
+    let tau = regimen.every_h;
+    let (cl, v, k) = (params.cl_l_h, params.v_l, params.k_per_h());
+    let q = -(-k * tau).exp_m1();
+    let (peak_mg_l, peak_time_h, trough_mg_l, auc_tau_mg_h_l) = match regimen.route {
+        Route::Bolus => {
+            let peak = 1.0 / (v * q);
+            (peak, 0.0, peak * (-k * tau).exp(), 1.0 / cl)
+        }
+        Route::Infusion => {
+            let t = regimen.duration_h;
+            let peak = -(-k * t).exp_m1() / (t * cl * q);
+            (peak, t, peak * (-k * (tau - t)).exp(), 1.0 / cl)
+        }
+        Route::Oral => {
+            let ka = params.ka_per_h.unwrap_or(f64::NAN);
+            let qa = -(-ka * tau).exp_m1();
+            let d = params.f / qa;
+            let a = params.f * ka * depot_to_central(k, ka, tau) / (qa * q);
+            let at_dose = (a / v, 0.0);
+            let (peak, entry) = oral_peak_phase(k, ka, a, d, tau)
+                .map(|s| (ka * d * (-ka * s).exp() / cl, s))
+                .filter(|interior| interior.0 > at_dose.0)
+                .unwrap_or(at_dose);
+            let lag = params.tlag_h.rem_euclid(tau);
+            let trough = if lag > 0.0 {
+                let (at, _) = step(State { central: a, depot: d }, Rates { k, ka }, 0.0, tau - lag, false);
+                at.central / v
+            } else {
+                a / v
+            };
+            (peak, entry + params.tlag_h, trough, params.f / cl)
+        }
+    };
+    Exposure {
+        peak_mg_l,
+        peak_time_h,
+        trough_mg_l,
+        auc_tau_mg_h_l,
+        auc24_mg_h_l: auc_tau_mg_h_l * 24.0 / tau,
+        cavg_mg_l: auc_tau_mg_h_l / tau,
+    }
+}
+
+/// The phase s* of the interior maximum after an oral dose enters, from the central amount `a`
+/// and the depot `d` just after it, when there is one in (0, `tau`): dC/dt = 0 ⇔ ka·D(s) =
+/// k·A(s); with y = (k·a − ka·d)/(ka²·d), s* = −y·ln(1 + (ka − k)·y)/((ka − k)·y)
+/// (→ −y as ka → k).
+fn oral_peak_phase(k: f64, ka: f64, a: f64, d: f64, tau: f64) -> Option<f64> {
+    if d <= 0.0 {
+        return None;
+    }
+    let y = (k * a - ka * d) / (ka * ka * d);
+    let z = (ka - k) * y;
+    if z <= -1.0 {
+        return None;
+    }
+    let log_ratio = if z.abs() < 1e-8 { 1.0 - z / 2.0 } else { z.ln_1p() / z };
+    let s = -y * log_ratio;
+    (s > 0.0 && s < tau).then_some(s)
 }
 
 /// Steady-state metrics of a repeated regimen: its exposure and the descriptive extras.
@@ -59,6 +186,7 @@ pub struct SteadyState {
 /// The periodic steady-state curve of a regimen, for metrics and for reading off any phase.
 #[derive(Debug, Clone)]
 pub struct SteadyCurve {
+    params: Params,
     kin: Kinetics<f64>,
     regimen: Regimen,
     events: Events,
@@ -68,20 +196,8 @@ pub struct SteadyCurve {
 impl SteadyCurve {
     /// Solve for the steady state. Returns what is wrong when the regimen has none.
     pub fn new(params: &Params, regimen: Regimen) -> Result<Self, InputError> {
-        let one = regimen.dose_at(0.0);
-        params.validate(&[one])?;
-        regimen.validate()?;
-        let tau = regimen.every_h;
-        if regimen.route == Route::Infusion && regimen.duration_h > tau {
-            return Err(InputError::field(
-                "duration_h",
-                format!(
-                    "the infusion ({} h) is longer than the dosing interval ({tau} h); \
-                     simulate the overlapping doses instead",
-                    regimen.duration_h
-                ),
-            ));
-        }
+        check(params, &regimen)?;
+        let (one, tau) = (regimen.dose_at(0.0), regimen.every_h);
         // Lag-free frame: the dose enters at phase 0 (the events ignore the lag; `kin` keeps it
         // for reading the curve off at the phase after the dose is given).
         let kin = Kinetics::from(params);
@@ -92,7 +208,7 @@ impl SteadyCurve {
         let depot = if regimen.route == Route::Oral { u.depot / -(-kin.ka * tau).exp_m1() } else { 0.0 };
         let carried = if depot > 0.0 { kin.ka * depot_to_central(kin.k, kin.ka, tau) * depot } else { 0.0 };
         let central = (u.central + carried) / -(-kin.k * tau).exp_m1();
-        Ok(SteadyCurve { kin, regimen, events, before_dose: State { central, depot } })
+        Ok(SteadyCurve { params: *params, kin, regimen, events, before_dose: State { central, depot } })
     }
 
     fn walker(&self) -> Walker<'_, f64> {
@@ -120,27 +236,13 @@ impl SteadyCurve {
             Route::Bolus => (self.at_entry_phase(0.0), 0.0),
             Route::Infusion => (self.at_entry_phase(self.regimen.duration_h), self.regimen.duration_h),
             Route::Oral => {
-                // dC/dt = 0 ⇔ ka·D(s) = k·A(s); with y = (k·A − ka·D)/(ka²·D) just after the
-                // dose, s* = −y·ln(1 + (ka − k)·y)/((ka − k)·y)  (→ −y as ka → k).
-                let (k, ka) = (self.kin.k, self.kin.ka);
                 let a = self.before_dose.central;
                 let d = self.before_dose.depot + self.kin.f * self.regimen.amount_mg;
-                let mut best = (self.at_entry_phase(0.0), 0.0);
-                if d > 0.0 {
-                    let y = (k * a - ka * d) / (ka * ka * d);
-                    let z = (ka - k) * y;
-                    if z > -1.0 {
-                        let log_ratio = if z.abs() < 1e-8 { 1.0 - z / 2.0 } else { z.ln_1p() / z };
-                        let s = -y * log_ratio;
-                        if s > 0.0 && s < tau {
-                            let c = self.at_entry_phase(s);
-                            if c > best.0 {
-                                best = (c, s);
-                            }
-                        }
-                    }
+                let at_dose = (self.at_entry_phase(0.0), 0.0);
+                match oral_peak_phase(self.kin.k, self.kin.ka, a, d, tau) {
+                    Some(s) if self.at_entry_phase(s) > at_dose.0 => (self.at_entry_phase(s), s),
+                    _ => at_dose,
                 }
-                best
             }
         }
     }
@@ -191,23 +293,7 @@ impl SteadyCurve {
     /// The exposure at steady state: peak, trough, AUC and average concentration — what planning
     /// and sweeps evaluate for every draw and subject, without the descriptive extras.
     pub fn exposure(&self) -> Exposure {
-        let tau = self.regimen.every_h;
-        let lag = if self.regimen.route == Route::Oral { self.kin.tlag_h } else { 0.0 };
-        let (peak, peak_entry) = self.peak();
-        // Just before the next dose: entry phase τ − (lag mod τ), in (0, τ], so that a bolus
-        // given at phase 0 (counted by `at(0)`, values being right-continuous) is not.
-        let trough = self.at_entry_phase(tau - lag.rem_euclid(tau));
-        let mut w = self.walker();
-        w.run_to(tau);
-        let auc_tau = w.auc();
-        Exposure {
-            peak_mg_l: peak,
-            peak_time_h: peak_entry + lag,
-            trough_mg_l: trough,
-            auc_tau_mg_h_l: auc_tau,
-            auc24_mg_h_l: auc_tau * 24.0 / tau,
-            cavg_mg_l: auc_tau / tau,
-        }
+        closed_form(&self.params, &self.regimen).scaled(self.regimen.amount_mg)
     }
 
     /// All steady-state metrics: the exposure and the descriptive extras.
@@ -299,6 +385,7 @@ impl SingleDose {
             route: dose.route,
         };
         let curve = SteadyCurve {
+            params: *params,
             kin: Kinetics::from(params),
             regimen,
             events: Events::new(&[at_zero], 0.0),
@@ -317,6 +404,73 @@ impl SingleDose {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use proptest::prelude::*;
+    use proptest::test_runner::RngSeed;
+
+    fn log_uniform(lo: f64, hi: f64) -> impl Strategy<Value = f64> {
+        (lo.ln()..hi.ln()).prop_map(f64::exp)
+    }
+
+    prop_compose! {
+        /// k in [0.001, 10] /h; ka a multiple of k in [0.01, 100], equal to it, or within 1e-6 of
+        /// it; τ in [0.5, 96] h; infusions up to the whole interval; lag times up to 60 h.
+        fn regimen()(cl in log_uniform(0.3, 30.0), v in log_uniform(3.0, 300.0),
+                     ratio in prop_oneof![3 => log_uniform(0.01, 100.0), 1 => Just(1.0),
+                                          1 => log_uniform(1e-12, 1e-6).prop_map(|e| 1.0 + e)],
+                     f in 0.2..=1.0, tlag in prop_oneof![Just(0.0), 0.0..60.0],
+                     route in prop_oneof![Just(Route::Bolus), Just(Route::Infusion), Just(Route::Oral)],
+                     every_h in log_uniform(0.5, 96.0), amount_mg in log_uniform(0.1, 5000.0),
+                     share in prop_oneof![4 => 1e-3..1.0, 1 => Just(1.0)]) -> (Params, Regimen) {
+            let params = Params { cl_l_h: cl, v_l: v, ka_per_h: Some(ratio * cl / v), f, tlag_h: tlag };
+            let duration_h = if route == Route::Infusion { share * every_h } else { 0.0 };
+            (params, Regimen { amount_mg, route, duration_h, every_h })
+        }
+    }
+
+    /// |got − want| ≤ 1e-12·|want|, or both below 1e-100 mg/L (essentially zero).
+    fn agree(got: f64, want: f64, what: &str) -> Result<(), TestCaseError> {
+        let ok = (got - want).abs() <= 1e-12 * want.abs() || (got.abs() < 1e-100 && want.abs() < 1e-100);
+        prop_assert!(
+            ok,
+            "{what}: closed form {got}, engine {want} (relative {:e})",
+            (got / want - 1.0).abs()
+        );
+        Ok(())
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig {
+            cases: 2000,
+            rng_seed: RngSeed::Fixed(0x5EED_0014),
+            failure_persistence: None,
+            ..ProptestConfig::default()
+        })]
+
+        /// The direct closed forms of [`exposure`] against the general engine (the event walker
+        /// started from the steady state before a dose): the peak by the walker at the phase
+        /// the curve finds, the trough by walking to just before the next dose, the AUC by
+        /// integrating the walk over one interval. Agreement to 1e-12 relative, on random
+        /// regimens of every route.
+        #[test]
+        fn closed_forms_agree_with_the_general_engine((p, r) in regimen()) {
+            let direct = exposure(&p, &r).unwrap();
+            let curve = SteadyCurve::new(&p, r).unwrap();
+            let tau = r.every_h;
+            let lag = if r.route == Route::Oral { p.tlag_h } else { 0.0 };
+            let (peak, entry) = curve.peak();
+            agree(direct.peak_mg_l, peak, "peak")?;
+            prop_assert!((direct.peak_time_h - (entry + lag)).abs() <= 1e-9 * (1.0 + entry + lag), "peak time");
+            agree(direct.trough_mg_l, curve.at_entry_phase(tau - lag.rem_euclid(tau)), "trough")?;
+            let mut w = curve.walker();
+            w.run_to(tau);
+            agree(direct.auc_tau_mg_h_l, w.auc(), "AUC over the interval")?;
+            agree(direct.auc24_mg_h_l, w.auc() * 24.0 / tau, "AUC24")?;
+            agree(direct.cavg_mg_l, w.auc() / tau, "average concentration")?;
+            // Exactly proportional to the amount.
+            let unit = unit_exposure(&p, &r).unwrap().scaled(r.amount_mg);
+            prop_assert_eq!(unit, direct);
+        }
+    }
 
     #[test]
     fn oral_time_to_fraction_solves_its_equation() {

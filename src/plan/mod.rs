@@ -1,7 +1,8 @@
 //! Regimen planning: targets and limits, candidate regimens, the exposure of a candidate for
 //! one set of individual parameters, and (in [`recommend`]) probabilities over posterior draws.
 //!
-//! Steady-state metrics come in closed form from [`SteadyCurve`]; AUC over a stated day of
+//! Steady-state metrics come in closed form ([`steady::exposure`]; the periodic
+//! [`SteadyCurve`] only for time above a threshold); AUC over a stated day of
 //! therapy continues the real dose history with the candidate regimen from its start time.
 
 pub mod advisor;
@@ -12,7 +13,7 @@ pub mod session;
 pub mod targets;
 
 use crate::dosing::{Dose, Regimen};
-use crate::engine::steady::{Exposure, SteadyCurve};
+use crate::engine::steady::{self, Exposure, SteadyCurve};
 use crate::engine::{self, Params};
 use crate::error::InputError;
 use targets::{Limits, Metric, Target};
@@ -94,33 +95,78 @@ pub fn evaluate(
     course: &Course,
     course_doses: Option<&[Dose]>,
 ) -> Result<Evaluation, InputError> {
-    let curve = SteadyCurve::new(params, *candidate)?;
-    let steady = curve.exposure();
-    let values: Vec<f64> = targets
-        .iter()
-        .map(|t| match t.metric {
+    let steady = steady::exposure(params, candidate)?;
+    let mut values = Vec::with_capacity(targets.len());
+    let verdict =
+        judge(params, candidate, &steady, targets, limits, course, course_doses, |v| values.push(v))?;
+    Ok(Evaluation {
+        steady,
+        values,
+        meets: verdict.meets,
+        over_peak: verdict.over_peak,
+        over_trough: verdict.over_trough,
+    })
+}
+
+/// What a candidate's exposure means for the targets and limits.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct Verdict {
+    /// Every target met.
+    pub meets: bool,
+    /// Steady-state peak above the limit.
+    pub over_peak: bool,
+    /// Steady-state trough above the limit.
+    pub over_trough: bool,
+}
+
+/// Judge `steady`, the steady-state exposure of `candidate` for `params`, against the targets
+/// and limits, handing each target's value to `value` in target order. Nothing is allocated
+/// unless a target needs more than the exposure: the periodic curve for a time above a
+/// threshold, the dose history for an AUC over a day.
+#[inline]
+#[allow(clippy::too_many_arguments)] // the evaluation's inputs, passed through unchanged
+pub(crate) fn judge(
+    params: &Params,
+    candidate: &Regimen,
+    steady: &Exposure,
+    targets: &[Target],
+    limits: &Limits,
+    course: &Course,
+    course_doses: Option<&[Dose]>,
+    mut value: impl FnMut(f64),
+) -> Result<Verdict, InputError> {
+    let mut curve = None;
+    let mut meets = true;
+    for t in targets {
+        let v = match t.metric {
             Metric::Auc24 => steady.auc24_mg_h_l,
             Metric::Trough => steady.trough_mg_l,
             Metric::Peak => steady.peak_mg_l,
             Metric::Cavg => steady.cavg_mg_l,
             Metric::Above { lo_mg_l, hi_mg_l } => {
-                let above_hi = if hi_mg_l.is_finite() { curve.share_above(hi_mg_l) } else { 0.0 };
-                100.0 * (curve.share_above(lo_mg_l) - above_hi).max(0.0)
+                // Built once, for the first such target.
+                let c = match curve.take() {
+                    Some(c) => c,
+                    None => SteadyCurve::new(params, *candidate)?,
+                };
+                let above_hi = if hi_mg_l.is_finite() { c.share_above(hi_mg_l) } else { 0.0 };
+                let share = 100.0 * (c.share_above(lo_mg_l) - above_hi).max(0.0);
+                curve = Some(c);
+                share
             }
             Metric::AucDay { day } => {
                 let from = course.therapy_start_h + 24.0 * f64::from(day - 1);
                 let doses = course_doses.unwrap_or(course.history);
                 engine::auc(params, doses, from, from + 24.0)
             }
-        })
-        .collect();
-    let meets = targets.iter().zip(&values).all(|(t, v)| t.met(*v));
-    Ok(Evaluation {
+        };
+        meets &= t.met(v);
+        value(v);
+    }
+    Ok(Verdict {
+        meets,
         over_peak: limits.max_peak_mg_l.is_some_and(|m| steady.peak_mg_l > m),
         over_trough: limits.max_trough_mg_l.is_some_and(|m| steady.trough_mg_l > m),
-        steady,
-        values,
-        meets,
     })
 }
 

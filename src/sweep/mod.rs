@@ -16,14 +16,15 @@ pub mod state;
 pub mod summary;
 
 use crate::dosing::{Dose, Regimen};
-use crate::engine::Params;
+use crate::engine::steady::{Exposure, unit_exposure};
 use crate::error::Error;
 use crate::io::digest::Digesting;
 use crate::io::output::{CsvWriter, io_failure};
 use crate::plan::targets::{Limits, Target};
-use crate::plan::{Course, evaluate, last_day_end};
+use crate::plan::{Course, Verdict, judge, last_day_end};
 use population::{Population, Subject};
 use rayon::prelude::*;
+use sketch::Slot;
 use state::{RowsWritten, Setup, Shard, SweepState, Tally};
 use std::io::Write;
 use std::ops::Range;
@@ -40,15 +41,49 @@ const TASKS_PER_CHUNK: u64 = 64;
 pub const PER_SUBJECT_HEADER: &str = "subject,origin,regimen,cl_l_h,v_l,ka_per_h,trough_mg_l,peak_mg_l,\
 auc24_mg_h_l,meets,over_peak,over_trough";
 
-/// One subject's exposure under one regimen.
+/// One subject's exposure under one regimen, as the tallies count it.
 #[derive(Debug, Clone, Copy)]
 pub(crate) struct Outcome {
-    trough_mg_l: f64,
-    peak_mg_l: f64,
-    auc24_mg_h_l: f64,
-    meets: bool,
-    over_peak: bool,
-    over_trough: bool,
+    /// The sketch slots of the trough, peak and AUC24.
+    slots: [Slot; 3],
+    verdict: Verdict,
+}
+
+/// The candidates by dosing shape (route, interval, infusion duration). Linear kinetics make
+/// the exposure to any amount of one shape that shape's exposure to 1 mg times the amount, so
+/// each subject evaluates the closed forms once per shape, not once per candidate.
+#[derive(Debug, Clone)]
+struct Shapes {
+    /// The first candidate of each shape, in grid order.
+    first: Vec<(usize, Regimen)>,
+    /// Each candidate's shape (an index into `first`).
+    of: Vec<usize>,
+    /// ln of each candidate's amount: the logarithm of an exposure is ln amount + ln(the
+    /// exposure to 1 mg), so the sketch needs no logarithm per value.
+    ln_amount: Vec<f64>,
+}
+
+impl Shapes {
+    /// Group `candidates`, refusing an invalid one (its amount is checked here, its shape for
+    /// each subject).
+    fn new(candidates: &[Regimen]) -> Result<Shapes, Error> {
+        // A regimen's shape is the regimen of 1 mg.
+        let same =
+            |a: &Regimen, b: &Regimen| Regimen { amount_mg: 1.0, ..*a } == Regimen { amount_mg: 1.0, ..*b };
+        let mut first: Vec<(usize, Regimen)> = Vec::new();
+        let mut of = Vec::with_capacity(candidates.len());
+        for (k, c) in candidates.iter().enumerate() {
+            c.validate().map_err(|inv| Error::Usage(format!("regimen {}: {inv}", k + 1)))?;
+            of.push(match first.iter().position(|(_, f)| same(f, c)) {
+                Some(i) => i,
+                None => {
+                    first.push((k, *c));
+                    first.len() - 1
+                }
+            });
+        }
+        Ok(Shapes { first, of, ln_amount: candidates.iter().map(|c| c.amount_mg.ln()).collect() })
+    }
 }
 
 /// What to sweep.
@@ -79,13 +114,15 @@ impl Sweep<'_> {
     fn subjects(
         &self,
         span: Range<u64>,
+        shapes: &Shapes,
         doses: &[Option<Vec<Dose>>],
         rows: bool,
     ) -> Result<(Vec<Outcome>, Vec<u8>), Error> {
         let mut outcomes = Vec::with_capacity((span.end - span.start) as usize * self.candidates.len());
+        let mut unit = Vec::with_capacity(shapes.first.len());
         let mut csv = rows.then(|| CsvWriter::new(Vec::new()));
         for index in span {
-            self.subject(index, doses, &mut outcomes, csv.as_mut())?;
+            self.subject(index, shapes, doses, &mut unit, &mut outcomes, csv.as_mut())?;
         }
         let bytes = match csv {
             Some(w) => w.finish().map_err(io_failure)?,
@@ -94,29 +131,37 @@ impl Sweep<'_> {
         Ok((outcomes, bytes))
     }
 
-    /// Evaluate every candidate for subject `index` into `outcomes`; with `rows`, also write
-    /// its per-subject rows.
+    /// Evaluate every candidate for subject `index` into `outcomes` (`unit` is scratch for the
+    /// exposure to 1 mg of each shape, with the logarithms of its trough, peak and AUC24); with
+    /// `rows`, also write its per-subject rows.
     fn subject(
         &self,
         index: u64,
+        shapes: &Shapes,
         doses: &[Option<Vec<Dose>>],
+        unit: &mut Vec<(Exposure, [f64; 3])>,
         outcomes: &mut Vec<Outcome>,
         mut rows: Option<&mut CsvWriter<Vec<u8>>>,
     ) -> Result<(), Error> {
-        let Subject { params, origin } = self.population.subject(self.seed, index).map_err(Error::Usage)?;
-        for (k, (c, d)) in self.candidates.iter().zip(doses).enumerate() {
-            let e = evaluate(&params, c, self.targets, self.limits, &Course::fresh(), d.as_deref())
-                .map_err(|inv| Error::Usage(format!("subject {}, regimen {}: {inv}", index + 1, k + 1)))?;
-            let s = e.steady;
-            let o = Outcome {
-                trough_mg_l: s.trough_mg_l,
-                peak_mg_l: s.peak_mg_l,
-                auc24_mg_h_l: s.auc24_mg_h_l,
-                meets: e.meets,
-                over_peak: e.over_peak,
-                over_trough: e.over_trough,
-            };
-            if ![o.trough_mg_l, o.peak_mg_l, o.auc24_mg_h_l].iter().all(|x| x.is_finite() && *x >= 0.0) {
+        let subject = self.population.subject(self.seed, index).map_err(Error::Usage)?;
+        let params = subject.params;
+        let refused =
+            |k: usize, inv| Error::Usage(format!("subject {}, regimen {}: {inv}", index + 1, k + 1));
+        unit.clear();
+        for (k, c) in &shapes.first {
+            let u = unit_exposure(&params, c).map_err(|inv| refused(*k, inv))?;
+            unit.push((u, [u.trough_mg_l.ln(), u.peak_mg_l.ln(), u.auc24_mg_h_l.ln()]));
+        }
+        let each = self.candidates.iter().zip(doses).zip(&shapes.of).zip(&shapes.ln_amount);
+        for (k, (((c, d), &shape), ln_amount)) in each.enumerate() {
+            let (u, ln_u) = &unit[shape];
+            let steady = u.scaled(c.amount_mg);
+            let verdict =
+                judge(&params, c, &steady, self.targets, self.limits, &Course::fresh(), d.as_deref(), |_| {})
+                    .map_err(|inv| refused(k, inv))?;
+            let values = [steady.trough_mg_l, steady.peak_mg_l, steady.auc24_mg_h_l];
+            // Finite and non-negative (NaN fails too).
+            if !values.iter().all(|x| (0.0..f64::INFINITY).contains(x)) {
                 return Err(Error::Failure(format!(
                     "subject {}, regimen {}: the exposure is not a finite number ({params:?})",
                     index + 1,
@@ -124,9 +169,9 @@ impl Sweep<'_> {
                 )));
             }
             if let Some(w) = rows.as_mut() {
-                self.write_row(w, index, origin, k, &params, &o).map_err(io_failure)?;
+                self.write_row(w, index, &subject, k, &steady, &verdict).map_err(io_failure)?;
             }
-            outcomes.push(o);
+            outcomes.push(Outcome { slots: ln_u.map(|l| Slot::of_ln(l + ln_amount)), verdict });
         }
         Ok(())
     }
@@ -136,11 +181,12 @@ impl Sweep<'_> {
         &self,
         w: &mut CsvWriter<Vec<u8>>,
         index: u64,
-        origin: Option<&str>,
+        subject: &Subject,
         k: usize,
-        params: &Params,
-        o: &Outcome,
+        steady: &Exposure,
+        verdict: &Verdict,
     ) -> std::io::Result<()> {
+        let Subject { params, origin } = subject;
         let yes_no = |on: bool| if on { "true" } else { "false" };
         // Empty without the limit.
         let over = |limit: Option<f64>, on: bool| if limit.is_some() { yes_no(on) } else { "" };
@@ -153,12 +199,12 @@ impl Sweep<'_> {
             Some(ka) => w.number(ka)?,
             None => w.text("")?,
         }
-        w.number(o.trough_mg_l)?;
-        w.number(o.peak_mg_l)?;
-        w.number(o.auc24_mg_h_l)?;
-        w.text(yes_no(o.meets))?;
-        w.text(over(self.limits.max_peak_mg_l, o.over_peak))?;
-        w.text(over(self.limits.max_trough_mg_l, o.over_trough))?;
+        w.number(steady.trough_mg_l)?;
+        w.number(steady.peak_mg_l)?;
+        w.number(steady.auc24_mg_h_l)?;
+        w.text(yes_no(verdict.meets))?;
+        w.text(over(self.limits.max_peak_mg_l, verdict.over_peak))?;
+        w.text(over(self.limits.max_trough_mg_l, verdict.over_trough))?;
         w.end_row()
     }
 
@@ -166,7 +212,7 @@ impl Sweep<'_> {
     /// refuses (an oral regimen without absorption in the model, say) is reported before any
     /// work is done.
     pub fn check(&self) -> Result<(), Error> {
-        self.subjects(0..1, &self.course_doses(), false).map(|_| ())
+        self.subjects(0..1, &Shapes::new(self.candidates)?, &self.course_doses(), false).map(|_| ())
     }
 
     /// Sweep `shard` of the sweep `setup` (whose subjects are this population's) into its
@@ -202,6 +248,7 @@ impl Sweep<'_> {
         progress: &mut dyn FnMut(u64),
     ) -> Result<Vec<Tally>, Error> {
         let doses = self.course_doses();
+        let shapes = Shapes::new(self.candidates)?;
         let regimens = self.candidates.len();
         let mut tallies = vec![Tally::new(self.limits); regimens];
         if let Some(out) = per_subject.as_mut() {
@@ -219,7 +266,7 @@ impl Sweep<'_> {
                 .into_par_iter()
                 .map(|j| {
                     let first = start + j * per_task;
-                    self.subjects(first..end.min(first + per_task), &doses, rows)
+                    self.subjects(first..end.min(first + per_task), &shapes, &doses, rows)
                 })
                 .collect();
             // The first failure in subject order, so the message does not depend on threads.

@@ -137,17 +137,19 @@ impl Tally {
     }
 
     pub(super) fn add(&mut self, o: &Outcome) {
+        let v = &o.verdict;
         self.subjects += 1;
-        self.meets += u64::from(o.meets);
+        self.meets += u64::from(v.meets);
         if let Some(n) = &mut self.over_peak {
-            *n += u64::from(o.over_peak);
+            *n += u64::from(v.over_peak);
         }
         if let Some(n) = &mut self.over_trough {
-            *n += u64::from(o.over_trough);
+            *n += u64::from(v.over_trough);
         }
-        self.trough_mg_l.add(o.trough_mg_l);
-        self.peak_mg_l.add(o.peak_mg_l);
-        self.auc24_mg_h_l.add(o.auc24_mg_h_l);
+        let [trough, peak, auc24] = o.slots;
+        self.trough_mg_l.count_in(trough);
+        self.peak_mg_l.count_in(peak);
+        self.auc24_mg_h_l.count_in(auc24);
     }
 
     /// Whether a tally read from a file is internally consistent.
