@@ -262,20 +262,14 @@ fn binned(designs: &[Design], values: &[Vec<Option<f64>>]) -> Vec<(usize, f64)> 
 fn simulate(designs: &[Design], model: &PopulationModel, seed: u64) -> Vec<Vec<Option<f64>>> {
     let mut rng = StdRng::seed_from_u64(seed);
     let normal = Normal::standard();
-    let factor = model.omega_factor();
     designs
         .iter()
         .map(|d| {
-            // A third normal for every model with absorption, as the sweep's subjects draw.
-            let mut z = [normal.sample(&mut rng), normal.sample(&mut rng), 0.0];
-            if model.absorption.is_some() {
-                z[2] = normal.sample(&mut rng);
-            }
-            let eta = |i: usize| (0..=i).map(|j| factor[i][j] * z[j]).sum::<f64>();
+            let eta = model.draw_eta(&mut rng);
             let p = Params {
-                cl_l_h: d.typical.cl_l_h * eta(0).exp(),
-                v_l: d.typical.v_l * eta(1).exp(),
-                ka_per_h: d.typical.ka_per_h.map(|ka| ka * eta(2).exp()),
+                cl_l_h: d.typical.cl_l_h * eta[0].exp(),
+                v_l: d.typical.v_l * eta[1].exp(),
+                ka_per_h: d.typical.ka_per_h.map(|ka| ka * eta[2].exp()),
                 ..d.typical
             };
             let f = concentrations(&p, &d.subject.doses, &d.times);
