@@ -185,6 +185,9 @@ pub struct Vpc {
 /// A level's place in the check: its bin and correction factor, and what a simulation needs.
 struct Slot {
     bin: usize,
+    /// The population prediction PRED_i.
+    pred: f64,
+    /// The prediction correction PRED_bin / PRED_i (1 without correction).
     factor: f64,
     lloq: Option<f64>,
 }
@@ -344,7 +347,9 @@ pub fn vpc(
             .levels
             .iter()
             .zip(&pred)
-            .map(|(l, &p)| bin_of(x_of(s, l.time_h)).map(|bin| Slot { bin, factor: p, lloq: l.lloq_mg_l }))
+            .map(|(l, &pred)| {
+                bin_of(x_of(s, l.time_h)).map(|bin| Slot { bin, pred, factor: 1.0, lloq: l.lloq_mg_l })
+            })
             .collect();
         designs.push(Design { subject: s, typical, times, slots });
     }
@@ -368,13 +373,13 @@ pub fn vpc(
     for d in &mut designs {
         for s in d.slots.iter_mut().flatten() {
             s.bin = number[s.bin];
-            preds[s.bin].push(s.factor);
+            preds[s.bin].push(s.pred);
         }
     }
     let medians: Vec<f64> = preds.iter_mut().map(|p| median(p)).collect();
     let mut uncorrected = 0;
     for s in designs.iter_mut().flat_map(|d| d.slots.iter_mut().flatten()) {
-        let (pred, bin_pred) = (s.factor, medians[s.bin]);
+        let (pred, bin_pred) = (s.pred, medians[s.bin]);
         s.factor = if !options.prediction_corrected {
             1.0
         } else if pred > 0.0 && bin_pred > 0.0 {
