@@ -629,6 +629,20 @@ impl PopulationModel {
         cholesky(&self.omega(), self.random_effects()).unwrap_or_default()
     }
 
+    /// One subject's random effects η = L·z of ln CL, ln V and ln ka (0 when ka does not vary),
+    /// from standard normals drawn from `rng`: two, and a third for every model with
+    /// absorption, so that a subject's draws do not depend on whether ka varies.
+    pub fn draw_eta(&self, rng: &mut impl rand::Rng) -> [f64; MAX] {
+        use rand::distr::Distribution;
+        let normal = statrs::distribution::Normal::standard();
+        let mut z = [normal.sample(rng), normal.sample(rng), 0.0];
+        if self.absorption.is_some() {
+            z[2] = normal.sample(rng);
+        }
+        let factor = self.omega_factor();
+        std::array::from_fn(|i| (0..=i).map(|j| factor[i][j] * z[j]).sum::<f64>())
+    }
+
     /// Whether population estimation holds the value `key` (a [`HOLDABLE`] key or a covariate
     /// effect's `clearance.covariates.NAME`).
     pub fn holds(&self, key: &str) -> bool {

@@ -16,6 +16,7 @@
 //! | [`Seeds::virtual_subject`] (a sweep's i-th subject) | 3 | i |
 //! | [`Seeds::bootstrap_replicate`] | 4 | the replicate |
 //! | [`Seeds::diagnostics`] (the NPDE simulations of one subject) | 5 | the subject's key |
+//! | [`Seeds::vpc_replicate`] (a visual predictive check's i-th simulated study) | 6 | i |
 
 use sha2::{Digest, Sha256};
 
@@ -30,6 +31,7 @@ const REPORT_BANDS: u64 = 2;
 const VIRTUAL_SUBJECTS: u64 = 3;
 const BOOTSTRAP: u64 = 4;
 const DIAGNOSTICS: u64 = 5;
+const VPC: u64 = 6;
 
 impl Seeds {
     /// The draws of one subject's parameters — its posterior sampling when fitted, its prior
@@ -65,6 +67,12 @@ impl Seeds {
     /// the same for a subject whatever the thread count and the other subjects.
     pub fn diagnostics(self, id: Option<&str>) -> u64 {
         mix(mix(self.0, DIAGNOSTICS), subject_key(id))
+    }
+
+    /// The `index`-th simulated study of a visual predictive check: each replicate draws from
+    /// its own stream, so the check is the same whatever the thread count.
+    pub fn vpc_replicate(self, index: u64) -> u64 {
+        mix(mix(self.0, VPC), index)
     }
 
     /// The uniform offset of a systematic resample of the `seed`'s draws.

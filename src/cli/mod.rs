@@ -16,6 +16,7 @@ mod simulate;
 mod study;
 mod sweep;
 mod verify;
+mod vpc;
 
 use cistern::Error;
 use clap::{Parser, Subcommand};
@@ -54,6 +55,7 @@ enum Command {
     Merge(merge::MergeArgs),
     Nca(nca::NcaArgs),
     Verify(verify::VerifyArgs),
+    Vpc(vpc::VpcArgs),
 }
 
 /// Parse the command line, run the command, and turn the outcome into an exit code.
@@ -80,6 +82,7 @@ pub fn run() -> ExitCode {
         Command::Merge(a) => merge::run(a),
         Command::Nca(a) => nca::run(a),
         Command::Verify(a) => verify::run(a),
+        Command::Vpc(a) => vpc::run(a),
     };
     match outcome {
         Ok(()) | Err(Error::OutputClosed) => ExitCode::SUCCESS,

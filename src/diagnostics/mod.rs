@@ -6,6 +6,7 @@
 
 pub mod misfit;
 pub mod residuals;
+pub mod vpc;
 
 use crate::fit::linalg::MAX;
 use crate::fit::objective::Fixed;
@@ -159,7 +160,7 @@ fn subject_rows(
 }
 
 /// Hours since the latest dose at or before `t`.
-fn time_after_dose(subject: &SubjectData, t: f64) -> f64 {
+pub(crate) fn time_after_dose(subject: &SubjectData, t: f64) -> f64 {
     let last = subject.doses.iter().map(|d| d.time_h).filter(|&d| d <= t).fold(f64::NEG_INFINITY, f64::max);
     if last.is_finite() { t - last } else { 0.0 }
 }

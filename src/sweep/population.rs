@@ -16,7 +16,6 @@ use crate::io::table::{Column, Table};
 use crate::model::PopulationModel;
 use crate::seeds::Seeds;
 use crate::units::Kind;
-use rand::distr::Distribution;
 use rand::rngs::StdRng;
 use rand::{Rng, RngExt, SeedableRng};
 use statrs::distribution::{ContinuousCDF, Normal};
@@ -308,17 +307,9 @@ impl Population {
             Source::Model { model, covariates } => (model, covariates),
         };
         let mut rng = StdRng::seed_from_u64(Seeds(seed).virtual_subject(index));
-        let normal = Normal::standard();
-        // η = L·z with Ω = L·Lᵀ; a third normal is drawn for every model with absorption, so
-        // a subject's draws do not depend on whether ka varies.
-        let mut z = [normal.sample(&mut rng), normal.sample(&mut rng), 0.0];
-        if model.absorption.is_some() {
-            z[2] = normal.sample(&mut rng);
-        }
-        let factor = model.omega_factor();
-        let eta = |i: usize| (0..=i).map(|j| factor[i][j] * z[j]).sum::<f64>();
-        let (eta_cl, eta_v) = (eta(0), eta(1));
-        let absorption = model.absorption.as_ref().map(|a| (a.ka.typical * eta(2).exp(), a.f, a.tlag_h));
+        let eta = model.draw_eta(&mut rng);
+        let (eta_cl, eta_v) = (eta[0], eta[1]);
+        let absorption = model.absorption.as_ref().map(|a| (a.ka.typical * eta[2].exp(), a.f, a.tlag_h));
         let (cl_typ, v_typ, origin) = match covariates {
             Covs::Constant(cl, v) => (*cl, *v, None),
             Covs::Pool(pool) => {

@@ -39,6 +39,8 @@ const COMMANDS: &[&str] = &[
     "check doses.csv levels.csv model.toml covariates.csv",
     "verify --format csv -o out/verify.csv",
     "report p01.toml --draws 200 -o out/report.pdf --svg out/report.svg",
+    "vpc --model model.toml --doses doses.csv --levels levels.csv --covariates covariates.csv \
+     --replicates 100 --bins 0,4h,12h,48h --format csv -o out/vpc.csv --svg out/vpc.svg",
 ];
 
 /// Values that break something: empty, signs, zero, extremes, non-finite spellings, garbage,

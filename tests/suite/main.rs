@@ -34,3 +34,4 @@ mod single_dose;
 mod sweep;
 mod tables;
 mod verify;
+mod vpc;
