@@ -2,16 +2,17 @@
 
 use super::args::{OutputArgs, choice, warn, whole};
 use super::study::StudyArgs;
-use cistern::diagnostics::{Diagnostics, SIMULATIONS, for_population};
+use cistern::diagnostics::Diagnostics;
+use cistern::diagnostics::plots::figures;
 use cistern::error::Problems;
-use cistern::fit::{FitOptions, Intervals, fit_all};
 use cistern::io::output::{
     CAUTION, Column, CsvWriter, Format, RunFiles, fit_to_width, io_failure, readable, render_table,
     write_json,
 };
 use cistern::population::summary::{Estimated, Estimation};
-use cistern::population::{Method, Options, estimate, quadrature::MAX_NODES};
+use cistern::population::{Method, Options, quadrature::MAX_NODES};
 use cistern::spec::Needs;
+use cistern::workflow::population::{estimate_and_diagnose, individual_fits};
 use cistern::workflow::{Required, Study};
 use cistern::{Error, Origin};
 use clap::Args;
@@ -62,6 +63,10 @@ pub struct PopulationArgs {
     /// columns of `fit --diagnostics-out`)
     #[arg(long, value_name = "FILE")]
     diagnostics_out: Option<String>,
+    /// Also write the diagnostic plots as SVG into DIR (which must exist), as `fit
+    /// --plots-dir` does; the individual fits and random effects are those of --subjects-out
+    #[arg(long, value_name = "DIR")]
+    plots_dir: Option<String>,
     #[command(flatten)]
     output: OutputArgs,
 }
@@ -99,6 +104,7 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         .as_deref()
         .map(|p| files.open(Origin::Flag("--diagnostics-out".into()), p))
         .transpose()?;
+    let plots_dir = super::plots::PlotsDir::open(&mut files, args.plots_dir.as_deref())?;
     let options = Options {
         method: args.method,
         nodes: args.nodes.map(|n| n as usize),
@@ -106,9 +112,10 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         bootstrap: args.bootstrap as usize,
         seed: settings.seed,
     };
-    let mut result = estimate(&subjects, &model, &options)?;
-    let diagnostics = for_population(&subjects, &result, settings.seed, SIMULATIONS);
-    result.warnings.extend(diagnostics.warnings.iter().cloned());
+    let (result, diagnostics) = estimate_and_diagnose(&subjects, &model, &options)?;
+    let fits = (subjects_sink.is_some() || plots_dir.is_some())
+        .then(|| individual_fits(&subjects, &result, settings.seed))
+        .unwrap_or_default();
     for note in &result.notes {
         args.output.note(note);
     }
@@ -138,12 +145,6 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         write!(s.writer(), "{header}{}", result.model.to_toml()).map_err(io_failure)?;
     }
     if let Some(s) = subjects_sink.as_mut() {
-        // The individual estimates are the MAP fits against the estimated model: exactly
-        // what `fit --method map` gives with the written model file.
-        let fit_options =
-            FitOptions { intervals: Intervals::Laplace, seed: settings.seed, ..FitOptions::default() };
-        let fits: Vec<_> =
-            fit_all(&subjects, Some(&result.model), &fit_options).into_iter().flatten().collect();
         super::fit::write_csv(s.writer(), &fits).map_err(io_failure)?;
         if args.output.format() != Format::Csv {
             eprintln!("caution: {CAUTION}");
@@ -164,6 +165,9 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
     }
     if let Some(s) = subjects_sink {
         s.finish()?;
+    }
+    if let Some(dir) = plots_dir {
+        dir.write(&figures(&diagnostics.rows, &subjects, &fits), &args.output.notify)?;
     }
     Ok(())
 }
