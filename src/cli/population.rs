@@ -9,7 +9,7 @@ use cistern::io::output::{
     CAUTION, Column, CsvWriter, Format, RunFiles, fit_to_width, io_failure, readable, render_table,
     write_json,
 };
-use cistern::population::summary::{Estimated, Estimation};
+use cistern::population::summary::{Estimation, describe};
 use cistern::population::{Method, Options, quadrature::MAX_NODES};
 use cistern::spec::Needs;
 use cistern::workflow::population::{estimate_and_diagnose, individual_fits};
@@ -172,15 +172,6 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
     Ok(())
 }
 
-/// Every estimate in reading order: (object, key, estimate).
-fn rows(r: &Estimation) -> Vec<(&'static str, &str, &Estimated)> {
-    let mut out = Vec::new();
-    for (object, named) in [("typical", &r.typical), ("bsv", &r.bsv), ("residual", &r.residual)] {
-        out.extend(named.0.iter().map(|(k, e)| (object, k.as_str(), e)));
-    }
-    out
-}
-
 fn write_csv(out: &mut dyn Write, r: &Estimation) -> std::io::Result<()> {
     let mut w = CsvWriter::new(out);
     w.row([
@@ -199,7 +190,7 @@ fn write_csv(out: &mut dyn Write, r: &Estimation) -> std::io::Result<()> {
         Some(x) => w.number(x),
         None => w.text(""),
     };
-    for (object, key, e) in rows(r) {
+    for (object, key, e) in r.rows() {
         w.text(object)?;
         w.text(key)?;
         w.number(e.estimate.value)?;
@@ -217,35 +208,6 @@ fn write_csv(out: &mut dyn Write, r: &Estimation) -> std::io::Result<()> {
         w.row(["objective", key, &cistern::io::output::full(value), "", "", "", "", "false", "", ""])?;
     }
     w.finish().map(drop)
-}
-
-/// A label for an estimate's key.
-fn describe(object: &str, key: &str) -> String {
-    let fixed = match (object, key) {
-        ("typical", "cl_l_h") => "typical clearance (L/h)",
-        ("typical", "v_l") => "typical volume (L)",
-        ("typical", "ka_per_h") => "typical ka (1/h)",
-        ("bsv", "cl_cv") => "variability of clearance (CV)",
-        ("bsv", "v_cv") => "variability of volume (CV)",
-        ("bsv", "ka_cv") => "variability of ka (CV)",
-        ("residual", "additive_mg_l") => "additive residual SD (mg/L)",
-        ("residual", "proportional_cv") => "proportional residual (CV)",
-        _ => "",
-    };
-    if !fixed.is_empty() {
-        return fixed.into();
-    }
-    if let Some(rest) = key.strip_suffix("_correlation") {
-        return format!("correlation of η {}", rest.replace('_', " and η "));
-    }
-    if let Some(rest) = key.strip_suffix("_effect") {
-        let (parameter, covariate) = rest.split_once('_').unwrap_or((rest, ""));
-        return format!(
-            "effect of {covariate} on {}",
-            if parameter == "cl" { "clearance" } else { "volume" }
-        );
-    }
-    key.into()
 }
 
 fn table(r: &Estimation, width: Option<usize>) -> String {
@@ -287,7 +249,8 @@ fn table(r: &Estimation, width: Option<usize>) -> String {
     let interval = |c: Option<[f64; 2]>| {
         c.map_or("—".to_string(), |c| format!("{} – {}", readable(c[0], 4), readable(c[1], 4)))
     };
-    let lines: Vec<Vec<String>> = rows(r)
+    let lines: Vec<Vec<String>> = r
+        .rows()
         .into_iter()
         .map(|(object, key, e)| {
             let mut row = vec![

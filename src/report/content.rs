@@ -762,14 +762,27 @@ fn methods(a: &Analysis, b: &mut Vec<Block>) {
     ] {
         b.push(Block::Note(r.into()));
     }
+    reproducibility(&a.digests, a.seed, &a.command_line, &a.version, b);
+}
+
+/// The reproducibility block every report ends with: each input's SHA-256, the seed, the
+/// command and the version.
+pub(crate) fn reproducibility(
+    digests: &[(String, String)],
+    seed: u64,
+    command_line: &str,
+    version: &str,
+    b: &mut Vec<Block>,
+) {
     b.push(Block::Heading("Reproducibility".into()));
     b.push(Block::Table(Table {
         headers: vec!["input file".into(), "SHA-256".into()],
-        rows: a.digests.iter().map(|(path, sha)| vec![path.clone(), sha.clone()]).collect(),
+        rows: digests.iter().map(|(path, sha)| vec![path.clone(), sha.clone()]).collect(),
         right: vec![false, false],
     }));
-    let mut kv: Vec<(String, String)> = vec![("Seed".into(), a.seed.to_string())];
-    kv.push(("Command".into(), a.command_line.clone()));
-    kv.push(("Version".into(), format!("cistern {}", a.version)));
-    b.push(Block::KeyValues(kv));
+    b.push(Block::KeyValues(vec![
+        ("Seed".into(), seed.to_string()),
+        ("Command".into(), command_line.to_string()),
+        ("Version".into(), format!("cistern {version}")),
+    ]));
 }

@@ -6,6 +6,7 @@ pub mod layout;
 #[cfg(feature = "pdf")]
 pub mod pdf;
 pub mod plot;
+pub mod population;
 pub mod provenance;
 pub mod svg;
 pub(crate) mod text;

@@ -50,6 +50,15 @@ impl Report {
     }
 }
 
+/// Every input file of `spec` (the case file first) with its SHA-256, for the reproducibility
+/// block.
+pub(crate) fn input_digests(spec: &Spec) -> Result<Vec<(String, String)>> {
+    spec.files()
+        .into_iter()
+        .map(|f| Ok((f.to_string_lossy().into_owned(), sha256_hex(&input::read(&f)?))))
+        .collect()
+}
+
 /// Fit the spec's subject against its model (or, without levels, draw from the model's prior
 /// for its covariates), plan over the grid, sweep the grid over a
 /// virtual population when the spec asks, and lay out the report.
@@ -96,12 +105,7 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
         }
         _ => None,
     };
-    let mut digests = Vec::new();
-    for f in spec.files() {
-        let path = f.to_string_lossy().into_owned();
-        let bytes = input::read(&f)?;
-        digests.push((path, sha256_hex(&bytes)));
-    }
+    let digests = input_digests(spec)?;
     // The subject's non-compartmental summary, by the defaults of `cistern nca`.
     let nca = crate::nca::analyse_subject(data, &crate::nca::NcaOptions::default());
     let analysis = Analysis {
