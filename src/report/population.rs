@@ -2,7 +2,7 @@
 //! parameter table, the objective, the warnings, the diagnostic plots, methods and references,
 //! and the reproducibility block, as a [`Document`].
 
-use super::content::reproducibility;
+use super::content::Stamp;
 use super::layout::{Block, Document, Table};
 use super::plot::Figure;
 use crate::dosing::Route;
@@ -27,18 +27,8 @@ pub struct PopulationAnalysis<'a> {
     /// The figures, in the order shown: the diagnostic plots, then the visual predictive check
     /// when there is one.
     pub figures: &'a [Figure],
-    /// (input path, SHA-256) pairs.
-    pub digests: Vec<(String, String)>,
-    /// The seed used.
-    pub seed: u64,
-    /// The command line that produced the report.
-    pub command_line: String,
-    /// Tool version.
-    pub version: String,
-    /// Creation time, ISO 8601 UTC.
-    pub created_iso: String,
-    /// The caution text.
-    pub caution: String,
+    /// Where the report came from, and its caution.
+    pub stamp: Stamp,
 }
 
 /// A share as a percentage with one decimal.
@@ -201,18 +191,8 @@ fn methods_section(b: &mut Vec<Block>) {
 pub fn build(a: &PopulationAnalysis) -> Document {
     let e = a.estimation;
     let mut b = Vec::new();
-    let mut head = vec![
-        ("Drug (model)".to_string(), e.model.drug.clone().unwrap_or_else(|| "unnamed drug".into())),
-        ("Created".to_string(), a.created_iso.clone()),
-        ("Tool".to_string(), format!("cistern {}", a.version)),
-    ];
-    if let Some(author) = &a.author {
-        head.push(("Prepared by".into(), author.clone()));
-    }
-    b.push(Block::KeyValues(head));
-    if let Some(note) = &a.note {
-        b.push(Block::Note(note.clone()));
-    }
+    let drug = e.model.drug.clone().unwrap_or_else(|| "unnamed drug".into());
+    b.extend(a.stamp.head(vec![("Drug (model)".to_string(), drug)], &a.author, &a.note));
     data_section(a, &mut b);
     model_section(e, &mut b);
     parameter_section(e, &mut b);
@@ -231,13 +211,6 @@ pub fn build(a: &PopulationAnalysis) -> Document {
     b.extend(a.figures.iter().cloned().map(Block::Figure));
     b.push(Block::PageBreak);
     methods_section(&mut b);
-    reproducibility(&a.digests, a.seed, &a.command_line, &a.version, &mut b);
-    Document {
-        title: a.title.clone(),
-        caution: a.caution.clone(),
-        footer: format!("cistern {} · created {}", a.version, a.created_iso),
-        created_iso: a.created_iso.clone(),
-        author: a.author.clone(),
-        blocks: b,
-    }
+    a.stamp.reproducibility(&mut b);
+    a.stamp.document(&a.title, &a.author, b)
 }

@@ -2,7 +2,7 @@
 //! individual fit against the estimated model, shared by `cistern population` and the
 //! population report.
 
-use super::report::{Provenance, input_digests};
+use super::report::Provenance;
 use super::study::{Required, Study};
 use crate::diagnostics::{Diagnostics, SIMULATIONS, for_population, plots};
 use crate::error::{Error, Problems, Result};
@@ -113,12 +113,7 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<PopulationReport> {
         subjects,
         estimation: &estimation,
         figures: &figures,
-        digests: input_digests(spec)?,
-        seed: options.seed,
-        command_line: provenance.command_line,
-        version: env!("CARGO_PKG_VERSION").to_string(),
-        created_iso: provenance.created_iso,
-        caution: CAUTION.to_string(),
+        stamp: provenance.stamp(spec, options.seed)?,
     };
     let document = build(&analysis);
     let notices = Notices { notes: estimation.notes.clone(), warnings: study.notices.warnings.clone() };
