@@ -396,3 +396,26 @@ fn population_report_has_its_sections_plots_and_caution_on_every_page() {
         }
     }
 }
+
+#[test]
+fn a_bad_population_table_is_refused_at_its_keys_with_nothing_written() {
+    let dir = tempfile::tempdir().unwrap();
+    let text = std::fs::read_to_string(manifest().join("tests/cases/population-report.toml")).unwrap();
+    let inputs = theoph().to_string_lossy().into_owned();
+    let text = text.replace("../reference/population/theoph", &inputs);
+    let bad = text.replace("method = \"laplace\"", "method = \"newton\"\nnodes = 99");
+    std::fs::write(dir.path().join("bad.toml"), bad).unwrap();
+    let ran = cistern_at(dir.path(), &["report", "bad.toml", "-o", "bad.pdf"], EPOCH);
+    assert_eq!(ran.code, 2, "{}", ran.stderr);
+    // Both problems at once, each at its key and line.
+    assert!(ran.stderr.contains("key population.method") && ran.stderr.contains("newton"), "{}", ran.stderr);
+    assert!(ran.stderr.contains("key population.nodes") && ran.stderr.contains("99"), "{}", ran.stderr);
+    assert!(ran.stderr.contains("line "), "{}", ran.stderr);
+    assert!(!dir.path().join("bad.pdf").exists());
+    // One subject's settings do not apply to a population report.
+    std::fs::write(dir.path().join("good.toml"), text).unwrap();
+    let ran = cistern_at(dir.path(), &["report", "good.toml", "--subject", "1", "-o", "good.pdf"], EPOCH);
+    assert_eq!(ran.code, 2, "{}", ran.stderr);
+    assert!(ran.stderr.contains("--subject"), "{}", ran.stderr);
+    assert!(!dir.path().join("good.pdf").exists());
+}
