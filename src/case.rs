@@ -30,10 +30,20 @@
 //! max_dose = "2g"
 //! max_peak = "60mg/l"
 //! ```
+//!
+//! A case with a `[population]` table names a population analysis instead: the model is the
+//! start model, every subject of the study is analysed, and `cistern report` writes the
+//! population report.
+//!
+//! ```toml
+//! [population]
+//! method = "laplace"   # or "quadrature" (the default)
+//! nodes = 7            # quadrature nodes per random effect [default: chosen per subject]
+//! ```
 
 use crate::error::{Origin, Result};
 use crate::io::tomlfile::TomlText;
-use crate::spec::{ReportSpec, Setting, Spec, Stated, SweepSpec};
+use crate::spec::{PopulationSpec, ReportSpec, Setting, Spec, Stated, SweepSpec};
 use serde::Deserialize;
 use std::path::{Path, PathBuf};
 use toml::Spanned;
@@ -47,6 +57,7 @@ struct RawCase {
     plan: Option<RawPlan>,
     limits: Option<RawLimits>,
     sweep: Option<RawSweep>,
+    population: Option<RawPopulation>,
     report: Option<RawReport>,
 }
 
@@ -105,6 +116,13 @@ struct RawLimits {
 struct RawSweep {
     subjects: Spanned<u64>,
     covariates: Option<Spanned<String>>,
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct RawPopulation {
+    method: Option<Spanned<String>>,
+    nodes: Option<Spanned<u64>>,
 }
 
 #[derive(Deserialize)]
@@ -177,6 +195,10 @@ pub fn read(path: &str) -> Result<Spec> {
     spec.sweep = raw.sweep.as_ref().map(|s| SweepSpec {
         subjects: typed("sweep.subjects", Some(&s.subjects)),
         covariates: file(&s.covariates, "sweep.covariates"),
+    });
+    spec.population = raw.population.as_ref().map(|p| PopulationSpec {
+        method: value(&p.method, "population.method"),
+        nodes: typed("population.nodes", p.nodes.as_ref()),
     });
     let header = raw.case.as_ref();
     spec.subject = value(&header.and_then(|h| h.subject.clone()), "case.subject");

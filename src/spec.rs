@@ -143,6 +143,16 @@ pub struct SweepSpec {
     pub covariates: Setting<PathBuf>,
 }
 
+/// A population analysis, as stated (a case file's `[population]` table): the start model is
+/// the inputs' model; the report then describes the population, not one subject.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PopulationSpec {
+    /// How each subject's likelihood is integrated (`quadrature` or `laplace`).
+    pub method: Setting<String>,
+    /// Gauss–Hermite nodes per random effect (quadrature); chosen per subject when unset.
+    pub nodes: Setting<u64>,
+}
+
 /// What a report shows besides the analysis.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct ReportSpec {
@@ -173,6 +183,8 @@ pub struct Spec {
     pub grid: GridSpec,
     /// A sweep over a virtual population.
     pub sweep: Option<SweepSpec>,
+    /// A population analysis (the report then is a population report).
+    pub population: Option<PopulationSpec>,
     /// Report options.
     pub report: ReportSpec,
 }
@@ -213,6 +225,7 @@ impl Spec {
                 },
             },
             sweep: None,
+            population: None,
             report: ReportSpec::default(),
         }
     }

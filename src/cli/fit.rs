@@ -80,6 +80,11 @@ pub struct FitArgs {
     /// row per subject and level)
     #[arg(long, value_name = "FILE")]
     diagnostics_out: Option<String>,
+    /// Also write the diagnostic plots as SVG into DIR (which must exist): observed against
+    /// predicted, CWRES against time and prediction, the NPDE's QQ plot, the individual fits
+    /// and the random effects against the covariates
+    #[arg(long, value_name = "DIR")]
+    plots_dir: Option<String>,
     #[command(flatten)]
     output: OutputArgs,
 }
@@ -137,6 +142,7 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
         .as_deref()
         .map(|p| files.open(Origin::Flag("--diagnostics-out".into()), p))
         .transpose()?;
+    let plots_dir = super::plots::PlotsDir::open(&mut files, args.plots_dir.as_deref())?;
     let options = FitOptions {
         method,
         intervals: args.intervals,
@@ -218,6 +224,12 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     }
     if let Some(s) = diagnostics_sink {
         s.finish()?;
+    }
+    if let Some(dir) = plots_dir {
+        dir.write(
+            &cistern::diagnostics::plots::figures(&diagnostics.rows, &subjects, &fits),
+            &args.output.notify,
+        )?;
     }
     if failures.is_empty() {
         Ok(())

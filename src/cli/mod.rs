@@ -8,6 +8,7 @@ mod fit;
 mod merge;
 mod nca;
 mod plan;
+mod plots;
 mod population;
 mod regimen_grid;
 mod report;

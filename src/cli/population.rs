@@ -2,16 +2,17 @@
 
 use super::args::{OutputArgs, choice, warn, whole};
 use super::study::StudyArgs;
-use cistern::diagnostics::{Diagnostics, SIMULATIONS, for_population};
+use cistern::diagnostics::Diagnostics;
+use cistern::diagnostics::plots::figures;
 use cistern::error::Problems;
-use cistern::fit::{FitOptions, Intervals, fit_all};
 use cistern::io::output::{
     CAUTION, Column, CsvWriter, Format, RunFiles, fit_to_width, io_failure, readable, render_table,
     write_json,
 };
-use cistern::population::summary::{Estimated, Estimation};
-use cistern::population::{Method, Options, estimate, quadrature::MAX_NODES};
+use cistern::population::summary::{Estimation, describe};
+use cistern::population::{Method, Options, quadrature::MAX_NODES};
 use cistern::spec::Needs;
+use cistern::workflow::population::{estimate_and_diagnose, individual_fits};
 use cistern::workflow::{Required, Study};
 use cistern::{Error, Origin};
 use clap::Args;
@@ -63,6 +64,10 @@ pub struct PopulationArgs {
     /// columns of `fit --diagnostics-out`)
     #[arg(long, value_name = "FILE")]
     diagnostics_out: Option<String>,
+    /// Also write the diagnostic plots as SVG into DIR (which must exist), as `fit
+    /// --plots-dir` does; the individual fits and random effects are those of --subjects-out
+    #[arg(long, value_name = "DIR")]
+    plots_dir: Option<String>,
     #[command(flatten)]
     output: OutputArgs,
 }
@@ -100,6 +105,7 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         .as_deref()
         .map(|p| files.open(Origin::Flag("--diagnostics-out".into()), p))
         .transpose()?;
+    let plots_dir = super::plots::PlotsDir::open(&mut files, args.plots_dir.as_deref())?;
     let options = Options {
         method: args.method,
         nodes: args.nodes.map(|n| n as usize),
@@ -107,9 +113,13 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         bootstrap: args.bootstrap as usize,
         seed: settings.seed,
     };
-    let mut result = estimate(&subjects, &model, &options)?;
-    let diagnostics = for_population(&subjects, &result, settings.seed, SIMULATIONS);
-    result.warnings.extend(diagnostics.warnings.iter().cloned());
+    let (result, diagnostics) = estimate_and_diagnose(&subjects, &model, &options)?;
+    // The individual fits cost a MAP fit per subject: only when written or drawn.
+    let fits = if subjects_sink.is_some() || plots_dir.is_some() {
+        individual_fits(&subjects, &result, settings.seed)
+    } else {
+        Vec::new()
+    };
     for note in &result.notes {
         args.output.note(note);
     }
@@ -139,12 +149,6 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         write!(s.writer(), "{header}{}", result.model.to_toml()).map_err(io_failure)?;
     }
     if let Some(s) = subjects_sink.as_mut() {
-        // The individual estimates are the MAP fits against the estimated model: exactly
-        // what `fit --method map` gives with the written model file.
-        let fit_options =
-            FitOptions { intervals: Intervals::Laplace, seed: settings.seed, ..FitOptions::default() };
-        let fits: Vec<_> =
-            fit_all(&subjects, Some(&result.model), &fit_options).into_iter().flatten().collect();
         super::fit::write_csv(s.writer(), &fits).map_err(io_failure)?;
         if args.output.format() != Format::Csv {
             eprintln!("caution: {CAUTION}");
@@ -166,16 +170,10 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
     if let Some(s) = subjects_sink {
         s.finish()?;
     }
-    Ok(())
-}
-
-/// Every estimate in reading order: (object, key, estimate).
-fn rows(r: &Estimation) -> Vec<(&'static str, &str, &Estimated)> {
-    let mut out = Vec::new();
-    for (object, named) in [("typical", &r.typical), ("bsv", &r.bsv), ("residual", &r.residual)] {
-        out.extend(named.0.iter().map(|(k, e)| (object, k.as_str(), e)));
+    if let Some(dir) = plots_dir {
+        dir.write(&figures(&diagnostics.rows, &subjects, &fits), &args.output.notify)?;
     }
-    out
+    Ok(())
 }
 
 fn write_csv(out: &mut dyn Write, r: &Estimation) -> std::io::Result<()> {
@@ -196,7 +194,7 @@ fn write_csv(out: &mut dyn Write, r: &Estimation) -> std::io::Result<()> {
         Some(x) => w.number(x),
         None => w.text(""),
     };
-    for (object, key, e) in rows(r) {
+    for (object, key, e) in r.rows() {
         w.text(object)?;
         w.text(key)?;
         w.number(e.estimate.value)?;
@@ -214,35 +212,6 @@ fn write_csv(out: &mut dyn Write, r: &Estimation) -> std::io::Result<()> {
         w.row(["objective", key, &cistern::io::output::full(value), "", "", "", "", "false", "", ""])?;
     }
     w.finish().map(drop)
-}
-
-/// A label for an estimate's key.
-fn describe(object: &str, key: &str) -> String {
-    let fixed = match (object, key) {
-        ("typical", "cl_l_h") => "typical clearance (L/h)",
-        ("typical", "v_l") => "typical volume (L)",
-        ("typical", "ka_per_h") => "typical ka (1/h)",
-        ("bsv", "cl_cv") => "variability of clearance (CV)",
-        ("bsv", "v_cv") => "variability of volume (CV)",
-        ("bsv", "ka_cv") => "variability of ka (CV)",
-        ("residual", "additive_mg_l") => "additive residual SD (mg/L)",
-        ("residual", "proportional_cv") => "proportional residual (CV)",
-        _ => "",
-    };
-    if !fixed.is_empty() {
-        return fixed.into();
-    }
-    if let Some(rest) = key.strip_suffix("_correlation") {
-        return format!("correlation of η {}", rest.replace('_', " and η "));
-    }
-    if let Some(rest) = key.strip_suffix("_effect") {
-        let (parameter, covariate) = rest.split_once('_').unwrap_or((rest, ""));
-        return format!(
-            "effect of {covariate} on {}",
-            if parameter == "cl" { "clearance" } else { "volume" }
-        );
-    }
-    key.into()
 }
 
 fn table(r: &Estimation, width: Option<usize>) -> String {
@@ -284,7 +253,8 @@ fn table(r: &Estimation, width: Option<usize>) -> String {
     let interval = |c: Option<[f64; 2]>| {
         c.map_or("—".to_string(), |c| format!("{} – {}", readable(c[0], 4), readable(c[1], 4)))
     };
-    let lines: Vec<Vec<String>> = rows(r)
+    let lines: Vec<Vec<String>> = r
+        .rows()
         .into_iter()
         .map(|(object, key, e)| {
             let mut row = vec![

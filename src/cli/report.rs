@@ -4,13 +4,15 @@
 use super::args::{Notify, whole};
 use cistern::io::output::{CAUTION, RunFiles, io_failure};
 use cistern::report::provenance::iso_utc;
+use cistern::workflow::population;
 use cistern::workflow::report::{Provenance, report};
-use cistern::{Error, Origin, case};
+use cistern::{Error, InputError, Origin, case};
 use clap::Args;
 use std::path::Path;
 use std::time::{SystemTime, UNIX_EPOCH};
 
-/// Write the regimen report of a case as a PDF.
+/// Write the regimen report of a case as a PDF, or the population report of a case with a
+/// [population] table.
 #[derive(Args, Debug)]
 #[command(after_help = "\
 Examples:
@@ -20,7 +22,9 @@ Examples:
 
 The case file names the model, doses, levels and covariates files (paths relative to the case
 file), the targets, limits and candidate regimens, the seed and the report options; flags
-given here override it. Every page carries the caution that the report is not clinical advice.
+given here override it. A case with a [population] table (method, nodes) names a population
+analysis instead: the model is the start model, and the report describes the estimated
+population model, its diagnostics and their plots. Every page carries the caution that the report is not clinical advice.
 Set SOURCE_DATE_EPOCH to fix the creation time (reproducible reports).")]
 pub struct ReportArgs {
     /// The case file (TOML), as with --case
@@ -32,7 +36,7 @@ pub struct ReportArgs {
     /// The PDF to write [default: <case name>-report.pdf in the current directory]
     #[arg(short = 'o', long = "output", value_name = "FILE.pdf")]
     output: Option<String>,
-    /// Also write the concentration plot as SVG
+    /// Also write the concentration plot as SVG (a population report: every diagnostic plot)
     #[arg(long, value_name = "FILE.svg")]
     svg: Option<String>,
     /// The subject to report on (overrides the case)
@@ -71,6 +75,21 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
         return Err(Error::Usage("give the case file: cistern report --case CASE.toml".into()));
     };
     let mut spec = case::read(case_path)?;
+    if spec.population.is_some() {
+        // A population report describes the whole study: one subject's settings do not apply.
+        let given = [
+            ("--subject", args.subject.is_some()),
+            ("--draws", args.draws.is_some()),
+            ("--start", args.start.is_some()),
+        ];
+        if let Some((flag, _)) = given.iter().find(|(_, g)| *g) {
+            return Err(InputError::flag(
+                *flag,
+                "does not apply to a population report (the case has [population])",
+            )
+            .into());
+        }
+    }
     spec.subject.set("--subject", args.subject.clone());
     spec.seed.set("--seed", args.seed);
     spec.draws.set("--draws", args.draws);
@@ -91,15 +110,20 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
     let mut files = RunFiles::new(spec.files());
     let mut pdf_sink = files.open(Origin::Flag("-o".into()), &output)?;
     let svg_sink = args.svg.as_deref().map(|p| files.open(Origin::Flag("--svg".into()), p)).transpose()?;
-    let made = report(&spec, provenance)?;
-    let bytes = made.pdf()?;
+    let (bytes, svg, notices) = if spec.population.is_some() {
+        let made = population::report(&spec, provenance)?;
+        (made.pdf()?, made.svg(), made.notices)
+    } else {
+        let made = report(&spec, provenance)?;
+        (made.pdf()?, made.svg(), made.notices)
+    };
     pdf_sink.writer().write_all(&bytes).map_err(io_failure)?;
     if let Some(mut sink) = svg_sink {
-        sink.writer().write_all(made.svg().as_bytes()).map_err(io_failure)?;
+        sink.writer().write_all(svg.as_bytes()).map_err(io_failure)?;
         sink.finish()?;
     }
     pdf_sink.finish()?;
-    args.notify.notices(&made.notices);
+    args.notify.notices(&notices);
     args.notify.note(&format!("wrote {output}"));
     eprintln!("caution: {CAUTION}");
     Ok(())

@@ -5,6 +5,7 @@
 //! section 12, gives the definitions and sources.
 
 pub mod misfit;
+pub mod plots;
 pub mod residuals;
 pub mod vpc;
 

@@ -160,6 +160,36 @@ pub struct Estimation {
     pub model: PopulationModel,
 }
 
+/// A label for an estimate's (object, key) as `cistern population` writes them: `typical
+/// clearance (L/h)`, `effect of weight_kg on volume`.
+pub fn describe(object: &str, key: &str) -> String {
+    let fixed = match (object, key) {
+        ("typical", "cl_l_h") => "typical clearance (L/h)",
+        ("typical", "v_l") => "typical volume (L)",
+        ("typical", "ka_per_h") => "typical ka (1/h)",
+        ("bsv", "cl_cv") => "variability of clearance (CV)",
+        ("bsv", "v_cv") => "variability of volume (CV)",
+        ("bsv", "ka_cv") => "variability of ka (CV)",
+        ("residual", "additive_mg_l") => "additive residual SD (mg/L)",
+        ("residual", "proportional_cv") => "proportional residual (CV)",
+        _ => "",
+    };
+    if !fixed.is_empty() {
+        return fixed.into();
+    }
+    if let Some(rest) = key.strip_suffix("_correlation") {
+        return format!("correlation of η {}", rest.replace('_', " and η "));
+    }
+    if let Some(rest) = key.strip_suffix("_effect") {
+        let (parameter, covariate) = rest.split_once('_').unwrap_or((rest, ""));
+        return format!(
+            "effect of {covariate} on {}",
+            if parameter == "cl" { "clearance" } else { "volume" }
+        );
+    }
+    key.into()
+}
+
 /// An estimate on the model file's scale from φ's value and standard error: (value, SE, 95 %
 /// interval), by the delta method and the transformed interval.
 fn transform(free: Free, phi: f64, se: Option<f64>) -> (f64, Option<f64>, Option<[f64; 2]>) {
@@ -222,6 +252,16 @@ fn stated(model: &PopulationModel, free: Free) -> f64 {
 }
 
 impl Estimation {
+    /// Every estimate in reading order: (object, key, estimate).
+    pub fn rows(&self) -> Vec<(&'static str, &str, &Estimated)> {
+        let mut out = Vec::new();
+        for (object, named) in [("typical", &self.typical), ("bsv", &self.bsv), ("residual", &self.residual)]
+        {
+            out.extend(named.0.iter().map(|(k, e)| (object, k.as_str(), e)));
+        }
+        out
+    }
+
     /// Summarise an outcome.
     pub(super) fn new(
         outcome: Outcome,

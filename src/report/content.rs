@@ -61,6 +61,14 @@ pub struct Analysis<'a> {
     pub advice: Option<&'a Advice>,
     /// An optional sweep's summary.
     pub sweep: Option<&'a Summary>,
+    /// Where the report came from, and its caution.
+    pub stamp: Stamp,
+}
+
+/// What every report carries besides its analysis: where it came from (the reproducibility
+/// block and the footer) and the caution shown on every page.
+#[derive(Debug, Clone)]
+pub struct Stamp {
     /// (input path, SHA-256) pairs.
     pub digests: Vec<(String, String)>,
     /// The seed used.
@@ -73,6 +81,53 @@ pub struct Analysis<'a> {
     pub created_iso: String,
     /// The caution text.
     pub caution: String,
+}
+
+impl Stamp {
+    /// The reproducibility block every report ends with: each input's SHA-256, the seed, the
+    /// command and the version.
+    pub(crate) fn reproducibility(&self, b: &mut Vec<Block>) {
+        b.push(Block::Heading("Reproducibility".into()));
+        b.push(Block::Table(Table {
+            headers: vec!["input file".into(), "SHA-256".into()],
+            rows: self.digests.iter().map(|(path, sha)| vec![path.clone(), sha.clone()]).collect(),
+            right: vec![false, false],
+        }));
+        b.push(Block::KeyValues(vec![
+            ("Seed".into(), self.seed.to_string()),
+            ("Command".into(), self.command_line.clone()),
+            ("Version".into(), format!("cistern {}", self.version)),
+        ]));
+    }
+
+    /// The report's head: `about` (what it is about), the creation time, the tool, the author,
+    /// and the case's note under them.
+    pub(crate) fn head(
+        &self,
+        about: Vec<(String, String)>,
+        author: &Option<String>,
+        note: &Option<String>,
+    ) -> Vec<Block> {
+        let mut pairs = about;
+        pairs.push(("Created".into(), self.created_iso.clone()));
+        pairs.push(("Tool".into(), format!("cistern {}", self.version)));
+        pairs.extend(author.iter().map(|a| ("Prepared by".to_string(), a.clone())));
+        let mut blocks = vec![Block::KeyValues(pairs)];
+        blocks.extend(note.iter().map(|n| Block::Note(n.clone())));
+        blocks
+    }
+
+    /// The document of `blocks`, with the caution, the footer and the dates.
+    pub(crate) fn document(&self, title: &str, author: &Option<String>, blocks: Vec<Block>) -> Document {
+        Document {
+            title: title.to_string(),
+            caution: self.caution.clone(),
+            footer: format!("cistern {} · created {}", self.version, self.created_iso),
+            created_iso: self.created_iso.clone(),
+            author: author.clone(),
+            blocks,
+        }
+    }
 }
 
 const BLUE: (f32, f32, f32) = (0.12, 0.35, 0.65);
@@ -157,7 +212,7 @@ pub fn concentration_plots(a: &Analysis) -> Vec<PlotSpec> {
     let residual = a.fit.and_then(|f| f.residual).unwrap_or(a.model.residual);
     let step = (a.draws.len() / 400).max(1);
     let normal = Normal::new(0.0, 1.0).expect("standard normal");
-    let mut rng = StdRng::seed_from_u64(crate::seeds::Seeds(a.seed).report_bands());
+    let mut rng = StdRng::seed_from_u64(crate::seeds::Seeds(a.stamp.seed).report_bands());
     let curves: Vec<Vec<f64>> = a
         .draws
         .iter()
@@ -246,19 +301,8 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
     let mut b = Vec::new();
     let who = a.subject.unwrap_or("the subject").to_string();
     let drug = a.model.drug.clone().unwrap_or_else(|| "unnamed drug".into());
-    let mut head = vec![
-        ("Subject".to_string(), who.clone()),
-        ("Drug (model)".to_string(), drug),
-        ("Created".to_string(), a.created_iso.clone()),
-        ("Tool".to_string(), format!("cistern {}", a.version)),
-    ];
-    if let Some(author) = &a.author {
-        head.push(("Prepared by".into(), author.clone()));
-    }
-    b.push(Block::KeyValues(head));
-    if let Some(note) = &a.note {
-        b.push(Block::Note(note.clone()));
-    }
+    let about = vec![("Subject".to_string(), who.clone()), ("Drug (model)".to_string(), drug)];
+    b.extend(a.stamp.head(about, &a.author, &a.note));
 
     // Summary: covariates, doses, levels.
     b.push(Block::Heading("Subject and data".into()));
@@ -416,14 +460,7 @@ pub fn build(a: &Analysis, plots: &[PlotSpec]) -> Document {
         sweep_page(s, &mut b);
     }
     methods(a, &mut b);
-    Document {
-        title: a.title.clone(),
-        caution: a.caution.clone(),
-        footer: format!("cistern {} · created {}", a.version, a.created_iso),
-        created_iso: a.created_iso.clone(),
-        author: a.author.clone(),
-        blocks: b,
-    }
+    a.stamp.document(&a.title, &a.author, b)
 }
 
 /// The non-compartmental summary of the levels, without a model: a row per dosing interval with
@@ -762,14 +799,5 @@ fn methods(a: &Analysis, b: &mut Vec<Block>) {
     ] {
         b.push(Block::Note(r.into()));
     }
-    b.push(Block::Heading("Reproducibility".into()));
-    b.push(Block::Table(Table {
-        headers: vec!["input file".into(), "SHA-256".into()],
-        rows: a.digests.iter().map(|(path, sha)| vec![path.clone(), sha.clone()]).collect(),
-        right: vec![false, false],
-    }));
-    let mut kv: Vec<(String, String)> = vec![("Seed".into(), a.seed.to_string())];
-    kv.push(("Command".into(), a.command_line.clone()));
-    kv.push(("Version".into(), format!("cistern {}", a.version)));
-    b.push(Block::KeyValues(kv));
+    a.stamp.reproducibility(b);
 }

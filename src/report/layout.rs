@@ -39,6 +39,8 @@ pub enum Block {
     Plot(PlotSpec),
     /// A horizontal bar chart (e.g. probability of target attainment by regimen).
     Bars(BarChart),
+    /// A laid-out figure of one or more panels (the diagnostic plots).
+    Figure(super::plot::Figure),
     /// Start a new page.
     PageBreak,
 }

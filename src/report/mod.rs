@@ -5,7 +5,8 @@ pub mod content;
 pub mod layout;
 #[cfg(feature = "pdf")]
 pub mod pdf;
-pub(crate) mod plot;
+pub mod plot;
+pub mod population;
 pub mod provenance;
 pub mod svg;
 pub(crate) mod text;

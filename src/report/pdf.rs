@@ -73,6 +73,7 @@ pub fn render_pdf(doc: &Document) -> Result<Vec<u8>, String> {
             Block::Table(table) => flow.table(table, doc.blocks.get(i + 1).map_or(0.0, footnote_height)),
             Block::Plot(spec) => flow.scene(&plot::plot_scene(spec, CONTENT_W, PLOT_H)),
             Block::Bars(chart) => flow.scene(&plot::bars_scene(chart, CONTENT_W)),
+            Block::Figure(figure) => figure.rows().iter().for_each(|row| flow.scene(row)),
             Block::PageBreak => {
                 // A break before nothing would leave an empty page.
                 if i + 1 < doc.blocks.len() {
@@ -488,6 +489,7 @@ fn lead_height(block: &Block) -> f64 {
         }
         Block::Plot(_) => PLOT_H,
         Block::Bars(chart) => plot::bars_height(chart.labels.len()),
+        Block::Figure(figure) => figure.rows().first().map_or(0.0, |row| row.height),
         Block::PageBreak => 0.0,
     }
 }

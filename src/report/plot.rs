@@ -517,9 +517,15 @@ fn axes(spec: &PlotSpec) -> (Axis, Axis) {
     (x, y)
 }
 
-/// Lays out a plot panel `width` × `height` points.
+/// Lays out a plot panel `width` × `height` points, its axes spanning the data.
 pub fn plot_scene(spec: &PlotSpec, width: f64, height: f64) -> Scene {
     let (x_axis, y_axis) = axes(spec);
+    panel_scene(spec, x_axis, y_axis, width, height)
+}
+
+/// Lays out a plot panel `width` × `height` points on axes the caller chose (a logarithmic x
+/// axis, or the same range on both axes of an observed-against-predicted plot).
+pub fn panel_scene(spec: &PlotSpec, x_axis: Axis, y_axis: Axis, width: f64, height: f64) -> Scene {
     let entries = legend(spec);
     let y_labels: Vec<&str> = y_axis.ticks.iter().filter_map(|t| t.label.as_deref()).collect();
     let y_label_width = y_labels.iter().map(|l| text::width(l, Face::Regular, TICK_SIZE)).fold(0.0, f64::max);
@@ -720,6 +726,80 @@ pub fn plot_scene(spec: &PlotSpec, width: f64, height: f64) -> Scene {
         });
     }
     Scene { width, height, shapes }
+}
+
+impl Shape {
+    /// The shape moved by (`dx`, `dy`) points.
+    fn shifted(self, dx: f64, dy: f64) -> Shape {
+        let at = |(x, y): Pos| (x + dx, y + dy);
+        match self {
+            Shape::Line { class, runs, color, width, dash } => Shape::Line {
+                class,
+                runs: runs.into_iter().map(|r| r.into_iter().map(at).collect()).collect(),
+                color,
+                width,
+                dash,
+            },
+            Shape::Fill { points, color } => {
+                Shape::Fill { points: points.into_iter().map(at).collect(), color }
+            }
+            Shape::Dot { center, radius, color, hollow } => {
+                Shape::Dot { center: at(center), radius, color, hollow }
+            }
+            Shape::Text { at: pos, text, size, face, anchor, vertical, color } => {
+                Shape::Text { at: at(pos), text, size, face, anchor, vertical, color }
+            }
+        }
+    }
+}
+
+/// Panels side by side in rows of `columns` (small multiples), each in a cell as large as the
+/// largest panel, under an optional bold `title`.
+pub fn arrange(panels: Vec<Scene>, columns: usize, title: &str) -> Scene {
+    let columns = columns.max(1);
+    let cell_w = panels.iter().map(|p| p.width).fold(0.0, f64::max);
+    let cell_h = panels.iter().map(|p| p.height).fold(0.0, f64::max);
+    let top = if title.is_empty() { 0.0 } else { 18.0 };
+    let rows = panels.len().div_ceil(columns);
+    let mut shapes = Vec::new();
+    if !title.is_empty() {
+        shapes.push(text((0.0, 12.0), title, TITLE_SIZE, Face::Bold, Anchor::Start, INK));
+    }
+    for (i, panel) in panels.into_iter().enumerate() {
+        let (dx, dy) = ((i % columns) as f64 * cell_w, top + (i / columns) as f64 * cell_h);
+        shapes.extend(panel.shapes.into_iter().map(|s| s.shifted(dx, dy)));
+    }
+    Scene { width: cell_w * columns as f64, height: top + rows as f64 * cell_h, shapes }
+}
+
+/// A figure of one or more panels (small multiples), with the file name its SVG is written
+/// under. The PDF flows it row by row, so a figure taller than a page continues on the next.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Figure {
+    /// File name of its SVG (`observed-vs-predicted.svg`).
+    pub file: &'static str,
+    /// Title above the panels (may be empty: a single panel has its own).
+    pub title: String,
+    /// The panels, in reading order.
+    pub panels: Vec<Scene>,
+    /// Panels per row.
+    pub columns: usize,
+}
+
+impl Figure {
+    /// The whole figure as one scene (for SVG).
+    pub fn scene(&self) -> Scene {
+        arrange(self.panels.clone(), self.columns, &self.title)
+    }
+
+    /// The figure's rows as scenes, the first with the title (for the PDF's flow).
+    pub fn rows(&self) -> Vec<Scene> {
+        self.panels
+            .chunks(self.columns.max(1))
+            .enumerate()
+            .map(|(i, row)| arrange(row.to_vec(), self.columns, if i == 0 { &self.title } else { "" }))
+            .collect()
+    }
 }
 
 /// Height of a bar chart with `bars` bars.

@@ -3,7 +3,7 @@
 //! (`textLength`), so a viewer that substitutes a wider font still keeps the layout.
 
 use super::layout::{PlotSpec, Rgb};
-use super::plot::{self, Anchor, Shape};
+use super::plot::{self, Anchor, Scene, Shape};
 use super::text::{self, Face};
 use std::fmt::Write;
 
@@ -47,26 +47,31 @@ const CAUTION_LINE: f64 = 9.0;
 /// Renders the panels as one SVG document, with `caution` in small print under them (the
 /// figure may travel without the report around it).
 pub fn render_svg(panels: &[PlotSpec], caution: &str) -> String {
+    let scenes: Vec<Scene> = panels.iter().map(|spec| plot::plot_scene(spec, PANEL_W, PANEL_H)).collect();
+    render_scenes(&scenes, caution)
+}
+
+/// Renders laid-out scenes stacked vertically as one SVG document, as wide as the widest, with
+/// `caution` in small print under them.
+pub fn render_scenes(scenes: &[Scene], caution: &str) -> String {
+    let width = scenes.iter().map(|s| s.width).fold(0.0, f64::max);
     let caution_lines =
-        text::wrap(caution, Face::Regular, CAUTION_SIZE, (PANEL_W - 8.0) / plot::SUBSTITUTE_FONT_SLACK);
-    let panels_h = PANEL_H * panels.len() as f64;
+        text::wrap(caution, Face::Regular, CAUTION_SIZE, (width - 8.0) / plot::SUBSTITUTE_FONT_SLACK);
+    let panels_h: f64 = scenes.iter().map(|s| s.height).sum();
     let height = panels_h + CAUTION_LINE * caution_lines.len() as f64 + 6.0;
     let mut out = String::new();
     let _ = writeln!(
         out,
         r#"<svg xmlns="http://www.w3.org/2000/svg" width="{w}pt" height="{h}pt" viewBox="0 0 {w} {h}" font-family="Helvetica, Arial, sans-serif">"#,
-        w = num(PANEL_W),
+        w = num(width),
         h = num(height)
     );
-    let _ = writeln!(
-        out,
-        r#"<rect x="0" y="0" width="{}" height="{}" fill="white"/>"#,
-        num(PANEL_W),
-        num(height)
-    );
-    for (i, spec) in panels.iter().enumerate() {
-        let scene = plot::plot_scene(spec, PANEL_W, PANEL_H);
-        let _ = writeln!(out, r#"<g transform="translate(0 {})">"#, num(i as f64 * PANEL_H));
+    let _ =
+        writeln!(out, r#"<rect x="0" y="0" width="{}" height="{}" fill="white"/>"#, num(width), num(height));
+    let mut top = 0.0;
+    for scene in scenes {
+        let _ = writeln!(out, r#"<g transform="translate(0 {})">"#, num(top));
+        top += scene.height;
         for shape in &scene.shapes {
             match shape {
                 Shape::Line { class, runs, color, width, dash } => {

@@ -4,6 +4,7 @@
 //! front page shows a plan made through them.
 
 pub mod plan;
+pub mod population;
 pub mod report;
 pub mod study;
 pub mod sweep;

@@ -10,7 +10,7 @@ use crate::io::output::CAUTION;
 use crate::io::table::Notices;
 use crate::plan::Course;
 use crate::plan::session::Outcome;
-use crate::report::content::{Analysis, build, concentration_plots};
+use crate::report::content::{Analysis, Stamp, build, concentration_plots};
 use crate::report::layout::{Document, PlotSpec};
 use crate::seeds::Seeds;
 use crate::spec::{DEFAULT_DRAWS, Spec};
@@ -47,6 +47,26 @@ impl Report {
     /// The concentration plots as one SVG document, with the caution.
     pub fn svg(&self) -> String {
         crate::report::svg::render_svg(&self.plots, CAUTION)
+    }
+}
+
+impl Provenance {
+    /// The stamp of a report of `spec` made with `seed`: the SHA-256 of every input file (the
+    /// case file first), the seed, the command line, the version, the time and the caution.
+    pub(crate) fn stamp(self, spec: &Spec, seed: u64) -> Result<Stamp> {
+        let digests = spec
+            .files()
+            .into_iter()
+            .map(|f| Ok((f.to_string_lossy().into_owned(), sha256_hex(&input::read(&f)?))))
+            .collect::<Result<_>>()?;
+        Ok(Stamp {
+            digests,
+            seed,
+            command_line: self.command_line,
+            version: env!("CARGO_PKG_VERSION").to_string(),
+            created_iso: self.created_iso,
+            caution: CAUTION.to_string(),
+        })
     }
 }
 
@@ -96,12 +116,6 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
         }
         _ => None,
     };
-    let mut digests = Vec::new();
-    for f in spec.files() {
-        let path = f.to_string_lossy().into_owned();
-        let bytes = input::read(&f)?;
-        digests.push((path, sha256_hex(&bytes)));
-    }
     // The subject's non-compartmental summary, by the defaults of `cistern nca`.
     let nca = crate::nca::analyse_subject(data, &crate::nca::NcaOptions::default());
     let analysis = Analysis {
@@ -132,12 +146,7 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
         plan: &planned,
         advice: advice.as_ref(),
         sweep: sweep.as_ref(),
-        digests,
-        seed: settings.seed,
-        command_line: provenance.command_line,
-        version: env!("CARGO_PKG_VERSION").to_string(),
-        created_iso: provenance.created_iso,
-        caution: CAUTION.to_string(),
+        stamp: provenance.stamp(spec, settings.seed)?,
     };
     let plots = concentration_plots(&analysis);
     let document = build(&analysis, &plots);

@@ -8,6 +8,7 @@ mod advisor;
 mod bad_input;
 mod case_files;
 mod cli;
+mod diagnostic_plots;
 mod diagnostics;
 mod engine_properties;
 mod engine_vs_ode;
