@@ -4,6 +4,8 @@
 
 use super::report::Provenance;
 use super::study::{Required, Study};
+use crate::diagnostics::vpc::plot::figure as vpc_figure;
+use crate::diagnostics::vpc::{BinBy, Bins, REPLICATES, VpcOptions, vpc};
 use crate::diagnostics::{Diagnostics, SIMULATIONS, for_population, plots};
 use crate::error::{Error, Problems, Result};
 use crate::fit::{FitOptions, FitResult, Intervals, SubjectData, fit_all};
@@ -102,8 +104,18 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<PopulationReport> {
     let subjects = &study.subjects;
     let (estimation, diagnostics) = estimate_and_diagnose(subjects, model, &options)?;
     let fits = individual_fits(subjects, &estimation, options.seed);
-    // The visual predictive check, when wired in, follows the diagnostic plots here.
-    let figures = plots::figures(&diagnostics.rows, subjects, &fits);
+    // The visual predictive check of the estimated model follows the diagnostic plots: the
+    // default of `cistern vpc` (500 replicates, time after dose, bins by sampling clusters).
+    let vpc_options = VpcOptions {
+        replicates: REPLICATES,
+        seed: options.seed,
+        bin_by: BinBy::TimeAfterDose,
+        bins: Bins::Auto,
+        prediction_corrected: false,
+    };
+    let check = vpc(subjects, &estimation.model, &vpc_options).map_err(|e| Error::Usage(e.to_string()))?;
+    let mut figures = plots::figures(&diagnostics.rows, subjects, &fits);
+    figures.push(vpc_figure(&check));
     let analysis = PopulationAnalysis {
         title: spec.report.title.clone().unwrap_or_else(|| {
             format!("Population report: {}", estimation.model.drug.as_deref().unwrap_or("unnamed drug"))

@@ -365,6 +365,7 @@ fn population_report_has_its_sections_plots_and_caution_on_every_page() {
         "NormalQQplotoftheNPDE",
         "Individualfits",
         "Randomeffectsagainstcovariates",
+        "Visualpredictivecheck(500replicates)",
         "Methodsandreferences",
         "Reproducibility",
         "SHA-256",
@@ -386,7 +387,8 @@ fn population_report_has_its_sections_plots_and_caution_on_every_page() {
         assert!(inked > 500, "page {} is blank ({inked} inked pixels)", i + 1);
         // A page of plots has its dots and lines drawn, and the coloured curves (individual
         // fits) and bin medians (CWRES) in colour.
-        let plots = ["CWRES against", "Individual fits", "Observed against", "Random effects"];
+        let plots =
+            ["CWRES against", "Individual fits", "Observed against", "Random effects", "Visual predictive"];
         if plots.iter().any(|t| pages[i].contains(t)) {
             assert!(inked > 5000, "page {}: the plots are not drawn ({inked} inked pixels)", i + 1);
         }

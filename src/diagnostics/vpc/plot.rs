@@ -6,6 +6,7 @@
 
 use super::{Compared, Vpc};
 use crate::report::layout::{Band, Marker, PlotSpec, Rgb, Series, Stroke};
+use crate::report::plot::{Figure, plot_scene};
 
 const BLUE: Rgb = (0.2, 0.4, 0.75);
 const RED: Rgb = (0.8, 0.2, 0.2);
@@ -127,4 +128,15 @@ pub fn panels(vpc: &Vpc) -> Vec<PlotSpec> {
         out.push(blq);
     }
     out
+}
+
+/// The panels as one report figure (`vpc.svg`), one panel per row, as the population report
+/// shows them after the diagnostic plots.
+pub fn figure(vpc: &Vpc) -> Figure {
+    Figure {
+        file: "vpc.svg",
+        title: String::new(),
+        panels: panels(vpc).iter().map(|p| plot_scene(p, 480.0, 300.0)).collect(),
+        columns: 1,
+    }
 }
