@@ -73,7 +73,7 @@ pub fn automatic(times: &[f64]) -> Vec<[f64; 2]> {
 }
 
 /// The bin of time `t` among given `edges` (strictly increasing, at least two): bin j holds
-/// [edges[j], edges[j+1]), the last also its upper edge; `None` outside.
+/// `[edges[j], edges[j+1])`, the last also its upper edge; `None` outside.
 pub fn by_edges(edges: &[f64], t: f64) -> Option<usize> {
     let last = *edges.last()?;
     if t < edges[0] || t > last {
