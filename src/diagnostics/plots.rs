@@ -61,24 +61,6 @@ pub fn normal_scores(n: usize) -> Vec<f64> {
     (1..=n).map(|i| normal.inverse_cdf((i as f64 - 0.5) / n as f64)).collect()
 }
 
-/// A panel with nothing in it yet.
-fn blank(title: &str, x_label: &str, y_label: &str) -> PlotSpec {
-    PlotSpec {
-        title: title.into(),
-        x_label: x_label.into(),
-        y_label: y_label.into(),
-        log_y: false,
-        bands: Vec::new(),
-        target: None,
-        series: Vec::new(),
-        hlines: Vec::new(),
-        markers: Vec::new(),
-        markers_label: String::new(),
-        doses: Vec::new(),
-        start_x: None,
-    }
-}
-
 fn finite_range(values: impl Iterator<Item = f64>) -> Option<(f64, f64)> {
     values.filter(|v| v.is_finite()).fold(None, |r, v| match r {
         None => Some((v, v)),
@@ -105,7 +87,8 @@ fn observed_panel(points: &[(f64, f64)], (short, what): (&str, &str), log: bool)
     let (lo, hi) = finite_range(points.iter().flat_map(|p| [p.0, p.1]).filter(|v| !log || *v > 0.0))?;
     let axis = if log { Axis::log(lo, hi * 1.02, 4) } else { Axis::linear(0.0_f64.min(lo), hi * 1.02, true) };
     let scale = if log { "log scale" } else { "linear scale" };
-    let mut spec = blank(&format!("{short}, {scale}"), &format!("{what} (mg/L)"), "observed (mg/L)");
+    let mut spec =
+        PlotSpec::empty(&format!("{short}, {scale}"), &format!("{what} (mg/L)"), "observed (mg/L)");
     spec.log_y = log;
     spec.series.push(line("identity", (axis.lo, axis.hi), GREY, Stroke::Dashed));
     spec.markers = points.iter().map(|&(x, y)| Marker { x, y, hollow: false }).collect();
@@ -135,7 +118,7 @@ pub fn observed_vs_predicted(rows: &[LevelDiagnostics]) -> Option<Figure> {
 /// A residual against `x`: the points, the zero line and the bin medians.
 fn residual_panel(points: Vec<(f64, f64)>, title: &str, x_label: &str, y_label: &str) -> Option<Scene> {
     let (lo, hi) = finite_range(points.iter().map(|p| p.0))?;
-    let mut spec = blank(title, x_label, y_label);
+    let mut spec = PlotSpec::empty(title, x_label, y_label);
     spec.hlines.push(HLine { label: "zero".into(), y: 0.0, color: GREY });
     let medians = bin_medians(&points);
     if !medians.is_empty() {
@@ -182,7 +165,7 @@ pub fn npde_qq(rows: &[LevelDiagnostics]) -> Option<Figure> {
     npde.sort_by(f64::total_cmp);
     let scores = normal_scores(npde.len());
     let axis = symmetric(npde.iter().chain(&scores).copied(), NORMAL_REACH);
-    let mut spec = blank("Normal QQ plot of the NPDE", "standard normal quantile", "NPDE");
+    let mut spec = PlotSpec::empty("Normal QQ plot of the NPDE", "standard normal quantile", "NPDE");
     spec.series.push(line("identity", (axis.lo, axis.hi), GREY, Stroke::Dashed));
     spec.markers = scores.iter().zip(&npde).map(|(&x, &y)| Marker { x, y, hollow: false }).collect();
     spec.markers_label = "level (every level, those below the limit imputed)".into();
@@ -215,7 +198,8 @@ pub fn individual_fits(subjects: &[SubjectData], fits: &[FitResult]) -> Option<F
             let first = s.doses.first().map_or(0.0, |d| d.time_h);
             let last = s.levels.iter().map(|l| l.time_h).fold(first, f64::max);
             let end = last + 0.05 * (last - first).max(1.0);
-            let mut spec = blank(s.id.as_deref().unwrap_or("subject"), "time (h)", "concentration (mg/L)");
+            let mut spec =
+                PlotSpec::empty(s.id.as_deref().unwrap_or("subject"), "time (h)", "concentration (mg/L)");
             let mut curve = |label: &str, p: &Params, stroke, color| {
                 let times = curve_times(p, &s.doses, (first, end));
                 let ys = engine::concentrations(p, &s.doses, &times);
@@ -295,7 +279,8 @@ pub fn random_effects(subjects: &[SubjectData], fits: &[FitResult]) -> Option<Fi
         let etas: Option<Vec<f64>> = pairs.iter().map(|p| p.1.get(k).map(|e| e.1)).collect();
         let Some(etas) = etas else { continue };
         for (covariate, values, x_axis) in covariate_columns(&with) {
-            let mut spec = blank(&format!("η {name} against {covariate}"), &covariate, &format!("η {name}"));
+            let mut spec =
+                PlotSpec::empty(&format!("η {name} against {covariate}"), &covariate, &format!("η {name}"));
             spec.hlines.push(HLine { label: String::new(), y: 0.0, color: GREY });
             spec.markers = values.iter().zip(&etas).map(|(&x, &y)| Marker { x, y, hollow: false }).collect();
             spec.markers_label = "subject".into();

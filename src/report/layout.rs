@@ -155,6 +155,30 @@ pub struct PlotSpec {
     pub start_x: Option<f64>,
 }
 
+impl PlotSpec {
+    /// A panel with its title and axis labels and nothing drawn in it yet.
+    pub fn empty(
+        title: impl Into<String>,
+        x_label: impl Into<String>,
+        y_label: impl Into<String>,
+    ) -> PlotSpec {
+        PlotSpec {
+            title: title.into(),
+            x_label: x_label.into(),
+            y_label: y_label.into(),
+            log_y: false,
+            bands: Vec::new(),
+            target: None,
+            series: Vec::new(),
+            hlines: Vec::new(),
+            markers: Vec::new(),
+            markers_label: String::new(),
+            doses: Vec::new(),
+            start_x: None,
+        }
+    }
+}
+
 /// A horizontal bar chart of percentages (0–100), as the report's tables print them.
 #[derive(Debug, Clone, PartialEq)]
 pub struct BarChart {

@@ -70,28 +70,21 @@ fn x_label(vpc: &Vpc) -> String {
 pub fn panels(vpc: &Vpc) -> Vec<PlotSpec> {
     let x: Vec<f64> = vpc.bins.iter().map(|b| b.mid_h).collect();
     let corrected = if vpc.prediction_corrected { "prediction-corrected " } else { "" };
-    let mut spec = PlotSpec {
-        title: format!("Visual predictive check ({} replicates)", vpc.replicates),
-        x_label: x_label(vpc),
-        y_label: format!("{corrected}concentration (mg/L)"),
-        log_y: false,
-        bands: Vec::new(),
-        target: None,
-        series: Vec::new(),
-        hlines: Vec::new(),
-        markers: vpc
-            .observed
-            .iter()
-            .filter_map(|o| match (o.value_mg_l, o.lloq_mg_l) {
-                (Some(y), _) => Some(Marker { x: o.x_h, y, hollow: false }),
-                (None, Some(l)) => Some(Marker { x: o.x_h, y: l, hollow: true }),
-                (None, None) => None,
-            })
-            .collect(),
-        markers_label: format!("{corrected}observed levels"),
-        doses: Vec::new(),
-        start_x: None,
-    };
+    let mut spec = PlotSpec::empty(
+        format!("Visual predictive check ({} replicates)", vpc.replicates),
+        x_label(vpc),
+        format!("{corrected}concentration (mg/L)"),
+    );
+    spec.markers = vpc
+        .observed
+        .iter()
+        .filter_map(|o| match (o.value_mg_l, o.lloq_mg_l) {
+            (Some(y), _) => Some(Marker { x: o.x_h, y, hollow: false }),
+            (None, Some(l)) => Some(Marker { x: o.x_h, y: l, hollow: true }),
+            (None, None) => None,
+        })
+        .collect();
+    spec.markers_label = format!("{corrected}observed levels");
     for (k, (percent, color, stroke)) in
         [(5, BLUE, Stroke::Dashed), (50, RED, Stroke::Solid), (95, BLUE, Stroke::Dashed)]
             .into_iter()
@@ -108,20 +101,11 @@ pub fn panels(vpc: &Vpc) -> Vec<PlotSpec> {
     spec.log_y = drawn.into_iter().all(|&v| v > 0.0);
     let mut out = vec![spec];
     if vpc.observed.iter().any(|o| o.lloq_mg_l.is_some()) {
-        let mut blq = PlotSpec {
-            title: "Fraction below the quantification limit".into(),
-            x_label: x_label(vpc),
-            y_label: "fraction below the limit".into(),
-            log_y: false,
-            bands: Vec::new(),
-            target: None,
-            series: Vec::new(),
-            hlines: Vec::new(),
-            markers: Vec::new(),
-            markers_label: String::new(),
-            doses: Vec::new(),
-            start_x: None,
-        };
+        let mut blq = PlotSpec::empty(
+            "Fraction below the quantification limit",
+            x_label(vpc),
+            "fraction below the limit",
+        );
         let compared: Vec<&Compared> = vpc.bins.iter().map(|b| &b.blq_fraction).collect();
         let labels = ("90 % interval of the simulated fraction".into(), "observed fraction".into());
         statistic(&x, &compared, labels, RED, Stroke::Solid, &mut blq);
