@@ -87,8 +87,7 @@ fn observed_panel(points: &[(f64, f64)], (short, what): (&str, &str), log: bool)
     let (lo, hi) = finite_range(points.iter().flat_map(|p| [p.0, p.1]).filter(|v| !log || *v > 0.0))?;
     let axis = if log { Axis::log(lo, hi * 1.02, 4) } else { Axis::linear(0.0_f64.min(lo), hi * 1.02, true) };
     let scale = if log { "log scale" } else { "linear scale" };
-    let mut spec =
-        PlotSpec::empty(&format!("{short}, {scale}"), &format!("{what} (mg/L)"), "observed (mg/L)");
+    let mut spec = PlotSpec::empty(format!("{short}, {scale}"), format!("{what} (mg/L)"), "observed (mg/L)");
     spec.log_y = log;
     spec.series.push(line("identity", (axis.lo, axis.hi), GREY, Stroke::Dashed));
     spec.markers = points.iter().map(|&(x, y)| Marker { x, y, hollow: false }).collect();
@@ -280,7 +279,7 @@ pub fn random_effects(subjects: &[SubjectData], fits: &[FitResult]) -> Option<Fi
         let Some(etas) = etas else { continue };
         for (covariate, values, x_axis) in covariate_columns(&with) {
             let mut spec =
-                PlotSpec::empty(&format!("η {name} against {covariate}"), &covariate, &format!("η {name}"));
+                PlotSpec::empty(format!("η {name} against {covariate}"), &covariate, format!("η {name}"));
             spec.hlines.push(HLine { label: String::new(), y: 0.0, color: GREY });
             spec.markers = values.iter().zip(&etas).map(|(&x, &y)| Marker { x, y, hollow: false }).collect();
             spec.markers_label = "subject".into();
