@@ -15,7 +15,7 @@ use cistern::io::output::{
 use cistern::spec::{DRAWS, Needs};
 use cistern::units::Kind;
 use cistern::workflow::{Required, Study};
-use cistern::{Error, InputError, Origin};
+use cistern::{Error, InputError};
 use clap::Args;
 use serde::Serialize;
 
@@ -135,13 +135,8 @@ pub fn run(args: FitArgs) -> Result<(), Error> {
     // The outputs are opened before the work, so a bad path fails first.
     let mut files = RunFiles::new(spec.files());
     let mut sink = args.output.sink(&mut files)?;
-    let mut levels_sink =
-        args.levels_out.as_deref().map(|p| files.open(Origin::Flag("--levels-out".into()), p)).transpose()?;
-    let mut diagnostics_sink = args
-        .diagnostics_out
-        .as_deref()
-        .map(|p| files.open(Origin::Flag("--diagnostics-out".into()), p))
-        .transpose()?;
+    let mut levels_sink = files.open_flag("--levels-out", args.levels_out.as_deref())?;
+    let mut diagnostics_sink = files.open_flag("--diagnostics-out", args.diagnostics_out.as_deref())?;
     let plots_dir = super::plots::PlotsDir::open(&mut files, args.plots_dir.as_deref())?;
     let options = FitOptions {
         method,

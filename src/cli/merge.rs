@@ -2,7 +2,6 @@
 //! state that merges again, and join the shards' per-subject files, each checked first.
 
 use super::args::OutputArgs;
-use cistern::error::Origin;
 use cistern::io::input::read_text;
 use cistern::io::output::{CAUTION, RunFiles, io_failure};
 use cistern::sweep::join::join;
@@ -56,13 +55,8 @@ pub fn run(args: MergeArgs) -> Result<(), Error> {
     // them among the run's files refuses one that is an input or another output.
     let summary = args.output.output.is_some() || (args.state_out.is_none() && args.per_subject.is_none());
     let mut files = RunFiles::new(args.states.iter().chain(&args.rows));
-    let mut joined = args
-        .per_subject
-        .as_deref()
-        .map(|p| files.open(Origin::Flag("--per-subject".into()), p))
-        .transpose()?;
-    let mut state_sink =
-        args.state_out.as_deref().map(|p| files.open(Origin::Flag("--state-out".into()), p)).transpose()?;
+    let mut joined = files.open_flag("--per-subject", args.per_subject.as_deref())?;
+    let mut state_sink = files.open_flag("--state-out", args.state_out.as_deref())?;
     let mut summary_sink = if summary { Some(args.output.sink(&mut files)?) } else { None };
 
     let mut merger = Merger::default();

@@ -2,6 +2,7 @@
 
 use super::args::{OutputArgs, choice, warn, whole};
 use super::study::StudyArgs;
+use cistern::Error;
 use cistern::diagnostics::Diagnostics;
 use cistern::diagnostics::plots::figures;
 use cistern::error::Problems;
@@ -14,7 +15,6 @@ use cistern::population::{Method, Options, quadrature::MAX_NODES};
 use cistern::spec::Needs;
 use cistern::workflow::population::{estimate_and_diagnose, individual_fits};
 use cistern::workflow::{Required, Study};
-use cistern::{Error, Origin};
 use clap::Args;
 use std::io::Write;
 
@@ -93,18 +93,9 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         model.ok_or_else(|| Error::Usage("population estimation needs a start model (--model)".into()))?;
     let mut files = RunFiles::new(spec.files());
     let mut sink = args.output.sink(&mut files)?;
-    let mut model_sink =
-        args.model_out.as_deref().map(|p| files.open(Origin::Flag("--model-out".into()), p)).transpose()?;
-    let mut subjects_sink = args
-        .subjects_out
-        .as_deref()
-        .map(|p| files.open(Origin::Flag("--subjects-out".into()), p))
-        .transpose()?;
-    let mut diagnostics_sink = args
-        .diagnostics_out
-        .as_deref()
-        .map(|p| files.open(Origin::Flag("--diagnostics-out".into()), p))
-        .transpose()?;
+    let mut model_sink = files.open_flag("--model-out", args.model_out.as_deref())?;
+    let mut subjects_sink = files.open_flag("--subjects-out", args.subjects_out.as_deref())?;
+    let mut diagnostics_sink = files.open_flag("--diagnostics-out", args.diagnostics_out.as_deref())?;
     let plots_dir = super::plots::PlotsDir::open(&mut files, args.plots_dir.as_deref())?;
     let options = Options {
         method: args.method,

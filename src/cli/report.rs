@@ -109,7 +109,7 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
     // Both outputs are opened before the work, so a bad path fails with nothing computed.
     let mut files = RunFiles::new(spec.files());
     let mut pdf_sink = files.open(Origin::Flag("-o".into()), &output)?;
-    let svg_sink = args.svg.as_deref().map(|p| files.open(Origin::Flag("--svg".into()), p)).transpose()?;
+    let svg_sink = files.open_flag("--svg", args.svg.as_deref())?;
     let (bytes, svg, notices) = if spec.population.is_some() {
         let made = population::report(&spec, provenance)?;
         (made.pdf()?, made.svg(), made.notices)

@@ -17,7 +17,7 @@ use cistern::report::content::curve_times;
 use cistern::report::layout::{DoseTick, PlotSpec, Series, Stroke};
 use cistern::report::svg;
 use cistern::units::Kind;
-use cistern::{Error, InputError, Origin};
+use cistern::{Error, InputError};
 use clap::Args;
 use serde::Serialize;
 
@@ -208,7 +208,7 @@ pub fn run(args: SimulateArgs) -> Result<(), Error> {
     // Both outputs are opened before the work, so a bad path fails first.
     let mut files = RunFiles::new(&args.doses);
     let mut sink = args.output.sink(&mut files)?;
-    let svg_sink = args.svg.as_deref().map(|p| files.open(Origin::Flag("--svg".into()), p)).transpose()?;
+    let svg_sink = files.open_flag("--svg", args.svg.as_deref())?;
     let (t_lo, t_hi) =
         times.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &t| (lo.min(t), hi.max(t)));
     // Long work shows progress on a terminal: a bar over the subjects computed, then over the

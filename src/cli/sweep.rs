@@ -161,11 +161,7 @@ pub fn run(args: SweepArgs) -> Result<(), Error> {
     let mut files =
         RunFiles::new(spec.files().iter().map(PathBuf::as_path).chain(args.params.as_deref().map(Path::new)));
     let mut sink = args.output.sink(&mut files)?;
-    let mut per_subject = args
-        .per_subject
-        .as_deref()
-        .map(|p| files.open(Origin::Flag("--per-subject".into()), p))
-        .transpose()?;
+    let mut per_subject = files.open_flag("--per-subject", args.per_subject.as_deref())?;
     let where_ = if args.shard.is_some() {
         format!(", shard {}/{}: subjects {}–{}", shard.index, shard.count, span.start + 1, span.end)
     } else {

@@ -87,8 +87,7 @@ pub fn run(args: VpcArgs) -> Result<(), Error> {
     let model = model.ok_or_else(|| Error::Usage("the check needs the population model (--model)".into()))?;
     let mut files = RunFiles::new(spec.files());
     let mut sink = args.output.sink(&mut files)?;
-    let mut svg_sink =
-        args.svg.as_deref().map(|p| files.open(Origin::Flag("--svg".into()), p)).transpose()?;
+    let mut svg_sink = files.open_flag("--svg", args.svg.as_deref())?;
     let options = VpcOptions {
         replicates: args.replicates as usize,
         seed: settings.seed,

@@ -67,6 +67,11 @@ impl RunFiles {
         RunFiles { inputs, outputs: Vec::new() }
     }
 
+    /// [`open`](Self::open) the file an optional output flag names, if it names one.
+    pub fn open_flag(&mut self, flag: &str, path: Option<&str>) -> Result<Option<Sink>, Error> {
+        path.map(|p| self.open(Origin::Flag(flag.into()), p)).transpose()
+    }
+
     /// Open the output `path` that `origin` (a flag) asks for; `-` is standard output.
     ///
     /// Errors: an empty path, a directory, an input or another output of the run (bad usage,
