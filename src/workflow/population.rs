@@ -113,7 +113,7 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<PopulationReport> {
         bins: Bins::Auto,
         prediction_corrected: false,
     };
-    let check = vpc(subjects, &estimation.model, &vpc_options).map_err(|e| Error::Usage(e.to_string()))?;
+    let check = vpc(subjects, &estimation.model, &vpc_options)?;
     let mut figures = plots::figures(&diagnostics.rows, subjects, &fits);
     figures.push(vpc_figure(&check));
     let analysis = PopulationAnalysis {
