@@ -96,6 +96,46 @@ struct Node {
     /// ln(wₖ·e^(|xₖ|²)·|det √2·L|).
     ln_weight: f64,
     predictions: Vec<f64>,
+    sums: Sums,
+}
+
+/// Sums over a node's quantified levels that φ does not move (the predictions are held between
+/// adaptations): with a purely additive or purely proportional residual error they make the
+/// node's data term a few operations instead of a logarithm per level.
+#[derive(Debug, Clone, Copy)]
+struct Sums {
+    /// Σ (y − f)².
+    squares: f64,
+    /// Σ ((y − f)/f)².
+    relative_squares: f64,
+    /// Σ ln f².
+    ln_f2: f64,
+    /// Every prediction at a quantified level is above 0 (the two relative sums are finite).
+    positive: bool,
+}
+
+impl Sums {
+    fn new(levels: &[Level], predictions: &[f64]) -> Sums {
+        let mut sums = Sums { squares: 0.0, relative_squares: 0.0, ln_f2: 0.0, positive: true };
+        for (level, &f) in levels.iter().zip(predictions) {
+            if let Some(y) = level.conc_mg_l {
+                let r = y - f;
+                sums.squares += r * r;
+                sums.positive &= f > 0.0;
+                if f > 0.0 {
+                    sums.relative_squares += (r / f).powi(2);
+                    sums.ln_f2 += (f * f).ln();
+                }
+            }
+        }
+        sums
+    }
+}
+
+impl Node {
+    fn new(levels: &[Level], theta: [f64; MAX], ln_weight: f64, predictions: Vec<f64>) -> Node {
+        Node { theta, ln_weight, sums: Sums::new(levels, &predictions), predictions }
+    }
 }
 
 /// A subject adapted at one φ.
@@ -170,7 +210,7 @@ pub fn adapt(
         return Adapted {
             mode,
             converged: opt.converged,
-            nodes: vec![Node { theta: mode, ln_weight: 0.0, predictions }],
+            nodes: vec![Node::new(&subject.levels, mode, 0.0, predictions)],
             slopes,
         };
     };
@@ -192,17 +232,59 @@ pub fn adapt(
             for i in 0..n {
                 theta[i] += 2f64.sqrt() * (0..=i).map(|j| l[i][j] * x[j]).sum::<f64>();
             }
-            Node { theta, ln_weight: ln_w + ln_det, predictions: problem.predictions(&theta[..n]) }
+            Node::new(&subject.levels, theta, ln_w + ln_det, problem.predictions(&theta[..n]))
         })
         .collect();
     Adapted { mode, converged: opt.converged, nodes, slopes: Vec::new() }
 }
 
-/// −2 ln p(y | θ) from the predictions at θ, with its slopes in ln a and ln b.
-fn data_term(levels: &[Level], predictions: &[f64], residual: [f64; 2]) -> Dual<2> {
-    let [a, b] = residual;
-    let mut total = Dual { v: 0.0, d: [0.0; 2] };
-    for (level, &f) in levels.iter().zip(predictions) {
+/// The residual error as a subject's data terms use it at one φ, worked out once per subject
+/// and evaluation rather than once per node.
+struct ResidualTerms {
+    /// (a, b) of σ² = a² + (b·f)².
+    residual: [f64; 2],
+    /// The number of levels above the limit.
+    quantified: f64,
+    /// ln(2π·a²) and ln(2π·b²).
+    ln_2pi_squares: [f64; 2],
+}
+
+impl ResidualTerms {
+    fn new(levels: &[Level], residual: [f64; 2]) -> ResidualTerms {
+        ResidualTerms {
+            residual,
+            quantified: levels.iter().filter(|l| l.conc_mg_l.is_some()).count() as f64,
+            ln_2pi_squares: residual.map(|r| (2.0 * PI * r * r).ln()),
+        }
+    }
+}
+
+/// −2 ln p(y | θ) from the predictions at a node, with its slopes in ln a and ln b.
+fn data_term(levels: &[Level], node: &Node, terms: &ResidualTerms) -> Dual<2> {
+    let [a, b] = terms.residual;
+    let (sums, q) = (&node.sums, terms.quantified);
+    // Σ [ln(2π·σ²) + r²/σ²] over the quantified levels, in closed form where σ² is a² (the
+    // same for every level) or b²f².
+    let closed = if b == 0.0 && a > 0.0 {
+        let var = a * a;
+        Some(Dual {
+            v: q * terms.ln_2pi_squares[0] + sums.squares / var,
+            d: [2.0 * q - 2.0 * sums.squares / var, 0.0],
+        })
+    } else if a == 0.0 && b > 0.0 && sums.positive {
+        let var = b * b;
+        Some(Dual {
+            v: q * terms.ln_2pi_squares[1] + sums.ln_f2 + sums.relative_squares / var,
+            d: [0.0, 2.0 * q - 2.0 * sums.relative_squares / var],
+        })
+    } else {
+        None
+    };
+    let mut total = closed.unwrap_or(Dual { v: 0.0, d: [0.0; 2] });
+    for (level, &f) in levels.iter().zip(&node.predictions) {
+        if closed.is_some() && level.conc_mg_l.is_some() {
+            continue;
+        }
         let bf2 = (b * f).powi(2);
         let var = Dual { v: a * a + bf2, d: [2.0 * a * a, 2.0 * bf2] };
         total += level_term(level, Dual { v: f, d: [0.0; 2] }, var);
@@ -265,16 +347,19 @@ pub fn terms(
 ) -> Terms {
     let n = population.n;
     let p = &population.precision;
+    let residual = ResidualTerms::new(levels, population.residual);
+    // u = Ω⁻¹(θ − μ) and the quadratic form (θ − μ)ᵀΩ⁻¹(θ − μ).
     let deviation = |theta: &[f64; MAX]| {
-        let d: Vec<f64> = (0..n).map(|i| theta[i] - mean[i]).collect();
-        let u: Vec<f64> = (0..n).map(|i| (0..n).map(|j| p[i][j] * d[j]).sum()).collect();
-        let q: f64 = (0..n).map(|i| d[i] * u[i]).sum();
-        (u, q)
+        let mut d = [0.0; MAX];
+        (0..n).for_each(|i| d[i] = theta[i] - mean[i]);
+        let mut u = [0.0; MAX];
+        (0..n).for_each(|i| u[i] = (0..n).map(|j| p[i][j] * d[j]).sum());
+        (u, (0..n).map(|i| d[i] * u[i]).sum::<f64>())
     };
     let mut out = Terms { value: 0.0, d_mu: [0.0; MAX], d_omega: [[0.0; MAX]; MAX], d_residual: [0.0; 2] };
     if laplace {
         let node = &adapted.nodes[0];
-        let data = data_term(levels, &node.predictions, population.residual);
+        let data = data_term(levels, node, &residual);
         let (u, q) = deviation(&node.theta);
         let m = laplace_curvature(levels, adapted, population, population.residual);
         let ln_det_m = ln_det_or_infinite(&m, n);
@@ -303,37 +388,58 @@ pub fn terms(
         }
         return out;
     }
-    // ln of each node's contribution, then a log-sum-exp with softmax weights for the slopes.
-    let parts: Vec<(f64, Dual<2>, Vec<f64>)> = adapted
-        .nodes
-        .iter()
-        .map(|node| {
-            let data = data_term(levels, &node.predictions, population.residual);
-            let (u, q) = deviation(&node.theta);
-            (node.ln_weight - 0.5 * (data.v + q + population.ln_det_2pi_omega), data, u)
-        })
-        .collect();
-    let top = parts.iter().map(|p| p.0).fold(f64::NEG_INFINITY, f64::max);
-    if !top.is_finite() {
-        out.value = f64::INFINITY;
-        return out;
-    }
-    let sum: f64 = parts.iter().map(|p| (p.0 - top).exp()).sum();
-    out.value = -2.0 * (top + sum.ln());
-    for (s, data, u) in &parts {
-        let w = (s - top).exp() / sum;
+    // A log-sum-exp over the nodes' contributions sₖ, in one pass: the sums are kept scaled by
+    // e^(−top), top the largest sₖ so far, and rescaled when it grows. The slopes are the
+    // contributions' softmax averages of each node's own slopes.
+    let (mut top, mut sum) = (f64::NEG_INFINITY, 0.0);
+    let (mut wu, mut wuu, mut wres) = ([0.0; MAX], [[0.0; MAX]; MAX], [0.0; 2]);
+    for node in &adapted.nodes {
+        let data = data_term(levels, node, &residual);
+        let (u, q) = deviation(&node.theta);
+        let s = node.ln_weight - 0.5 * (data.v + q + population.ln_det_2pi_omega);
+        if s.is_nan() {
+            out.value = f64::INFINITY;
+            return out;
+        }
+        if s == f64::NEG_INFINITY {
+            continue;
+        }
+        if s > top {
+            let scale = (top - s).exp();
+            sum *= scale;
+            wu.iter_mut().for_each(|x| *x *= scale);
+            wuu.iter_mut().flatten().for_each(|x| *x *= scale);
+            wres.iter_mut().for_each(|x| *x *= scale);
+            top = s;
+        }
+        let w = (s - top).exp();
         if w == 0.0 {
             continue;
         }
+        sum += w;
         for i in 0..n {
-            out.d_mu[i] += w * -2.0 * u[i];
+            wu[i] += w * u[i];
             for j in 0..n {
-                out.d_omega[i][j] += w * (p[i][j] - u[i] * u[j]);
+                wuu[i][j] += w * u[i] * u[j];
             }
         }
         for r in 0..2 {
-            out.d_residual[r] += w * data.d[r];
+            wres[r] += w * data.d[r];
         }
+    }
+    if !top.is_finite() || !sum.is_finite() {
+        out.value = f64::INFINITY;
+        return out;
+    }
+    out.value = -2.0 * (top + sum.ln());
+    for i in 0..n {
+        out.d_mu[i] = -2.0 * wu[i] / sum;
+        for j in 0..n {
+            out.d_omega[i][j] = p[i][j] - wuu[i][j] / sum;
+        }
+    }
+    for r in 0..2 {
+        out.d_residual[r] = wres[r] / sum;
     }
     out
 }

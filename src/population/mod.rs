@@ -163,45 +163,57 @@ impl<'a> Run<'a> {
         Population::new(self.space.n, &values.omega, values.residual, self.absorption(&values.model))
     }
 
-    /// Choose each subject's rule at φ (see [`NODE_LADDER`]), never smaller than its rule now;
-    /// returns whether any rule grew, and the largest difference between the last two rules of
-    /// any subject, an estimate of the chosen rules' error.
-    fn choose_nodes(&mut self, phi: &[f64]) -> Result<(bool, f64), String> {
+    /// Choose each subject's rule at φ (see [`NODE_LADDER`]), climbing from its rule now (rules
+    /// only grow, so the smaller rungs need no new look); returns whether any rule grew, the
+    /// largest difference between the last two rules of any subject (an estimate of the chosen
+    /// rules' error), and every subject adapted at φ with its chosen rule.
+    fn choose_nodes(&mut self, phi: &[f64]) -> Result<(bool, f64, Vec<Adapted>), String> {
         let values = self.space.values(phi);
         let population = self
             .population(&values)
             .ok_or("the variabilities and correlations do not form a valid covariance")?;
         let rules = &self.rules;
-        let chosen: Vec<(usize, f64)> = self
+        let chosen: Vec<(usize, f64, Adapted)> = self
             .subjects
             .par_iter()
-            .map(|s| {
-                let Some((mean, _)) = self.space.prior_mean(&values, &s.covariates) else {
-                    return (NODE_LADDER[0], 0.0);
-                };
-                let value = |n: usize, warm: Option<&[f64; MAX]>| {
+            .zip(&self.nodes)
+            .map(|(s, &now)| {
+                let (mean, _) = self.space.prior_mean(&values, &s.covariates).ok_or_else(|| {
+                    format!(
+                        "subject {}: the covariate effects give a typical value of zero or less",
+                        s.id.as_deref().unwrap_or("(unnamed)")
+                    )
+                })?;
+                let at = |n: usize, warm: Option<&[f64; MAX]>| {
                     let a = marginal::adapt(s, &population, mean, warm, Some(&rules[n - 1]));
-                    (marginal::terms(&s.levels, &a, &population, &mean, false).value, a.mode)
+                    (marginal::terms(&s.levels, &a, &population, &mean, false).value, a)
                 };
-                let (mut last, mode) = value(NODE_LADDER[0], None);
+                let rung = NODE_LADDER.iter().position(|&n| n >= now).unwrap_or(0).min(NODE_LADDER.len() - 2);
+                let (mut last, mut adapted) = at(NODE_LADDER[rung], None);
                 let mut difference = f64::INFINITY;
-                for pair in NODE_LADDER.windows(2) {
-                    let next = value(pair[1], Some(&mode)).0;
+                for pair in NODE_LADDER[rung..].windows(2) {
+                    let (next, next_adapted) = at(pair[1], Some(&adapted.mode));
                     difference = (next - last).abs();
-                    last = next;
                     if difference <= NODE_TOLERANCE || difference.is_nan() {
-                        return (pair[0], difference);
+                        // Agreement: the smaller rule, unless the subject already has the larger.
+                        let (n, a) = if now > pair[0] { (pair[1], next_adapted) } else { (pair[0], adapted) };
+                        return Ok((n, difference, a));
                     }
+                    (last, adapted) = (next, next_adapted);
                 }
-                (quadrature::MAX_NODES, if difference.is_finite() { difference } else { 0.0 })
+                Ok((quadrature::MAX_NODES, if difference.is_finite() { difference } else { 0.0 }, adapted))
             })
-            .collect();
+            .collect::<Result<_, String>>()?;
         let mut grew = false;
-        for (now, (n, _)) in self.nodes.iter_mut().zip(&chosen) {
-            grew |= *n > *now;
-            *now = (*now).max(*n);
+        let mut difference = 0.0f64;
+        let mut adapted = Vec::with_capacity(chosen.len());
+        for (now, (n, d, a)) in self.nodes.iter_mut().zip(chosen) {
+            grew |= n > *now;
+            *now = n;
+            difference = difference.max(d);
+            adapted.push(a);
         }
-        Ok((grew, chosen.iter().fold(0.0, |m, c| m.max(c.1))))
+        Ok((grew, difference, adapted))
     }
 
     fn absorption(&self, model: &PopulationModel) -> (Option<f64>, f64, f64) {
@@ -352,9 +364,17 @@ impl<'a> Run<'a> {
     }
 
     /// The fixed point from `start` (see the module's text).
-    fn estimate(&self, start: &[f64], evaluate: bool) -> Result<Found, String> {
+    fn estimate(
+        &self,
+        start: &[f64],
+        adapted: Option<Vec<Adapted>>,
+        evaluate: bool,
+    ) -> Result<Found, String> {
         let mut phi = start.to_vec();
-        let mut adapted = self.adapt(&phi, None)?;
+        let mut adapted = match adapted {
+            Some(adapted) => adapted,
+            None => self.adapt(&phi, None)?,
+        };
         let (mut value, _) = self.objective(&phi, &adapted);
         if !value.is_finite() {
             return Err("the objective is not finite at the start model's values: the levels are impossible under it \
@@ -500,20 +520,20 @@ pub fn estimate(
     }
     let (space, mut notes) = Space::new(model, oral);
     let mut run = Run::new(&space, subjects, options);
-    let mut found = run.estimate(&space.start(), options.evaluate).map_err(Error::Usage)?;
+    let mut found = run.estimate(&space.start(), None, options.evaluate).map_err(Error::Usage)?;
     // Nodes chosen automatically: the first estimate used the ladder's first rule; choose the
     // rules where the estimate is (the posteriors there, not at the start model, decide the
     // accuracy of the objective reported) and estimate again from there until no rule grows.
     let mut accuracy = None;
     if options.method == Method::Quadrature && options.nodes.is_none() {
         for _ in 0..NODE_ROUNDS {
-            let (grew, difference) = run.choose_nodes(&found.phi).map_err(Error::Usage)?;
+            let (grew, difference, adapted) = run.choose_nodes(&found.phi).map_err(Error::Usage)?;
             accuracy = Some(difference);
             if !grew {
                 break;
             }
             let previous = found.convergence.clone();
-            found = run.estimate(&found.phi, options.evaluate).map_err(Error::Usage)?;
+            found = run.estimate(&found.phi, Some(adapted), options.evaluate).map_err(Error::Usage)?;
             found.convergence.adaptations += previous.adaptations;
             found.convergence.iterations += previous.iterations;
         }
