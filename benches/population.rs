@@ -86,8 +86,13 @@ fn peak_memory_kb() -> Option<u64> {
     status.lines().find_map(|l| l.strip_prefix("VmHWM:")?.trim().strip_suffix("kB")?.trim().parse().ok())
 }
 
-/// Times one estimation and prints it with whether it converged.
+/// Times one estimation and prints it with whether it converged; skipped when a filter is
+/// given (`cargo bench --bench population -- FILTER`, as criterion's own) that `label` does not
+/// contain.
 fn once(label: &str, subjects: &[SubjectData], model: &PopulationModel, options: &Options) {
+    if std::env::args().skip(1).find(|a| !a.starts_with('-')).is_some_and(|f| !label.contains(&f)) {
+        return;
+    }
     let start = Instant::now();
     let result = estimate(subjects, model, options).expect("the estimation runs");
     println!(

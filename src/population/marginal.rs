@@ -2,12 +2,17 @@
 //! log-parameters θ = (ln CL, ln V[, ln ka]).
 //!
 //! **Adaptive Gauss–Hermite quadrature** (Pinheiro & Bates 1995): with θ̂ the conditional mode
-//! and H the Hessian of c(θ) = −2 ln[p(y | θ)·N(θ; μ, Ω)] there, Σ = (H/2)⁻¹ = L·Lᵀ, the nodes are
-//! θₖ = θ̂ + √2·L·xₖ for the product rule's points xₖ and
+//! and H the Hessian of c(θ) = −2 ln[p(y | θ)·N(θ; μ, Ω)] there, Σ = (H/2)⁻¹ = U·Λ·Uᵀ (its
+//! principal axes) and A = U·Λ^½, the nodes are θₖ = θ̂ + √2·A·xₖ for the product rule's points
+//! xₖ and
 //!
 //! ```text
-//! Lᵢ ≈ |det √2·L| · Σₖ wₖ·e^(|xₖ|²) · p(y | θₖ)·N(θₖ; μ, Ω)
+//! Lᵢ ≈ |det √2·A| · Σₖ wₖ·e^(|xₖ|²) · p(y | θₖ)·N(θₖ; μ, Ω)
 //! ```
+//!
+//! The product rule may have a different number of nodes along each principal axis: a sparse
+//! subject's posterior is often far from Gaussian along one axis only (the data inform one
+//! combination of the parameters, the prior the others).
 //!
 //! exact when the integrand is a Gaussian times a polynomial of degree below 2·nodes.
 //!
@@ -31,6 +36,7 @@ use crate::fit::objective::{D3, Fixed, Likelihood, Prior, Problem, level_term, l
 use crate::fit::optimise;
 use crate::io::levels::Level;
 use crate::model::Residual;
+use nalgebra::{DMatrix, SymmetricEigen};
 use std::f64::consts::PI;
 
 /// What a subject's likelihood needs of the population at one φ.
@@ -163,18 +169,18 @@ pub struct Terms {
     pub d_residual: [f64; 2],
 }
 
-/// The product rule's points: every combination of `rule`'s nodes in `n` dimensions, with
-/// ln(Π wᵢ·e^(xᵢ²)). None is pruned: where the posterior has heavier tails than its Gaussian
-/// approximation, the outer points carry weight.
-fn grid(rule: &Rule, n: usize) -> Vec<([f64; MAX], f64)> {
-    let m = rule.nodes.len();
-    (0..m.pow(n as u32))
+/// The product rule's points: every combination of the nodes of `rules` (one rule per axis),
+/// with ln(Π wᵢ·e^(xᵢ²)). None is pruned: where the posterior has heavier tails than its
+/// Gaussian approximation, the outer points carry weight.
+fn grid(rules: &[&Rule]) -> Vec<([f64; MAX], f64)> {
+    let size = rules.iter().map(|r| r.nodes.len()).product();
+    (0..size)
         .map(|mut index| {
             let mut x = [0.0; MAX];
             let mut ln_w = 0.0;
-            for xd in x.iter_mut().take(n) {
-                let i = index % m;
-                index /= m;
+            for (xd, rule) in x.iter_mut().zip(rules) {
+                let i = index % rule.nodes.len();
+                index /= rule.nodes.len();
                 *xd = rule.nodes[i];
                 ln_w += rule.ln_weights[i] + rule.nodes[i] * rule.nodes[i];
             }
@@ -183,14 +189,36 @@ fn grid(rule: &Rule, n: usize) -> Vec<([f64; MAX], f64)> {
         .collect()
 }
 
+/// A = U·Λ^½ for a positive-definite Σ = U·Λ·Uᵀ, the axes ordered by falling variance (ties by
+/// index, so the order is reproducible), with ln |det A|; `None` when Σ is not positive definite.
+fn principal_axes(sigma: &Mat, n: usize) -> Option<(Mat, f64)> {
+    let eigen = SymmetricEigen::new(DMatrix::from_fn(n, n, |i, j| sigma[i][j]));
+    let mut order: Vec<usize> = (0..n).collect();
+    order.sort_by(|&i, &j| eigen.eigenvalues[j].total_cmp(&eigen.eigenvalues[i]).then(i.cmp(&j)));
+    let mut a = [[0.0; MAX]; MAX];
+    let mut ln_det = 0.0;
+    for (k, &axis) in order.iter().enumerate() {
+        let lambda = eigen.eigenvalues[axis];
+        if !(lambda > 0.0 && lambda.is_finite()) {
+            return None;
+        }
+        ln_det += 0.5 * lambda.ln();
+        for i in 0..n {
+            a[i][k] = eigen.eigenvectors[(i, axis)] * lambda.sqrt();
+        }
+    }
+    Some((a, ln_det))
+}
+
 /// Find the subject's conditional mode at `mean` (warm-started from `previous`) and place the
-/// nodes there: the rule's product grid, or (`rule` = `None`) the Laplace point.
+/// nodes there: the product grid of `rules` (one per random effect, along the posterior's
+/// principal axes), or (`rules` = `None`) the Laplace point.
 pub fn adapt(
     subject: &SubjectData,
     population: &Population,
     mean: [f64; MAX],
     previous: Option<&[f64; MAX]>,
-    rule: Option<&Rule>,
+    rules: Option<&[&Rule]>,
 ) -> Adapted {
     let n = population.n;
     let problem = population.problem(subject, mean);
@@ -203,7 +231,7 @@ pub fn adapt(
     }
     let mut mode = [0.0; MAX];
     mode[..n].copy_from_slice(&opt.theta[..n]);
-    let Some(rule) = rule else {
+    let Some(rules) = rules else {
         let duals: Vec<D3> = (0..n).map(|i| D3::var(mode[i], i)).collect();
         let slopes = problem.predictions(&duals).iter().map(|f| f.d).collect::<Vec<_>>();
         let predictions = problem.predictions(&mode[..n]);
@@ -219,18 +247,18 @@ pub fn adapt(
     let half = |m: Mat| m.map(|row| row.map(|x| 0.5 * x));
     let covariance = spd_inverse(&half(opt.hessian), n)
         .or_else(|| spd_inverse(&half(problem.gauss_newton(&mode[..n])), n));
-    let l = covariance.as_ref().and_then(|c| cholesky(c, n)).unwrap_or_else(|| {
-        let mut l = [[0.0; MAX]; MAX];
-        (0..n).for_each(|i| l[i][i] = population.omega[i][i].sqrt());
-        l
+    let (a, ln_det_a) = covariance.as_ref().and_then(|c| principal_axes(c, n)).unwrap_or_else(|| {
+        let mut a = [[0.0; MAX]; MAX];
+        (0..n).for_each(|i| a[i][i] = population.omega[i][i].sqrt());
+        (a, (0..n).map(|i| a[i][i].ln()).sum())
     });
-    let ln_det = (0..n).map(|i| (2f64.sqrt() * l[i][i]).ln()).sum::<f64>();
-    let nodes = grid(rule, n)
+    let ln_det = ln_det_a + n as f64 * 0.5 * 2f64.ln();
+    let nodes = grid(&rules[..n])
         .into_iter()
         .map(|(x, ln_w)| {
             let mut theta = mode;
             for i in 0..n {
-                theta[i] += 2f64.sqrt() * (0..=i).map(|j| l[i][j] * x[j]).sum::<f64>();
+                theta[i] += 2f64.sqrt() * (0..n).map(|j| a[i][j] * x[j]).sum::<f64>();
             }
             Node::new(&subject.levels, theta, ln_w + ln_det, problem.predictions(&theta[..n]))
         })

@@ -46,18 +46,27 @@ choice_enum! {
     }
 }
 
-/// With the nodes chosen automatically, each subject's rule climbs this ladder of sizes (nodes
-/// per random effect) until two successive rules agree on its −2 ln Lᵢ within
-/// [`NODE_TOLERANCE`]; the smaller of the two is used. The error of GH rules falls
-/// geometrically with their size (on the theophylline data by a factor of 10 to 100 a rung), so
-/// the larger rule is nearly exact and the difference is the smaller rule's error.
+/// With the nodes chosen automatically, the number of nodes along each principal axis of a
+/// subject's posterior climbs this ladder until moving any one axis to its next rung changes
+/// the subject's −2 ln Lᵢ by so little that the changes sum to at most [`NODE_TOLERANCE`]; the
+/// smaller rules are used. The error of GH rules falls geometrically with their size (on the
+/// theophylline data by a factor of 10 to 100 a rung), so each change is nearly the error that
+/// the axis's rule leaves.
 pub const NODE_LADDER: [usize; 6] = [7, 10, 14, 20, 28, 40];
 /// Rounds of choosing the rules at the current estimate and estimating again with them, after
 /// the first estimate with the ladder's first rule. A subject's rule only grows, so the rounds
 /// end once no rule needs to.
 const NODE_ROUNDS: usize = 4;
-/// The agreement asked of successive rules, in −2 ln Lᵢ.
+/// The agreement asked of successive rules, in −2 ln Lᵢ (the sum over the axes).
 pub const NODE_TOLERANCE: f64 = 1e-7;
+
+/// Gauss–Hermite nodes along each principal axis of a subject's posterior (the first `n` used).
+type Counts = [usize; MAX];
+
+/// The ladder's rung of `count` (the lowest rung at or above it).
+fn rung(count: usize) -> usize {
+    NODE_LADDER.iter().position(|&n| n >= count).unwrap_or(NODE_LADDER.len() - 1)
+}
 
 /// Options of one estimation.
 #[derive(Debug, Clone)]
@@ -117,8 +126,8 @@ struct Run<'a> {
     method: Method,
     /// Gauss–Hermite rules by size (index n − 1).
     rules: Vec<Rule>,
-    /// Each subject's rule size (quadrature).
-    nodes: Vec<usize>,
+    /// Each subject's rule sizes (quadrature).
+    nodes: Vec<Counts>,
 }
 
 /// Largest −2LL change, and step in φ, between adaptations taken as converged. A change of
@@ -139,6 +148,9 @@ fn tolerance_scale(subjects: usize) -> f64 {
     (subjects as f64 / TOLERANCE_SUBJECTS).max(1.0).sqrt()
 }
 
+/// The shortest fraction of a step between adaptations tried before giving up.
+const MIN_STEP_WEIGHT: f64 = 1e-3;
+
 /// Most adaptations before giving up.
 const MAX_ADAPTATIONS: usize = 60;
 
@@ -149,12 +161,13 @@ impl<'a> Run<'a> {
             subjects,
             method: options.method,
             rules: (1..=quadrature::MAX_NODES).map(quadrature::gauss_hermite).collect(),
-            nodes: vec![options.nodes.unwrap_or(NODE_LADDER[0]); subjects.len()],
+            nodes: vec![[options.nodes.unwrap_or(NODE_LADDER[0]); MAX]; subjects.len()],
         }
     }
 
-    fn rule(&self, subject: usize) -> Option<&Rule> {
-        (self.method == Method::Quadrature).then(|| &self.rules[self.nodes[subject] - 1])
+    /// The rules of `counts`, one per random effect.
+    fn rules(&self, counts: &Counts) -> Vec<&Rule> {
+        counts[..self.space.n].iter().map(|&c| &self.rules[c - 1]).collect()
     }
 
     /// What a subject's likelihood needs of the population at `values`; `None` when Ω is not
@@ -163,17 +176,17 @@ impl<'a> Run<'a> {
         Population::new(self.space.n, &values.omega, values.residual, self.absorption(&values.model))
     }
 
-    /// Choose each subject's rule at φ (see [`NODE_LADDER`]), climbing from its rule now (rules
-    /// only grow, so the smaller rungs need no new look); returns whether any rule grew, the
-    /// largest difference between the last two rules of any subject (an estimate of the chosen
-    /// rules' error), and every subject adapted at φ with its chosen rule.
+    /// Choose each subject's rules at φ (see [`NODE_LADDER`]), climbing from its rules now
+    /// (rules only grow, so the smaller rungs need no new look); returns whether any rule grew,
+    /// the largest sum of a subject's changes at its chosen rules (an estimate of their error),
+    /// and every subject adapted at φ with its chosen rules.
     fn choose_nodes(&mut self, phi: &[f64]) -> Result<(bool, f64, Vec<Adapted>), String> {
         let values = self.space.values(phi);
         let population = self
             .population(&values)
             .ok_or("the variabilities and correlations do not form a valid covariance")?;
-        let rules = &self.rules;
-        let chosen: Vec<(usize, f64, Adapted)> = self
+        let n = self.space.n;
+        let chosen: Vec<(Counts, f64, Adapted)> = self
             .subjects
             .par_iter()
             .zip(&self.nodes)
@@ -184,36 +197,54 @@ impl<'a> Run<'a> {
                         s.id.as_deref().unwrap_or("(unnamed)")
                     )
                 })?;
-                let at = |n: usize, warm: Option<&[f64; MAX]>| {
-                    let a = marginal::adapt(s, &population, mean, warm, Some(&rules[n - 1]));
+                let at = |counts: &Counts, warm: Option<&[f64; MAX]>| {
+                    let a = marginal::adapt(s, &population, mean, warm, Some(&self.rules(counts)));
                     (marginal::terms(&s.levels, &a, &population, &mean, false).value, a)
                 };
-                let rung = NODE_LADDER.iter().position(|&n| n >= now).unwrap_or(0).min(NODE_LADDER.len() - 2);
-                let (mut last, mut adapted) = at(NODE_LADDER[rung], None);
-                let mut difference = f64::INFINITY;
-                for pair in NODE_LADDER[rung..].windows(2) {
-                    let (next, next_adapted) = at(pair[1], Some(&adapted.mode));
-                    difference = (next - last).abs();
-                    if difference <= NODE_TOLERANCE || difference.is_nan() {
-                        // Agreement: the smaller rule, unless the subject already has the larger.
-                        let (n, a) = if now > pair[0] { (pair[1], next_adapted) } else { (pair[0], adapted) };
-                        return Ok((n, difference, a));
+                let mut counts = now.map(|c| NODE_LADDER[rung(c)]);
+                let (mut value, mut adapted) = at(&counts, None);
+                loop {
+                    // Each axis's change at its next rung (at the top rung, from the rung below,
+                    // which overstates the top rule's error).
+                    let mut changes = [0.0; MAX];
+                    for axis in 0..n {
+                        let k = rung(counts[axis]);
+                        let mut other = counts;
+                        other[axis] = NODE_LADDER[if k + 1 < NODE_LADDER.len() { k + 1 } else { k - 1 }];
+                        changes[axis] = (at(&other, Some(&adapted.mode)).0 - value).abs();
                     }
-                    (last, adapted) = (next, next_adapted);
+                    let total: f64 = changes.iter().sum();
+                    let grow: Vec<usize> = (0..n)
+                        .filter(|&axis| {
+                            changes[axis] > NODE_TOLERANCE / n as f64 && counts[axis] < quadrature::MAX_NODES
+                        })
+                        .collect();
+                    if total <= NODE_TOLERANCE || total.is_nan() || grow.is_empty() {
+                        return Ok((counts, if total.is_finite() { total } else { 0.0 }, adapted));
+                    }
+                    for axis in grow {
+                        counts[axis] = NODE_LADDER[rung(counts[axis]) + 1];
+                    }
+                    (value, adapted) = at(&counts, Some(&adapted.mode));
                 }
-                Ok((quadrature::MAX_NODES, if difference.is_finite() { difference } else { 0.0 }, adapted))
             })
             .collect::<Result<_, String>>()?;
         let mut grew = false;
         let mut difference = 0.0f64;
         let mut adapted = Vec::with_capacity(chosen.len());
-        for (now, (n, d, a)) in self.nodes.iter_mut().zip(chosen) {
-            grew |= n > *now;
-            *now = n;
+        for (now, (counts, d, a)) in self.nodes.iter_mut().zip(chosen) {
+            grew |= counts.iter().zip(now.iter()).any(|(c, n)| c > n);
+            *now = counts;
             difference = difference.max(d);
             adapted.push(a);
         }
         Ok((grew, difference, adapted))
+    }
+
+    /// The fewest and the most nodes along any axis of any subject.
+    fn node_range(&self) -> (usize, usize) {
+        let axes = self.nodes.iter().flat_map(|c| c[..self.space.n].iter().copied());
+        (axes.clone().min().unwrap_or(0), axes.max().unwrap_or(0))
     }
 
     fn absorption(&self, model: &PopulationModel) -> (Option<f64>, f64, f64) {
@@ -239,7 +270,8 @@ impl<'a> Run<'a> {
                     )
                 })?;
                 let warm = previous.map(|p| &p[i].mode);
-                Ok(marginal::adapt(s, &population, mean, warm, self.rule(i)))
+                let rules = (self.method == Method::Quadrature).then(|| self.rules(&self.nodes[i]));
+                Ok(marginal::adapt(s, &population, mean, warm, rules.as_deref()))
             })
             .collect()
     }
@@ -390,15 +422,29 @@ impl<'a> Run<'a> {
             let (held_optimum, iterations) = self.minimise_held(&phi, &adapted);
             convergence.iterations += iterations;
             let residual: Vec<f64> = held_optimum.iter().zip(&phi).map(|(a, b)| a - b).collect();
-            let weight = relaxation.weight(&residual);
-            let next: Vec<f64> = phi.iter().zip(&residual).map(|(x, r)| x + weight * r).collect();
-            let next_adapted = self.adapt(&next, Some(&adapted))?;
-            let (next_value, gradient) = self.objective(&next, &next_adapted);
-            convergence.adaptations += 1;
-            if !next_value.is_finite() {
-                convergence.reason = "the objective became infinite".into();
+            // The held nodes describe the posteriors near φ only: a step whose re-adapted
+            // objective is worse than φ's (or whose covariance is not valid) went where they
+            // misled the minimiser, so it is shortened until it is not.
+            let mut weight = relaxation.weight(&residual);
+            let accepted = loop {
+                let next: Vec<f64> = phi.iter().zip(&residual).map(|(x, r)| x + weight * r).collect();
+                convergence.adaptations += 1;
+                if let Ok(next_adapted) = self.adapt(&next, Some(&adapted)) {
+                    let (next_value, gradient) = self.objective(&next, &next_adapted);
+                    if next_value.is_finite() && next_value <= value + OBJECTIVE_TOLERANCE * scale {
+                        break Some((next, next_adapted, next_value, gradient));
+                    }
+                }
+                weight *= 0.25;
+                if weight < MIN_STEP_WEIGHT || convergence.adaptations >= MAX_ADAPTATIONS {
+                    break None;
+                }
+                relaxation = Relaxation::default();
+            };
+            let Some((next, next_adapted, next_value, gradient)) = accepted else {
+                convergence.reason = "no step from the last adaptation lowered the objective".into();
                 break;
-            }
+            };
             let step = residual.iter().fold(0.0f64, |m, r| m.max(r.abs()));
             let steep = gradient.iter().any(|g| g.abs() >= GRADIENT_TOLERANCE * scale);
             settled =
@@ -537,10 +583,9 @@ pub fn estimate(
             found.convergence.adaptations += previous.adaptations;
             found.convergence.iterations += previous.iterations;
         }
-        let (lo, hi) =
-            (run.nodes.iter().min().copied().unwrap_or(0), run.nodes.iter().max().copied().unwrap_or(0));
+        let (lo, hi) = run.node_range();
         notes.push(format!(
-            "Gauss–Hermite nodes per random effect chosen per subject at the estimate: {lo} to {hi} (successive rules agree within {})",
+            "Gauss–Hermite nodes chosen per subject and principal axis at the estimate: {lo} to {hi} per axis (successive rules agree within {})",
             accuracy.map_or(String::new(), |a| format!("{a:.1e}"))
         ));
     }
@@ -559,8 +604,8 @@ pub fn estimate(
         None
     };
     let nodes = (options.method == Method::Quadrature).then(|| summary::Nodes {
-        min: run.nodes.iter().copied().min().unwrap_or(0),
-        max: run.nodes.iter().copied().max().unwrap_or(0),
+        min: run.node_range().0,
+        max: run.node_range().1,
         successive_rules_differ_by: accuracy,
     });
     Ok(summary::Estimation::new(outcome, covariance, bootstrap, subjects, options, notes, nodes))

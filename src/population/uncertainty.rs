@@ -10,7 +10,7 @@
 
 use super::marginal::Adapted;
 use super::space::Space;
-use super::{Method, Options, Run};
+use super::{Counts, Method, Options, Run};
 use crate::fit::SubjectData;
 use crate::seeds::Seeds;
 use nalgebra::{DMatrix, SymmetricEigen};
@@ -91,7 +91,7 @@ pub(super) fn bootstrap(
     subjects: &[SubjectData],
     space: &Space,
     options: &Options,
-    nodes: &[usize],
+    nodes: &[Counts],
     phi: &[f64],
 ) -> Bootstrap {
     let seeds = Seeds(options.seed);
