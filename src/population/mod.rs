@@ -422,16 +422,19 @@ impl<'a> Run<'a> {
             let (held_optimum, iterations) = self.minimise_held(&phi, &adapted);
             convergence.iterations += iterations;
             let residual: Vec<f64> = held_optimum.iter().zip(&phi).map(|(a, b)| a - b).collect();
-            // The held nodes describe the posteriors near φ only: a step whose re-adapted
-            // objective is worse than φ's (or whose covariance is not valid) went where they
-            // misled the minimiser, so it is shortened until it is not.
+            // The held nodes describe the posteriors near φ only: a step whose covariance is not
+            // valid, or (quadrature) whose re-adapted objective is worse than φ's, went where
+            // they misled the minimiser, so it is shortened until it is not. Laplace's fixed
+            // point is not a minimum of its re-adapted objective (the value depends on the
+            // mode it is taken at), so there only validity is asked.
             let mut weight = relaxation.weight(&residual);
             let accepted = loop {
                 let next: Vec<f64> = phi.iter().zip(&residual).map(|(x, r)| x + weight * r).collect();
                 convergence.adaptations += 1;
                 if let Ok(next_adapted) = self.adapt(&next, Some(&adapted)) {
                     let (next_value, gradient) = self.objective(&next, &next_adapted);
-                    if next_value.is_finite() && next_value <= value + OBJECTIVE_TOLERANCE * scale {
+                    let lower = next_value <= value + OBJECTIVE_TOLERANCE * scale;
+                    if next_value.is_finite() && (lower || self.method == Method::Laplace) {
                         break Some((next, next_adapted, next_value, gradient));
                     }
                 }
