@@ -5,6 +5,7 @@
 use crate::common::ran;
 use cistern::diagnostics::{SIMULATIONS, for_fits};
 use cistern::engine::Params;
+use cistern::fit::objective::Weighting;
 use cistern::fit::{FitOptions, Method, SubjectData, fit_all};
 use cistern::io::levels::Level;
 use cistern::io::tomlfile::TomlText;
@@ -117,20 +118,19 @@ fn prior(off: bool) -> PopulationModel {
 /// The shares of simulated studies on which `model_misfit` fires (subject or study level) and
 /// on which `weighting_dependent` fires, fitting by `method` (map against `prior`).
 fn warning_rates(
-    method: Method,
+    options: &FitOptions,
     prior: Option<&PopulationModel>,
     two: bool,
     studies: usize,
     seed: u64,
 ) -> (f64, f64) {
     let mut rng = StdRng::seed_from_u64(seed);
-    let options = FitOptions { method, ..FitOptions::default() };
     let (mut misfit, mut weighting) = (0, 0);
     for _ in 0..studies {
         let subjects = study(&mut rng, two);
-        let mut fits: Vec<_> = fit_all(&subjects, prior, &options).into_iter().map(Result::unwrap).collect();
+        let mut fits: Vec<_> = fit_all(&subjects, prior, options).into_iter().map(Result::unwrap).collect();
         let refs: Vec<&SubjectData> = subjects.iter().collect();
-        let d = for_fits(&refs, &mut fits, prior, &options, SIMULATIONS);
+        let d = for_fits(&refs, &mut fits, prior, options, SIMULATIONS);
         let fired = |code: Code| {
             d.warnings.iter().chain(fits.iter().flat_map(|f| &f.warnings)).any(|w| w.code == code)
         };
@@ -144,25 +144,30 @@ fn warning_rates(
 fn misfit_fires_on_most_two_compartment_studies_fitted_by_map() {
     // A quick version of the calibration below (40 studies each, other seeds): map with the
     // true population as prior.
-    let truth = prior(false);
-    let (one, _) = warning_rates(Method::Map, Some(&truth), false, 40, 7);
-    let (two, _) = warning_rates(Method::Map, Some(&truth), true, 40, 8);
+    let (truth, map) = (prior(false), FitOptions::default());
+    let (one, _) = warning_rates(&map, Some(&truth), false, 40, 7);
+    let (two, _) = warning_rates(&map, Some(&truth), true, 40, 8);
     assert!(one <= 0.05, "false alarms {one}");
-    assert!(two > 0.5, "power {two}");
+    // Before the serial-correlation test it fired on 46.5 % of the calibration's studies.
+    assert!(two >= 0.7, "power {two}");
 }
 
 #[test]
 #[ignore = "calibration study, a few minutes; its rates are in docs/methods.md, section 12.4"]
 fn misfit_calibration() {
     let (truth, off) = (prior(false), prior(true));
+    let wls = FitOptions { method: Method::Wls, ..FitOptions::default() };
+    let wls_y2 = FitOptions { weighting: Weighting::InvY2, ..wls.clone() };
+    let map = FitOptions::default();
     let cases = [
-        ("wls", Method::Wls, None),
-        ("map, the true population as prior", Method::Map, Some(&truth)),
-        ("map, a prior 1.5-fold off", Method::Map, Some(&off)),
+        ("wls", &wls, None),
+        ("wls, 1/y^2", &wls_y2, None),
+        ("map, the true population as prior", &map, Some(&truth)),
+        ("map, a prior 1.5-fold off", &map, Some(&off)),
     ];
-    for (name, method, prior) in cases {
-        let (one, weighting) = warning_rates(method, prior, false, 400, 20261203);
-        let (two, _) = warning_rates(method, prior, true, 400, 20261204);
+    for (name, options, prior) in cases {
+        let (one, weighting) = warning_rates(options, prior, false, 400, 20261203);
+        let (two, _) = warning_rates(options, prior, true, 400, 20261204);
         println!(
             "{name}: model_misfit fires on {:.1} % of one-compartment and {:.1} % of two-compartment studies; \
              weighting_dependent on {:.1} % of one-compartment studies",
