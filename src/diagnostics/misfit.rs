@@ -13,8 +13,8 @@
 //!   residuals about their mean, z = (r₁ + 1/n)·√n (the large-sample moments of r₁ for
 //!   independent values, common practice), combined over the subjects as Σz/√k (Stouffer's
 //!   method, common practice). A two-exponential curve leaves smooth waves of residuals, which
-//!   the runs test reads weakly when a prior holds the individual curve near the population's
-//!   (map) and many residuals sit on one side.
+//!   the runs test (signs only) reads weakly when the fit is weighted by the error model (map,
+//!   wls with 1/y²) and the late, low levels' signs vary.
 //!
 //! The thresholds were calibrated by simulation (the `misfit_calibration` test; the rates are in
 //! docs/methods.md).
