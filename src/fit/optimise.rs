@@ -374,17 +374,32 @@ pub fn minimise(problem: &Problem, start: &[f64]) -> Optimum {
                 break;
             }
             let step = cholesky_solve(&l, n, &gradient[..n]);
-            let Some((trial, c)) = (0..20).map(|h| 0.5f64.powi(h)).find_map(|scale| {
-                let trial = axpy(&theta, -scale, &step);
-                let c = problem.cost(&trial[..n]);
-                (c <= cost).then_some((trial, c))
-            }) else {
-                break;
+            // Where the decrease the full step promises, ½gᵀH⁻¹g, is below the objective's
+            // rounding, comparing objectives cannot tell a better point from a worse one (nor
+            // can any shorter step): the full step is taken when it shrinks the gradient and
+            // raises the objective by no more than its rounding.
+            let rounding = 1e-13 * cost.abs().max(1.0);
+            let (trial, c, g) = if 0.5 * dot(&gradient, &step) < rounding {
+                let trial = axpy(&theta, -1.0, &step);
+                let (c, g) = problem.cost_and_gradient(&trial[..n]);
+                if !(c <= cost + rounding && max_abs(&g[..n]) < max_abs(&gradient[..n])) {
+                    break;
+                }
+                (trial, c, g)
+            } else {
+                let Some((trial, c)) = (0..20).map(|h| 0.5f64.powi(h)).find_map(|scale| {
+                    let trial = axpy(&theta, -scale, &step);
+                    let c = problem.cost(&trial[..n]);
+                    (c <= cost).then_some((trial, c))
+                }) else {
+                    break;
+                };
+                (trial, c, problem.cost_and_gradient(&trial[..n]).1)
             };
             moved |= (0..n).any(|i| (trial[i] - theta[i]).abs() > 1e-6);
             theta = trial;
             cost = c;
-            gradient = problem.cost_and_gradient(&theta[..n]).1;
+            gradient = g;
             iterations += 1;
         }
         if moved {
