@@ -237,9 +237,9 @@ fn bfgs(problem: &Problem, start: &[f64], spent: &Cell<u64>) -> Result<(Point, u
         }
         let mut d = times(&inverse, &here.gradient).map(|v| -v);
         here.slope = dot(&here.gradient, &d);
-        if !(here.slope < 0.0) {
-            // Rounding has cost the inverse its positive definiteness: start again from the
-            // steepest descent.
+        if here.slope.is_nan() || here.slope >= 0.0 {
+            // Rounding has cost the inverse its positive definiteness (or its finiteness): start
+            // again from the steepest descent.
             inverse = identity(n);
             d = here.gradient.map(|v| -v);
             here.slope = dot(&here.gradient, &d);
