@@ -474,4 +474,48 @@ mod tests {
         // With budget left it runs.
         assert!(nelder_mead(&problem, &[1.0, 3.0], &Cell::new(0)).is_ok());
     }
+
+    /// An intravenous subject with three levels and the least-squares objective.
+    fn three_levels() -> Problem {
+        let doses = [Dose { time_h: 0.0, amount_mg: 1000.0, route: Route::Bolus, duration_h: 0.0 }];
+        let levels: Vec<Level> = [(1.0, 18.0), (4.0, 12.5), (10.0, 5.9)]
+            .iter()
+            .map(|&(time_h, c)| Level { time_h, conc_mg_l: Some(c), lloq_mg_l: None, line: 0 })
+            .collect();
+        let fixed = Fixed { n: 2, ka_per_h: None, f: 1.0, tlag_h: 0.0 };
+        Problem::new(&doses, &levels, fixed, Likelihood::LeastSquares(Weighting::None), None)
+    }
+
+    #[test]
+    fn the_line_search_step_satisfies_the_strong_wolfe_conditions() {
+        // Steepest descent from far away: step 1 is far too long (the objective overflows or
+        // rises), so the search must bracket and zoom. The conditions are checked on an
+        // evaluation of its own.
+        let problem = three_levels();
+        let x = [0.5, 4.5, 0.0];
+        let (cost, gradient) = problem.cost_and_gradient(&x[..2]);
+        let d = gradient.map(|g| -g);
+        let start = Trial { alpha: 0.0, x, cost, gradient, slope: dot(&gradient, &d) };
+        let f = Counted { problem: &problem, spent: &Cell::new(0) };
+        let t = line_search(&f, &start, &d).unwrap().expect("a step");
+        let (c, g) = problem.cost_and_gradient(&axpy(&x, t.alpha, &d)[..2]);
+        assert!(c <= cost + C1 * t.alpha * start.slope, "sufficient decrease: {c} from {cost}");
+        assert!(dot(&g, &d).abs() <= -C2 * start.slope, "curvature: {} against {}", dot(&g, &d), start.slope);
+        assert!(t.alpha < 1.0, "the first trial step was not too long: {}", t.alpha);
+    }
+
+    #[test]
+    fn bfgs_and_nelder_mead_reach_the_same_optimum() {
+        // Two independent solvers (one on the gradient, one on values alone) agree, and the
+        // gradient vanishes there.
+        let problem = three_levels();
+        let (a, _, reason) = bfgs(&problem, &[0.5, 4.5], &Cell::new(0)).unwrap();
+        assert_eq!(reason, "Solver converged");
+        let (b, _, _) = nelder_mead(&problem, &[0.5, 4.5], &Cell::new(0)).unwrap();
+        for i in 0..2 {
+            assert!((a[i] - b[i]).abs() < 1e-5, "{a:?} {b:?}");
+        }
+        let (_, g) = problem.cost_and_gradient(&a[..2]);
+        assert!(dot(&g, &g).sqrt() < BFGS_GRADIENT, "{g:?}");
+    }
 }
