@@ -268,12 +268,13 @@ impl Problem {
         let h = 1e-4;
         let mut m = [[0.0; MAX]; MAX];
         for j in 0..self.n {
-            let mut up = theta.to_vec();
-            let mut down = theta.to_vec();
+            let mut up = [0.0; MAX];
+            up[..self.n].copy_from_slice(&theta[..self.n]);
+            let mut down = up;
             up[j] += h;
             down[j] -= h;
-            let (_, gu) = self.cost_and_gradient(&up);
-            let (_, gd) = self.cost_and_gradient(&down);
+            let (_, gu) = self.cost_and_gradient(&up[..self.n]);
+            let (_, gd) = self.cost_and_gradient(&down[..self.n]);
             for i in 0..self.n {
                 m[i][j] = (gu[i] - gd[i]) / (2.0 * h);
             }
