@@ -119,6 +119,8 @@ fn benches(c: &mut Criterion) {
     }
     let bootstrap = Options { nodes: Some(7), bootstrap: 200, ..Options::default() };
     once("theophylline_7_nodes_bootstrap_200", &theoph, &start, &bootstrap);
+    let bootstrap = Options { bootstrap: 200, ..Options::default() };
+    once("theophylline_bootstrap_200", &theoph, &start, &bootstrap);
 
     let mut g = c.benchmark_group("population");
     g.sample_size(10).measurement_time(Duration::from_secs(10));
