@@ -177,10 +177,11 @@ impl<'a> Run<'a> {
     }
 
     /// Choose each subject's rules at φ (see [`NODE_LADDER`]), climbing from its rules now
-    /// (rules only grow, so the smaller rungs need no new look); returns whether any rule grew,
-    /// the largest sum of a subject's changes at its chosen rules (an estimate of their error),
-    /// and every subject adapted at φ with its chosen rules.
-    fn choose_nodes(&mut self, phi: &[f64]) -> Result<(bool, f64, Vec<Adapted>), String> {
+    /// (rules only grow, so the smaller rungs need no new look) and its adaptation at φ with
+    /// them, `held`; returns whether any rule grew, the largest sum of a subject's changes at its
+    /// chosen rules (an estimate of their error), and every subject adapted at φ with its chosen
+    /// rules.
+    fn choose_nodes(&mut self, phi: &[f64], held: Vec<Adapted>) -> Result<(bool, f64, Vec<Adapted>), String> {
         let values = self.space.values(phi);
         let population = self
             .population(&values)
@@ -190,7 +191,8 @@ impl<'a> Run<'a> {
             .subjects
             .par_iter()
             .zip(&self.nodes)
-            .map(|(s, &now)| {
+            .zip(held)
+            .map(|((s, &now), held)| {
                 let (mean, _) = self.space.prior_mean(&values, &s.covariates).ok_or_else(|| {
                     format!(
                         "subject {}: the covariate effects give a typical value of zero or less",
@@ -202,7 +204,11 @@ impl<'a> Run<'a> {
                     (marginal::terms(&s.levels, &a, &population, &mean, false).value, a)
                 };
                 let mut counts = now.map(|c| NODE_LADDER[rung(c)]);
-                let (mut value, mut adapted) = at(&counts, None);
+                let (mut value, mut adapted) = if counts == now {
+                    (marginal::terms(&s.levels, &held, &population, &mean, false).value, held)
+                } else {
+                    at(&counts, Some(&held.mode))
+                };
                 loop {
                     // Each axis's change at its next rung (at the top rung, from the rung below,
                     // which overstates the top rule's error).
@@ -222,8 +228,13 @@ impl<'a> Run<'a> {
                     if total <= NODE_TOLERANCE || total.is_nan() || grow.is_empty() {
                         return Ok((counts, if total.is_finite() { total } else { 0.0 }, adapted));
                     }
+                    // One rung up, and one more for each factor of 100 by which the change exceeds
+                    // its share of the tolerance (the fastest fall of the error seen a rung).
                     for axis in grow {
-                        counts[axis] = NODE_LADDER[rung(counts[axis]) + 1];
+                        let excess = changes[axis] / (NODE_TOLERANCE / n as f64);
+                        let more = (excess.log10() / 2.0).floor().max(0.0) as usize;
+                        counts[axis] =
+                            NODE_LADDER[(rung(counts[axis]) + 1 + more).min(NODE_LADDER.len() - 1)];
                     }
                     (value, adapted) = at(&counts, Some(&adapted.mode));
                 }
@@ -576,9 +587,11 @@ pub fn estimate(
     let mut accuracy = None;
     if options.method == Method::Quadrature && options.nodes.is_none() {
         for _ in 0..NODE_ROUNDS {
-            let (grew, difference, adapted) = run.choose_nodes(&found.phi).map_err(Error::Usage)?;
+            let (grew, difference, adapted) =
+                run.choose_nodes(&found.phi, std::mem::take(&mut found.adapted)).map_err(Error::Usage)?;
             accuracy = Some(difference);
             if !grew {
+                found.adapted = adapted;
                 break;
             }
             let previous = found.convergence.clone();
