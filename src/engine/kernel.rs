@@ -133,7 +133,7 @@ pub fn step<R: Real>(state: State<R>, rates: Rates<R>, rate: f64, t: f64, integr
 #[derive(Debug, Clone, Copy)]
 pub struct Propagator<R> {
     /// The interval's length (h).
-    pub t: f64,
+    t: f64,
     kt: R,
     e: R,
     p1: Option<R>,
@@ -154,6 +154,13 @@ impl<R: Real> Propagator<R> {
     pub fn none() -> Self {
         let zero = R::cst(0.0);
         Propagator { t: f64::NAN, kt: zero, e: zero, p1: None, p2: None, g: None, h: None, ea: None }
+    }
+
+    /// Whether this is the step for an interval of length `t`: exactly that length, since a
+    /// step of another length, however near, is another step.
+    #[allow(clippy::float_cmp)]
+    pub fn is_for(&self, t: f64) -> bool {
+        self.t == t
     }
 
     /// Advance `state` under constant infusion rate `rate` (mg/h), with the `rates` this step

@@ -248,9 +248,9 @@ impl<'a, R: Real> Walker<'a, R> {
         if dt > 0.0 {
             let rates = Rates { k: self.kin.k, ka: self.kin.ka };
             // The last length used first, then the other, else a new step replaces the older.
-            let slot = if self.steps[self.last].t == dt {
+            let slot = if self.steps[self.last].is_for(dt) {
                 self.last
-            } else if self.steps[1 - self.last].t == dt {
+            } else if self.steps[1 - self.last].is_for(dt) {
                 1 - self.last
             } else {
                 self.steps[1 - self.last] = Propagator::new(rates, dt);
