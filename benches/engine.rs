@@ -61,6 +61,26 @@ fn simulate(c: &mut Criterion) {
     group.finish();
 }
 
+/// A uniform grid (the `--times` of `cistern simulate`): oral doses every 12 h at 1,000,000
+/// points 0.05 h apart, where the walker reuses one step from point to point.
+fn uniform_grid(c: &mut Criterion) {
+    let p = params();
+    let step = 0.05;
+    let times: Vec<f64> = (0..TIMES).map(|i| i as f64 * step).collect();
+    let doses: Vec<Dose> = (0..TIMES)
+        .step_by(240)
+        .map(|i| Dose { time_h: i as f64 * step, amount_mg: 500.0, route: Route::Oral, duration_h: 0.0 })
+        .collect();
+    p.validate(&doses).expect("the benchmark history is valid");
+    let mut group = c.benchmark_group("simulate_1M_grid_points");
+    group.sample_size(10).warm_up_time(Duration::from_secs(1)).measurement_time(Duration::from_secs(5));
+    group.throughput(Throughput::Elements(TIMES as u64));
+    group.bench_function("oral_every_12h", |b| {
+        b.iter(|| engine::concentrations(black_box(&p), black_box(&doses), black_box(&times)))
+    });
+    group.finish();
+}
+
 fn steady_state(c: &mut Criterion) {
     let p = params();
     let regimens = [
@@ -78,5 +98,5 @@ fn steady_state(c: &mut Criterion) {
     group.finish();
 }
 
-criterion_group!(benches, simulate, steady_state);
+criterion_group!(benches, simulate, uniform_grid, steady_state);
 criterion_main!(benches);

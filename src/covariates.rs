@@ -333,7 +333,7 @@ pub fn parse_covariates(table: &Table) -> Result<Vec<(String, Covariates)>, Vec<
         }
         let mut cov = Covariates::default();
         for (i, name) in names.iter().enumerate() {
-            let text = row.fields[i].as_str();
+            let text = &row.fields[i];
             if i == subject.index || text.is_empty() {
                 continue;
             }

@@ -24,22 +24,23 @@ pub enum Route {
 impl Route {
     /// Parse the spelling used in files and flags.
     pub fn parse(text: &str) -> Option<Route> {
-        match text.trim().to_ascii_lowercase().as_str() {
-            "bolus" => Some(Route::Bolus),
-            "infusion" => Some(Route::Infusion),
-            "oral" => Some(Route::Oral),
-            _ => None,
+        let text = text.trim();
+        [Route::Bolus, Route::Infusion, Route::Oral].into_iter().find(|r| r.name().eq_ignore_ascii_case(text))
+    }
+
+    /// The spelling used in files and flags.
+    fn name(self) -> &'static str {
+        match self {
+            Route::Bolus => "bolus",
+            Route::Infusion => "infusion",
+            Route::Oral => "oral",
         }
     }
 }
 
 impl fmt::Display for Route {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        f.write_str(match self {
-            Route::Bolus => "bolus",
-            Route::Infusion => "infusion",
-            Route::Oral => "oral",
-        })
+        f.write_str(self.name())
     }
 }
 

@@ -104,13 +104,22 @@ pub fn unit_text(kind: Kind) -> &'static str {
 
 /// Check a value against the absolute limits of `kind` (in base units), saying what is wrong.
 pub fn check(kind: Kind, value: f64) -> Result<f64, String> {
-    check_range(&range(kind), value, &kind.to_string(), unit_text(kind))
+    let range = range(kind);
+    // The kind's name is written only for the message (every number of an input passes here).
+    if value.is_finite() && within(&range, value.abs()) {
+        return Ok(value);
+    }
+    check_range(&range, value, &kind.to_string(), unit_text(kind))
+}
+
+/// A finite magnitude inside `range`, or zero.
+fn within(range: &Range, magnitude: f64) -> bool {
+    magnitude <= range.largest && (magnitude == 0.0 || magnitude >= range.smallest)
 }
 
 /// Check a value against `range`; `what` names the quantity and `unit` its unit in the message.
 pub fn check_range(range: &Range, value: f64, what: &str, unit: &str) -> Result<f64, String> {
-    let magnitude = value.abs();
-    if !value.is_finite() || magnitude > range.largest || (magnitude > 0.0 && magnitude < range.smallest) {
+    if !(value.is_finite() && within(range, value.abs())) {
         let unit = if unit.is_empty() { String::new() } else { format!(" {unit}") };
         return Err(format!(
             "{}{unit} is outside the accepted range for {what} ({} to {}{unit} in magnitude, or 0)",

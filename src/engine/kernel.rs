@@ -119,36 +119,81 @@ fn phi2_from<R: Real>(x: R, p1: R) -> R {
 
 /// Advance `state` by `t` hours under constant infusion rate `rate` (mg/h).
 /// Returns the new state and, when `integrate` is set, ∫A over the interval (mg·h).
+pub fn step<R: Real>(state: State<R>, rates: Rates<R>, rate: f64, t: f64, integrate: bool) -> (State<R>, R) {
+    Propagator::new(rates, t).apply(state, rates, rate, integrate)
+}
+
+/// The exact step over intervals of one length `t`: its factors (e^(−k t), φ1, φ2, G, H,
+/// e^(−ka t)) are computed once, when first needed, and reused for every interval of that
+/// length — on a uniform time grid the walk then costs a few multiplications a point, the
+/// per-step recurrence, with the very arithmetic of a fresh step.
 ///
 /// φ1 and φ2 are computed only when used: predictions without an infusion running need the
 /// exponential alone (the fitter's objective evaluates mostly such steps).
-pub fn step<R: Real>(state: State<R>, rates: Rates<R>, rate: f64, t: f64, integrate: bool) -> (State<R>, R) {
-    let kt = rates.k * t;
-    let e = (-kt).exp();
-    let mut central = state.central * e;
-    let mut integral = R::cst(0.0);
-    if integrate || rate != 0.0 {
-        let p1 = phi1_from(kt, e);
-        if integrate {
-            integral = state.central * p1 * t;
-        }
-        if rate != 0.0 {
-            central += p1 * (rate * t);
+#[derive(Debug, Clone, Copy)]
+pub struct Propagator<R> {
+    /// The interval's length (h).
+    t: f64,
+    kt: R,
+    e: R,
+    p1: Option<R>,
+    p2: Option<R>,
+    g: Option<R>,
+    h: Option<R>,
+    ea: Option<R>,
+}
+
+impl<R: Real> Propagator<R> {
+    /// The step of length `t` (only e^(−k t) is computed now).
+    pub fn new(rates: Rates<R>, t: f64) -> Self {
+        let kt = rates.k * t;
+        Propagator { t, kt, e: (-kt).exp(), p1: None, p2: None, g: None, h: None, ea: None }
+    }
+
+    /// A step of no length yet (NaN, equal to none), to be replaced.
+    pub fn none() -> Self {
+        let zero = R::cst(0.0);
+        Propagator { t: f64::NAN, kt: zero, e: zero, p1: None, p2: None, g: None, h: None, ea: None }
+    }
+
+    /// Whether this is the step for an interval of length `t`: exactly that length, since a
+    /// step of another length, however near, is another step.
+    #[allow(clippy::float_cmp)]
+    pub fn is_for(&self, t: f64) -> bool {
+        self.t == t
+    }
+
+    /// Advance `state` under constant infusion rate `rate` (mg/h), with the `rates` this step
+    /// was made for; also ∫A over the interval (mg·h) when `integrate` is set.
+    pub fn apply(&mut self, state: State<R>, rates: Rates<R>, rate: f64, integrate: bool) -> (State<R>, R) {
+        let t = self.t;
+        let mut central = state.central * self.e;
+        let mut integral = R::cst(0.0);
+        if integrate || rate != 0.0 {
+            let (kt, e) = (self.kt, self.e);
+            let p1 = *self.p1.get_or_insert_with(|| phi1_from(kt, e));
             if integrate {
-                integral += phi2_from(kt, p1) * (rate * t * t);
+                integral = state.central * p1 * t;
+            }
+            if rate != 0.0 {
+                central += p1 * (rate * t);
+                if integrate {
+                    integral += *self.p2.get_or_insert_with(|| phi2_from(kt, p1)) * (rate * t * t);
+                }
             }
         }
-    }
-    let mut depot = state.depot;
-    if depot.val() != 0.0 {
-        let ka_d = rates.ka * depot;
-        central += ka_d * depot_to_central(rates.k, rates.ka, t);
-        if integrate {
-            integral += ka_d * depot_to_central_integral(rates.k, rates.ka, t);
+        let mut depot = state.depot;
+        if depot.val() != 0.0 {
+            let ka_d = rates.ka * depot;
+            central += ka_d * *self.g.get_or_insert_with(|| depot_to_central(rates.k, rates.ka, t));
+            if integrate {
+                integral +=
+                    ka_d * *self.h.get_or_insert_with(|| depot_to_central_integral(rates.k, rates.ka, t));
+            }
+            depot = depot * *self.ea.get_or_insert_with(|| (rates.ka * -t).exp());
         }
-        depot = depot * (rates.ka * -t).exp();
+        (State { central, depot }, integral)
     }
-    (State { central, depot }, integral)
 }
 
 #[cfg(test)]

@@ -15,7 +15,7 @@ pub mod steady;
 
 use crate::dosing::{Dose, Route};
 use crate::error::InputError;
-use kernel::{Rates, State, step};
+use kernel::{Propagator, Rates, State};
 use scalar::Real;
 use serde::{Deserialize, Serialize};
 
@@ -188,7 +188,19 @@ pub(crate) struct Walker<'a, R> {
     running: usize,
     integral: R,
     integrate: bool,
+    /// The steps of the last two interval lengths, reused when a length repeats (a uniform
+    /// grid's intervals take one or two lengths in floating point), and the one used last.
+    steps: [Propagator<R>; 2],
+    last: usize,
+    /// The time and state after the last event (or the start), and the steps taken since
+    /// the state was last computed from it.
+    anchor: (f64, State<R>),
+    chained: u32,
 }
+
+/// Steps taken in a row between two computations of the state afresh from the last event:
+/// 64 roundings of about 1e-16 stay far below 1e-12.
+const REANCHOR_EVERY: u32 = 64;
 
 impl<'a, R: Real> Walker<'a, R> {
     /// Start with no drug at the time of the first event (or at `start` if earlier).
@@ -210,6 +222,10 @@ impl<'a, R: Real> Walker<'a, R> {
             running: 0,
             integral: R::cst(0.0),
             integrate: true,
+            steps: [Propagator::none(); 2],
+            last: 0,
+            anchor: (start, state),
+            chained: 0,
         }
     }
 
@@ -231,7 +247,26 @@ impl<'a, R: Real> Walker<'a, R> {
         let dt = to - self.time;
         if dt > 0.0 {
             let rates = Rates { k: self.kin.k, ka: self.kin.ka };
-            let (s, i) = step(self.state, rates, self.rate(), dt, self.integrate);
+            // The last length used first, then the other, else a new step replaces the older.
+            let slot = if self.steps[self.last].is_for(dt) {
+                self.last
+            } else if self.steps[1 - self.last].is_for(dt) {
+                1 - self.last
+            } else {
+                self.steps[1 - self.last] = Propagator::new(rates, dt);
+                1 - self.last
+            };
+            self.last = slot;
+            let (rate, integrate) = (self.rate(), self.integrate);
+            let (mut s, i) = self.steps[slot].apply(self.state, rates, rate, integrate);
+            // A reused step repeats its rounding at every point; every so many points the state
+            // is taken afresh from the last event, so no error accumulates along a long grid.
+            self.chained += 1;
+            if self.chained >= REANCHOR_EVERY {
+                let (anchor_time, anchor_state) = self.anchor;
+                s = kernel::step(anchor_state, rates, rate, to - anchor_time, false).0;
+                self.chained = 0;
+            }
             self.state = s;
             self.integral += i;
             self.time = to;
@@ -239,6 +274,12 @@ impl<'a, R: Real> Walker<'a, R> {
     }
 
     fn apply(&mut self, input: Input) {
+        self.apply_input(input);
+        self.anchor = (self.time, self.state);
+        self.chained = 0;
+    }
+
+    fn apply_input(&mut self, input: Input) {
         match input {
             Input::Bolus(a) => self.state.central += R::cst(a),
             Input::Depot(a) => self.state.depot += self.kin.f * a,
@@ -321,10 +362,13 @@ pub fn concentrations(params: &Params, doses: &[Dose], times: &[f64]) -> Vec<f64
 /// [`concentrations`] in any number type (used with [`scalar::Dual`] for exact gradients).
 pub(crate) fn concentrations_with<R: Real>(kin: Kinetics<R>, doses: &[Dose], times: &[f64]) -> Vec<R> {
     let events = Events::new(doses, kin.tlag_h);
-    let mut order: Vec<usize> = (0..times.len()).collect();
-    if !times.is_sorted_by(|a, b| a <= b) {
-        order.sort_by(|&a, &b| times[a].total_cmp(&times[b]));
+    if times.is_sorted_by(|a, b| a <= b) {
+        let mut out = vec![R::cst(0.0); times.len()];
+        predict(kin, &events, times, &mut out);
+        return out;
     }
+    let mut order: Vec<usize> = (0..times.len()).collect();
+    order.sort_by(|&a, &b| times[a].total_cmp(&times[b]));
     let sorted: Vec<f64> = order.iter().map(|&i| times[i]).collect();
     let mut values = vec![R::cst(0.0); times.len()];
     predict(kin, &events, &sorted, &mut values);
@@ -371,4 +415,69 @@ pub fn auc(params: &Params, doses: &[Dose], t0: f64, t1: f64) -> f64 {
     walker.restart_auc();
     walker.run_to(t1);
     walker.auc()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+    use proptest::test_runner::RngSeed;
+
+    fn log_uniform(lo: f64, hi: f64) -> impl Strategy<Value = f64> {
+        (lo.ln()..hi.ln()).prop_map(f64::exp)
+    }
+
+    fn route() -> impl Strategy<Value = Route> {
+        prop_oneof![Just(Route::Bolus), Just(Route::Infusion), Just(Route::Oral)]
+    }
+
+    prop_compose! {
+        /// k in [0.001, 10] /h; ka a multiple of k in [0.01, 100] or equal to it; lag up to
+        /// 5 h; 1–40 doses of every route at random times over 0–500 h (infusions up to 30 h,
+        /// so they overlap); a grid of 2,000–40,000 points from a random start, step
+        /// 0.001–2 h, so that doses fall between points.
+        fn case()(cl in log_uniform(0.3, 30.0), v in log_uniform(3.0, 300.0),
+                  ratio in prop_oneof![3 => log_uniform(0.01, 100.0), 1 => Just(1.0)],
+                  f in 0.2..=1.0, tlag in prop_oneof![Just(0.0), 0.0..5.0],
+                  doses in prop::collection::vec((0.0..500.0, log_uniform(0.1, 5000.0), route(),
+                                                  log_uniform(0.01, 30.0)), 1..40),
+                  start in -10.0..100.0, step in log_uniform(1e-3, 2.0), points in 2_000usize..40_000)
+                  -> (Params, Vec<Dose>, Vec<f64>) {
+            let params = Params { cl_l_h: cl, v_l: v, ka_per_h: Some(ratio * cl / v), f, tlag_h: tlag };
+            let doses = doses.into_iter().map(|(time_h, amount_mg, route, d)| Dose {
+                time_h, amount_mg, route, duration_h: if route == Route::Infusion { d } else { 0.0 },
+            }).collect();
+            // As `--times START:END:STEP` makes it.
+            let grid = (0..points).map(|i| start + i as f64 * step).collect();
+            (params, doses, grid)
+        }
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig {
+            cases: 300,
+            rng_seed: RngSeed::Fixed(0x5EED_0014),
+            failure_persistence: None,
+            ..ProptestConfig::default()
+        })]
+
+        /// The walk along a uniform grid (the step of each interval length computed once and
+        /// reused from point to point) against the general engine evaluating each time on its
+        /// own (a fresh walk from the first dose, stepping from event to event and then to the
+        /// time): agreement to 1e-12 relative, or both below 1e-100 mg/L, at 400 points spread
+        /// over grids of up to 40,000 points, so that error accumulated along the grid would show.
+        #[test]
+        fn the_grid_walk_agrees_with_a_fresh_walk_to_each_time((p, doses, grid) in case()) {
+            let walked = concentrations(&p, &doses, &grid);
+            for i in (0..grid.len()).step_by(grid.len() / 400) {
+                let fresh = concentrations(&p, &doses, &grid[i..=i])[0];
+                let got = walked[i];
+                prop_assert!(
+                    (got - fresh).abs() <= 1e-12 * fresh.abs() || (got.abs() < 1e-100 && fresh.abs() < 1e-100),
+                    "point {i} (t = {} h): grid walk {got}, fresh walk {fresh} (relative {:e})",
+                    grid[i], (got / fresh - 1.0).abs()
+                );
+            }
+        }
+    }
 }

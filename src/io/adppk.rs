@@ -21,7 +21,7 @@
 use super::doses::DoseFile;
 use super::levels::{Level, LevelFile};
 use super::output::CsvWriter;
-use super::table::{Column, Notices, Row, Table};
+use super::table::{Column, Fields, Notices, Row, Table};
 use crate::covariates::{Covariates, is_name, parse_covariate_value, parse_sex};
 use crate::dosing::{Dose, Route, validate_dose};
 use crate::error::{InputError, lines_phrase};
@@ -405,7 +405,7 @@ pub fn parse_adppk(table: &Table, options: &AdppkOptions) -> Result<Adppk, Vec<I
     // Per subject: its slot in `covariates`, and the line each covariate was first read on.
     let mut cov_slot: HashMap<String, (usize, HashMap<String, u64>)> = HashMap::new();
     let mut study_ids: HashMap<String, String> = HashMap::new();
-    let mut first_line_of: HashMap<&[String], u64> = HashMap::new();
+    let mut first_line_of: HashMap<&Fields, u64> = HashMap::new();
     let mut level_at: HashMap<(String, u64), u64> = HashMap::new();
     let mut units: BTreeSet<String> = BTreeSet::new();
     let (mut not_used, mut other_analyte) = (Vec::new(), Vec::new());
@@ -413,11 +413,11 @@ pub fn parse_adppk(table: &Table, options: &AdppkOptions) -> Result<Adppk, Vec<I
 
     for row in &table.rows {
         let before = errors.len();
-        if let Some(first) = first_line_of.get(row.fields.as_slice()) {
+        if let Some(first) = first_line_of.get(&row.fields) {
             errors.push(row.error(src, None, format!("this row repeats line {first}")));
             continue;
         }
-        first_line_of.insert(row.fields.as_slice(), row.line);
+        first_line_of.insert(&row.fields, row.line);
         let id = row.text(subject).to_string();
         if id.is_empty() {
             errors.push(row.error(src, Some(subject), "expected a subject identifier, found an empty field"));

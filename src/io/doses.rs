@@ -110,7 +110,8 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
     let mut every_dose: Vec<(usize, f64, f64, u64)> = Vec::new();
 
     let mut subjects: Vec<(Option<String>, Vec<Dose>)> = Vec::new();
-    let mut slot_of: HashMap<Option<String>, usize> = HashMap::new();
+    let mut slot_of: HashMap<&str, usize> = HashMap::new();
+    let mut last_slot: Option<(&str, usize)> = None;
     // Doses expanded so far, all subjects together: bounded by MAX_DOSES before any is made.
     let mut expanded: u64 = 0;
     for row in &table.rows {
@@ -148,8 +149,8 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
         if errors.len() > before {
             continue;
         }
-        let who = subject.as_ref().map(|c| row.text(c).to_string());
-        if who.as_ref().is_some_and(String::is_empty) {
+        let who = subject.as_ref().map(|c| row.text(c));
+        if who == Some("") {
             errors.push(row.error(
                 src,
                 subject.as_ref(),
@@ -157,10 +158,17 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
             ));
             continue;
         }
-        let slot = *slot_of.entry(who.clone()).or_insert_with(|| {
-            subjects.push((who, Vec::new()));
-            subjects.len() - 1
-        });
+        // Keyed by the table's own text ("" when the file has no subject column, never a
+        // subject's name), so a row costs no allocation.
+        let slot = match last_slot {
+            Some((name, slot)) if name == who.unwrap_or("") => slot,
+            _ => *slot_of.entry(who.unwrap_or("")).or_insert_with(|| {
+                subjects.push((who.map(str::to_string), Vec::new()));
+                subjects.len() - 1
+            }),
+        };
+        // A subject's rows usually follow each other: the next row likely needs no look-up.
+        last_slot = Some((who.unwrap_or(""), slot));
         let (step, n) = repeat.unwrap_or((0.0, 1));
         if n > 1 && r == Route::Infusion && d > step {
             overlapping.push(row.line);

@@ -48,7 +48,65 @@ pub struct Row {
     /// 1-based line number in the file.
     pub line: u64,
     /// The fields, trimmed.
-    pub fields: Vec<String>,
+    pub fields: Fields,
+}
+
+/// The trimmed fields of a row in one string with their ends: two allocations a row however
+/// many fields it has (files can have hundreds of thousands of rows).
+#[derive(Debug, Clone, Default, PartialEq, Eq, Hash)]
+pub struct Fields {
+    text: String,
+    ends: Vec<usize>,
+}
+
+impl Fields {
+    /// The `i`-th field. Panics when `i` is out of range, like indexing a slice.
+    pub fn get(&self, i: usize) -> &str {
+        let start = if i == 0 { 0 } else { self.ends[i - 1] };
+        &self.text[start..self.ends[i]]
+    }
+
+    /// The number of fields.
+    pub fn len(&self) -> usize {
+        self.ends.len()
+    }
+
+    /// No fields.
+    pub fn is_empty(&self) -> bool {
+        self.ends.is_empty()
+    }
+
+    /// The fields in order.
+    pub fn iter(&self) -> impl Iterator<Item = &str> {
+        (0..self.len()).map(|i| self.get(i))
+    }
+
+    /// A record's fields, trimmed of whitespace (Unicode's, as `str::trim`).
+    fn trimmed(record: &csv::StringRecord) -> Fields {
+        let mut fields = Fields {
+            text: String::with_capacity(record.as_slice().len()),
+            ends: Vec::with_capacity(record.len()),
+        };
+        // Most fields start and end with a printable ASCII character: nothing to trim.
+        let untrimmed = |f: &str| {
+            f.bytes()
+                .next()
+                .zip(f.bytes().last())
+                .is_some_and(|(a, b)| a.is_ascii_graphic() && b.is_ascii_graphic())
+        };
+        for field in record {
+            fields.text.push_str(if untrimmed(field) { field } else { field.trim() });
+            fields.ends.push(fields.text.len());
+        }
+        fields
+    }
+}
+
+impl std::ops::Index<usize> for Fields {
+    type Output = str;
+    fn index(&self, i: usize) -> &str {
+        self.get(i)
+    }
 }
 
 /// A parsed CSV file.
@@ -110,17 +168,23 @@ impl Table {
         } else {
             bytes
         };
-        let mut reader = csv::ReaderBuilder::new()
-            .comment(Some(b'#'))
-            .trim(csv::Trim::All)
-            .flexible(true)
-            .has_headers(true)
-            .from_reader(bytes);
+        // Fields are trimmed here (`Fields::trimmed`) rather than by the reader, which would
+        // allocate a record a row to do it.
+        let mut reader =
+            csv::ReaderBuilder::new().comment(Some(b'#')).flexible(true).has_headers(true).from_reader(bytes);
         // The reader's positions point where it started looking, before any blank or comment
         // lines it skipped (and its line count skips comments), so the line of a record is
         // found from its byte offset, past those skipped lines.
-        let newlines: Vec<usize> =
-            bytes.iter().enumerate().filter(|(_, b)| **b == b'\n').map(|(i, _)| i).collect();
+        // Lines are counted as the reader moves forward, from the last offset asked about (an
+        // earlier offset is counted from the start again).
+        let counted = std::cell::Cell::new((0usize, 1u64));
+        let line_of_offset = |i: usize| {
+            let (from, line) = counted.get();
+            let (from, line) = if i >= from { (from, line) } else { (0, 1) };
+            let line = line + bytes[from..i].iter().filter(|&&b| b == b'\n').count() as u64;
+            counted.set((i, line));
+            line
+        };
         let line_at = |p: &csv::Position| {
             let mut i = p.byte() as usize;
             while i < bytes.len() {
@@ -133,7 +197,7 @@ impl Table {
                     break;
                 }
             }
-            newlines.partition_point(|&n| n < i) as u64 + 1
+            line_of_offset(i)
         };
         let located = |pos: Option<&csv::Position>, msg: String| {
             let e = InputError::in_file(source, msg);
@@ -143,7 +207,7 @@ impl Table {
             }
         };
         let (headers, header_line): (Vec<String>, u64) = match reader.headers() {
-            Ok(h) => (h.iter().map(str::to_string).collect(), h.position().map_or(1, line_at)),
+            Ok(h) => (h.iter().map(|h| h.trim().to_string()).collect(), h.position().map_or(1, line_at)),
             Err(e) => return Err(vec![located(e.position(), csv_message(&e))]),
         };
         if headers.iter().all(String::is_empty) {
@@ -179,10 +243,14 @@ impl Table {
             }
         }
         let mut rows = Vec::new();
-        for record in reader.records() {
-            match record {
-                Ok(r) => {
-                    let line = r.position().map_or(header_line, line_at);
+        // One record reused for every row.
+        let mut record = csv::StringRecord::new();
+        loop {
+            match reader.read_record(&mut record) {
+                Ok(false) => break,
+                Ok(true) => {
+                    let r = Fields::trimmed(&record);
+                    let line = record.position().map_or(header_line, line_at);
                     if r.len() == 1 && r[0].is_empty() {
                         continue; // a blank line
                     }
@@ -200,7 +268,12 @@ impl Table {
                         );
                         continue;
                     }
+                    // Printable ASCII (almost every field) holds nothing hidden.
+                    let printable = |f: &str| f.bytes().all(|b| (b' '..=b'~').contains(&b));
                     for (field, header) in r.iter().zip(&headers) {
+                        if printable(field) {
+                            continue;
+                        }
                         if let Some(c) = field.chars().find(|&c| hidden(c)) {
                             errors.push(
                                 InputError::in_file(
@@ -215,7 +288,7 @@ impl Table {
                             );
                         }
                     }
-                    rows.push(Row { line, fields: r.iter().map(str::to_string).collect() });
+                    rows.push(Row { line, fields: r });
                 }
                 Err(e) => errors.push(located(e.position(), csv_message(&e))),
             }
@@ -308,12 +381,12 @@ impl Table {
         let mut same = Vec::new();
         let mut notices = Notices::default();
         for (i, h) in self.headers.iter().enumerate().filter(|(i, _)| !used.iter().any(|c| c.index == *i)) {
-            let first = self.rows.first().map_or("", |r| r.fields[i].as_str());
-            match self.rows.iter().find(|r| r.fields[i] != first) {
+            let first = self.rows.first().map_or("", |r| &r.fields[i]);
+            match self.rows.iter().find(|r| &r.fields[i] != first) {
                 Some(other) => notices.warnings.push(format!(
                     "{}: column '{h}' is ignored, though its rows differ ('{first}' on line {}, '{}' on \
                      line {})",
-                    self.source, self.rows[0].line, other.fields[i], other.line
+                    self.source, self.rows[0].line, &other.fields[i], other.line
                 )),
                 None => same.push(h.as_str()),
             }
@@ -444,7 +517,7 @@ mod tests {
         let t = Table::parse("x.csv", text.as_bytes()).unwrap();
         assert_eq!(t.headers, ["time_h", "amount_mg"]);
         assert_eq!(t.rows.len(), 2);
-        assert_eq!(t.rows[0].fields, ["0", "100"]);
+        assert_eq!(t.rows[0].fields.iter().collect::<Vec<_>>(), ["0", "100"]);
         assert_eq!(t.rows[0].line, 3);
         assert_eq!(t.rows[1].line, 5);
     }
