@@ -38,7 +38,7 @@
 //! ```toml
 //! [population]
 //! method = "laplace"   # or "quadrature" (the default)
-//! nodes = 7            # quadrature nodes per random effect [default: chosen per subject]
+//! nodes = 7            # quadrature nodes per random effect [default: chosen per subject and axis]
 //! ```
 
 use crate::error::{Origin, Result};

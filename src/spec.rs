@@ -149,7 +149,7 @@ pub struct SweepSpec {
 pub struct PopulationSpec {
     /// How each subject's likelihood is integrated (`quadrature` or `laplace`).
     pub method: Setting<String>,
-    /// Gauss–Hermite nodes per random effect (quadrature); chosen per subject when unset.
+    /// Gauss–Hermite nodes per random effect (quadrature); chosen per subject and axis when unset.
     pub nodes: Setting<u64>,
 }
 

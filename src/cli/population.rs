@@ -41,8 +41,8 @@ pub struct PopulationArgs {
     #[arg(long, value_parser = choice::<Method>(), default_value = "quadrature")]
     method: Method,
     /// Gauss–Hermite nodes per random effect (quadrature), 1 to 40 [default: chosen per
-    /// subject at the estimate from 7, 10, 14, 20, 28, 40: the smaller of the first two
-    /// successive rules that agree within 1e-7 in -2LL]
+    /// subject and principal axis of its posterior at the estimate, from 7, 10, 14, 20, 28, 40,
+    /// until moving any axis a rung up changes -2LL by at most 1e-7 in all]
     #[arg(long, value_parser = clap::value_parser!(u32).range(1..=MAX_NODES as i64))]
     nodes: Option<u32>,
     /// Evaluate the objective and the individual estimates at the model's values, without estimating
@@ -214,7 +214,7 @@ fn table(r: &Estimation, width: Option<usize>) -> String {
         r.nodes.as_ref().map_or(String::new(), |n| if n.min == n.max {
             format!(", {} nodes per random effect", n.min)
         } else {
-            format!(", {} to {} nodes per random effect", n.min, n.max)
+            format!(", {} to {} nodes per principal axis", n.min, n.max)
         }),
         o.n_subjects,
         o.n_observations,

@@ -96,12 +96,12 @@ pub struct SubjectEstimate {
 /// The quadrature rules used.
 #[derive(Debug, Clone, serde::Serialize)]
 pub struct Nodes {
-    /// The fewest nodes per random effect of any subject.
+    /// The fewest nodes along any principal axis of any subject.
     pub min: usize,
     /// The most.
     pub max: usize,
-    /// With the nodes chosen per subject: the largest difference in a subject's −2 ln Lᵢ
-    /// between its last two rules (an estimate of the quadrature's error).
+    /// With the nodes chosen per subject: the largest sum over a subject's axes of the change
+    /// in its −2 ln Lᵢ when one axis moves a rung up (an estimate of the quadrature's error).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub successive_rules_differ_by: Option<f64>,
 }

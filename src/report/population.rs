@@ -87,7 +87,7 @@ fn model_section(e: &Estimation, b: &mut Vec<Block>) {
             format!("adaptive Gauss–Hermite quadrature, {} nodes per random effect", n.min)
         }
         (Method::Quadrature, Some(n)) => {
-            format!("adaptive Gauss–Hermite quadrature, {} to {} nodes per random effect", n.min, n.max)
+            format!("adaptive Gauss–Hermite quadrature, {} to {} nodes per principal axis", n.min, n.max)
         }
         (Method::Quadrature, None) => "adaptive Gauss–Hermite quadrature".to_string(),
     };
