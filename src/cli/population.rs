@@ -11,7 +11,7 @@ use cistern::io::output::{
     write_json,
 };
 use cistern::population::summary::{Estimation, describe};
-use cistern::population::{Method, Options, quadrature::MAX_NODES};
+use cistern::population::{Method, NODE_MEMORY_BYTES, Options, quadrature::MAX_NODES};
 use cistern::spec::Needs;
 use cistern::workflow::population::{estimate_and_diagnose, individual_fits};
 use cistern::workflow::{Required, Study};
@@ -45,6 +45,12 @@ pub struct PopulationArgs {
     /// until moving any axis a rung up changes -2LL by at most 1e-7 in all]
     #[arg(long, value_parser = clap::value_parser!(u32).range(1..=MAX_NODES as i64))]
     nodes: Option<u32>,
+    /// The most memory the quadrature nodes' predictions may hold between adaptations, in
+    /// MiB, shared by the subjects; a subject needing more than its share has its nodes placed
+    /// again at every evaluation (the same results, slower)
+    #[arg(long, value_name = "MIB", default_value_t = (NODE_MEMORY_BYTES >> 20) as u32,
+          value_parser = clap::value_parser!(u32).range(0..=1 << 20))]
+    node_memory_mib: u32,
     /// Evaluate the objective and the individual estimates at the model's values, without estimating
     #[arg(long)]
     evaluate: bool,
@@ -103,6 +109,7 @@ pub fn run(args: PopulationArgs) -> Result<(), Error> {
         evaluate: args.evaluate,
         bootstrap: args.bootstrap as usize,
         seed: settings.seed,
+        node_memory_bytes: (args.node_memory_mib as usize).saturating_mul(1 << 20),
     };
     let (result, diagnostics) = estimate_and_diagnose(&subjects, &model, &options)?;
     // The individual fits cost a MAP fit per subject: only when written or drawn.

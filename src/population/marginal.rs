@@ -28,7 +28,8 @@
 //! predictions need no new run of the engine, and only the prior density and the residual
 //! terms change. The estimator re-adapts until φ no longer moves (docs/methods.md).
 
-use super::quadrature::Rule;
+use super::Counts;
+use super::quadrature::{self, Rule};
 use crate::engine::scalar::Dual;
 use crate::fit::SubjectData;
 use crate::fit::linalg::{MAX, Mat, cholesky, log_det, spd_inverse};
@@ -151,9 +152,65 @@ pub struct Adapted {
     pub mode: [f64; MAX],
     /// Whether the mode search converged.
     pub converged: bool,
-    nodes: Vec<Node>,
-    /// ∇f at θ̂ for each level (Laplace only).
-    slopes: Vec<[f64; MAX]>,
+    nodes: Nodes,
+}
+
+/// A subject's nodes between adaptations: held with their predictions, or, where holding them
+/// would take more than the subject's share of the memory budget, only placed (the predictions
+/// are then worked out again at every evaluation, to the same values).
+/// Laplace's one node carries the slopes of its predictions.
+#[derive(Debug, Clone)]
+enum Nodes {
+    Laplace {
+        node: Node,
+        /// ∇f at θ̂ for each level.
+        slopes: Vec<[f64; MAX]>,
+    },
+    Held(Vec<Node>),
+    Placed(Placement),
+}
+
+/// Where a product rule's nodes lie: θₖ = θ̂ + √2·A·xₖ, with weight ln(wₖ·e^(|xₖ|²)) + ln|det √2·A|.
+#[derive(Debug, Clone, Copy)]
+struct Placement {
+    /// A = U·Λ^½.
+    axes: Mat,
+    /// ln|det √2·A|.
+    ln_det: f64,
+    /// Nodes along each axis.
+    counts: Counts,
+}
+
+impl Placement {
+    /// Every node's θ and ln weight, in the product grid's order (the first axis fastest).
+    fn nodes(&self, mode: &[f64; MAX], n: usize) -> impl Iterator<Item = ([f64; MAX], f64)> + '_ {
+        let rules: Vec<&Rule> = self.counts[..n].iter().map(|&c| quadrature::rule(c)).collect();
+        let size = rules.iter().map(|r| r.nodes.len()).product();
+        let mode = *mode;
+        (0..size).map(move |mut index| {
+            // Every combination of the rules' nodes; none is pruned: where the posterior has
+            // heavier tails than its Gaussian approximation, the outer points carry weight.
+            let mut x = [0.0; MAX];
+            let mut ln_w = 0.0;
+            for (xd, rule) in x.iter_mut().zip(&rules) {
+                let i = index % rule.nodes.len();
+                index /= rule.nodes.len();
+                *xd = rule.nodes[i];
+                ln_w += rule.ln_weights[i] + rule.nodes[i] * rule.nodes[i];
+            }
+            let mut theta = mode;
+            for i in 0..n {
+                theta[i] += 2f64.sqrt() * (0..n).map(|j| self.axes[i][j] * x[j]).sum::<f64>();
+            }
+            (theta, ln_w + self.ln_det)
+        })
+    }
+}
+
+/// The memory a held node takes with `levels` predictions (its allocation's bookkeeping
+/// included, about two words).
+pub fn held_node_bytes(levels: usize) -> usize {
+    std::mem::size_of::<Node>() + levels * std::mem::size_of::<f64>() + 16
 }
 
 /// A subject's −2 ln Lᵢ and its slopes with respect to what φ moves.
@@ -167,26 +224,6 @@ pub struct Terms {
     pub d_omega: Mat,
     /// ∂/∂ln a and ∂/∂ln b.
     pub d_residual: [f64; 2],
-}
-
-/// The product rule's points: every combination of the nodes of `rules` (one rule per axis),
-/// with ln(Π wᵢ·e^(xᵢ²)). None is pruned: where the posterior has heavier tails than its
-/// Gaussian approximation, the outer points carry weight.
-fn grid(rules: &[&Rule]) -> Vec<([f64; MAX], f64)> {
-    let size = rules.iter().map(|r| r.nodes.len()).product();
-    (0..size)
-        .map(|mut index| {
-            let mut x = [0.0; MAX];
-            let mut ln_w = 0.0;
-            for (xd, rule) in x.iter_mut().zip(rules) {
-                let i = index % rule.nodes.len();
-                index /= rule.nodes.len();
-                *xd = rule.nodes[i];
-                ln_w += rule.ln_weights[i] + rule.nodes[i] * rule.nodes[i];
-            }
-            (x, ln_w)
-        })
-        .collect()
 }
 
 /// A = U·Λ^½ for a positive-definite Σ = U·Λ·Uᵀ, the axes ordered by falling variance (ties by
@@ -211,14 +248,16 @@ fn principal_axes(sigma: &Mat, n: usize) -> Option<(Mat, f64)> {
 }
 
 /// Find the subject's conditional mode at `mean` (warm-started from `previous`) and place the
-/// nodes there: the product grid of `rules` (one per random effect, along the posterior's
-/// principal axes), or (`rules` = `None`) the Laplace point.
+/// nodes there: the product grid of `counts` Gauss–Hermite nodes along the posterior's
+/// principal axes, held with their predictions when they take at most `hold_bytes`, or
+/// (`counts` = `None`) the Laplace point.
 pub fn adapt(
     subject: &SubjectData,
     population: &Population,
     mean: [f64; MAX],
     previous: Option<&[f64; MAX]>,
-    rules: Option<&[&Rule]>,
+    counts: Option<&Counts>,
+    hold_bytes: usize,
 ) -> Adapted {
     let n = population.n;
     let problem = population.problem(subject, mean);
@@ -231,15 +270,14 @@ pub fn adapt(
     }
     let mut mode = [0.0; MAX];
     mode[..n].copy_from_slice(&opt.theta[..n]);
-    let Some(rules) = rules else {
+    let Some(&counts) = counts else {
         let duals: Vec<D3> = (0..n).map(|i| D3::var(mode[i], i)).collect();
         let slopes = problem.predictions(&duals).iter().map(|f| f.d).collect::<Vec<_>>();
         let predictions = problem.predictions(&mode[..n]);
         return Adapted {
             mode,
             converged: opt.converged,
-            nodes: vec![Node::new(&subject.levels, mode, 0.0, predictions)],
-            slopes,
+            nodes: Nodes::Laplace { node: Node::new(&subject.levels, mode, 0.0, predictions), slopes },
         };
     };
     // The curvature at the mode; where it is not positive definite (a mode not found), the
@@ -247,23 +285,50 @@ pub fn adapt(
     let half = |m: Mat| m.map(|row| row.map(|x| 0.5 * x));
     let covariance = spd_inverse(&half(opt.hessian), n)
         .or_else(|| spd_inverse(&half(problem.gauss_newton(&mode[..n])), n));
-    let (a, ln_det_a) = covariance.as_ref().and_then(|c| principal_axes(c, n)).unwrap_or_else(|| {
+    let (axes, ln_det_a) = covariance.as_ref().and_then(|c| principal_axes(c, n)).unwrap_or_else(|| {
         let mut a = [[0.0; MAX]; MAX];
         (0..n).for_each(|i| a[i][i] = population.omega[i][i].sqrt());
         (a, (0..n).map(|i| a[i][i].ln()).sum())
     });
-    let ln_det = ln_det_a + n as f64 * 0.5 * 2f64.ln();
-    let nodes = grid(&rules[..n])
-        .into_iter()
-        .map(|(x, ln_w)| {
-            let mut theta = mode;
-            for i in 0..n {
-                theta[i] += 2f64.sqrt() * (0..n).map(|j| a[i][j] * x[j]).sum::<f64>();
+    let placement = Placement { axes, ln_det: ln_det_a + n as f64 * 0.5 * 2f64.ln(), counts };
+    let size: usize = counts[..n].iter().product();
+    let nodes = if size.saturating_mul(held_node_bytes(subject.levels.len())) <= hold_bytes {
+        Nodes::Held(
+            placement
+                .nodes(&mode, n)
+                .map(|(theta, ln_w)| {
+                    Node::new(&subject.levels, theta, ln_w, problem.predictions(&theta[..n]))
+                })
+                .collect(),
+        )
+    } else {
+        Nodes::Placed(placement)
+    };
+    Adapted { mode, converged: opt.converged, nodes }
+}
+
+impl Adapted {
+    /// Visit every quadrature node in the grid's order until `visit` returns false; whether
+    /// all were visited. Placed nodes get their predictions from `subject`'s doses here.
+    fn for_each_node(
+        &self,
+        subject: &SubjectData,
+        population: &Population,
+        mean: [f64; MAX],
+        mut visit: impl FnMut(&Node) -> bool,
+    ) -> bool {
+        match &self.nodes {
+            Nodes::Laplace { node, .. } => visit(node),
+            Nodes::Held(nodes) => nodes.iter().all(visit),
+            Nodes::Placed(placement) => {
+                let problem = population.problem(subject, mean);
+                placement.nodes(&self.mode, population.n).all(|(theta, ln_w)| {
+                    let predictions = problem.predictions(&theta[..population.n]);
+                    visit(&Node::new(&subject.levels, theta, ln_w, predictions))
+                })
             }
-            Node::new(&subject.levels, theta, ln_w + ln_det, problem.predictions(&theta[..n]))
-        })
-        .collect();
-    Adapted { mode, converged: opt.converged, nodes, slopes: Vec::new() }
+        }
+    }
 }
 
 /// The residual error as a subject's data terms use it at one φ, worked out once per subject
@@ -323,14 +388,14 @@ fn data_term(levels: &[Level], node: &Node, terms: &ResidualTerms) -> Dual<2> {
 /// The Laplace curvature H_y/2 + Ω⁻¹ at the mode for residual (a, b) (see the module's text).
 fn laplace_curvature(
     levels: &[Level],
-    adapted: &Adapted,
+    (node, slopes): (&Node, &[[f64; MAX]]),
     population: &Population,
     residual: [f64; 2],
 ) -> Mat {
     let n = population.n;
     let [a, b] = residual;
     let mut m = population.precision;
-    for ((level, &f), g) in levels.iter().zip(&adapted.nodes[0].predictions).zip(&adapted.slopes) {
+    for ((level, &f), g) in levels.iter().zip(&node.predictions).zip(slopes) {
         let var = a * a + (b * f).powi(2);
         if var <= 0.0 {
             continue;
@@ -366,13 +431,8 @@ fn ln_det_or_infinite(m: &Mat, n: usize) -> f64 {
 }
 
 /// The subject's −2 ln Lᵢ at `mean` and `population`, with the nodes of `adapted`, and its slopes.
-pub fn terms(
-    levels: &[Level],
-    adapted: &Adapted,
-    population: &Population,
-    mean: &[f64; MAX],
-    laplace: bool,
-) -> Terms {
+pub fn terms(subject: &SubjectData, adapted: &Adapted, population: &Population, mean: &[f64; MAX]) -> Terms {
+    let levels = &subject.levels[..];
     let n = population.n;
     let p = &population.precision;
     let residual = ResidualTerms::new(levels, population.residual);
@@ -385,11 +445,10 @@ pub fn terms(
         (u, (0..n).map(|i| d[i] * u[i]).sum::<f64>())
     };
     let mut out = Terms { value: 0.0, d_mu: [0.0; MAX], d_omega: [[0.0; MAX]; MAX], d_residual: [0.0; 2] };
-    if laplace {
-        let node = &adapted.nodes[0];
+    if let Nodes::Laplace { node, slopes } = &adapted.nodes {
         let data = data_term(levels, node, &residual);
         let (u, q) = deviation(&node.theta);
-        let m = laplace_curvature(levels, adapted, population, population.residual);
+        let m = laplace_curvature(levels, (node, slopes), population, population.residual);
         let ln_det_m = ln_det_or_infinite(&m, n);
         out.value = data.v + q + population.ln_det_2pi_omega - n as f64 * (2.0 * PI).ln() + ln_det_m;
         let m_inv = spd_inverse(&m, n).unwrap_or([[0.0; MAX]; MAX]);
@@ -407,7 +466,7 @@ pub fn terms(
             let shifted = |h: f64| {
                 let mut res = population.residual;
                 res[r] *= h.exp();
-                ln_det_or_infinite(&laplace_curvature(levels, adapted, population, res), n)
+                ln_det_or_infinite(&laplace_curvature(levels, (node, slopes), population, res), n)
             };
             let h = 1e-5;
             let slope =
@@ -421,16 +480,15 @@ pub fn terms(
     // contributions' softmax averages of each node's own slopes.
     let (mut top, mut sum) = (f64::NEG_INFINITY, 0.0);
     let (mut wu, mut wuu, mut wres) = ([0.0; MAX], [[0.0; MAX]; MAX], [0.0; 2]);
-    for node in &adapted.nodes {
+    let finite = adapted.for_each_node(subject, population, *mean, |node| {
         let data = data_term(levels, node, &residual);
         let (u, q) = deviation(&node.theta);
         let s = node.ln_weight - 0.5 * (data.v + q + population.ln_det_2pi_omega);
         if s.is_nan() {
-            out.value = f64::INFINITY;
-            return out;
+            return false;
         }
         if s == f64::NEG_INFINITY {
-            continue;
+            return true;
         }
         if s > top {
             let scale = (top - s).exp();
@@ -442,7 +500,7 @@ pub fn terms(
         }
         let w = (s - top).exp();
         if w == 0.0 {
-            continue;
+            return true;
         }
         sum += w;
         for i in 0..n {
@@ -454,8 +512,9 @@ pub fn terms(
         for r in 0..2 {
             wres[r] += w * data.d[r];
         }
-    }
-    if !top.is_finite() || !sum.is_finite() {
+        true
+    });
+    if !finite || !top.is_finite() || !sum.is_finite() {
         out.value = f64::INFINITY;
         return out;
     }

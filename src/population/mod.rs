@@ -29,7 +29,6 @@ use crate::limits::MAX_EVALUATIONS;
 use crate::model::PopulationModel;
 use marginal::{Adapted, Population};
 use nalgebra::{DMatrix, DVector};
-use quadrature::Rule;
 use rayon::prelude::*;
 use serde::Serialize;
 use space::{Free, Space};
@@ -61,7 +60,7 @@ const NODE_ROUNDS: usize = 4;
 pub const NODE_TOLERANCE: f64 = 1e-7;
 
 /// Gauss–Hermite nodes along each principal axis of a subject's posterior (the first `n` used).
-type Counts = [usize; MAX];
+pub(crate) type Counts = [usize; MAX];
 
 /// The ladder's rung of `count` (the lowest rung at or above it).
 fn rung(count: usize) -> usize {
@@ -81,11 +80,26 @@ pub struct Options {
     pub bootstrap: usize,
     /// Seed of the bootstrap's resampling.
     pub seed: u64,
+    /// The most memory the quadrature nodes' predictions may hold between adaptations, shared
+    /// equally by the subjects; a subject whose nodes need more has them placed again from the
+    /// rule at every evaluation (the same values, more engine runs), so memory stays bounded
+    /// however many subjects a study has.
+    pub node_memory_bytes: usize,
 }
+
+/// [`Options::node_memory_bytes`] by default: 1 GiB.
+pub const NODE_MEMORY_BYTES: usize = 1 << 30;
 
 impl Default for Options {
     fn default() -> Self {
-        Options { method: Method::Quadrature, nodes: None, evaluate: false, bootstrap: 0, seed: 1 }
+        Options {
+            method: Method::Quadrature,
+            nodes: None,
+            evaluate: false,
+            bootstrap: 0,
+            seed: 1,
+            node_memory_bytes: NODE_MEMORY_BYTES,
+        }
     }
 }
 
@@ -124,10 +138,10 @@ struct Run<'a> {
     space: &'a Space,
     subjects: &'a [SubjectData],
     method: Method,
-    /// Gauss–Hermite rules by size (index n − 1).
-    rules: Vec<Rule>,
     /// Each subject's rule sizes (quadrature).
     nodes: Vec<Counts>,
+    /// Each subject's share of [`Options::node_memory_bytes`].
+    hold_bytes: usize,
 }
 
 /// Largest −2LL change, and step in φ, between adaptations taken as converged. A change of
@@ -165,14 +179,9 @@ impl<'a> Run<'a> {
             space,
             subjects,
             method: options.method,
-            rules: (1..=quadrature::MAX_NODES).map(quadrature::gauss_hermite).collect(),
             nodes: vec![[options.nodes.unwrap_or(NODE_LADDER[0]); MAX]; subjects.len()],
+            hold_bytes: options.node_memory_bytes / subjects.len().max(1),
         }
-    }
-
-    /// The rules of `counts`, one per random effect.
-    fn rules(&self, counts: &Counts) -> Vec<&Rule> {
-        counts[..self.space.n].iter().map(|&c| &self.rules[c - 1]).collect()
     }
 
     /// What a subject's likelihood needs of the population at `values`; `None` when Ω is not
@@ -205,12 +214,12 @@ impl<'a> Run<'a> {
                     )
                 })?;
                 let at = |counts: &Counts, warm: Option<&[f64; MAX]>| {
-                    let a = marginal::adapt(s, &population, mean, warm, Some(&self.rules(counts)));
-                    (marginal::terms(&s.levels, &a, &population, &mean, false).value, a)
+                    let a = marginal::adapt(s, &population, mean, warm, Some(counts), self.hold_bytes);
+                    (marginal::terms(s, &a, &population, &mean).value, a)
                 };
                 let mut counts = now.map(|c| NODE_LADDER[rung(c)]);
                 let (mut value, mut adapted) = if counts == now {
-                    (marginal::terms(&s.levels, &held, &population, &mean, false).value, held)
+                    (marginal::terms(s, &held, &population, &mean).value, held)
                 } else {
                     at(&counts, Some(&held.mode))
                 };
@@ -286,8 +295,8 @@ impl<'a> Run<'a> {
                     )
                 })?;
                 let warm = previous.map(|p| &p[i].mode);
-                let rules = (self.method == Method::Quadrature).then(|| self.rules(&self.nodes[i]));
-                Ok(marginal::adapt(s, &population, mean, warm, rules.as_deref()))
+                let counts = (self.method == Method::Quadrature).then_some(&self.nodes[i]);
+                Ok(marginal::adapt(s, &population, mean, warm, counts, self.hold_bytes))
             })
             .collect()
     }
@@ -301,14 +310,13 @@ impl<'a> Run<'a> {
         let Some(population) = self.population(&values) else {
             return infinite;
         };
-        let laplace = self.method == Method::Laplace;
         let per_subject: Vec<Option<(marginal::Terms, Vec<[f64; MAX]>)>> = self
             .subjects
             .par_iter()
             .zip(adapted)
             .map(|(s, a)| {
                 let (mean, slopes) = self.space.prior_mean(&values, &s.covariates)?;
-                Some((marginal::terms(&s.levels, a, &population, &mean, laplace), slopes))
+                Some((marginal::terms(s, a, &population, &mean), slopes))
             })
             .collect();
         // Summed in subject order, so the result does not depend on the thread count.

@@ -6,6 +6,7 @@
 //! the square of the first component of its normalised eigenvector.
 
 use nalgebra::{DMatrix, SymmetricEigen};
+use std::sync::OnceLock;
 
 /// A one-dimensional rule, nodes ascending.
 #[derive(Debug, Clone, PartialEq)]
@@ -61,6 +62,14 @@ pub fn gauss_hermite(n: usize) -> Rule {
         pairs[n - 1 - i] = (-x, ln_w);
     }
     Rule { nodes: pairs.iter().map(|p| p.0).collect(), ln_weights: pairs.iter().map(|p| p.1).collect() }
+}
+
+/// The n-node rule, 1 ≤ n ≤ [`MAX_NODES`], computed once per process: a subject's nodes are
+/// placed from their rules at every adaptation, and (beyond the held-node budget) at every
+/// evaluation.
+pub fn rule(n: usize) -> &'static Rule {
+    static RULES: OnceLock<Vec<Rule>> = OnceLock::new();
+    &RULES.get_or_init(|| (1..=MAX_NODES).map(gauss_hermite).collect())[n - 1]
 }
 
 #[cfg(test)]

@@ -330,6 +330,26 @@ fn simulation_estimation_full_study() {
 }
 
 #[test]
+fn nodes_placed_again_beyond_the_memory_budget_give_the_same_estimates_to_the_bit() {
+    // Beyond its share of the budget a subject's nodes are placed again at every evaluation
+    // instead of held: the same nodes and predictions, so every number must be the same.
+    let truth = PopulationModel::parse(&TomlText::new("truth.toml", TRUE_MODEL)).unwrap();
+    let start = PopulationModel::parse(&TomlText::new("start.toml", START_MODEL)).unwrap();
+    let study = simulated_study(77, 40, &truth);
+    let run = |bytes: usize| {
+        let options = Options { node_memory_bytes: bytes, ..Options::default() };
+        let result = estimate(&study, &start, &options).expect("the estimation runs");
+        assert!(result.converged, "{:?}", result.convergence);
+        serde_json::to_string(&result).unwrap()
+    };
+    let held = run(cistern::population::NODE_MEMORY_BYTES);
+    // Nothing held, and a budget that holds the subjects with small rules only.
+    for bytes in [0, 40 * 60_000] {
+        assert_eq!(run(bytes), held, "budget {bytes} bytes");
+    }
+}
+
+#[test]
 fn bootstrap_is_the_same_whatever_the_thread_count() {
     let dir = reference().join("cases").join("several_infusion");
     let args = ["--format", "json", "--nodes", "5", "--bootstrap", "8", "--seed", "3"];
