@@ -26,7 +26,9 @@
 //! An adaptation (mode, curvature, nodes and the predictions at the nodes) is made at one φ
 //! and then reused while the optimiser moves φ: the nodes stay where the posterior is, the
 //! predictions need no new run of the engine, and only the prior density and the residual
-//! terms change. The estimator re-adapts until φ no longer moves (docs/methods.md).
+//! terms change (past the memory cap, a subject's nodes are placed again, to the same points
+//! and predictions, at each evaluation). The estimator re-adapts until φ no longer moves
+//! (docs/methods.md).
 
 use super::Counts;
 use super::quadrature::{self, Rule};
@@ -209,7 +211,7 @@ impl Placement {
 
 /// The memory a held node takes with `levels` predictions (its allocation's bookkeeping
 /// included, about two words).
-pub fn held_node_bytes(levels: usize) -> usize {
+fn held_node_bytes(levels: usize) -> usize {
     std::mem::size_of::<Node>() + levels * std::mem::size_of::<f64>() + 16
 }
 
