@@ -166,33 +166,94 @@ impl<R: Real> Propagator<R> {
     /// Advance `state` under constant infusion rate `rate` (mg/h), with the `rates` this step
     /// was made for; also ∫A over the interval (mg·h) when `integrate` is set.
     pub fn apply(&mut self, state: State<R>, rates: Rates<R>, rate: f64, integrate: bool) -> (State<R>, R) {
-        let t = self.t;
-        let mut central = state.central * self.e;
+        let (t, kt, e) = (self.t, self.kt, self.e);
         let mut integral = R::cst(0.0);
+        let mut infused = None;
         if integrate || rate != 0.0 {
-            let (kt, e) = (self.kt, self.e);
             let p1 = *self.p1.get_or_insert_with(|| phi1_from(kt, e));
             if integrate {
                 integral = state.central * p1 * t;
             }
             if rate != 0.0 {
-                central += p1 * (rate * t);
+                infused = Some(p1 * (rate * t));
                 if integrate {
                     integral += *self.p2.get_or_insert_with(|| phi2_from(kt, p1)) * (rate * t * t);
                 }
             }
         }
-        let mut depot = state.depot;
-        if depot.val() != 0.0 {
-            let ka_d = rates.ka * depot;
-            central += ka_d * *self.g.get_or_insert_with(|| depot_to_central(rates.k, rates.ka, t));
-            if integrate {
-                integral +=
-                    ka_d * *self.h.get_or_insert_with(|| depot_to_central_integral(rates.k, rates.ka, t));
-            }
-            depot = depot * *self.ea.get_or_insert_with(|| (rates.ka * -t).exp());
+        if integrate && state.depot.val() != 0.0 {
+            let h = *self.h.get_or_insert_with(|| depot_to_central_integral(rates.k, rates.ka, t));
+            integral += rates.ka * state.depot * h;
         }
-        (State { central, depot }, integral)
+        let (g, ea) = (&mut self.g, &mut self.ea);
+        let absorbed = || {
+            let g = *g.get_or_insert_with(|| depot_to_central(rates.k, rates.ka, t));
+            (rates.ka, g, *ea.get_or_insert_with(|| (rates.ka * -t).exp()))
+        };
+        (stepped(state, e, infused, absorbed), integral)
+    }
+
+    /// This step without the integral, under the constant infusion rate `rate` and with drug in
+    /// the depot or not (`depot`), its factors computed now: for a loop that takes it many
+    /// times ([`Walker::glide`](super::Walker::glide)).
+    pub fn prediction(&mut self, rates: Rates<R>, rate: f64, depot: bool) -> Prediction<R> {
+        let (t, kt, e) = (self.t, self.kt, self.e);
+        let zero = R::cst(0.0);
+        let infused =
+            if rate != 0.0 { *self.p1.get_or_insert_with(|| phi1_from(kt, e)) * (rate * t) } else { zero };
+        let (ka, g, ea) = if depot {
+            let g = *self.g.get_or_insert_with(|| depot_to_central(rates.k, rates.ka, t));
+            (rates.ka, g, *self.ea.get_or_insert_with(|| (rates.ka * -t).exp()))
+        } else {
+            (zero, zero, zero)
+        };
+        Prediction { e, infusing: rate != 0.0, infused, ka, g, ea }
+    }
+}
+
+/// The state after a step: the central amount times e^(−k t), plus the infusion's part
+/// R·t·φ1(k t) when one runs, plus ka·D·G(t) from the depot, which keeps D·e^(−ka t); the
+/// depot's factors (ka, G, e^(−ka t)) are asked for only when it holds drug. The one
+/// arithmetic of [`Propagator::apply`] and [`Prediction::apply`].
+fn stepped<R: Real>(
+    state: State<R>,
+    e: R,
+    infused: Option<R>,
+    absorbed: impl FnOnce() -> (R, R, R),
+) -> State<R> {
+    let mut central = state.central * e;
+    if let Some(infused) = infused {
+        central += infused;
+    }
+    let mut depot = state.depot;
+    // An empty depot stays empty; a full one empties only by underflow, to exactly zero.
+    if depot.val() != 0.0 {
+        let (ka, g, ea) = absorbed();
+        central += ka * depot * g;
+        depot = depot * ea;
+    }
+    State { central, depot }
+}
+
+/// A step without the integral, its factors ready ([`Propagator::prediction`]); plain
+/// numbers, so that a loop can pick one of two by index without a branch.
+#[derive(Debug, Clone, Copy)]
+pub struct Prediction<R> {
+    /// e^(−k t).
+    e: R,
+    /// Whether an infusion runs, and R·t·φ1(k t).
+    infusing: bool,
+    infused: R,
+    /// ka, G(t) and e^(−ka t) when the depot held drug (else unused zeros).
+    ka: R,
+    g: R,
+    ea: R,
+}
+
+impl<R: Real> Prediction<R> {
+    /// Advance `state` by the step.
+    pub fn apply(&self, state: State<R>) -> State<R> {
+        stepped(state, self.e, self.infusing.then_some(self.infused), || (self.ka, self.g, self.ea))
     }
 }
 

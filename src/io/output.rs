@@ -45,20 +45,20 @@ impl Format {
 
 /// Shortest text that reads back as the same f64 (`1.0`, `0.1`, `1e-300`).
 pub fn full(x: f64) -> String {
-    let mut text = String::new();
+    let mut text = Vec::new();
     push_full(&mut text, x);
-    text
+    String::from_utf8(text).expect("number text is ASCII")
 }
 
-/// Append [`full`]'s text of `x` to `text`: a loop over millions of numbers can reuse one
-/// buffer instead of allocating a string per number.
+/// Append [`full`]'s text of `x` to `text`: a loop over millions of numbers writes them all
+/// into one buffer instead of allocating a string per number.
 ///
 /// Every number of a CSV passes here, and every number of a table through [`readable`]: the
 /// one place where no NaN or infinity reaches an output. An undefined number is written as
 /// nothing in CSV (the empty field is CSV's missing value), as `undefined` in tables and as
 /// `null` in JSON (serde_json's rule for non-finite numbers); the inputs' limits
 /// ([`crate::limits`]) keep results finite, so this is the last guard, not the rule.
-pub fn push_full(text: &mut String, x: f64) {
+fn push_full(text: &mut Vec<u8>, x: f64) {
     if x.is_finite() {
         push_shortest(text, x);
     }
@@ -68,48 +68,50 @@ pub fn push_full(text: &mut String, x: f64) {
 /// from 1e-4 to below 1e16, else `1.5e-7`, `1e16`), written by the faster zmij. Its text
 /// differs from `{:?}`'s in three ways, undone here: `e+16` for `e16`; positional text
 /// (`0.000015`) from 1e-5 to 1e-4 where `{:?}` writes `1.5e-5`; and, when the two shortest
-/// candidates are equally near `x` (a tie, possible only when `x`'s exact decimal expansion
-/// has at most 18 significant digits), the even last digit where `{:?}` rounds half up —
-/// such numbers are left to `{:?}`.
-fn push_shortest(out: &mut String, x: f64) {
-    if short_expansion(x) {
-        use std::fmt::Write as _;
+/// candidates are equally near `x` (a tie, see [`may_tie`]), the even last digit where `{:?}`
+/// rounds half up — such numbers are left to `{:?}`.
+fn push_shortest(out: &mut Vec<u8>, x: f64) {
+    if may_tie(x) {
         let _ = write!(out, "{x:?}");
         return;
     }
     let mut buffer = zmij::Buffer::new();
-    let text = buffer.format_finite(x);
+    let text = buffer.format_finite(x).as_bytes();
     if (1e-5..1e-4).contains(&x.abs()) {
         // "0.0000ddd" → "d.dde-5"
         let (sign, rest) = text.split_at(usize::from(x < 0.0));
-        let digits = &rest["0.0000".len()..];
-        out.push_str(sign);
-        out.push_str(&digits[..1]);
+        let digits = &rest[b"0.0000".len()..];
+        out.extend_from_slice(sign);
+        out.push(digits[0]);
         if digits.len() > 1 {
-            out.push('.');
-            out.push_str(&digits[1..]);
+            out.push(b'.');
+            out.extend_from_slice(&digits[1..]);
         }
-        out.push_str("e-5");
+        out.extend_from_slice(b"e-5");
     } else if x.abs() >= 1e16
-        && let Some(plus) = text.find('+')
+        && let Some(plus) = text.iter().position(|&b| b == b'+')
     {
-        out.push_str(&text[..plus]);
-        out.push_str(&text[plus + 1..]);
+        out.extend_from_slice(&text[..plus]);
+        out.extend_from_slice(&text[plus + 1..]);
     } else {
-        out.push_str(text);
+        out.extend_from_slice(text);
     }
 }
 
-/// Whether the exact decimal expansion of `x` has at most 18 significant digits (zero, whole
-/// numbers below 10^18, and fractions with few binary digits, such as 0.25 or 1 + 2^-17).
-/// `x` = m·2^e exactly; with m odd, its digits are those of m·2^e (e ≥ 0) or m·5^−e (e < 0).
-fn short_expansion(x: f64) -> bool {
+/// Whether the two shortest candidates for `x` can be equally near it: only when the exact
+/// decimal expansion of `x` has 16 to 18 significant digits. With more, `x` is never halfway
+/// between two candidates; with at most 15 (zero, whole numbers, fractions with few binary
+/// digits such as 0.25 or 1 + 2^-17: a fifth of the times of a grid in steps of 0.05 h), the
+/// expansion itself is the shortest text, as no other decimal of at most 15 significant digits
+/// reads back as the same double. `x` = m·2^e exactly; with m odd, its digits are those of
+/// m·2^e (e ≥ 0; trailing zeros counted, which errs towards `{:?}`) or m·5^−e (e < 0).
+fn may_tie(x: f64) -> bool {
     let bits = x.to_bits();
     let biased = ((bits >> 52) & 0x7ff) as i32;
     let fraction = bits & ((1 << 52) - 1);
     let (m, e) = if biased == 0 { (fraction, -1074) } else { (fraction | (1 << 52), biased - 1075) };
     if m == 0 {
-        return true;
+        return false;
     }
     let zeros = m.trailing_zeros();
     let (m, e) = (u128::from(m >> zeros), e + zeros as i32);
@@ -123,67 +125,117 @@ fn short_expansion(x: f64) -> bool {
         -50..=-1 => m.checked_mul(5u128.pow(e.unsigned_abs())),
         _ => None,
     };
-    digits.is_some_and(|n| n < 1_000_000_000_000_000_000)
+    digits.is_some_and(|n| (1_000_000_000_000_000..1_000_000_000_000_000_000).contains(&n))
 }
 
-/// The writer of every CSV output: [`csv::Writer`], which quotes a field only when it holds a
-/// comma, a quote or a line end (RFC 4180), with numbers in [`full`] precision written through
-/// one reused buffer, so that a row of numbers costs no allocation (outputs can have millions
-/// of rows). Its errors are I/O errors of the kind the output gave, so a closed pipe stays one.
+/// The writer of every CSV output, RFC 4180 as the csv crate writes it: fields separated by
+/// commas, rows ended by `\n`, a text field quoted only when it holds a comma, a quote or a
+/// line end (its quotes doubled), and a row of one empty field written `""` so that it is not
+/// an empty line. Numbers, which never need quoting, are written in [`full`] precision straight
+/// into one reused buffer (outputs can have millions of rows: a row of numbers costs no
+/// allocation and no scan), which goes to the output whenever a row ends past [`FLUSH_AT`]
+/// bytes. Every row has as many fields as the first, else the row is refused; a closed pipe
+/// under the writer stays one.
 pub struct CsvWriter<W: Write> {
-    csv: csv::Writer<W>,
-    number: String,
+    out: W,
+    buffer: Vec<u8>,
+    /// Where the current row starts in the buffer, and its fields so far.
+    row_start: usize,
+    fields: usize,
+    /// The fields of the first row.
+    width: Option<usize>,
 }
+
+/// The bytes a [`CsvWriter`] gathers before it writes them out.
+const FLUSH_AT: usize = 64 * 1024;
 
 impl<W: Write> CsvWriter<W> {
     /// Write CSV into `out`.
     pub fn new(out: W) -> CsvWriter<W> {
-        CsvWriter { csv: csv::Writer::from_writer(out), number: String::new() }
+        CsvWriter { out, buffer: Vec::with_capacity(FLUSH_AT + 1024), row_start: 0, fields: 0, width: None }
     }
 
     /// A whole row.
     pub fn row<I: IntoIterator<Item = T>, T: AsRef<[u8]>>(&mut self, fields: I) -> std::io::Result<()> {
-        self.csv.write_record(fields).map_err(csv_io)
+        for field in fields {
+            self.field(field.as_ref());
+        }
+        self.end_row()
     }
 
     /// A text field of the current row.
     pub fn text(&mut self, text: &str) -> std::io::Result<()> {
-        self.csv.write_field(text).map_err(csv_io)
+        self.field(text.as_bytes());
+        Ok(())
     }
 
     /// A number field of the current row, in [`full`] precision.
     pub fn number(&mut self, x: f64) -> std::io::Result<()> {
-        self.number.clear();
-        push_full(&mut self.number, x);
-        self.csv.write_field(&self.number).map_err(csv_io)
+        self.separate();
+        push_full(&mut self.buffer, x);
+        Ok(())
     }
 
     /// An integer field of the current row.
     pub fn integer(&mut self, n: u64) -> std::io::Result<()> {
-        use std::fmt::Write as _;
-        self.number.clear();
-        let _ = write!(self.number, "{n}");
-        self.csv.write_field(&self.number).map_err(csv_io)
+        self.separate();
+        let _ = write!(self.buffer, "{n}");
+        Ok(())
     }
 
     /// End the current row.
     pub fn end_row(&mut self) -> std::io::Result<()> {
-        self.csv.write_record(None::<&[u8]>).map_err(csv_io)
+        let width = *self.width.get_or_insert(self.fields);
+        if self.fields != width {
+            return Err(std::io::Error::other(format!(
+                "CSV row with {} fields after a first row of {width}",
+                self.fields
+            )));
+        }
+        if self.buffer.len() == self.row_start {
+            self.buffer.extend_from_slice(b"\"\"");
+        }
+        self.buffer.push(b'\n');
+        self.fields = 0;
+        if self.buffer.len() >= FLUSH_AT {
+            self.out.write_all(&self.buffer)?;
+            self.buffer.clear();
+        }
+        self.row_start = self.buffer.len();
+        Ok(())
     }
 
     /// Write out what is buffered and return the output.
-    pub fn finish(self) -> std::io::Result<W> {
-        self.csv.into_inner().map_err(|e| e.into_error())
+    pub fn finish(mut self) -> std::io::Result<W> {
+        self.out.write_all(&self.buffer)?;
+        self.out.flush()?;
+        Ok(self.out)
     }
-}
 
-/// A CSV writer's error as an I/O error of the same kind.
-fn csv_io(e: csv::Error) -> std::io::Error {
-    let kind = match e.kind() {
-        csv::ErrorKind::Io(io) => io.kind(),
-        _ => std::io::ErrorKind::Other,
-    };
-    std::io::Error::new(kind, e)
+    /// The comma before every field of a row but its first.
+    fn separate(&mut self) {
+        if self.fields > 0 {
+            self.buffer.push(b',');
+        }
+        self.fields += 1;
+    }
+
+    /// A text field, quoted when it holds a comma, a quote or a line end.
+    fn field(&mut self, text: &[u8]) {
+        self.separate();
+        if text.iter().any(|b| matches!(b, b',' | b'"' | b'\r' | b'\n')) {
+            self.buffer.push(b'"');
+            for &b in text {
+                if b == b'"' {
+                    self.buffer.push(b'"');
+                }
+                self.buffer.push(b);
+            }
+            self.buffer.push(b'"');
+        } else {
+            self.buffer.extend_from_slice(text);
+        }
+    }
 }
 
 /// A JSON result with the caution as its last field: the shape of every JSON output.
@@ -531,7 +583,8 @@ mod tests {
 
     /// The CSV text of a number is `{:?}`'s, digit for digit (docs/formats.md): on boundaries of
     /// the layouts, on ties (values with short exact expansions), and on a million values of
-    /// every magnitude (random bit patterns, random digits in each decade, dyadic fractions).
+    /// every magnitude (random bit patterns, random digits in each decade, dyadic fractions,
+    /// the times of grids).
     #[test]
     fn full_is_the_debug_text_digit_for_digit() {
         let mut values = vec![0.0, -0.0, 5e-324, f64::MAX, f64::MIN_POSITIVE, 1.0 + 2f64.powi(-17)];
@@ -550,17 +603,18 @@ mod tests {
             state
         };
         for i in 0..1_000_000 {
-            values.push(match i % 3 {
+            values.push(match i % 4 {
                 0 => f64::from_bits(next()),
                 1 => (next() >> 11) as f64 * 2f64.powi(-53) * 10f64.powi((next() % 80) as i32 - 40),
-                _ => (next() % (1 << 40)) as f64 / (1u64 << (next() % 40)) as f64,
+                2 => (next() % (1 << 40)) as f64 / (1u64 << (next() % 40)) as f64,
+                _ => (next() % 1_000_000) as f64 * [0.05, 0.03, 0.1, 0.25, 1e-3][(next() % 5) as usize],
             });
         }
-        let mut text = String::new();
+        let mut text = Vec::new();
         for x in values.into_iter().filter(|x| x.is_finite()) {
             text.clear();
             push_full(&mut text, x);
-            assert_eq!(text, format!("{x:?}"), "bits {:#x}", x.to_bits());
+            assert_eq!(text, format!("{x:?}").as_bytes(), "bits {:#x}", x.to_bits());
         }
     }
 
@@ -578,10 +632,74 @@ mod tests {
         assert_eq!(text, "plain,\"a,b\",\"say \"\"hi\"\"\",\"two\nlines\",\nP01,12,0.1,1.0,1e-300\n");
     }
 
+    /// As the csv crate writes them: a row of one empty field is `""`, not an empty line, and
+    /// an undefined number is an empty field.
+    #[test]
+    fn a_row_of_one_empty_field_is_not_an_empty_line() {
+        let mut w = CsvWriter::new(Vec::new());
+        w.row([""]).unwrap();
+        w.number(f64::NAN).unwrap();
+        w.end_row().unwrap();
+        w.text("").unwrap();
+        w.end_row().unwrap();
+        assert_eq!(w.finish().unwrap(), b"\"\"\n\"\"\n\"\"\n");
+        let mut w = CsvWriter::new(Vec::new());
+        w.row(["", ""]).unwrap();
+        w.number(f64::INFINITY).unwrap();
+        w.number(2.5).unwrap();
+        w.end_row().unwrap();
+        assert_eq!(w.finish().unwrap(), b",\n,2.5\n");
+    }
+
+    #[test]
+    fn a_csv_row_of_another_width_is_refused() {
+        let mut w = CsvWriter::new(Vec::new());
+        w.row(["a", "b"]).unwrap();
+        w.number(1.0).unwrap();
+        assert!(w.end_row().is_err());
+    }
+
+    /// Rows past the buffer's size go out as they end, and the text is the same.
+    #[test]
+    fn long_csv_outputs_are_written_in_whole_rows() {
+        struct Chunks(Vec<Vec<u8>>);
+        impl Write for Chunks {
+            fn write(&mut self, bytes: &[u8]) -> std::io::Result<usize> {
+                self.0.push(bytes.to_vec());
+                Ok(bytes.len())
+            }
+            fn flush(&mut self) -> std::io::Result<()> {
+                Ok(())
+            }
+        }
+        let mut w = CsvWriter::new(Chunks(Vec::new()));
+        let mut expected = String::new();
+        for i in 0..20_000 {
+            w.integer(i).unwrap();
+            w.text("a \"b\"").unwrap();
+            w.number(i as f64 / 8.0).unwrap();
+            w.end_row().unwrap();
+            expected += &format!("{i},\"a \"\"b\"\"\",{:?}\n", i as f64 / 8.0);
+        }
+        let chunks = w.finish().unwrap().0;
+        assert!(chunks.len() > 2 && chunks.iter().all(|c| c.ends_with(b"\n")));
+        assert_eq!(chunks.concat(), expected.as_bytes());
+    }
+
     #[test]
     fn a_closed_pipe_under_the_csv_writer_stays_a_closed_pipe() {
-        let closed = std::io::Error::from(std::io::ErrorKind::BrokenPipe);
-        assert_eq!(csv_io(csv::Error::from(closed)).kind(), std::io::ErrorKind::BrokenPipe);
+        struct Closed;
+        impl Write for Closed {
+            fn write(&mut self, _: &[u8]) -> std::io::Result<usize> {
+                Err(std::io::ErrorKind::BrokenPipe.into())
+            }
+            fn flush(&mut self) -> std::io::Result<()> {
+                Ok(())
+            }
+        }
+        let mut w = CsvWriter::new(Closed);
+        w.row(["a"]).unwrap();
+        assert_eq!(w.finish().err().map(|e| e.kind()), Some(std::io::ErrorKind::BrokenPipe));
     }
 
     #[test]
