@@ -62,6 +62,12 @@ impl Exposure {
 /// without absorption, an infusion longer than the interval.
 fn check(params: &Params, regimen: &Regimen) -> Result<(), InputError> {
     params.validate(&[regimen.dose_at(0.0)])?;
+    check_regimen(regimen)
+}
+
+/// The checks of [`unit_exposure`] that concern the regimen alone: those a sweep makes once
+/// per regimen rather than once per subject.
+pub(crate) fn check_regimen(regimen: &Regimen) -> Result<(), InputError> {
     regimen.validate()?;
     if regimen.route == Route::Infusion && regimen.duration_h > regimen.every_h {
         return Err(InputError::field(
@@ -101,8 +107,8 @@ pub fn unit_exposure(params: &Params, regimen: &Regimen) -> Result<Exposure, Inp
     check(params, regimen).map(|()| closed_form(params, regimen))
 }
 
-/// [`unit_exposure`] of a regimen already checked.
-fn closed_form(params: &Params, regimen: &Regimen) -> Exposure {
+/// [`unit_exposure`] of parameters and a regimen already checked.
+pub(crate) fn closed_form(params: &Params, regimen: &Regimen) -> Exposure {
     let tau = regimen.every_h;
     let (cl, v, k) = (params.cl_l_h, params.v_l, params.k_per_h());
     let q = -(-k * tau).exp_m1();

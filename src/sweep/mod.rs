@@ -16,37 +16,48 @@ pub mod state;
 pub mod summary;
 
 use crate::dosing::{Dose, Regimen};
-use crate::engine::steady::{Exposure, unit_exposure};
-use crate::error::Error;
+use crate::engine::steady::{Exposure, check_regimen, closed_form, unit_exposure};
+use crate::error::{Error, InputError};
 use crate::io::digest::Digesting;
 use crate::io::output::{CsvWriter, io_failure};
-use crate::plan::targets::{Limits, Target};
+use crate::plan::targets::{Limits, Metric, Target};
 use crate::plan::{Course, Verdict, judge, last_day_end};
 use population::{Population, Subject};
 use rayon::prelude::*;
-use sketch::Slot;
 use state::{RowsWritten, Setup, Shard, SweepState, Tally};
 use std::io::Write;
 use std::ops::Range;
 
-/// Subject-regimen evaluations per chunk: bounds the memory held between writes (about
-/// 32 bytes per evaluation, plus the per-subject rows when asked for).
+/// Subject-regimen evaluations per chunk: bounds the memory held between writes (the
+/// per-subject rows when asked for, about 135 bytes per evaluation; otherwise about 56 bytes
+/// per subject and dosing shape).
 const CHUNK_EVALUATIONS: usize = 1 << 16;
 
-/// The tasks each chunk is split into: each evaluates its subjects in order and writes their
-/// rows with one CSV writer, and there are enough of them to keep every thread busy.
+/// The tasks each chunk's subjects are split into: each evaluates its subjects in order and
+/// writes their rows with one CSV writer, and there are enough of them to keep every thread
+/// busy.
 const TASKS_PER_CHUNK: u64 = 64;
 
 /// The columns of the per-subject CSV.
 pub const PER_SUBJECT_HEADER: &str = "subject,origin,regimen,cl_l_h,v_l,ka_per_h,trough_mg_l,peak_mg_l,\
 auc24_mg_h_l,meets,over_peak,over_trough";
 
-/// One subject's exposure under one regimen, as the tallies count it.
-#[derive(Debug, Clone, Copy)]
-pub(crate) struct Outcome {
-    /// The sketch slots of the trough, peak and AUC24.
-    slots: [Slot; 3],
-    verdict: Verdict,
+/// The columns a [`Block`] holds for each subject and shape: the steady-state trough, peak,
+/// AUC24 and average concentration after 1 mg, then the logarithms of the first three (the
+/// logarithm of an exposure is ln amount + ln(the exposure to 1 mg), so the sketches need no
+/// logarithm per value).
+const TROUGH: usize = 0;
+const PEAK: usize = 1;
+const AUC24: usize = 2;
+const CAVG: usize = 3;
+const LN_TROUGH: usize = 4;
+const COLUMNS: usize = 7;
+
+/// An exposure to 1 mg as the columns of a [`Block`].
+fn columns(u: &Exposure) -> [f64; COLUMNS] {
+    let values = [u.trough_mg_l, u.peak_mg_l, u.auc24_mg_h_l];
+    let [ln_trough, ln_peak, ln_auc24] = values.map(f64::ln);
+    [u.trough_mg_l, u.peak_mg_l, u.auc24_mg_h_l, u.cavg_mg_l, ln_trough, ln_peak, ln_auc24]
 }
 
 /// The candidates by dosing shape (route, interval, infusion duration). Linear kinetics make
@@ -56,10 +67,15 @@ pub(crate) struct Outcome {
 struct Shapes {
     /// The first candidate of each shape, in grid order.
     first: Vec<(usize, Regimen)>,
+    /// The largest amount of each shape.
+    largest: Vec<f64>,
+    /// The first dose of each shape, against which each subject's parameters are checked.
+    doses: Vec<Dose>,
+    /// Whether each shape passes the checks that concern the regimen alone.
+    sound: Vec<bool>,
     /// Each candidate's shape (an index into `first`).
     of: Vec<usize>,
-    /// ln of each candidate's amount: the logarithm of an exposure is ln amount + ln(the
-    /// exposure to 1 mg), so the sketch needs no logarithm per value.
+    /// ln of each candidate's amount.
     ln_amount: Vec<f64>,
 }
 
@@ -71,19 +87,143 @@ impl Shapes {
         let same =
             |a: &Regimen, b: &Regimen| Regimen { amount_mg: 1.0, ..*a } == Regimen { amount_mg: 1.0, ..*b };
         let mut first: Vec<(usize, Regimen)> = Vec::new();
+        let mut largest: Vec<f64> = Vec::new();
         let mut of = Vec::with_capacity(candidates.len());
         for (k, c) in candidates.iter().enumerate() {
             c.validate().map_err(|inv| Error::Usage(format!("regimen {}: {inv}", k + 1)))?;
-            of.push(match first.iter().position(|(_, f)| same(f, c)) {
+            let shape = match first.iter().position(|(_, f)| same(f, c)) {
                 Some(i) => i,
                 None => {
                     first.push((k, *c));
+                    largest.push(0.0);
                     first.len() - 1
                 }
-            });
+            };
+            largest[shape] = largest[shape].max(c.amount_mg);
+            of.push(shape);
         }
-        Ok(Shapes { first, of, ln_amount: candidates.iter().map(|c| c.amount_mg.ln()).collect() })
+        Ok(Shapes {
+            doses: first.iter().map(|(_, c)| c.dose_at(0.0)).collect(),
+            sound: first.iter().map(|(_, c)| check_regimen(c).is_ok()).collect(),
+            first,
+            largest,
+            of,
+            ln_amount: candidates.iter().map(|c| c.amount_mg.ln()).collect(),
+        })
     }
+
+    /// Whether every amount of `shape` gives a subject whose exposure to 1 mg is `unit` a
+    /// finite, non-negative trough, peak and AUC24: rounding is monotone, so the largest
+    /// amount's exposure bounds the others'.
+    fn bounded(&self, shape: usize, unit: &Exposure) -> bool {
+        let largest = self.largest[shape];
+        [unit.trough_mg_l, unit.peak_mg_l, unit.auc24_mg_h_l]
+            .iter()
+            .all(|x| x * largest >= 0.0 && x * largest < f64::INFINITY)
+    }
+}
+
+/// How the tallies learn each evaluation's verdict.
+#[derive(Debug, Clone)]
+enum Verdicts {
+    /// In the tallies' own loop, from the steady-state exposure: every target is on the
+    /// trough, peak, AUC24 or average concentration, so each subject meets them all when each
+    /// of these values (its column's times the amount) lies within `lo` and `hi` (the
+    /// largest lower and smallest upper bound of its targets, infinite without one, which every
+    /// finite value is within). A limit not set is infinite too.
+    Steady { lo: [f64; 4], hi: [f64; 4], max_peak: f64, max_trough: f64 },
+    /// From [`judge`], evaluation by evaluation as each subject is evaluated: a target needs
+    /// more than the steady state (the curve, the dose history), or the per-subject rows are
+    /// written.
+    Judged,
+}
+
+impl Verdicts {
+    fn new(targets: &[Target], limits: &Limits, rows: bool) -> Verdicts {
+        let (mut lo, mut hi) = ([f64::NEG_INFINITY; 4], [f64::INFINITY; 4]);
+        for t in targets {
+            let column = match t.metric {
+                Metric::Trough => TROUGH,
+                Metric::Peak => PEAK,
+                Metric::Auc24 => AUC24,
+                Metric::Cavg => CAVG,
+                Metric::Above { .. } | Metric::AucDay { .. } => return Verdicts::Judged,
+            };
+            // A NaN bound, which no value meets, is left to `judge` too.
+            if [t.lo, t.hi].iter().flatten().any(|b| b.is_nan()) {
+                return Verdicts::Judged;
+            }
+            lo[column] = t.lo.map_or(lo[column], |b| b.max(lo[column]));
+            hi[column] = t.hi.map_or(hi[column], |b| b.min(hi[column]));
+        }
+        if rows {
+            return Verdicts::Judged;
+        }
+        Verdicts::Steady {
+            lo,
+            hi,
+            max_peak: limits.max_peak_mg_l.unwrap_or(f64::INFINITY),
+            max_trough: limits.max_trough_mg_l.unwrap_or(f64::INFINITY),
+        }
+    }
+}
+
+/// The evaluations of a block of consecutive subjects, as the tallies read them.
+#[derive(Debug)]
+struct Block {
+    /// Subjects in the block.
+    subjects: usize,
+    /// Column `c` of shape `s` for each subject in order: `data[(s * COLUMNS + c) * subjects..]`,
+    /// so that a regimen's tally reads each column of its shape straight through.
+    data: Vec<f64>,
+    /// With [`Verdicts::Judged`], every evaluation's verdict, subject by subject.
+    verdicts: Vec<Verdict>,
+    /// The per-subject rows as CSV, when asked for.
+    rows: Vec<u8>,
+}
+
+impl Block {
+    /// Column `c` of shape `shape`.
+    fn column(&self, shape: usize, c: usize) -> &[f64] {
+        &self.data[(shape * COLUMNS + c) * self.subjects..][..self.subjects]
+    }
+
+    /// Blocks of consecutive subjects, in order, as one, so that the tallies run through each
+    /// column once per chunk (without their rows, which are written block by block).
+    fn join(parts: &[Block], shapes: usize) -> Block {
+        let subjects = parts.iter().map(|b| b.subjects).sum();
+        let mut data = Vec::with_capacity(shapes * COLUMNS * subjects);
+        for c in 0..shapes * COLUMNS {
+            parts.iter().for_each(|b| data.extend_from_slice(&b.data[c * b.subjects..][..b.subjects]));
+        }
+        let verdicts = parts.iter().flat_map(|b| &b.verdicts).copied().collect();
+        Block { subjects, data, verdicts, rows: Vec::new() }
+    }
+}
+
+/// A chunk's evaluations: its blocks joined, with the smallest and largest value of each
+/// logarithm column of each shape (three pairs per shape), which bound the sketches' bins.
+#[derive(Debug)]
+struct Chunk {
+    block: Block,
+    ln_range: Vec<(f64, f64)>,
+}
+
+impl Chunk {
+    fn new(blocks: &[Block], shapes: usize) -> Chunk {
+        let block = Block::join(blocks, shapes);
+        let range = |j: usize| {
+            let column = block.column(j / 3, LN_TROUGH + j % 3).iter();
+            column.fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &x| (lo.min(x), hi.max(x)))
+        };
+        let ln_range = (0..shapes * 3).map(range).collect();
+        Chunk { block, ln_range }
+    }
+}
+
+/// The refusal of candidate `k` for subject `index`.
+fn refused(index: u64, k: usize, inv: InputError) -> Error {
+    Error::Usage(format!("subject {}, regimen {}: {inv}", index + 1, k + 1))
 }
 
 /// What to sweep.
@@ -109,56 +249,76 @@ impl Sweep<'_> {
         self.candidates.iter().map(|c| until.map(|u| Course::fresh().continued(c, None, u))).collect()
     }
 
-    /// Evaluate every candidate for subjects `span`, in order (outcomes subject by subject);
-    /// with `rows`, also their per-subject rows as CSV.
-    fn subjects(
+    /// Evaluate every shape for subjects `span`, in order; with [`Verdicts::Judged`], judge
+    /// every candidate too, and with `rows`, write their per-subject rows as CSV.
+    fn block(
         &self,
         span: Range<u64>,
         shapes: &Shapes,
         doses: &[Option<Vec<Dose>>],
+        verdicts: &Verdicts,
         rows: bool,
-    ) -> Result<(Vec<Outcome>, Vec<u8>), Error> {
-        let mut outcomes = Vec::with_capacity((span.end - span.start) as usize * self.candidates.len());
+    ) -> Result<Block, Error> {
+        let subjects = (span.end - span.start) as usize;
+        let judged = matches!(verdicts, Verdicts::Judged);
+        let mut block = Block {
+            subjects,
+            data: vec![0.0; shapes.first.len() * COLUMNS * subjects],
+            verdicts: Vec::with_capacity(if judged { subjects * self.candidates.len() } else { 0 }),
+            rows: Vec::new(),
+        };
         let mut unit = Vec::with_capacity(shapes.first.len());
         let mut csv = rows.then(|| CsvWriter::new(Vec::new()));
-        for index in span {
-            self.subject(index, shapes, doses, &mut unit, &mut outcomes, csv.as_mut())?;
+        for (i, index) in span.enumerate() {
+            let subject = self.population.subject(self.seed, index).map_err(Error::Usage)?;
+            let params = &subject.params;
+            // Parameters valid for every shape's doses, and a shape sound by itself, pass the
+            // checks of `unit_exposure`, which otherwise says what is wrong.
+            let checked = params.validate(&shapes.doses).is_ok();
+            unit.clear();
+            let mut bounded = true;
+            for (shape, (k, c)) in shapes.first.iter().enumerate() {
+                let u = if checked && shapes.sound[shape] {
+                    closed_form(params, c)
+                } else {
+                    unit_exposure(params, c).map_err(|inv| refused(index, *k, inv))?
+                };
+                bounded &= shapes.bounded(shape, &u);
+                for (c, x) in columns(&u).into_iter().enumerate() {
+                    block.data[(shape * COLUMNS + c) * subjects + i] = x;
+                }
+                unit.push(u);
+            }
+            // An exposure out of bounds is refused by the first evaluation that meets it.
+            if judged || !bounded {
+                self.judge(index, &subject, shapes, doses, &unit, &mut block.verdicts, csv.as_mut())?;
+            }
         }
-        let bytes = match csv {
-            Some(w) => w.finish().map_err(io_failure)?,
-            None => Vec::new(),
-        };
-        Ok((outcomes, bytes))
+        if let Some(w) = csv {
+            block.rows = w.finish().map_err(io_failure)?;
+        }
+        Ok(block)
     }
 
-    /// Evaluate every candidate for subject `index` into `outcomes` (`unit` is scratch for the
-    /// exposure to 1 mg of each shape, with the logarithms of its trough, peak and AUC24); with
-    /// `rows`, also write its per-subject rows.
-    fn subject(
+    /// Judge every candidate for subject `index`, whose exposure to 1 mg of each shape is
+    /// `unit`, into `verdicts`; with `rows`, also write its per-subject rows.
+    #[allow(clippy::too_many_arguments)] // the subject's evaluations and where they go
+    fn judge(
         &self,
         index: u64,
+        subject: &Subject,
         shapes: &Shapes,
         doses: &[Option<Vec<Dose>>],
-        unit: &mut Vec<(Exposure, [f64; 3])>,
-        outcomes: &mut Vec<Outcome>,
+        unit: &[Exposure],
+        verdicts: &mut Vec<Verdict>,
         mut rows: Option<&mut CsvWriter<Vec<u8>>>,
     ) -> Result<(), Error> {
-        let subject = self.population.subject(self.seed, index).map_err(Error::Usage)?;
         let params = subject.params;
-        let refused =
-            |k: usize, inv| Error::Usage(format!("subject {}, regimen {}: {inv}", index + 1, k + 1));
-        unit.clear();
-        for (k, c) in &shapes.first {
-            let u = unit_exposure(&params, c).map_err(|inv| refused(*k, inv))?;
-            unit.push((u, [u.trough_mg_l.ln(), u.peak_mg_l.ln(), u.auc24_mg_h_l.ln()]));
-        }
-        let each = self.candidates.iter().zip(doses).zip(&shapes.of).zip(&shapes.ln_amount);
-        for (k, (((c, d), &shape), ln_amount)) in each.enumerate() {
-            let (u, ln_u) = &unit[shape];
-            let steady = u.scaled(c.amount_mg);
+        for (k, ((c, d), &shape)) in self.candidates.iter().zip(doses).zip(&shapes.of).enumerate() {
+            let steady = unit[shape].scaled(c.amount_mg);
             let verdict =
                 judge(&params, c, &steady, self.targets, self.limits, &Course::fresh(), d.as_deref(), |_| {})
-                    .map_err(|inv| refused(k, inv))?;
+                    .map_err(|inv| refused(index, k, inv))?;
             let values = [steady.trough_mg_l, steady.peak_mg_l, steady.auc24_mg_h_l];
             // Finite and non-negative (NaN fails too).
             if !values.iter().all(|x| (0.0..f64::INFINITY).contains(x)) {
@@ -169,11 +329,51 @@ impl Sweep<'_> {
                 )));
             }
             if let Some(w) = rows.as_mut() {
-                self.write_row(w, index, &subject, k, &steady, &verdict).map_err(io_failure)?;
+                self.write_row(w, index, subject, k, &steady, &verdict).map_err(io_failure)?;
             }
-            outcomes.push(Outcome { slots: ln_u.map(|l| Slot::of_ln(l + ln_amount)), verdict });
+            verdicts.push(verdict);
         }
         Ok(())
+    }
+
+    /// Count candidate `k`'s evaluations in `chunk` into its tally.
+    fn count(&self, k: usize, tally: &mut Tally, chunk: &Chunk, shapes: &Shapes, verdicts: &Verdicts) {
+        let Chunk { block: chunk, ln_range } = chunk;
+        let (x, shape, ln_amount) = (self.candidates[k].amount_mg, shapes.of[k], shapes.ln_amount[k]);
+        let [meets, over_peak, over_trough] = match verdicts {
+            Verdicts::Steady { lo, hi, max_peak, max_trough } => {
+                let column = |c| chunk.column(shape, c).iter().map(move |u| u * x);
+                let each = column(TROUGH).zip(column(PEAK)).zip(column(AUC24)).zip(column(CAVG));
+                each.fold([0, 0, 0], |[meets, over_peak, over_trough], (((t, p), a), c)| {
+                    // Every bound tested (`&`, not `&&`), so that nothing branches.
+                    let bounds = lo.iter().zip(hi);
+                    let within = [t, p, a, c]
+                        .iter()
+                        .zip(bounds)
+                        .fold(true, |all, (v, (lo, hi))| all & (v >= lo) & (v <= hi));
+                    [
+                        meets + u64::from(within),
+                        over_peak + u64::from(p > *max_peak),
+                        over_trough + u64::from(t > *max_trough),
+                    ]
+                })
+            }
+            Verdicts::Judged => {
+                let each = chunk.verdicts.iter().skip(k).step_by(self.candidates.len());
+                each.fold([0, 0, 0], |[meets, over_peak, over_trough], v| {
+                    [
+                        meets + u64::from(v.meets),
+                        over_peak + u64::from(v.over_peak),
+                        over_trough + u64::from(v.over_trough),
+                    ]
+                })
+            }
+        };
+        tally.add(chunk.subjects as u64, meets, over_peak, over_trough);
+        let sketches = [&mut tally.trough_mg_l, &mut tally.peak_mg_l, &mut tally.auc24_mg_h_l];
+        for (m, sketch) in sketches.into_iter().enumerate() {
+            sketch.count_shifted(chunk.column(shape, LN_TROUGH + m), ln_amount, ln_range[shape * 3 + m]);
+        }
     }
 
     /// One per-subject row (the columns of [`PER_SUBJECT_HEADER`]).
@@ -212,7 +412,8 @@ impl Sweep<'_> {
     /// refuses (an oral regimen without absorption in the model, say) is reported before any
     /// work is done.
     pub fn check(&self) -> Result<(), Error> {
-        self.subjects(0..1, &Shapes::new(self.candidates)?, &self.course_doses(), false).map(|_| ())
+        let shapes = Shapes::new(self.candidates)?;
+        self.block(0..1, &shapes, &self.course_doses(), &Verdicts::Judged, false).map(|_| ())
     }
 
     /// Sweep `shard` of the sweep `setup` (whose subjects are this population's) into its
@@ -249,6 +450,8 @@ impl Sweep<'_> {
     ) -> Result<Vec<Tally>, Error> {
         let doses = self.course_doses();
         let shapes = Shapes::new(self.candidates)?;
+        let rows = per_subject.is_some();
+        let verdicts = Verdicts::new(self.targets, self.limits, rows);
         let regimens = self.candidates.len();
         let mut tallies = vec![Tally::new(self.limits); regimens];
         if let Some(out) = per_subject.as_mut() {
@@ -256,7 +459,6 @@ impl Sweep<'_> {
             w.row(PER_SUBJECT_HEADER.split(',')).map_err(io_failure)?;
             w.finish().map_err(io_failure)?;
         }
-        let rows = per_subject.is_some();
         let chunk = (CHUNK_EVALUATIONS / regimens.max(1)).max(1) as u64;
         let mut start = span.start;
         while start < span.end {
@@ -266,22 +468,74 @@ impl Sweep<'_> {
                 .into_par_iter()
                 .map(|j| {
                     let first = start + j * per_task;
-                    self.subjects(first..end.min(first + per_task), &shapes, &doses, rows)
+                    self.block(first..end.min(first + per_task), &shapes, &doses, &verdicts, rows)
                 })
                 .collect();
             // The first failure in subject order, so the message does not depend on threads.
-            let done = results.into_iter().collect::<Result<Vec<_>, Error>>()?;
-            tallies.par_iter_mut().enumerate().for_each(|(k, t)| {
-                done.iter().flat_map(|(o, _)| o.chunks_exact(regimens)).for_each(|o| t.add(&o[k]))
-            });
+            let blocks = results.into_iter().collect::<Result<Vec<_>, Error>>()?;
+            let chunk = Chunk::new(&blocks, shapes.first.len());
+            tallies
+                .par_iter_mut()
+                .enumerate()
+                .for_each(|(k, t)| self.count(k, t, &chunk, &shapes, &verdicts));
             if let Some(out) = per_subject.as_mut() {
-                for (_, csv) in &done {
-                    out.write_all(csv).map_err(io_failure)?;
+                for b in &blocks {
+                    out.write_all(&b.rows).map_err(io_failure)?;
                 }
             }
             progress(end - start);
             start = end;
         }
         Ok(tallies)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::dosing::Route;
+    use crate::engine::Params;
+    use crate::plan::candidates::{Durations, grid};
+    use crate::plan::targets::parse_target;
+
+    /// The tallies' own verdicts, from the steady state, are those of `judge`, which decides
+    /// the per-subject rows: the same sweep counts the same with rows and without.
+    #[test]
+    fn verdicts_from_the_steady_state_are_those_of_judge() {
+        let rows = (0..700)
+            .map(|i| {
+                let x = f64::from(i);
+                let (cl_l_h, v_l) =
+                    (1.0 + 8.0 * (0.37 * x).sin().abs(), 20.0 + 60.0 * (0.11 * x).cos().abs());
+                (format!("s{i}"), Params { cl_l_h, v_l, ka_per_h: None, f: 1.0, tlag_h: 0.0 })
+            })
+            .collect();
+        let population = Population::from_params(rows);
+        let candidates = grid(
+            &[250.0, 500.0, 1000.0, 2000.0],
+            &[8.0, 12.0, 24.0],
+            Route::Infusion,
+            &Durations::Fixed(vec![1.0, 2.0]),
+        )
+        .unwrap();
+        let targets = ["auc24=400..600", "trough=5..20", "peak=..60", "cavg=10..", "auc24=300..550"]
+            .map(|t| parse_target(t).unwrap());
+        let limits = Limits { max_peak_mg_l: Some(40.0), max_trough_mg_l: Some(25.0), ..Limits::default() };
+        assert!(matches!(Verdicts::new(&targets, &limits, false), Verdicts::Steady { .. }));
+        let sweep = Sweep {
+            population: &population,
+            candidates: &candidates,
+            targets: &targets,
+            limits: &limits,
+            seed: 1,
+        };
+        let steady = sweep.run(0..700, None, &mut |_| {}).unwrap();
+        let judged = sweep.run(0..700, Some(&mut std::io::sink()), &mut |_| {}).unwrap();
+        assert_eq!(steady, judged);
+        // The targets and limits decide: some subjects meet them, some break each limit.
+        assert!(steady.iter().any(|t| t.meets > 0) && steady.iter().any(|t| t.meets < 700));
+        assert!(
+            steady.iter().any(|t| t.over_peak > Some(0)) && steady.iter().any(|t| t.over_trough > Some(0))
+        );
     }
 }

@@ -30,11 +30,14 @@ fn ln_gamma() -> f64 {
     ((1.0 + RELATIVE_ERROR) / (1.0 - RELATIVE_ERROR)).ln()
 }
 
-/// ⌈y⌉ for |y| < 2³¹ (every bin index is): what `y.ceil() as i32` gives, without the call to
-/// `ceil` that x86-64's baseline instruction set needs.
+/// ⌈y⌉ for |y| < 2³¹ (every bin index is), without the call to `ceil` that x86-64's baseline
+/// instruction set needs, nor the clamping of `as i32`: adding 1.5·2⁵² rounds y to the nearest
+/// integer n (in the low bits of the sum, two's complement), and ⌈y⌉ is n, or n + 1 when n < y.
 fn ceil(y: f64) -> i32 {
-    let t = y as i32;
-    t + i32::from(f64::from(t) < y)
+    const SHIFT: f64 = 6_755_399_441_055_744.0;
+    let sum = y + SHIFT;
+    let n = sum.to_bits() as i32;
+    n + i32::from(sum - SHIFT < y)
 }
 
 /// Counts of values per logarithmic bin.
@@ -56,8 +59,13 @@ impl Slot {
     /// The slot of a value given by its natural logarithm (−∞ for 0; NaN, for a negative value
     /// or NaN, counts below the floor).
     pub fn of_ln(ln_x: f64) -> Slot {
-        if ln_x >= FLOOR.ln() { Slot(Some(ceil(ln_x / ln_gamma()))) } else { Slot(None) }
+        if ln_x >= FLOOR.ln() { Slot(Some(bin(ln_x))) } else { Slot(None) }
     }
+}
+
+/// The bin of a value at or above [`FLOOR`], given by its natural logarithm.
+fn bin(ln_x: f64) -> i32 {
+    ceil(ln_x / ln_gamma())
 }
 
 impl Sketch {
@@ -78,6 +86,30 @@ impl Sketch {
             *count += 1;
         } else {
             self.add_count(bin, 1);
+        }
+    }
+
+    /// Count the values whose logarithms are those of `ln_x` plus `shift` each (a sweep's
+    /// exposures: ln amount + ln(the exposure to 1 mg)), the smallest and largest of `ln_x`
+    /// being `range`. Rounding is monotone, so the bins of the smallest and largest sums bound
+    /// the others': room is made for them once, and each value then costs one counter.
+    pub fn count_shifted(&mut self, ln_x: &[f64], shift: f64, range: (f64, f64)) {
+        let (Slot(Some(lowest)), Slot(Some(highest))) =
+            (Slot::of_ln(range.0 + shift), Slot::of_ln(range.1 + shift))
+        else {
+            // Some value is below the floor (or there is none).
+            ln_x.iter().for_each(|l| self.count_in(Slot::of_ln(l + shift)));
+            return;
+        };
+        // Both bins are counted below, so the sketch spans exactly the bins counted.
+        self.add_count(lowest, 0);
+        self.add_count(highest, 0);
+        let (offset, counts) = (self.offset, &mut self.counts[..]);
+        // The places of a batch first, in a loop the compiler vectorises, then the counts.
+        let mut at = [0; 64];
+        for batch in ln_x.chunks(at.len()) {
+            at.iter_mut().zip(batch).for_each(|(a, l)| *a = bin(l + shift) - offset);
+            at[..batch.len()].iter().for_each(|&a| counts[a as usize] += 1);
         }
     }
 
@@ -167,6 +199,25 @@ mod tests {
         ys.extend([0.0, -0.0, 1.0, -1.0, 0.5, -0.5, 354_891.0, -20_723.0, 1e-300, -1e-300]);
         for y in ys {
             assert_eq!(ceil(y), y.ceil() as i32, "{y}");
+        }
+    }
+
+    #[test]
+    fn values_counted_by_their_shifted_logarithms_fill_the_same_sketch() {
+        let mut rng = StdRng::seed_from_u64(5);
+        let ln_x: Vec<f64> = (0..5_000).map(|_| rng.random_range(-12.0..9.0)).collect();
+        let range =
+            |v: &[f64]| v.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &l| (a.min(l), b.max(l)));
+        // Every value above the floor; then some below it (the shift takes them there).
+        for (shift, below) in [(1.7, false), (-9.5, true)] {
+            let mut one_by_one = Sketch::default();
+            ln_x.iter().for_each(|l| one_by_one.count_in(Slot::of_ln(l + shift)));
+            let mut shifted = Sketch::default();
+            for part in ln_x.chunks(700) {
+                shifted.count_shifted(part, shift, range(part));
+            }
+            assert_eq!(shifted, one_by_one, "shift {shift}");
+            assert_eq!(one_by_one.below_floor > 0, below);
         }
     }
 

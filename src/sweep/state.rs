@@ -8,7 +8,6 @@
 //! round-trip form, read back with serde_json's correctly rounded parser (its
 //! `float_roundtrip` feature), so they survive the trip exactly.
 
-use super::Outcome;
 use super::sketch::{RELATIVE_ERROR, Sketch};
 use crate::dosing::Regimen;
 use crate::io::digest::sha256_hex;
@@ -136,20 +135,17 @@ impl Tally {
         }
     }
 
-    pub(super) fn add(&mut self, o: &Outcome) {
-        let v = &o.verdict;
-        self.subjects += 1;
-        self.meets += u64::from(v.meets);
+    /// Add the counts of `subjects` more subjects (their values are counted in the sketches
+    /// directly).
+    pub(super) fn add(&mut self, subjects: u64, meets: u64, over_peak: u64, over_trough: u64) {
+        self.subjects += subjects;
+        self.meets += meets;
         if let Some(n) = &mut self.over_peak {
-            *n += u64::from(v.over_peak);
+            *n += over_peak;
         }
         if let Some(n) = &mut self.over_trough {
-            *n += u64::from(v.over_trough);
+            *n += over_trough;
         }
-        let [trough, peak, auc24] = o.slots;
-        self.trough_mg_l.count_in(trough);
-        self.peak_mg_l.count_in(peak);
-        self.auc24_mg_h_l.count_in(auc24);
     }
 
     /// Whether a tally read from a file is internally consistent.
