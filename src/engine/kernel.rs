@@ -145,6 +145,7 @@ pub struct Propagator<R> {
 
 impl<R: Real> Propagator<R> {
     /// The step of length `t` (only e^(−k t) is computed now).
+    #[inline]
     pub fn new(rates: Rates<R>, t: f64) -> Self {
         let kt = rates.k * t;
         Propagator { t, kt, e: (-kt).exp(), p1: None, p2: None, g: None, h: None, ea: None }
@@ -165,10 +166,11 @@ impl<R: Real> Propagator<R> {
 
     /// Advance `state` under constant infusion rate `rate` (mg/h), with the `rates` this step
     /// was made for; also ∫A over the interval (mg·h) when `integrate` is set.
+    #[inline]
     pub fn apply(&mut self, state: State<R>, rates: Rates<R>, rate: f64, integrate: bool) -> (State<R>, R) {
         let t = self.t;
-        let mut central = state.central * self.e;
         let mut integral = R::cst(0.0);
+        let mut infused = None;
         if integrate || rate != 0.0 {
             let (kt, e) = (self.kt, self.e);
             let p1 = *self.p1.get_or_insert_with(|| phi1_from(kt, e));
@@ -176,24 +178,79 @@ impl<R: Real> Propagator<R> {
                 integral = state.central * p1 * t;
             }
             if rate != 0.0 {
-                central += p1 * (rate * t);
+                infused = Some(p1 * (rate * t));
                 if integrate {
                     integral += *self.p2.get_or_insert_with(|| phi2_from(kt, p1)) * (rate * t * t);
                 }
             }
         }
-        let mut depot = state.depot;
-        if depot.val() != 0.0 {
-            let ka_d = rates.ka * depot;
-            central += ka_d * *self.g.get_or_insert_with(|| depot_to_central(rates.k, rates.ka, t));
-            if integrate {
-                integral +=
-                    ka_d * *self.h.get_or_insert_with(|| depot_to_central_integral(rates.k, rates.ka, t));
-            }
-            depot = depot * *self.ea.get_or_insert_with(|| (rates.ka * -t).exp());
+        if integrate && state.depot.val() != 0.0 {
+            integral += rates.ka
+                * state.depot
+                * *self.h.get_or_insert_with(|| depot_to_central_integral(rates.k, rates.ka, t));
         }
-        (State { central, depot }, integral)
+        let (e, g, ea) = (self.e, &mut self.g, &mut self.ea);
+        let next = advance(state, rates.ka, e, infused, || {
+            let g = *g.get_or_insert_with(|| depot_to_central(rates.k, rates.ka, t));
+            (g, *ea.get_or_insert_with(|| (rates.ka * -t).exp()))
+        });
+        (next, integral)
     }
+
+    /// The factors of this step, all computed now: φ1 when an infusion may run over it
+    /// (`infusing`), G and e^(−ka t) when the depot may hold drug (`absorbing`); the others
+    /// are left at zero, unused.
+    #[inline]
+    pub fn factors(mut self, rates: Rates<R>, infusing: bool, absorbing: bool) -> Factors<R> {
+        let zero = R::cst(0.0);
+        let mut factors = Factors { e: self.e, p1: zero, g: zero, ea: zero };
+        if infusing {
+            factors.p1 = *self.p1.get_or_insert_with(|| phi1_from(self.kt, self.e));
+        }
+        if absorbing {
+            factors.g = depot_to_central(rates.k, rates.ka, self.t);
+            factors.ea = (rates.ka * -self.t).exp();
+        }
+        factors
+    }
+}
+
+/// The factors of a step over one interval length (see [`Propagator::factors`]).
+#[derive(Debug, Clone, Copy)]
+pub struct Factors<R> {
+    /// e^(−k t).
+    pub e: R,
+    /// φ1(k t).
+    pub p1: R,
+    /// G(t).
+    pub g: R,
+    /// e^(−ka t).
+    pub ea: R,
+}
+
+/// The state after a step with decay factor `e` (e^(−k t)), the amount `infused` into the
+/// central compartment over it (φ1·rate·t, when an infusion runs) and, asked for only when the
+/// depot holds drug, `absorption`'s G and e^(−ka t): the one state update of the walker and of
+/// a recorded schedule.
+#[inline]
+pub fn advance<R: Real>(
+    state: State<R>,
+    ka: R,
+    e: R,
+    infused: Option<R>,
+    absorption: impl FnOnce() -> (R, R),
+) -> State<R> {
+    let mut central = state.central * e;
+    if let Some(x) = infused {
+        central += x;
+    }
+    let mut depot = state.depot;
+    if depot.val() != 0.0 {
+        let (g, ea) = absorption();
+        central += ka * depot * g;
+        depot = depot * ea;
+    }
+    State { central, depot }
 }
 
 #[cfg(test)]
