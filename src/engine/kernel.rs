@@ -200,7 +200,7 @@ impl<R: Real> Propagator<R> {
     /// The factors of this step, all computed now: φ1 when an infusion may run over it
     /// (`infusing`), G and e^(−ka t) when the depot may hold drug (`absorbing`); the others
     /// are left at zero, unused.
-    #[inline]
+    #[inline(always)]
     pub fn factors(mut self, rates: Rates<R>, infusing: bool, absorbing: bool) -> Factors<R> {
         let zero = R::cst(0.0);
         let mut factors = Factors { e: self.e, p1: zero, g: zero, ea: zero };
