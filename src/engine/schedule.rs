@@ -23,6 +23,12 @@ enum Move {
     /// (the walker takes the state afresh from there every so many steps), else from the
     /// current state.
     Step { length: usize, infused: Option<f64>, from_anchor: bool },
+    /// A step over the interval length numbered `length` with no infusion running and the
+    /// depot empty (no oral dose yet): [`advance`] reduces to the decay of the central amount,
+    /// the usual step of an intravenous history, made without the general step's tests.
+    Decay { length: usize },
+    /// The same with an infusion running: the decay plus φ1·`infused`, as [`advance`] adds it.
+    Infuse { length: usize, infused: f64 },
     /// A bolus or oral dose enters.
     Dose(Input),
     /// The state after the events at one time is kept, for the steps taken from it (recorded
@@ -69,10 +75,11 @@ impl Schedule {
                 let hours = step.from_anchor.unwrap_or(step.dt);
                 let infused = (step.rate != 0.0).then_some(step.rate * hours);
                 steps.push(Length { hours, infusing: infused.is_some(), absorbing });
-                moves.push(Move::Step {
-                    length: steps.len() - 1,
-                    infused,
-                    from_anchor: step.from_anchor.is_some(),
+                let (length, from_anchor) = (steps.len() - 1, step.from_anchor.is_some());
+                moves.push(match infused {
+                    _ if from_anchor || absorbing => Move::Step { length, infused, from_anchor },
+                    None => Move::Decay { length },
+                    Some(infused) => Move::Infuse { length, infused },
                 });
             }
         };
@@ -103,7 +110,7 @@ impl Schedule {
             same
         });
         for m in &mut moves {
-            if let Move::Step { length, .. } = m {
+            if let Move::Step { length, .. } | Move::Decay { length } | Move::Infuse { length, .. } = m {
                 let hours = steps[*length].hours;
                 *length = lengths.binary_search_by(|x| x.hours.total_cmp(&hours)).unwrap_or(0);
             }
@@ -136,6 +143,11 @@ impl Schedule {
                     let f = &factors[length];
                     let from = if from_anchor { anchor } else { state };
                     state = advance(from, kin.ka, f.e, infused.map(|x| f.p1 * x), || (f.g, f.ea));
+                }
+                Move::Decay { length } => state.central = state.central * factors[length].e,
+                Move::Infuse { length, infused } => {
+                    let f = &factors[length];
+                    state.central = state.central * f.e + f.p1 * infused;
                 }
                 Move::Dose(input) => input.enter(&mut state, kin.f),
                 Move::Anchor => anchor = state,
