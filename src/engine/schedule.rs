@@ -7,8 +7,9 @@
 //! interval lengths numbered by their distinct values. A usual history repeats few lengths
 //! (every one-hour infusion has the same one, regular dosing repeats its gaps), so an
 //! evaluation computes the exponential of each distinct length once instead of at every step,
-//! then makes the walker's state updates in the walker's order with the walker's
-//! [`Propagator`] arithmetic: the concentrations are bit for bit those of
+//! then makes the walker's state updates in the walker's order with the walker's arithmetic
+//! ([`Propagator`]'s factors and [`advance`], or what `advance` reduces to where no infusion
+//! runs or the depot is empty): the concentrations are bit for bit those of
 //! [`super::predict_each`].
 
 use super::kernel::{Factors, Propagator, Rates, State, advance};
