@@ -145,6 +145,7 @@ pub struct Propagator<R> {
 
 impl<R: Real> Propagator<R> {
     /// The step of length `t` (only e^(−k t) is computed now).
+    #[inline]
     pub fn new(rates: Rates<R>, t: f64) -> Self {
         let kt = rates.k * t;
         Propagator { t, kt, e: (-kt).exp(), p1: None, p2: None, g: None, h: None, ea: None }
@@ -165,6 +166,7 @@ impl<R: Real> Propagator<R> {
 
     /// Advance `state` under constant infusion rate `rate` (mg/h), with the `rates` this step
     /// was made for; also ∫A over the interval (mg·h) when `integrate` is set.
+    #[inline]
     pub fn apply(&mut self, state: State<R>, rates: Rates<R>, rate: f64, integrate: bool) -> (State<R>, R) {
         let (t, kt, e) = (self.t, self.kt, self.e);
         let mut integral = R::cst(0.0);
@@ -186,49 +188,75 @@ impl<R: Real> Propagator<R> {
             integral += rates.ka * state.depot * h;
         }
         let (g, ea) = (&mut self.g, &mut self.ea);
-        let absorbed = || {
+        let next = advance(state, rates.ka, e, infused, || {
             let g = *g.get_or_insert_with(|| depot_to_central(rates.k, rates.ka, t));
-            (rates.ka, g, *ea.get_or_insert_with(|| (rates.ka * -t).exp()))
-        };
-        (stepped(state, e, infused, absorbed), integral)
+            (g, *ea.get_or_insert_with(|| (rates.ka * -t).exp()))
+        });
+        (next, integral)
     }
 
     /// This step without the integral, under the constant infusion rate `rate` and with drug in
     /// the depot or not (`depot`), its factors computed now: for a loop that takes it many
     /// times ([`Walker::glide`](super::Walker::glide)).
-    pub fn prediction(&mut self, rates: Rates<R>, rate: f64, depot: bool) -> Prediction<R> {
-        let (t, kt, e) = (self.t, self.kt, self.e);
+    pub fn prediction(self, rates: Rates<R>, rate: f64, depot: bool) -> Prediction<R> {
+        let factors = self.factors(rates, rate != 0.0, depot);
+        Prediction {
+            factors,
+            infused: (rate != 0.0).then(|| factors.p1 * (rate * self.t)),
+            ka: if depot { rates.ka } else { R::cst(0.0) },
+        }
+    }
+
+    /// The factors of this step, all computed now: φ1 when an infusion may run over it
+    /// (`infusing`), G and e^(−ka t) when the depot may hold drug (`absorbing`); the others
+    /// are left at zero, unused.
+    #[inline(always)]
+    pub fn factors(mut self, rates: Rates<R>, infusing: bool, absorbing: bool) -> Factors<R> {
         let zero = R::cst(0.0);
-        let infused =
-            if rate != 0.0 { *self.p1.get_or_insert_with(|| phi1_from(kt, e)) * (rate * t) } else { zero };
-        let (ka, g, ea) = if depot {
-            let g = *self.g.get_or_insert_with(|| depot_to_central(rates.k, rates.ka, t));
-            (rates.ka, g, *self.ea.get_or_insert_with(|| (rates.ka * -t).exp()))
-        } else {
-            (zero, zero, zero)
-        };
-        Prediction { e, infusing: rate != 0.0, infused, ka, g, ea }
+        let mut factors = Factors { e: self.e, p1: zero, g: zero, ea: zero };
+        if infusing {
+            factors.p1 = *self.p1.get_or_insert_with(|| phi1_from(self.kt, self.e));
+        }
+        if absorbing {
+            factors.g = depot_to_central(rates.k, rates.ka, self.t);
+            factors.ea = (rates.ka * -self.t).exp();
+        }
+        factors
     }
 }
 
-/// The state after a step: the central amount times e^(−k t), plus the infusion's part
-/// R·t·φ1(k t) when one runs, plus ka·D·G(t) from the depot, which keeps D·e^(−ka t); the
-/// depot's factors (ka, G, e^(−ka t)) are asked for only when it holds drug. The one
-/// arithmetic of [`Propagator::apply`] and [`Prediction::apply`].
-fn stepped<R: Real>(
+/// The factors of a step over one interval length (see [`Propagator::factors`]).
+#[derive(Debug, Clone, Copy)]
+pub struct Factors<R> {
+    /// e^(−k t).
+    pub e: R,
+    /// φ1(k t).
+    pub p1: R,
+    /// G(t).
+    pub g: R,
+    /// e^(−ka t).
+    pub ea: R,
+}
+
+/// The state after a step with decay factor `e` (e^(−k t)), the amount `infused` into the
+/// central compartment over it (φ1·rate·t, when an infusion runs) and, asked for only when the
+/// depot holds drug, `absorption`'s G and e^(−ka t): the one state update of the walker and of
+/// a recorded schedule.
+#[inline]
+pub fn advance<R: Real>(
     state: State<R>,
+    ka: R,
     e: R,
     infused: Option<R>,
-    absorbed: impl FnOnce() -> (R, R, R),
+    absorption: impl FnOnce() -> (R, R),
 ) -> State<R> {
     let mut central = state.central * e;
-    if let Some(infused) = infused {
-        central += infused;
+    if let Some(x) = infused {
+        central += x;
     }
     let mut depot = state.depot;
-    // An empty depot stays empty; a full one empties only by underflow, to exactly zero.
     if depot.val() != 0.0 {
-        let (ka, g, ea) = absorbed();
+        let (g, ea) = absorption();
         central += ka * depot * g;
         depot = depot * ea;
     }
@@ -239,21 +267,18 @@ fn stepped<R: Real>(
 /// numbers, so that a loop can pick one of two by index without a branch.
 #[derive(Debug, Clone, Copy)]
 pub struct Prediction<R> {
-    /// e^(−k t).
-    e: R,
-    /// Whether an infusion runs, and R·t·φ1(k t).
-    infusing: bool,
-    infused: R,
-    /// ka, G(t) and e^(−ka t) when the depot held drug (else unused zeros).
+    factors: Factors<R>,
+    /// R·t·φ1(k t) when an infusion runs.
+    infused: Option<R>,
+    /// ka when the depot held drug (else an unused zero).
     ka: R,
-    g: R,
-    ea: R,
 }
 
 impl<R: Real> Prediction<R> {
     /// Advance `state` by the step.
     pub fn apply(&self, state: State<R>) -> State<R> {
-        stepped(state, self.e, self.infusing.then_some(self.infused), || (self.ka, self.g, self.ea))
+        let f = &self.factors;
+        advance(state, self.ka, f.e, self.infused, || (f.g, f.ea))
     }
 }
 

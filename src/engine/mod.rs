@@ -11,6 +11,7 @@
 
 pub(crate) mod kernel;
 pub(crate) mod scalar;
+pub(crate) mod schedule;
 pub mod steady;
 
 use crate::dosing::{Dose, Route};
@@ -169,62 +170,63 @@ impl Events {
     pub fn first_time(&self) -> Option<f64> {
         self.list.first().map(|e| e.0)
     }
+
+    /// The events at or after `start`.
+    fn from(&self, start: f64) -> &[(f64, Input)] {
+        &self.list[self.list.partition_point(|e| e.0 < start)..]
+    }
+
+    /// Where a walk to the ascending `times` starts: the first event, or the first time if
+    /// earlier.
+    fn walk_start(&self, times: &[f64]) -> f64 {
+        self.first_time().unwrap_or(f64::INFINITY).min(times.first().copied().unwrap_or(0.0))
+    }
 }
 
-/// Carries the model state forward in time through a sorted event list.
+/// The walk's bookkeeping that no parameter enters: the events still to come, the clock, the
+/// infusion rate running and the steps taken since the last event. The [`Walker`] follows it
+/// step by step; a [`schedule::Schedule`] records it once for a history walked many times.
 ///
 /// The infusion rate is summed with Neumaier compensation and reset to exactly zero when no
 /// infusion runs, so a very short (very high-rate) infusion does not leave rounding residue
 /// in the rate of the others.
 #[derive(Debug, Clone)]
-pub(crate) struct Walker<'a, R> {
-    kin: Kinetics<R>,
+struct Clock<'a> {
     events: &'a [(f64, Input)],
     next: usize,
     time: f64,
-    state: State<R>,
     rate_sum: f64,
     rate_comp: f64,
     running: usize,
-    integral: R,
-    integrate: bool,
-    /// The steps of the last two interval lengths, reused when a length repeats (a uniform
-    /// grid's intervals take one or two lengths in floating point), and the one used last.
-    steps: [Propagator<R>; 2],
-    last: usize,
-    /// The time and state after the last event (or the start), and the steps taken since
-    /// the state was last computed from it.
-    anchor: (f64, State<R>),
+    /// The time of the last event (or the start), and the steps taken since.
+    anchor_time: f64,
     chained: u32,
+}
+
+/// One step of a walk: `dt` hours at infusion rate `rate` (mg/h). When `from_anchor` is set,
+/// the state after the step is taken afresh over that many hours from the state after the last
+/// event (see [`REANCHOR_EVERY`]).
+#[derive(Debug, Clone, Copy)]
+struct Step {
+    dt: f64,
+    rate: f64,
+    from_anchor: Option<f64>,
 }
 
 /// Steps taken in a row between two computations of the state afresh from the last event:
 /// 64 roundings of about 1e-16 stay far below 1e-12.
 const REANCHOR_EVERY: u32 = 64;
 
-impl<'a, R: Real> Walker<'a, R> {
-    /// Start with no drug at the time of the first event (or at `start` if earlier).
-    pub fn new(kin: Kinetics<R>, events: &'a Events, start: f64) -> Self {
-        Self::from_state(kin, events, start, State::empty())
-    }
-
-    /// Start from a given state at time `start`; events before `start` are skipped.
-    pub fn from_state(kin: Kinetics<R>, events: &'a Events, start: f64, state: State<R>) -> Self {
-        let skip = events.list.partition_point(|e| e.0 < start);
-        Walker {
-            kin,
-            events: &events.list[skip..],
+impl<'a> Clock<'a> {
+    fn new(events: &'a [(f64, Input)], start: f64) -> Self {
+        Clock {
+            events,
             next: 0,
             time: start,
-            state,
             rate_sum: 0.0,
             rate_comp: 0.0,
             running: 0,
-            integral: R::cst(0.0),
-            integrate: true,
-            steps: [Propagator::none(); 2],
-            last: 0,
-            anchor: (start, state),
+            anchor_time: start,
             chained: 0,
         }
     }
@@ -243,87 +245,31 @@ impl<'a, R: Real> Walker<'a, R> {
         self.rate_sum = t;
     }
 
-    fn advance(&mut self, to: f64) {
+    /// The next event if it falls at or before `t` (not yet taken).
+    fn event_until(&self, t: f64) -> Option<(f64, Input)> {
+        self.events.get(self.next).copied().filter(|e| e.0 <= t)
+    }
+
+    /// The step to time `to`, or `None` when no time passes.
+    fn step_to(&mut self, to: f64) -> Option<Step> {
         let dt = to - self.time;
-        if dt > 0.0 {
-            let rates = Rates { k: self.kin.k, ka: self.kin.ka };
-            // The last length used first, then the other, else a new step replaces the older.
-            let slot = if self.steps[self.last].is_for(dt) {
-                self.last
-            } else if self.steps[1 - self.last].is_for(dt) {
-                1 - self.last
-            } else {
-                self.steps[1 - self.last] = Propagator::new(rates, dt);
-                1 - self.last
-            };
-            self.last = slot;
-            let (rate, integrate) = (self.rate(), self.integrate);
-            let (s, i) = self.steps[slot].apply(self.state, rates, rate, integrate);
-            self.state = self.chain(s, to, rates, rate);
-            self.integral += i;
-            self.time = to;
+        if dt <= 0.0 {
+            return None;
         }
-    }
-
-    /// The state `stepped` to `to` from the current one, counted in the chain of steps since the
-    /// anchor. A reused step repeats its rounding at every point; every so many points the state
-    /// is taken afresh from the last event instead, so no error accumulates along a long grid.
-    fn chain(&mut self, stepped: State<R>, to: f64, rates: Rates<R>, rate: f64) -> State<R> {
+        // A reused step repeats its rounding at every point; every so many points the state
+        // is taken afresh from the last event, so no error accumulates along a long grid.
         self.chained += 1;
-        if self.chained < REANCHOR_EVERY {
-            return stepped;
-        }
-        self.chained = 0;
-        let (anchor_time, anchor_state) = self.anchor;
-        kernel::step(anchor_state, rates, rate, to - anchor_time, false).0
+        let from_anchor = (self.chained >= REANCHOR_EVERY).then(|| {
+            self.chained = 0;
+            to - self.anchor_time
+        });
+        self.time = to;
+        Some(Step { dt, rate: self.rate(), from_anchor })
     }
 
-    /// Walk on along `times` (ascending, none before the current time) while no event comes
-    /// and each interval has the length of one of the two steps kept, handing each
-    /// concentration to `each`; returns how many times were walked. On a uniform grid this is
-    /// the whole stretch between two events, walked with the arithmetic of [`Walker::run_to`]
-    /// (the same steps, re-anchored as often) but without its event look-up, step choice and
-    /// rate bookkeeping at every point: the steps' factors are made ready once for the stretch.
-    /// Predictions only (no integral).
-    fn glide(&mut self, times: &[f64], each: &mut impl FnMut(R)) -> usize {
-        debug_assert!(!self.integrate);
-        let until = self.events.get(self.next).map_or(f64::INFINITY, |e| e.0);
-        // The slot of the step from `time` to `t`, if `t` comes before the next event; chosen
-        // without a branch, as a grid's two lengths alternate irregularly.
-        let slot_for = |steps: &[Propagator<R>; 2], time: f64, t: f64| {
-            let dt = t - time;
-            let fits = steps.map(|s| s.is_for(dt));
-            (t < until && (fits[0] | fits[1])).then_some(usize::from(fits[1]))
-        };
-        if times.first().and_then(|&t| slot_for(&self.steps, self.time, t)).is_none() {
-            return 0;
-        }
-        let rates = Rates { k: self.kin.k, ka: self.kin.ka };
-        let (rate, depot) = (self.rate(), self.state.depot.val() != 0.0);
-        let ready = [0, 1].map(|slot| self.steps[slot].prediction(rates, rate, depot));
-        let (mut state, mut time, mut last) = (self.state, self.time, self.last);
-        let mut walked = 0;
-        for &t in times {
-            let Some(slot) = slot_for(&self.steps, time, t) else { break };
-            state = self.chain(ready[slot].apply(state), t, rates, rate);
-            (time, last) = (t, slot);
-            each(state.central / self.kin.v);
-            walked += 1;
-        }
-        (self.state, self.time, self.last) = (state, time, last);
-        walked
-    }
-
-    fn apply(&mut self, input: Input) {
-        self.apply_input(input);
-        self.anchor = (self.time, self.state);
-        self.chained = 0;
-    }
-
-    fn apply_input(&mut self, input: Input) {
+    /// Take the next event: its effect on the infusion rate, and the anchor moves to it.
+    fn take(&mut self, input: Input) {
         match input {
-            Input::Bolus(a) => self.state.central += R::cst(a),
-            Input::Depot(a) => self.state.depot += self.kin.f * a,
             Input::RateOn(r) => {
                 self.running += 1;
                 self.add_rate(r);
@@ -337,20 +283,129 @@ impl<'a, R: Real> Walker<'a, R> {
                     self.add_rate(-r);
                 }
             }
+            Input::Bolus(_) | Input::Depot(_) => {}
         }
+        self.anchor_time = self.time;
+        self.chained = 0;
+        self.next += 1;
+    }
+}
+
+impl Input {
+    /// The event's effect on the amounts (bioavailability `f` for the depot).
+    fn enter<R: Real>(self, state: &mut State<R>, f: R) {
+        match self {
+            Input::Bolus(a) => state.central += R::cst(a),
+            Input::Depot(a) => state.depot += f * a,
+            Input::RateOn(_) | Input::RateOff(_) => {}
+        }
+    }
+}
+
+/// Carries the model state forward in time through a sorted event list.
+#[derive(Debug, Clone)]
+pub(crate) struct Walker<'a, R> {
+    kin: Kinetics<R>,
+    clock: Clock<'a>,
+    state: State<R>,
+    integral: R,
+    integrate: bool,
+    /// The steps of the last two interval lengths, reused when a length repeats (a uniform
+    /// grid's intervals take one or two lengths in floating point), and the one used last.
+    steps: [Propagator<R>; 2],
+    last: usize,
+    /// The state after the last event (or the start).
+    anchor: State<R>,
+}
+
+impl<'a, R: Real> Walker<'a, R> {
+    /// Start with no drug at the time of the first event (or at `start` if earlier).
+    pub fn new(kin: Kinetics<R>, events: &'a Events, start: f64) -> Self {
+        Self::from_state(kin, events, start, State::empty())
+    }
+
+    /// Start from a given state at time `start`; events before `start` are skipped.
+    pub fn from_state(kin: Kinetics<R>, events: &'a Events, start: f64, state: State<R>) -> Self {
+        Walker {
+            kin,
+            clock: Clock::new(events.from(start), start),
+            state,
+            integral: R::cst(0.0),
+            integrate: true,
+            steps: [Propagator::none(); 2],
+            last: 0,
+            anchor: state,
+        }
+    }
+
+    fn advance(&mut self, to: f64) {
+        let Some(step) = self.clock.step_to(to) else { return };
+        let rates = Rates { k: self.kin.k, ka: self.kin.ka };
+        // The last length used first, then the other, else a new step replaces the older.
+        let slot = if self.steps[self.last].is_for(step.dt) {
+            self.last
+        } else if self.steps[1 - self.last].is_for(step.dt) {
+            1 - self.last
+        } else {
+            self.steps[1 - self.last] = Propagator::new(rates, step.dt);
+            1 - self.last
+        };
+        self.last = slot;
+        let (mut s, i) = self.steps[slot].apply(self.state, rates, step.rate, self.integrate);
+        if let Some(span) = step.from_anchor {
+            s = kernel::step(self.anchor, rates, step.rate, span, false).0;
+        }
+        self.state = s;
+        self.integral += i;
     }
 
     /// Move to time `t` (not before the current time), applying every event at or before `t`.
     pub fn run_to(&mut self, t: f64) {
-        while let Some(&(te, input)) = self.events.get(self.next) {
-            if te > t {
-                break;
-            }
+        while let Some((te, input)) = self.clock.event_until(t) {
             self.advance(te);
-            self.apply(input);
-            self.next += 1;
+            self.clock.take(input);
+            input.enter(&mut self.state, self.kin.f);
+            self.anchor = self.state;
         }
         self.advance(t);
+    }
+
+    /// Walk on along `times` (ascending, none before the current time) while no event comes
+    /// and each interval has the length of one of the two steps kept, handing each
+    /// concentration to `each`; returns how many times were walked. On a uniform grid this is
+    /// the whole stretch between two events, walked with the arithmetic of [`Walker::run_to`]
+    /// (the same steps, re-anchored as often) but without its event look-up and step choice at
+    /// every point: the steps' factors are made ready once for the stretch. Predictions only
+    /// (no integral).
+    fn glide(&mut self, times: &[f64], each: &mut impl FnMut(R)) -> usize {
+        debug_assert!(!self.integrate);
+        let until = self.clock.events.get(self.clock.next).map_or(f64::INFINITY, |e| e.0);
+        // The slot of the step from `time` to `t`, if `t` comes before the next event; chosen
+        // without a branch, as a grid's two lengths alternate irregularly.
+        let slot_for = |steps: &[Propagator<R>; 2], time: f64, t: f64| {
+            let dt = t - time;
+            let fits = steps.map(|s| s.is_for(dt));
+            (t < until && (fits[0] | fits[1])).then_some(usize::from(fits[1]))
+        };
+        if times.first().and_then(|&t| slot_for(&self.steps, self.clock.time, t)).is_none() {
+            return 0;
+        }
+        let rates = Rates { k: self.kin.k, ka: self.kin.ka };
+        let depot = self.state.depot.val() != 0.0;
+        let ready = self.steps.map(|step| step.prediction(rates, self.clock.rate(), depot));
+        let mut walked = 0;
+        for &t in times {
+            let Some(slot) = slot_for(&self.steps, self.clock.time, t) else { break };
+            let Some(step) = self.clock.step_to(t) else { break };
+            self.state = match step.from_anchor {
+                Some(span) => kernel::step(self.anchor, rates, step.rate, span, false).0,
+                None => ready[slot].apply(self.state),
+            };
+            self.last = slot;
+            each(self.concentration());
+            walked += 1;
+        }
+        walked
     }
 
     /// Concentration at the current time (mg/L).
@@ -439,8 +494,7 @@ pub(crate) fn predict_each<R: Real>(
     times: &[f64],
     mut each: impl FnMut(R),
 ) {
-    let start = events.first_time().unwrap_or(f64::INFINITY).min(times.first().copied().unwrap_or(0.0));
-    let mut walker = Walker::new(kin, events, start).without_auc();
+    let mut walker = Walker::new(kin, events, events.walk_start(times)).without_auc();
     let mut rest = times;
     while let Some((&t, after)) = rest.split_first() {
         walker.run_to(t);

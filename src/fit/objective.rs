@@ -16,7 +16,8 @@ use super::linalg::{MAX, Mat};
 use crate::choice::choice_enum;
 use crate::dosing::Dose;
 use crate::engine::scalar::{Dual, Real};
-use crate::engine::{Events, Kinetics, predict, predict_each};
+use crate::engine::schedule::Schedule;
+use crate::engine::{Events, Kinetics};
 use crate::io::levels::Level;
 use crate::model::Residual;
 use std::f64::consts::{PI, SQRT_2};
@@ -128,8 +129,8 @@ pub struct Fixed {
 /// Everything one subject's objective needs, prepared once.
 #[derive(Debug, Clone)]
 pub struct Problem {
-    events: Events,
-    times: Vec<f64>,
+    /// The walk to the levels' times, recorded once for the many evaluations.
+    schedule: Schedule,
     levels: Vec<Level>,
     /// Number of estimated parameters (2, or 3 with ka).
     pub n: usize,
@@ -153,9 +154,9 @@ impl Problem {
             Likelihood::LeastSquares(_) => levels.iter().filter(|l| !l.is_blq()).copied().collect(),
             Likelihood::Bayes(_) => levels.to_vec(),
         };
+        let times: Vec<f64> = levels.iter().map(|l| l.time_h).collect();
         Problem {
-            events: Events::new(doses, fixed.tlag_h),
-            times: levels.iter().map(|l| l.time_h).collect(),
+            schedule: Schedule::new(&Events::new(doses, fixed.tlag_h), &times),
             levels,
             n: fixed.n,
             fixed,
@@ -178,8 +179,8 @@ impl Problem {
 
     /// Predicted concentrations at the levels' times.
     pub(crate) fn predictions<R: Real>(&self, theta: &[R]) -> Vec<R> {
-        let mut out = vec![R::cst(0.0); self.times.len()];
-        predict(self.kinetics(theta), &self.events, &self.times, &mut out);
+        let mut out = Vec::with_capacity(self.levels.len());
+        self.schedule.run(self.kinetics(theta), |fi| out.push(fi));
         out
     }
 
@@ -187,7 +188,7 @@ impl Problem {
     pub(crate) fn value<R: Real>(&self, theta: &[R]) -> R {
         let mut total = R::cst(0.0);
         let mut levels = self.levels.iter();
-        predict_each(self.kinetics(theta), &self.events, &self.times, |fi| {
+        self.schedule.run(self.kinetics(theta), |fi| {
             let Some(level) = levels.next() else { return };
             total += match &self.likelihood {
                 Likelihood::Bayes(res) => {
