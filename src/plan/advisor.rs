@@ -24,7 +24,6 @@ use rand::rngs::StdRng;
 use rayon::prelude::*;
 use serde::Serialize;
 use statrs::distribution::Normal;
-use std::collections::HashMap;
 
 /// The value of drawing a level at one time.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
@@ -60,26 +59,6 @@ fn ci90_width(sorted: impl Iterator<Item = (f64, f64)> + Clone) -> f64 {
     weighted_quantile(sorted.clone(), 0.95) - weighted_quantile(sorted, 0.05)
 }
 
-/// The distinct draws (the index of the first of each) and, for every draw, which distinct
-/// draw it is. Resampling repeats draws, and a repeated draw has the same predictions,
-/// likelihood and weight: each is computed once.
-fn distinct(draws: &[Params]) -> (Vec<usize>, Vec<usize>) {
-    let key = |p: &Params| [p.cl_l_h, p.v_l, p.ka_per_h.unwrap_or(f64::NAN), p.f, p.tlag_h].map(f64::to_bits);
-    let mut seen = HashMap::with_capacity(draws.len());
-    let mut first = Vec::new();
-    let of = draws
-        .iter()
-        .enumerate()
-        .map(|(i, p)| {
-            *seen.entry((key(p), p.ka_per_h.is_some())).or_insert_with(|| {
-                first.push(i);
-                first.len() - 1
-            })
-        })
-        .collect();
-    (first, of)
-}
-
 /// What the advisor weighs.
 #[derive(Debug, Clone)]
 pub struct Question<'a> {
@@ -112,10 +91,9 @@ pub fn advise(q: &Question) -> Advice {
     let mean0: f64 = exposure.iter().sum::<f64>() / n as f64;
     let sd0 = (exposure.iter().map(|m| (m - mean0).powi(2)).sum::<f64>() / n as f64).sqrt();
     let width0 = ci90_width(sorted.iter().map(|&m| (m, 1.0 / n as f64)));
-    let (first, of) = distinct(draws);
-    // Predictions of every distinct draw at every candidate time: one pass of the engine each.
+    // Predictions of every draw at every candidate time: one pass of the engine per draw.
     let predictions: Vec<Vec<f64>> =
-        first.par_iter().map(|&i| engine::concentrations(&draws[i], doses, times)).collect();
+        draws.par_iter().map(|p| engine::concentrations(p, doses, times)).collect();
     let normal = Normal::new(0.0, 1.0).expect("standard normal");
     let mut values: Vec<SampleValue> = (0..times.len())
         .into_par_iter()
@@ -125,26 +103,22 @@ pub fn advise(q: &Question) -> Advice {
             // not depend on threads, and the times are compared on the same simulated draws
             // and residuals, so their ranking is not lost in simulation noise.
             let mut rng = StdRng::seed_from_u64(seed);
-            // Per distinct draw: the prediction, the inverse variance and its logarithm.
             let f: Vec<f64> = predictions.iter().map(|row| row[j]).collect();
             let inv_var: Vec<f64> = f.iter().map(|&x| 1.0 / residual.variance(x)).collect();
             let ln_var: Vec<f64> = inv_var.iter().map(|iv| -iv.ln()).collect();
             let (mut var_sum, mut width_sum) = (0.0, 0.0);
-            let mut distinct = vec![0.0; first.len()];
             let mut weights = vec![0.0; n];
             for _ in 0..simulations {
-                let s = of[(rand::RngExt::random::<u64>(&mut rng) % n as u64) as usize];
+                let s = (rand::RngExt::random::<u64>(&mut rng) % n as u64) as usize;
                 let y = f[s] + (1.0 / inv_var[s]).sqrt() * normal.sample(&mut rng);
                 let mut top = f64::NEG_INFINITY;
-                for u in 0..distinct.len() {
-                    distinct[u] = -0.5 * ((y - f[u]).powi(2) * inv_var[u] + ln_var[u]);
-                    top = top.max(distinct[u]);
+                for i in 0..n {
+                    weights[i] = -0.5 * ((y - f[i]).powi(2) * inv_var[i] + ln_var[i]);
+                    top = top.max(weights[i]);
                 }
-                distinct.iter_mut().for_each(|w| *w = (*w - top).exp());
-                // Every draw's weight, summed in the draws' order.
                 let mut total = 0.0;
-                for (w, &u) in weights.iter_mut().zip(&of) {
-                    *w = distinct[u];
+                for w in weights.iter_mut() {
+                    *w = (*w - top).exp();
                     total += *w;
                 }
                 weights.iter_mut().for_each(|w| *w /= total);
@@ -175,8 +149,7 @@ mod tests {
     use super::*;
     use crate::dosing::Route;
 
-    /// The advisor as first written, every draw on its own: the reference the advice must
-    /// equal to the bit.
+    /// The advisor as first written: the reference the advice must equal to the bit.
     fn draw_by_draw(q: &Question) -> Vec<(f64, f64, f64)> {
         let Question { draws, exposure, doses, times, residual, simulations, seed, .. } = q.clone();
         let n = draws.len();
@@ -220,9 +193,10 @@ mod tests {
             .collect()
     }
 
-    /// Repeated draws computed once give the advice of every draw computed on its own.
+    /// The advice is the first-written advisor's to the bit (repeated draws included, as
+    /// resampling repeats them).
     #[test]
-    fn repeated_draws_computed_once_give_the_draw_by_draw_advice_to_the_bit() {
+    fn the_advice_is_the_first_written_advisor_s_to_the_bit() {
         let draws: Vec<Params> = (0..150)
             .map(|i| {
                 // Draws 3k, 3k+1 repeat one parameter set, as resampling repeats a draw.
