@@ -42,13 +42,38 @@ pub fn nearest_rank(n: u64, percent: u32) -> u64 {
 /// statistics ("type 7"): position h = p·(n − 1), value x⌊h⌋ + (h − ⌊h⌋)·(x⌊h⌋+1 − x⌊h⌋).
 /// Used only by planning's prediction bands (see the module documentation). NaN for no values.
 pub fn interpolated_quantile(sorted: &[f64], p: f64) -> f64 {
-    if sorted.is_empty() {
+    interpolated_quantile_of(sorted.len(), p, |k| sorted[k])
+}
+
+/// [`interpolated_quantile`] of the `n` values `at(0) ≤ … ≤ at(n − 1)`, reading only the two
+/// order statistics it needs: a band of values that are a sorted sample scaled by a positive
+/// factor needs neither the scaled sample nor a sort.
+pub fn interpolated_quantile_of(n: usize, p: f64, at: impl Fn(usize) -> f64) -> f64 {
+    if n == 0 {
         return f64::NAN;
     }
-    let h = (p.clamp(0.0, 1.0) * (sorted.len() - 1) as f64).max(0.0);
-    let (i, frac) = (h.floor() as usize, h - h.floor());
-    let next = sorted[(i + 1).min(sorted.len() - 1)];
-    sorted[i] + frac * (next - sorted[i])
+    let (i, frac) = position(n, p);
+    let (value, next) = (at(i), at((i + 1).min(n - 1)));
+    value + frac * (next - value)
+}
+
+/// [`interpolated_quantile`] of values in any order, found by selection instead of a sort
+/// (the values are reordered): the same two order statistics, so the same value.
+pub fn selected_quantile(values: &mut [f64], p: f64) -> f64 {
+    if values.is_empty() {
+        return f64::NAN;
+    }
+    let (i, frac) = position(values.len(), p);
+    let (_, &mut value, above) = values.select_nth_unstable_by(i, f64::total_cmp);
+    let next = above.iter().copied().min_by(f64::total_cmp).unwrap_or(value);
+    value + frac * (next - value)
+}
+
+/// The 0-based order statistic below the interpolated p-quantile of `n` ≥ 1 values, and the
+/// fraction of the way to the next.
+fn position(n: usize, p: f64) -> (usize, f64) {
+    let h = (p.clamp(0.0, 1.0) * (n - 1) as f64).max(0.0);
+    (h.floor() as usize, h - h.floor())
 }
 
 #[cfg(test)]
@@ -86,5 +111,27 @@ mod tests {
                 assert!(at(rank - 1) <= x && x <= at(rank + 1), "n {n}, p{percent}: {x}");
             }
         }
+    }
+
+    #[test]
+    fn selection_and_scaled_order_statistics_give_the_sorted_sample_s_value_to_the_bit() {
+        // Shuffled values with ties and both zeros, every sample size, a factor that rounds.
+        for n in 1..=80usize {
+            let values: Vec<f64> =
+                (0..n).map(|i| [((i * 37) % 11) as f64 / 3.0, 0.0, -0.0][i % 3] + (i % 5) as f64).collect();
+            let mut sorted = values.clone();
+            sorted.sort_by(f64::total_cmp);
+            for p in [0.0, 0.05, 0.1, 0.5, 0.9, 0.95, 1.0] {
+                let expected = interpolated_quantile(&sorted, p);
+                let mut shuffled = values.clone();
+                assert_eq!(selected_quantile(&mut shuffled, p).to_bits(), expected.to_bits(), "n {n}, p {p}");
+                let scale = 1.7;
+                let mut scaled: Vec<f64> = values.iter().map(|v| v * scale).collect();
+                scaled.sort_by(f64::total_cmp);
+                let read = interpolated_quantile_of(n, p, |k| sorted[k] * scale);
+                assert_eq!(read.to_bits(), interpolated_quantile(&scaled, p).to_bits(), "n {n}, p {p}");
+            }
+        }
+        assert!(selected_quantile(&mut [], 0.5).is_nan());
     }
 }

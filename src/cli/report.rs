@@ -110,15 +110,17 @@ pub fn run(args: ReportArgs) -> Result<(), Error> {
     let mut files = RunFiles::new(spec.files());
     let mut pdf_sink = files.open(Origin::Flag("-o".into()), &output)?;
     let svg_sink = files.open_flag("--svg", args.svg.as_deref())?;
+    // The SVG is drawn only when asked for.
+    let wanted = svg_sink.is_some();
     let (bytes, svg, notices) = if spec.population.is_some() {
         let made = population::report(&spec, provenance)?;
-        (made.pdf()?, made.svg(), made.notices)
+        (made.pdf()?, wanted.then(|| made.svg()), made.notices)
     } else {
         let made = report(&spec, provenance)?;
-        (made.pdf()?, made.svg(), made.notices)
+        (made.pdf()?, wanted.then(|| made.svg()), made.notices)
     };
     pdf_sink.writer().write_all(&bytes).map_err(io_failure)?;
-    if let Some(mut sink) = svg_sink {
+    if let (Some(mut sink), Some(svg)) = (svg_sink, svg) {
         sink.writer().write_all(svg.as_bytes()).map_err(io_failure)?;
         sink.finish()?;
     }

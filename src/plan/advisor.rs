@@ -53,11 +53,10 @@ pub struct Advice {
     pub times: Vec<SampleValue>,
 }
 
-/// Weighted 5–95 % width of `values` taken in `order` (ascending values), weights summing to 1
-/// ([`crate::stats::weighted_quantile`]).
-fn ci90_width(values: &[f64], order: &[usize], weights: &[f64]) -> f64 {
-    let quantile = |p| weighted_quantile(order.iter().map(|&i| (values[i], weights[i])), p);
-    quantile(0.95) - quantile(0.05)
+/// Weighted 5–95 % width of values given with their weights in ascending order of value,
+/// weights summing to 1 ([`crate::stats::weighted_quantile`]).
+fn ci90_width(sorted: impl Iterator<Item = (f64, f64)> + Clone) -> f64 {
+    weighted_quantile(sorted.clone(), 0.95) - weighted_quantile(sorted, 0.05)
 }
 
 /// What the advisor weighs.
@@ -88,12 +87,13 @@ pub fn advise(q: &Question) -> Advice {
     let n = draws.len();
     let mut order: Vec<usize> = (0..n).collect();
     order.sort_by(|&a, &b| exposure[a].total_cmp(&exposure[b]));
-    let equal = vec![1.0 / n as f64; n];
+    let sorted: Vec<f64> = order.iter().map(|&i| exposure[i]).collect();
     let mean0: f64 = exposure.iter().sum::<f64>() / n as f64;
     let sd0 = (exposure.iter().map(|m| (m - mean0).powi(2)).sum::<f64>() / n as f64).sqrt();
-    let width0 = ci90_width(exposure, &order, &equal);
+    let width0 = ci90_width(sorted.iter().map(|&m| (m, 1.0 / n as f64)));
     // Predictions of every draw at every candidate time: one pass of the engine per draw.
-    let predictions: Vec<Vec<f64>> = draws.iter().map(|p| engine::concentrations(p, doses, times)).collect();
+    let predictions: Vec<Vec<f64>> =
+        draws.par_iter().map(|p| engine::concentrations(p, doses, times)).collect();
     let normal = Normal::new(0.0, 1.0).expect("standard normal");
     let mut values: Vec<SampleValue> = (0..times.len())
         .into_par_iter()
@@ -124,7 +124,7 @@ pub fn advise(q: &Question) -> Advice {
                 weights.iter_mut().for_each(|w| *w /= total);
                 let mean: f64 = weights.iter().zip(exposure).map(|(w, m)| w * m).sum();
                 var_sum += weights.iter().zip(exposure).map(|(w, m)| w * (m - mean).powi(2)).sum::<f64>();
-                width_sum += ci90_width(exposure, &order, &weights);
+                width_sum += ci90_width(sorted.iter().zip(&order).map(|(&m, &i)| (m, weights[i])));
             }
             let k = simulations as f64;
             let width = width_sum / k;
@@ -141,4 +141,102 @@ pub fn advise(q: &Question) -> Advice {
         b.interval_narrowing_pct.total_cmp(&a.interval_narrowing_pct).then(a.time_h.total_cmp(&b.time_h))
     });
     Advice { exposure: exposure_name.to_string(), current_sd: sd0, current_ci90_width: width0, times: values }
+}
+
+#[cfg(test)]
+#[allow(clippy::float_cmp)] // equality to the bit is what the tests assert
+mod tests {
+    use super::*;
+    use crate::dosing::Route;
+
+    /// The advisor as first written: the reference the advice must equal to the bit.
+    fn draw_by_draw(q: &Question) -> Vec<(f64, f64, f64)> {
+        let Question { draws, exposure, doses, times, residual, simulations, seed, .. } = q.clone();
+        let n = draws.len();
+        let mut order: Vec<usize> = (0..n).collect();
+        order.sort_by(|&a, &b| exposure[a].total_cmp(&exposure[b]));
+        let width = |w: &[f64]| {
+            let q = |p| weighted_quantile(order.iter().map(|&i| (exposure[i], w[i])), p);
+            q(0.95) - q(0.05)
+        };
+        let predictions: Vec<Vec<f64>> =
+            draws.iter().map(|p| engine::concentrations(p, doses, times)).collect();
+        let normal = Normal::new(0.0, 1.0).unwrap();
+        (0..times.len())
+            .map(|j| {
+                let mut rng = StdRng::seed_from_u64(seed);
+                let f: Vec<f64> = predictions.iter().map(|row| row[j]).collect();
+                let inv_var: Vec<f64> = f.iter().map(|&x| 1.0 / residual.variance(x)).collect();
+                let ln_var: Vec<f64> = inv_var.iter().map(|iv| -iv.ln()).collect();
+                let (mut var_sum, mut width_sum) = (0.0, 0.0);
+                let mut weights = vec![0.0; n];
+                for _ in 0..simulations {
+                    let s = (rand::RngExt::random::<u64>(&mut rng) % n as u64) as usize;
+                    let y = f[s] + (1.0 / inv_var[s]).sqrt() * normal.sample(&mut rng);
+                    let mut top = f64::NEG_INFINITY;
+                    for i in 0..n {
+                        weights[i] = -0.5 * ((y - f[i]).powi(2) * inv_var[i] + ln_var[i]);
+                        top = top.max(weights[i]);
+                    }
+                    let mut total = 0.0;
+                    for w in weights.iter_mut() {
+                        *w = (*w - top).exp();
+                        total += *w;
+                    }
+                    weights.iter_mut().for_each(|w| *w /= total);
+                    let mean: f64 = weights.iter().zip(exposure).map(|(w, m)| w * m).sum();
+                    var_sum += weights.iter().zip(exposure).map(|(w, m)| w * (m - mean).powi(2)).sum::<f64>();
+                    width_sum += width(&weights);
+                }
+                (times[j], var_sum, width_sum)
+            })
+            .collect()
+    }
+
+    /// The advice is the first-written advisor's to the bit (repeated draws included, as
+    /// resampling repeats them).
+    #[test]
+    fn the_advice_is_the_first_written_advisor_s_to_the_bit() {
+        let draws: Vec<Params> = (0..150)
+            .map(|i| {
+                // Draws 3k, 3k+1 repeat one parameter set, as resampling repeats a draw.
+                let j = i - usize::from(i % 3 == 1);
+                let x = ((j * 37) % 101) as f64 / 101.0;
+                Params {
+                    cl_l_h: 3.0 + 3.0 * x,
+                    v_l: 30.0 + 20.0 * ((j * 13) % 7) as f64 / 7.0,
+                    ka_per_h: None,
+                    f: 1.0,
+                    tlag_h: 0.0,
+                }
+            })
+            .collect();
+        let exposure: Vec<f64> = draws.iter().map(|p| 24.0 * 1000.0 / p.cl_l_h).collect();
+        let doses: Vec<Dose> = (0..4)
+            .map(|k| Dose {
+                time_h: 12.0 * f64::from(k),
+                amount_mg: 1000.0,
+                route: Route::Infusion,
+                duration_h: 1.0,
+            })
+            .collect();
+        let times: Vec<f64> = (1..=20).map(|k| 36.0 + 0.6 * f64::from(k)).collect();
+        let q = Question {
+            draws: &draws,
+            exposure: &exposure,
+            exposure_name: "auc24_mg_h_l",
+            doses: &doses,
+            times: &times,
+            residual: Residual { additive_mg_l: 0.5, proportional_cv: 0.15 },
+            simulations: 60,
+            seed: 11,
+        };
+        let advice = advise(&q);
+        let k = q.simulations as f64;
+        for (t, var_sum, width_sum) in draw_by_draw(&q) {
+            let v = advice.times.iter().find(|v| v.time_h == t).expect("every time advised on");
+            assert_eq!(v.expected_sd.to_bits(), (var_sum / k).sqrt().to_bits(), "t {t}");
+            assert_eq!(v.expected_ci90_width.to_bits(), (width_sum / k).to_bits(), "t {t}");
+        }
+    }
 }

@@ -10,7 +10,7 @@ use super::targets::{Limits, Metric, Target};
 use crate::choice::choice_enum;
 use crate::dosing::{Dose, Regimen, Route};
 use crate::engine::Params;
-use crate::engine::steady::SteadyCurve;
+use crate::engine::steady::{self, SteadyCurve};
 use crate::error::InputError;
 use crate::model::Residual;
 
@@ -236,14 +236,11 @@ pub fn plan_subject(record: &Record, posterior: &Posterior, s: &Settings) -> Res
                 .draws
                 .iter()
                 .map(|p| {
-                    SteadyCurve::new(p, c).map_or(f64::NAN, |curve| {
-                        let m = curve.exposure();
-                        match metric {
-                            Exposure::Auc24 => m.auc24_mg_h_l,
-                            Exposure::Trough => m.trough_mg_l,
-                            Exposure::Peak => m.peak_mg_l,
-                            Exposure::Cavg => m.cavg_mg_l,
-                        }
+                    steady::exposure(p, &c).map_or(f64::NAN, |m| match metric {
+                        Exposure::Auc24 => m.auc24_mg_h_l,
+                        Exposure::Trough => m.trough_mg_l,
+                        Exposure::Peak => m.peak_mg_l,
+                        Exposure::Cavg => m.cavg_mg_l,
                     })
                 })
                 .collect();

@@ -14,10 +14,12 @@ use crate::plan::advisor::Advice;
 use crate::plan::recommend::{self, Plan};
 use crate::plan::targets::{Limits, Metric, Target};
 use crate::plan::{Course, draws_name};
+use crate::stats::selected_quantile;
 use crate::sweep::summary::{Summary, SummaryRow};
 use rand::SeedableRng;
 use rand::distr::Distribution;
 use rand::rngs::StdRng;
+use rayon::prelude::*;
 use statrs::distribution::Normal;
 
 /// Everything the report shows.
@@ -213,29 +215,23 @@ pub fn concentration_plots(a: &Analysis) -> Vec<PlotSpec> {
     let step = (a.draws.len() / 400).max(1);
     let normal = Normal::new(0.0, 1.0).expect("standard normal");
     let mut rng = StdRng::seed_from_u64(crate::seeds::Seeds(a.stamp.seed).report_bands());
-    let curves: Vec<Vec<f64>> = a
-        .draws
-        .iter()
-        .step_by(step)
-        .map(|p| {
-            engine::concentrations(p, &doses, &times)
-                .into_iter()
-                .map(|f| (f + residual.variance(f).sqrt() * normal.sample(&mut rng)).max(0.0))
-                .collect()
-        })
-        .collect();
-    let (mut lo, mut hi) = (Vec::with_capacity(times.len()), Vec::with_capacity(times.len()));
-    for j in 0..times.len() {
-        let mut column: Vec<f64> = curves.iter().map(|c| c[j]).collect();
-        if column.is_empty() {
-            lo.push(point[j]);
-            hi.push(point[j]);
-            continue;
-        }
-        let b = recommend::Band::of(&mut column);
-        lo.push(b.p05);
-        hi.push(b.p95);
+    // The draws' exact curves in parallel, then their residual errors from the one stream, draw
+    // by draw and time by time.
+    let mut curves: Vec<Vec<f64>> =
+        a.draws.par_iter().step_by(step).map(|p| engine::concentrations(p, &doses, &times)).collect();
+    for f in curves.iter_mut().flatten() {
+        *f = (*f + residual.variance(*f).sqrt() * normal.sample(&mut rng)).max(0.0);
     }
+    let (lo, hi): (Vec<f64>, Vec<f64>) = (0..times.len())
+        .into_par_iter()
+        .map(|j| {
+            let mut column: Vec<f64> = curves.iter().map(|c| c[j]).collect();
+            if column.is_empty() {
+                return (point[j], point[j]);
+            }
+            (selected_quantile(&mut column, 0.05), selected_quantile(&mut column, 0.95))
+        })
+        .unzip();
     let target = a.targets.iter().find_map(|t| match t.metric {
         Metric::Trough | Metric::Peak | Metric::Cavg => Some((
             t.lo.unwrap_or(0.0),

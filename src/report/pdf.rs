@@ -16,7 +16,9 @@ use printpdf::{
     PdfFontHandle, PdfPage, PdfParseErrorSeverity, PdfSaveOptions, Point, Polygon, PolygonRing, Pt, TextItem,
     TextMatrix, WindingOrder,
 };
+use rayon::prelude::*;
 use sha2::{Digest, Sha256};
+use std::fmt::Write as _;
 
 /// A4 in points (210 × 297 mm).
 const PAGE_W: f64 = 595.276;
@@ -61,52 +63,54 @@ const BANNER_INK: Rgb = (0.50, 0.05, 0.03);
 pub fn render_pdf(doc: &Document) -> Result<Vec<u8>, String> {
     validate(doc)?;
     let created = pdf_date(&doc.created_iso)?;
-    let mut flow = Flow::new(&doc.caution);
-    flow.title(&doc.title);
-    for (i, block) in doc.blocks.iter().enumerate() {
-        match block {
-            Block::Heading(s) => flow.heading(s, doc.blocks.get(i + 1)),
-            Block::Paragraph(s) => flow.paragraph(s, BODY_SIZE, INK, 6.0),
-            Block::Note(s) => flow.paragraph(s, NOTE_SIZE, GREY, 5.0),
-            Block::KeyValues(pairs) => flow.key_values(pairs),
-            // The notes under a table (its footnotes) start on the page of its last row.
-            Block::Table(table) => flow.table(table, doc.blocks.get(i + 1).map_or(0.0, footnote_height)),
-            Block::Plot(spec) => flow.scene(&plot::plot_scene(spec, CONTENT_W, PLOT_H)),
-            Block::Bars(chart) => flow.scene(&plot::bars_scene(chart, CONTENT_W)),
-            Block::Figure(figure) => figure.rows().iter().for_each(|row| flow.scene(row)),
-            Block::PageBreak => {
-                // A break before nothing would leave an empty page.
-                if i + 1 < doc.blocks.len() {
-                    flow.page_break()
+    let draw = || {
+        let mut flow = Flow::new(&doc.caution);
+        flow.title(&doc.title);
+        for (i, block) in doc.blocks.iter().enumerate() {
+            match block {
+                Block::Heading(s) => flow.heading(s, doc.blocks.get(i + 1)),
+                Block::Paragraph(s) => flow.paragraph(s, BODY_SIZE, INK, 6.0),
+                Block::Note(s) => flow.paragraph(s, NOTE_SIZE, GREY, 5.0),
+                Block::KeyValues(pairs) => flow.key_values(pairs),
+                // The notes under a table (its footnotes) start on the page of its last row.
+                Block::Table(table) => flow.table(table, doc.blocks.get(i + 1).map_or(0.0, footnote_height)),
+                Block::Plot(spec) => flow.scene(&plot::plot_scene(spec, CONTENT_W, PLOT_H)),
+                Block::Bars(chart) => flow.scene(&plot::bars_scene(chart, CONTENT_W)),
+                Block::Figure(figure) => figure.rows().iter().for_each(|row| flow.scene(row)),
+                Block::PageBreak => {
+                    // A break before nothing would leave an empty page.
+                    if i + 1 < doc.blocks.len() {
+                        flow.page_break()
+                    }
                 }
             }
         }
-    }
-    let pages = flow.finish(&doc.footer);
+        let pages = flow.finish(&doc.footer);
 
-    let mut pdf = PdfDocument::new(&doc.title);
-    let info = &mut pdf.metadata.info;
-    info.creation_date = created;
-    info.modification_date = created;
-    info.metadata_date = created;
-    info.creator = "cistern".into();
-    info.author = doc.author.clone().unwrap_or_default();
-    pdf.with_pages(pages.into_iter().map(|ops| PdfPage::new(Mm(210.0), Mm(297.0), ops)).collect());
+        let mut pdf = PdfDocument::new(&doc.title);
+        let info = &mut pdf.metadata.info;
+        info.creation_date = created;
+        info.modification_date = created;
+        info.metadata_date = created;
+        info.creator = "cistern".into();
+        info.author = doc.author.clone().unwrap_or_default();
+        pdf.with_pages(pages.into_iter().map(|ops| PdfPage::new(Mm(210.0), Mm(297.0), ops)).collect());
 
-    let mut warnings = Vec::new();
-    let mut lo = pdf.to_lopdf_document(&PdfSaveOptions::default(), &mut warnings);
-    let errors: Vec<String> = warnings
-        .iter()
-        .filter(|w| w.severity == PdfParseErrorSeverity::Error)
-        .map(|w| format!("page {}: {}", w.page + 1, w.msg))
-        .collect();
-    if !errors.is_empty() {
-        return Err(format!("the PDF writer reported: {}", errors.join("; ")));
-    }
-    // printpdf fills the trailer's file identifier from a process-wide counter; a digest of
-    // the content makes the same document give the same bytes.
-    let digest: String =
-        Sha256::digest(format!("{doc:?}").as_bytes()).iter().take(16).map(|b| format!("{b:02X}")).collect();
+        let mut warnings = Vec::new();
+        let lo = pdf.to_lopdf_document(&PdfSaveOptions::default(), &mut warnings);
+        let errors: Vec<String> = warnings
+            .iter()
+            .filter(|w| w.severity == PdfParseErrorSeverity::Error)
+            .map(|w| format!("page {}: {}", w.page + 1, w.msg))
+            .collect();
+        if !errors.is_empty() {
+            return Err(format!("the PDF writer reported: {}", errors.join("; ")));
+        }
+        Ok(lo)
+    };
+    // The file identifier is digested while the pages are drawn.
+    let (lo, digest) = rayon::join(draw, || identifier(doc));
+    let (mut lo, digest) = (lo?, digest?);
     let id =
         lo.trailer.get_mut(b"ID").and_then(|o| o.as_array_mut()).map_err(|e| format!("PDF trailer: {e}"))?;
     for part in id.iter_mut() {
@@ -118,10 +122,36 @@ pub fn render_pdf(doc: &Document) -> Result<Vec<u8>, String> {
     {
         dict.remove(b"GTS_PDFXVersion");
     }
-    lo.compress();
+    // Each stream compressed on its own, as `lopdf::Document::compress` does them in turn (which
+    // also ignores a stream that fails).
+    let streams: Vec<_> = lo
+        .objects
+        .values_mut()
+        .filter_map(|o| o.as_stream_mut().ok())
+        .filter(|s| s.allows_compression)
+        .collect();
+    streams.into_par_iter().for_each(|s| {
+        let _ = s.compress();
+    });
     let mut bytes = Vec::new();
     lo.save_to(&mut bytes).map_err(|e| format!("cannot write the PDF: {e}"))?;
     Ok(bytes)
+}
+
+/// The file identifier: printpdf fills it from a process-wide counter; a digest of the
+/// content (its `Debug` text, hashed as it is written) makes the same document give the same
+/// bytes.
+fn identifier(doc: &Document) -> Result<String, String> {
+    struct Hashing(Sha256);
+    impl std::fmt::Write for Hashing {
+        fn write_str(&mut self, s: &str) -> std::fmt::Result {
+            self.0.update(s.as_bytes());
+            Ok(())
+        }
+    }
+    let mut hashing = Hashing(Sha256::new());
+    write!(hashing, "{doc:?}").map_err(|e| format!("cannot digest the document: {e}"))?;
+    Ok(hashing.0.finalize().iter().take(16).map(|b| format!("{b:02X}")).collect())
 }
 
 /// Rejects content the layout cannot draw faithfully.

@@ -105,17 +105,22 @@ pub fn report(spec: &Spec, provenance: Provenance) -> Result<Report> {
     let (Some(grid), Some(model)) = (&settings.grid, study.as_ref().and_then(|s| s.model.as_ref())) else {
         return Err(Error::Usage("the report needs a population model and a candidate grid".into()));
     };
-    let Outcome { start_h, plan: planned, advice, notes: plan_notes, warnings: plan_warnings } =
-        plan(&subject, grid, settings.start_h, NextLevel::default(), seeds)?;
+    // The plan and the sweep share nothing: each runs while the other waits on a thread. The
+    // plan's failure is reported first, as when the sweep came after it.
+    let (planned, sweep) = rayon::join(
+        || plan(&subject, grid, settings.start_h, NextLevel::default(), seeds),
+        || match (&spec.sweep, settings.sweep_subjects) {
+            (Some(sweep), Some(subjects)) => {
+                super::sweep::summary(model, &sweep.covariates, grid, settings.seed, subjects).map(Some)
+            }
+            _ => Ok(None),
+        },
+    );
+    let Outcome { start_h, plan: planned, advice, notes: plan_notes, warnings: plan_warnings } = planned?;
+    let sweep = sweep?;
     let notes = grid.notes.iter().map(|n| format!("candidates: {n}")).chain(plan_notes).collect();
     let read = study.as_ref().map(|s| s.notices.warnings.clone()).unwrap_or_default();
     let warnings = read.into_iter().chain(grid.warnings.iter().cloned()).chain(plan_warnings).collect();
-    let sweep = match (&spec.sweep, settings.sweep_subjects) {
-        (Some(sweep), Some(subjects)) => {
-            Some(super::sweep::summary(model, &sweep.covariates, grid, settings.seed, subjects)?)
-        }
-        _ => None,
-    };
     // The subject's non-compartmental summary, by the defaults of `cistern nca`.
     let nca = crate::nca::analyse_subject(data, &crate::nca::NcaOptions::default());
     let analysis = Analysis {
