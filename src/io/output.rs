@@ -133,7 +133,7 @@ fn may_tie(x: f64) -> bool {
 /// line end (its quotes doubled), and a row of one empty field written `""` so that it is not
 /// an empty line. Numbers, which never need quoting, are written in [`full`] precision straight
 /// into one reused buffer (outputs can have millions of rows: a row of numbers costs no
-/// allocation and no scan), which goes to the output whenever a row ends past [`FLUSH_AT`]
+/// allocation and no scan), which goes to the output whenever a row ends past `FLUSH_AT`
 /// bytes. Every row has as many fields as the first, else the row is refused; a closed pipe
 /// under the writer stays one.
 pub struct CsvWriter<W: Write> {
