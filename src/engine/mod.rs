@@ -14,6 +14,23 @@ pub(crate) mod scalar;
 pub(crate) mod schedule;
 pub mod steady;
 
+/// Strategies shared by the engine's property tests.
+#[cfg(test)]
+pub(crate) mod strategies {
+    use crate::dosing::Route;
+    use proptest::prelude::*;
+
+    /// A value spread evenly on a log scale over [lo, hi).
+    pub fn log_uniform(lo: f64, hi: f64) -> impl Strategy<Value = f64> {
+        (lo.ln()..hi.ln()).prop_map(f64::exp)
+    }
+
+    /// Any of the three routes.
+    pub fn route() -> impl Strategy<Value = Route> {
+        prop_oneof![Just(Route::Bolus), Just(Route::Infusion), Just(Route::Oral)]
+    }
+}
+
 use crate::dosing::{Dose, Route};
 use crate::error::InputError;
 use kernel::{Propagator, Rates, State};
@@ -520,13 +537,7 @@ mod tests {
     use proptest::prelude::*;
     use proptest::test_runner::RngSeed;
 
-    fn log_uniform(lo: f64, hi: f64) -> impl Strategy<Value = f64> {
-        (lo.ln()..hi.ln()).prop_map(f64::exp)
-    }
-
-    fn route() -> impl Strategy<Value = Route> {
-        prop_oneof![Just(Route::Bolus), Just(Route::Infusion), Just(Route::Oral)]
-    }
+    use super::strategies::{log_uniform, route};
 
     prop_compose! {
         /// k in [0.001, 10] /h; ka a multiple of k in [0.01, 100] or equal to it; lag up to

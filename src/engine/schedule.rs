@@ -167,13 +167,7 @@ mod tests {
     use proptest::prelude::*;
     use proptest::test_runner::RngSeed;
 
-    fn log_uniform(lo: f64, hi: f64) -> impl Strategy<Value = f64> {
-        (lo.ln()..hi.ln()).prop_map(f64::exp)
-    }
-
-    fn route() -> impl Strategy<Value = Route> {
-        prop_oneof![Just(Route::Bolus), Just(Route::Infusion), Just(Route::Oral)]
-    }
+    use crate::engine::strategies::{log_uniform, route};
 
     prop_compose! {
         /// A sparse history: 1–20 doses of every route on a 12-h or irregular schedule with

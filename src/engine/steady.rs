@@ -413,9 +413,7 @@ mod tests {
     use proptest::prelude::*;
     use proptest::test_runner::RngSeed;
 
-    fn log_uniform(lo: f64, hi: f64) -> impl Strategy<Value = f64> {
-        (lo.ln()..hi.ln()).prop_map(f64::exp)
-    }
+    use crate::engine::strategies::log_uniform;
 
     prop_compose! {
         /// k in [0.001, 10] /h; ka a multiple of k in [0.01, 100], equal to it, or within 1e-6 of

@@ -111,17 +111,7 @@ pub fn advise(q: &Question) -> Advice {
             for _ in 0..simulations {
                 let s = (rand::RngExt::random::<u64>(&mut rng) % n as u64) as usize;
                 let y = f[s] + (1.0 / inv_var[s]).sqrt() * normal.sample(&mut rng);
-                let mut top = f64::NEG_INFINITY;
-                for i in 0..n {
-                    weights[i] = -0.5 * ((y - f[i]).powi(2) * inv_var[i] + ln_var[i]);
-                    top = top.max(weights[i]);
-                }
-                let mut total = 0.0;
-                for w in weights.iter_mut() {
-                    *w = (*w - top).exp();
-                    total += *w;
-                }
-                weights.iter_mut().for_each(|w| *w /= total);
+                posterior_weights(y, &f, &inv_var, &ln_var, &mut weights);
                 let mean: f64 = weights.iter().zip(exposure).map(|(w, m)| w * m).sum();
                 var_sum += weights.iter().zip(exposure).map(|(w, m)| w * (m - mean).powi(2)).sum::<f64>();
                 width_sum += ci90_width(sorted.iter().zip(&order).map(|(&m, &i)| (m, weights[i])));
@@ -141,6 +131,23 @@ pub fn advise(q: &Question) -> Advice {
         b.interval_narrowing_pct.total_cmp(&a.interval_narrowing_pct).then(a.time_h.total_cmp(&b.time_h))
     });
     Advice { exposure: exposure_name.to_string(), current_sd: sd0, current_ci90_width: width0, times: values }
+}
+
+/// Each draw's posterior weight after a simulated level `y`, normalised to sum to 1: the normal
+/// likelihood of `y` under the draw's prediction `f[i]` and residual variance 1/`inv_var[i]`
+/// (`ln_var[i]` its logarithm), shifted by the largest so the exponentials cannot overflow.
+fn posterior_weights(y: f64, f: &[f64], inv_var: &[f64], ln_var: &[f64], weights: &mut [f64]) {
+    let mut top = f64::NEG_INFINITY;
+    for i in 0..weights.len() {
+        weights[i] = -0.5 * ((y - f[i]).powi(2) * inv_var[i] + ln_var[i]);
+        top = top.max(weights[i]);
+    }
+    let mut total = 0.0;
+    for w in weights.iter_mut() {
+        *w = (*w - top).exp();
+        total += *w;
+    }
+    weights.iter_mut().for_each(|w| *w /= total);
 }
 
 #[cfg(test)]
@@ -173,17 +180,7 @@ mod tests {
                 for _ in 0..simulations {
                     let s = (rand::RngExt::random::<u64>(&mut rng) % n as u64) as usize;
                     let y = f[s] + (1.0 / inv_var[s]).sqrt() * normal.sample(&mut rng);
-                    let mut top = f64::NEG_INFINITY;
-                    for i in 0..n {
-                        weights[i] = -0.5 * ((y - f[i]).powi(2) * inv_var[i] + ln_var[i]);
-                        top = top.max(weights[i]);
-                    }
-                    let mut total = 0.0;
-                    for w in weights.iter_mut() {
-                        *w = (*w - top).exp();
-                        total += *w;
-                    }
-                    weights.iter_mut().for_each(|w| *w /= total);
+                    posterior_weights(y, &f, &inv_var, &ln_var, &mut weights);
                     let mean: f64 = weights.iter().zip(exposure).map(|(w, m)| w * m).sum();
                     var_sum += weights.iter().zip(exposure).map(|(w, m)| w * (m - mean).powi(2)).sum::<f64>();
                     width_sum += width(&weights);
