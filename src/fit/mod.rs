@@ -425,19 +425,19 @@ fn from_draws(theta: &[f64], draws: &posterior::WeightedDraws, n: usize) -> Esti
             ci95: Some([quantile(0.025), quantile(0.975)]),
         }
     };
-    let of = |f: &dyn Fn(&[f64; MAX]) -> f64| -> Vec<f64> { draws.theta.iter().map(f).collect() };
+    // CL, V and ka are the e^θ the sampler's objective computed.
+    let parameter = |i: usize| -> Vec<f64> { draws.parameters.iter().map(|p| p[i]).collect() };
     let ln2 = std::f64::consts::LN_2;
     let by_k = draws.order_by(|t| t[0] - t[1]);
     // The half-life's values from k's, as ln 2 / k: one exponential per draw for both.
-    let k = of(&|t| (t[0] - t[1]).exp());
+    let k: Vec<f64> = draws.theta.iter().map(|t| (t[0] - t[1]).exp()).collect();
     let half_life: Vec<f64> = k.iter().map(|k| ln2 / k).collect();
     Estimates {
-        cl_l_h: est(theta[0].exp(), &draws.order_by(|t| t[0]), true, &of(&|t| t[0].exp())),
-        v_l: est(theta[1].exp(), &draws.order_by(|t| t[1]), true, &of(&|t| t[1].exp())),
+        cl_l_h: est(theta[0].exp(), &draws.order_by(|t| t[0]), true, &parameter(0)),
+        v_l: est(theta[1].exp(), &draws.order_by(|t| t[1]), true, &parameter(1)),
         k_per_h: est((theta[0] - theta[1]).exp(), &by_k, true, &k),
         half_life_h: est(ln2 / (theta[0] - theta[1]).exp(), &by_k, false, &half_life),
-        ka_per_h: (n == 3)
-            .then(|| est(theta[2].exp(), &draws.order_by(|t| t[2]), true, &of(&|t| t[2].exp()))),
+        ka_per_h: (n == 3).then(|| est(theta[2].exp(), &draws.order_by(|t| t[2]), true, &parameter(2))),
     }
 }
 

@@ -170,25 +170,33 @@ impl Problem {
         &self.levels
     }
 
-    fn kinetics<R: Real>(&self, theta: &[R]) -> Kinetics<R> {
-        let cl = theta[0].exp();
-        let v = theta[1].exp();
+    /// CL, V and ka at θ: e^θ for the estimated ones, the fixed ka otherwise.
+    fn parameters<R: Real>(&self, theta: &[R]) -> [R; MAX] {
         let ka = if self.n == 3 { theta[2].exp() } else { R::cst(self.fixed.ka_per_h.unwrap_or(f64::NAN)) };
+        [theta[0].exp(), theta[1].exp(), ka]
+    }
+
+    fn kinetics<R: Real>(&self, [cl, v, ka]: [R; MAX]) -> Kinetics<R> {
         Kinetics { k: cl / v, v, ka, f: R::cst(self.fixed.f), tlag_h: self.fixed.tlag_h }
     }
 
     /// Predicted concentrations at the levels' times.
     pub(crate) fn predictions<R: Real>(&self, theta: &[R]) -> Vec<R> {
         let mut out = Vec::with_capacity(self.levels.len());
-        self.schedule.run(self.kinetics(theta), |fi| out.push(fi));
+        self.schedule.run(self.kinetics(self.parameters(theta)), |fi| out.push(fi));
         out
     }
 
     /// The objective at θ, in any number type.
     pub(crate) fn value<R: Real>(&self, theta: &[R]) -> R {
+        self.value_with(theta, self.parameters(theta))
+    }
+
+    /// The objective at θ given its `parameters` (CL, V, ka).
+    fn value_with<R: Real>(&self, theta: &[R], parameters: [R; MAX]) -> R {
         let mut total = R::cst(0.0);
         let mut levels = self.levels.iter();
-        self.schedule.run(self.kinetics(theta), |fi| {
+        self.schedule.run(self.kinetics(parameters), |fi| {
             let Some(level) = levels.next() else { return };
             total += match &self.likelihood {
                 Likelihood::Bayes(res) => {
@@ -218,6 +226,13 @@ impl Problem {
     /// Objective value (f64).
     pub fn cost(&self, theta: &[f64]) -> f64 {
         self.value(theta)
+    }
+
+    /// Objective value (f64) and the parameters CL, V and ka it computed at θ (e^θ, or the
+    /// fixed ka): a caller that needs both computes the exponentials once.
+    pub(crate) fn cost_and_parameters(&self, theta: &[f64]) -> (f64, [f64; MAX]) {
+        let parameters = self.parameters(theta);
+        (self.value_with(theta, parameters), parameters)
     }
 
     /// Objective value and exact gradient.

@@ -22,6 +22,8 @@ const NU: f64 = 5.0;
 pub struct WeightedDraws {
     /// The draws.
     pub theta: Vec<[f64; MAX]>,
+    /// Their parameters CL, V and ka (e^θ, or the fixed ka), as the objective computed them.
+    pub parameters: Vec<[f64; MAX]>,
     /// Normalised weights (sum 1).
     pub weights: Vec<f64>,
     /// Effective sample size 1/Σw².
@@ -33,21 +35,8 @@ impl WeightedDraws {
     /// quantile of every function that rises with the key (read it backwards for one that
     /// falls), instead of a sort per quantile.
     pub fn order_by(&self, key: impl Fn(&[f64; MAX]) -> f64) -> Vec<usize> {
-        // The key as the unsigned integer that orders as `f64::total_cmp` does, with the draw's
-        // index in the low bits: ascending keys, ties in the draws' order, as a stable sort of
-        // the indices would give, by the faster unstable sort of plain integers.
-        let mut keyed: Vec<u128> = self
-            .theta
-            .iter()
-            .zip(0u128..)
-            .map(|(t, i)| {
-                let bits = key(t).to_bits();
-                let ordered = if bits >> 63 == 1 { !bits } else { bits | 1 << 63 };
-                u128::from(ordered) << 64 | i
-            })
-            .collect();
-        keyed.sort_unstable();
-        keyed.into_iter().map(|k| k as u64 as usize).collect()
+        let keys: Vec<f64> = self.theta.iter().map(key).collect();
+        ascending_order(&keys)
     }
 
     /// Weighted quantile `p` ([`crate::stats::weighted_quantile`]) of `values` (one per draw)
@@ -84,6 +73,48 @@ impl WeightedDraws {
         }
         out
     }
+}
+
+/// The indices of `keys` in ascending order of `f64::total_cmp`, ties in index order: the
+/// order a stable sort of the indices gives.
+///
+/// Draws' keys spread smoothly around their mean, so they are first dealt, in index order,
+/// into as many buckets as there are keys by their place in mean ± 3 SD (the few beyond go to
+/// the end buckets; a monotone map: no key lands in a bucket below a smaller key's), and each
+/// bucket — one or a few keys — is then sorted on its own by a stable sort. Keys that are not
+/// all finite are sorted as one bucket.
+fn ascending_order(keys: &[f64]) -> Vec<usize> {
+    let n = keys.len();
+    let mean = keys.iter().sum::<f64>() / n as f64;
+    let sd = (keys.iter().map(|x| (x - mean) * (x - mean)).sum::<f64>() / n as f64).sqrt();
+    let (lo, scale) = (mean - 3.0 * sd, n as f64 / (6.0 * sd));
+    // (x − lo)·scale never falls as x rises (rounding is monotone), and the cast saturates: below
+    // lo is bucket 0. With keys not all finite, or all equal, everything is bucket 0.
+    let spread = lo.is_finite() && scale.is_finite() && keys.iter().all(|x| x.is_finite());
+    let (lo, scale) = if spread { (lo, scale) } else { (0.0, 0.0) };
+    let last = n.saturating_sub(1);
+    let buckets: Vec<usize> = keys.iter().map(|&x| (((x - lo) * scale) as usize).min(last)).collect();
+    // Where each bucket starts; advanced as it is filled, it then holds where the bucket ends.
+    let mut next = vec![0usize; n + 1];
+    for &b in &buckets {
+        next[b + 1] += 1;
+    }
+    for b in 1..=n {
+        next[b] += next[b - 1];
+    }
+    let mut order = vec![0usize; n];
+    for (i, &b) in buckets.iter().enumerate() {
+        order[next[b]] = i;
+        next[b] += 1;
+    }
+    let mut start = 0;
+    for &end in &next[..n] {
+        if end - start > 1 {
+            order[start..end].sort_by(|&a, &b| keys[a].total_cmp(&keys[b]));
+        }
+        start = end;
+    }
+    order
 }
 
 /// A multivariate t proposal.
@@ -144,8 +175,13 @@ pub fn sample(
     for (round, &m) in rounds.iter().enumerate() {
         let proposal = Proposal::new(mean, &cov, n)?;
         let theta: Vec<[f64; MAX]> = (0..m).map(|_| proposal.draw(n, &mut rng, &normal, &chi)).collect();
-        let log_w: Vec<f64> =
-            theta.iter().map(|t| -0.5 * problem.cost(&t[..n]) - proposal.ln_density(t, n)).collect();
+        let (log_w, parameters): (Vec<f64>, Vec<[f64; MAX]>) = theta
+            .iter()
+            .map(|t| {
+                let (cost, parameters) = problem.cost_and_parameters(&t[..n]);
+                (-0.5 * cost - proposal.ln_density(t, n), parameters)
+            })
+            .unzip();
         let top = log_w.iter().copied().filter(|x| x.is_finite()).fold(f64::NEG_INFINITY, f64::max);
         let raw: Vec<f64> = log_w.iter().map(|x| if x.is_finite() { (x - top).exp() } else { 0.0 }).collect();
         let total: f64 = raw.iter().sum();
@@ -154,7 +190,7 @@ pub fn sample(
         }
         let weights: Vec<f64> = raw.iter().map(|w| w / total).collect();
         let ess = 1.0 / weights.iter().map(|w| w * w).sum::<f64>();
-        let sample = WeightedDraws { theta, weights, ess };
+        let sample = WeightedDraws { theta, parameters, weights, ess };
         if round + 1 < rounds.len() && ess > 20.0 {
             // Refit the proposal to the weighted draws (kept when positive definite).
             let mut new_mean = [0.0; MAX];
@@ -180,4 +216,56 @@ pub fn sample(
         last = Some(sample);
     }
     last
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+    use proptest::test_runner::RngSeed;
+
+    /// The order of a stable sort of the indices by `f64::total_cmp`.
+    fn sorted(keys: &[f64]) -> Vec<usize> {
+        let mut order: Vec<usize> = (0..keys.len()).collect();
+        order.sort_by(|&a, &b| keys[a].total_cmp(&keys[b]));
+        order
+    }
+
+    fn key() -> impl Strategy<Value = f64> {
+        prop_oneof![
+            8 => -3.0..3.0,
+            // Heavy tails crowd the rest into few buckets; repeated values are ties.
+            1 => prop_oneof![Just(-1.7e308), Just(1e-300), Just(4e5), Just(1.7e308), Just(1.5)],
+            1 => prop_oneof![Just(0.0), Just(-0.0), Just(f64::MIN_POSITIVE), Just(-5e-324)],
+            1 => prop_oneof![Just(f64::INFINITY), Just(f64::NEG_INFINITY), Just(f64::NAN), Just(-f64::NAN)],
+        ]
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig {
+            cases: 2000,
+            rng_seed: RngSeed::Fixed(0x5EED_0016),
+            failure_persistence: None,
+            ..ProptestConfig::default()
+        })]
+
+        #[test]
+        fn the_bucketed_order_is_the_stable_sorts(
+            keys in prop::collection::vec(key(), 0..300),
+            finite in any::<bool>(),
+        ) {
+            let keys: Vec<f64> =
+                if finite { keys.into_iter().filter(|x| x.is_finite()).collect() } else { keys };
+            prop_assert_eq!(ascending_order(&keys), sorted(&keys));
+        }
+    }
+
+    #[test]
+    fn equal_and_nearly_equal_keys_keep_the_index_order() {
+        for keys in [vec![], vec![2.0], vec![1.0; 5], vec![1.0, 1.0 + f64::EPSILON, 1.0, 1.0]] {
+            assert_eq!(ascending_order(&keys), sorted(&keys), "{keys:?}");
+        }
+        let tiny = [5e-324, 0.0, 1e-323, -0.0, 5e-324];
+        assert_eq!(ascending_order(&tiny), sorted(&tiny));
+    }
 }
