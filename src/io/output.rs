@@ -58,19 +58,28 @@ pub fn full(x: f64) -> String {
 /// nothing in CSV (the empty field is CSV's missing value), as `undefined` in tables and as
 /// `null` in JSON (serde_json's rule for non-finite numbers); the inputs' limits
 /// ([`crate::limits`]) keep results finite, so this is the last guard, not the rule.
+///
+/// The text is Rust's `{:?}` (the shortest digits that read back as `x`; positional from 1e-4
+/// to below 1e16, else `1.5e-7`, `1e16`), written by the faster zmij. Its text differs from
+/// `{:?}`'s in three ways, undone by [`push_unusual`]: `e+16` for `e16`; positional text
+/// (`0.000015`) from 1e-5 to 1e-4 where `{:?}` writes `1.5e-5`; and, when the two shortest
+/// candidates are equally near `x` (a tie, see [`may_tie`]), the even last digit where `{:?}`
+/// rounds half up. The common case, a positional number that cannot tie, costs two comparisons
+/// and a few bit operations besides zmij's own work (inlined into the rows' loops).
+#[inline]
 fn push_full(text: &mut Vec<u8>, x: f64) {
-    if x.is_finite() {
-        push_shortest(text, x);
+    if (1e-4..1e16).contains(&x.abs()) && !may_tie(x) {
+        text.extend_from_slice(zmij::Buffer::new().format_finite(x).as_bytes());
+    } else if x.is_finite() {
+        push_unusual(text, x);
     }
 }
 
-/// Rust's `{:?}` text of a finite `x` (the shortest digits that read back as `x`; positional
-/// from 1e-4 to below 1e16, else `1.5e-7`, `1e16`), written by the faster zmij. Its text
-/// differs from `{:?}`'s in three ways, undone here: `e+16` for `e16`; positional text
-/// (`0.000015`) from 1e-5 to 1e-4 where `{:?}` writes `1.5e-5`; and, when the two shortest
-/// candidates are equally near `x` (a tie, see [`may_tie`]), the even last digit where `{:?}`
-/// rounds half up — such numbers are left to `{:?}`.
-fn push_shortest(out: &mut Vec<u8>, x: f64) {
+/// [`push_full`] of a finite number outside the common case: zero, below 1e-4 or from 1e16
+/// on, or one that may tie (left to `{:?}`).
+#[cold]
+#[inline(never)]
+fn push_unusual(out: &mut Vec<u8>, x: f64) {
     if may_tie(x) {
         let _ = write!(out, "{x:?}");
         return;
@@ -103,38 +112,50 @@ fn push_shortest(out: &mut Vec<u8>, x: f64) {
 /// between two candidates; with at most 15 (zero, whole numbers, fractions with few binary
 /// digits such as 0.25 or 1 + 2^-17: a fifth of the times of a grid in steps of 0.05 h), the
 /// expansion itself is the shortest text, as no other decimal of at most 15 significant digits
-/// reads back as the same double. `x` = m·2^e exactly; with m odd, its digits are those of
-/// m·2^e (e ≥ 0; trailing zeros counted, which errs towards `{:?}`) or m·5^−e (e < 0).
+/// reads back as the same double. `x` = m·2^e exactly with m odd; its digits are those of the
+/// integer m·2^e = |x| (e ≥ 0; trailing zeros counted, which errs towards `{:?}`) or m·5^−e
+/// (e < 0), which has more than 18 when e < −25 (5^26 > 10^18): that first test, a few bit
+/// operations, settles almost every number below 2^27 whose significand's last bits are not
+/// all zero.
+#[inline]
 fn may_tie(x: f64) -> bool {
     let bits = x.to_bits();
     let biased = ((bits >> 52) & 0x7ff) as i32;
-    let fraction = bits & ((1 << 52) - 1);
-    let (m, e) = if biased == 0 { (fraction, -1074) } else { (fraction | (1 << 52), biased - 1075) };
-    if m == 0 {
+    // The significand's trailing zeros (the implicit bit set: at most 52, so zero and the
+    // subnormals, biased 0, give e < −1000).
+    let zeros = (bits | 1 << 52).trailing_zeros() as i32;
+    let e = biased - 1075 + zeros;
+    if e < -25 {
         return false;
     }
-    let zeros = m.trailing_zeros();
-    let (m, e) = (u128::from(m >> zeros), e + zeros as i32);
-    // m·2^e or m·5^−e has about bits(m) + e or bits(m) + 2.32·|e| bits; 10^18 needs 60.
-    let bits = 128 - m.leading_zeros();
-    if bits + e.unsigned_abs() * if e < 0 { 2 } else { 1 } > 64 {
-        return false;
+    if e < 0 {
+        let m = ((bits & ((1 << 52) - 1)) | (1 << 52)) >> zeros;
+        let digits = u128::from(m) * u128::from(FIVES[e.unsigned_abs() as usize]);
+        (1_000_000_000_000_000..1_000_000_000_000_000_000).contains(&digits)
+    } else {
+        (1e15..1e18).contains(&x.abs())
     }
-    let digits = match e {
-        0..=64 => m.checked_mul(1 << e),
-        -50..=-1 => m.checked_mul(5u128.pow(e.unsigned_abs())),
-        _ => None,
-    };
-    digits.is_some_and(|n| (1_000_000_000_000_000..1_000_000_000_000_000_000).contains(&n))
 }
+
+/// 5^k for k = 0..=25.
+const FIVES: [u64; 26] = {
+    let mut fives = [1; 26];
+    let mut k = 1;
+    while k < 26 {
+        fives[k] = fives[k - 1] * 5;
+        k += 1;
+    }
+    fives
+};
 
 /// The writer of every CSV output, RFC 4180 as the csv crate writes it: fields separated by
 /// commas, rows ended by `\n`, a text field quoted only when it holds a comma, a quote or a
 /// line end (its quotes doubled), and a row of one empty field written `""` so that it is not
 /// an empty line. Numbers, which never need quoting, are written in [`full`] precision straight
 /// into one reused buffer (outputs can have millions of rows: a row of numbers costs no
-/// allocation and no scan), which goes to the output whenever a row ends past `FLUSH_AT`
-/// bytes. Every row has as many fields as the first, else the row is refused; a closed pipe
+/// allocation and no scan; its methods are inlined into the callers' loops), which goes to
+/// the output whenever a row ends past `FLUSH_AT` bytes. Every row has as many fields as the
+/// first, else the row is refused; a closed pipe
 /// under the writer stays one.
 pub struct CsvWriter<W: Write> {
     out: W,
@@ -170,6 +191,7 @@ impl<W: Write> CsvWriter<W> {
     }
 
     /// A number field of the current row, in [`full`] precision.
+    #[inline]
     pub fn number(&mut self, x: f64) -> std::io::Result<()> {
         self.separate();
         push_full(&mut self.buffer, x);
@@ -184,6 +206,7 @@ impl<W: Write> CsvWriter<W> {
     }
 
     /// End the current row.
+    #[inline]
     pub fn end_row(&mut self) -> std::io::Result<()> {
         let width = *self.width.get_or_insert(self.fields);
         if self.fields != width {
@@ -588,6 +611,9 @@ mod tests {
     #[test]
     fn full_is_the_debug_text_digit_for_digit() {
         let mut values = vec![0.0, -0.0, 5e-324, f64::MAX, f64::MIN_POSITIVE, 1.0 + 2f64.powi(-17)];
+        // The ends of the tie rule: m·2^e with e = −25 (m·5^25 has 18 digits), and whole numbers
+        // at the ends of 16 to 18 digits.
+        values.extend([2f64.powi(-25), 3.0 * 2f64.powi(-25), 1e15, 1e18, 1e17 + 8.0, 1e18 - 128.0]);
         for edge in [1e-5f64, 1e-4, 1e14, 1e15, 1e16, 1.0, 0.1] {
             let (mut up, mut down) = (edge, edge);
             for _ in 0..200 {
