@@ -273,15 +273,23 @@ impl<'a> Clock<'a> {
         if dt <= 0.0 {
             return None;
         }
-        // A reused step repeats its rounding at every point; every so many points the state
-        // is taken afresh from the last event, so no error accumulates along a long grid.
+        let from_anchor = self.move_to(to);
+        Some(Step { dt, rate: self.rate(), from_anchor })
+    }
+
+    /// Move the clock on to `to` (after the current time), counting the step; returns the span
+    /// from the last event when the state is due to be taken afresh from there. A reused step
+    /// repeats its rounding at every point; every so many points the state is taken afresh, so
+    /// no error accumulates along a long grid.
+    #[inline]
+    fn move_to(&mut self, to: f64) -> Option<f64> {
         self.chained += 1;
         let from_anchor = (self.chained >= REANCHOR_EVERY).then(|| {
             self.chained = 0;
             to - self.anchor_time
         });
         self.time = to;
-        Some(Step { dt, rate: self.rate(), from_anchor })
+        from_anchor
     }
 
     /// Take the next event: its effect on the infusion rate, and the anchor moves to it.
@@ -409,13 +417,13 @@ impl<'a, R: Real> Walker<'a, R> {
         }
         let rates = Rates { k: self.kin.k, ka: self.kin.ka };
         let depot = self.state.depot.val() != 0.0;
-        let ready = self.steps.map(|step| step.prediction(rates, self.clock.rate(), depot));
+        let rate = self.clock.rate();
+        let ready = self.steps.map(|step| step.prediction(rates, rate, depot));
         let mut walked = 0;
         for &t in times {
             let Some(slot) = slot_for(&self.steps, self.clock.time, t) else { break };
-            let Some(step) = self.clock.step_to(t) else { break };
-            self.state = match step.from_anchor {
-                Some(span) => kernel::step(self.anchor, rates, step.rate, span, false).0,
+            self.state = match self.clock.move_to(t) {
+                Some(span) => kernel::step(self.anchor, rates, rate, span, false).0,
                 None => ready[slot].apply(self.state),
             };
             self.last = slot;
