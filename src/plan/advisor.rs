@@ -83,7 +83,7 @@ pub struct Question<'a> {
 /// Rank the candidate times by how much a level there would narrow the posterior of the
 /// exposure.
 pub fn advise(q: &Question) -> Advice {
-    let Question { draws, exposure, exposure_name, doses, times, residual, simulations, seed } = q.clone();
+    let Question { draws, exposure, exposure_name, doses, times, simulations, .. } = q.clone();
     let n = draws.len();
     let mut order: Vec<usize> = (0..n).collect();
     order.sort_by(|&a, &b| exposure[a].total_cmp(&exposure[b]));
@@ -94,28 +94,14 @@ pub fn advise(q: &Question) -> Advice {
     // Predictions of every draw at every candidate time: one pass of the engine per draw.
     let predictions: Vec<Vec<f64>> =
         draws.par_iter().map(|p| engine::concentrations(p, doses, times)).collect();
-    let normal = Normal::new(0.0, 1.0).expect("standard normal");
     let mut values: Vec<SampleValue> = (0..times.len())
         .into_par_iter()
         .map(|j| {
             let t = times[j];
-            // Every time replays the same random stream (common random numbers): the result does
-            // not depend on threads, and the times are compared on the same simulated draws
-            // and residuals, so their ranking is not lost in simulation noise.
-            let mut rng = StdRng::seed_from_u64(seed);
             let f: Vec<f64> = predictions.iter().map(|row| row[j]).collect();
-            let inv_var: Vec<f64> = f.iter().map(|&x| 1.0 / residual.variance(x)).collect();
-            let ln_var: Vec<f64> = inv_var.iter().map(|iv| -iv.ln()).collect();
-            let (mut var_sum, mut width_sum) = (0.0, 0.0);
-            let mut weights = vec![0.0; n];
-            for _ in 0..simulations {
-                let s = (rand::RngExt::random::<u64>(&mut rng) % n as u64) as usize;
-                let y = f[s] + (1.0 / inv_var[s]).sqrt() * normal.sample(&mut rng);
-                posterior_weights(y, &f, &inv_var, &ln_var, &mut weights);
-                let mean: f64 = weights.iter().zip(exposure).map(|(w, m)| w * m).sum();
-                var_sum += weights.iter().zip(exposure).map(|(w, m)| w * (m - mean).powi(2)).sum::<f64>();
-                width_sum += ci90_width(sorted.iter().zip(&order).map(|(&m, &i)| (m, weights[i])));
-            }
+            let (var_sum, width_sum) = simulate_levels(q, &f, |weights| {
+                ci90_width(sorted.iter().zip(&order).map(|(&m, &i)| (m, weights[i])))
+            });
             let k = simulations as f64;
             let width = width_sum / k;
             SampleValue {
@@ -131,6 +117,31 @@ pub fn advise(q: &Question) -> Advice {
         b.interval_narrowing_pct.total_cmp(&a.interval_narrowing_pct).then(a.time_h.total_cmp(&b.time_h))
     });
     Advice { exposure: exposure_name.to_string(), current_sd: sd0, current_ci90_width: width0, times: values }
+}
+
+/// `q.simulations` levels simulated at one time from the draws' predictions `f` there (a draw
+/// drawn at random, plus its residual error), each turned into posterior weights of the draws:
+/// the sums over the simulations of the exposure's posterior variance and of `width` of the
+/// weights. Every time replays the same random stream (common random numbers): the result does
+/// not depend on threads, and the times are compared on the same simulated draws and residuals,
+/// so their ranking is not lost in simulation noise.
+fn simulate_levels(q: &Question, f: &[f64], mut width: impl FnMut(&[f64]) -> f64) -> (f64, f64) {
+    let n = f.len();
+    let normal = Normal::new(0.0, 1.0).expect("standard normal");
+    let mut rng = StdRng::seed_from_u64(q.seed);
+    let inv_var: Vec<f64> = f.iter().map(|&x| 1.0 / q.residual.variance(x)).collect();
+    let ln_var: Vec<f64> = inv_var.iter().map(|iv| -iv.ln()).collect();
+    let (mut var_sum, mut width_sum) = (0.0, 0.0);
+    let mut weights = vec![0.0; n];
+    for _ in 0..q.simulations {
+        let s = (rand::RngExt::random::<u64>(&mut rng) % n as u64) as usize;
+        let y = f[s] + (1.0 / inv_var[s]).sqrt() * normal.sample(&mut rng);
+        posterior_weights(y, f, &inv_var, &ln_var, &mut weights);
+        let mean: f64 = weights.iter().zip(q.exposure).map(|(w, m)| w * m).sum();
+        var_sum += weights.iter().zip(q.exposure).map(|(w, m)| w * (m - mean).powi(2)).sum::<f64>();
+        width_sum += width(&weights);
+    }
+    (var_sum, width_sum)
 }
 
 /// Each draw's posterior weight after a simulated level `y`, normalised to sum to 1: the normal
@@ -156,9 +167,11 @@ mod tests {
     use super::*;
     use crate::dosing::Route;
 
-    /// The advisor as first written: the reference the advice must equal to the bit.
+    /// The advisor as first written where it has changed since (the weighted quantiles read
+    /// through the order of the draws, the predictions one draw after another): the reference
+    /// the advice must equal to the bit.
     fn draw_by_draw(q: &Question) -> Vec<(f64, f64, f64)> {
-        let Question { draws, exposure, doses, times, residual, simulations, seed, .. } = q.clone();
+        let Question { draws, exposure, doses, times, .. } = q.clone();
         let n = draws.len();
         let mut order: Vec<usize> = (0..n).collect();
         order.sort_by(|&a, &b| exposure[a].total_cmp(&exposure[b]));
@@ -168,23 +181,10 @@ mod tests {
         };
         let predictions: Vec<Vec<f64>> =
             draws.iter().map(|p| engine::concentrations(p, doses, times)).collect();
-        let normal = Normal::new(0.0, 1.0).unwrap();
         (0..times.len())
             .map(|j| {
-                let mut rng = StdRng::seed_from_u64(seed);
                 let f: Vec<f64> = predictions.iter().map(|row| row[j]).collect();
-                let inv_var: Vec<f64> = f.iter().map(|&x| 1.0 / residual.variance(x)).collect();
-                let ln_var: Vec<f64> = inv_var.iter().map(|iv| -iv.ln()).collect();
-                let (mut var_sum, mut width_sum) = (0.0, 0.0);
-                let mut weights = vec![0.0; n];
-                for _ in 0..simulations {
-                    let s = (rand::RngExt::random::<u64>(&mut rng) % n as u64) as usize;
-                    let y = f[s] + (1.0 / inv_var[s]).sqrt() * normal.sample(&mut rng);
-                    posterior_weights(y, &f, &inv_var, &ln_var, &mut weights);
-                    let mean: f64 = weights.iter().zip(exposure).map(|(w, m)| w * m).sum();
-                    var_sum += weights.iter().zip(exposure).map(|(w, m)| w * (m - mean).powi(2)).sum::<f64>();
-                    width_sum += width(&weights);
-                }
+                let (var_sum, width_sum) = simulate_levels(q, &f, width);
                 (times[j], var_sum, width_sum)
             })
             .collect()
