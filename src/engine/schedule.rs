@@ -121,40 +121,181 @@ impl Schedule {
 
     /// The concentration (mg/L) at each of the sampling times under `kin`, handed to `each` in
     /// order.
-    pub fn run<R: Real>(&self, kin: Kinetics<R>, mut each: impl FnMut(R)) {
+    pub fn run<R: Real>(&self, kin: Kinetics<R>, each: impl FnMut(R)) {
         let rates = Rates { k: kin.k, ka: kin.ka };
         let zero = R::cst(0.0);
         let unset = Factors { e: zero, p1: zero, g: zero, ea: zero };
         let mut on_stack = [unset; ON_STACK];
         let mut on_heap = Vec::new();
-        let factors: &mut [Factors<R>] = if self.lengths.len() <= ON_STACK {
+        let factors = self.factors_space(&mut on_stack, &mut on_heap, unset);
+        for (f, l) in factors.iter_mut().zip(&self.lengths) {
+            *f = l.factors(rates);
+        }
+        let state = State::empty();
+        self.walk(&mut One { kin, factors, state, anchor: state, each });
+    }
+
+    /// [`Schedule::run`] for `LANES` parameter sets at once, each lane's concentrations bit for
+    /// bit those of `run` on its own: the moves are looked at once for all lanes, and each
+    /// lane's arithmetic is `run`'s. `each` receives the lanes' concentrations at each time;
+    /// `room` holds the lanes' factors (kept by the caller for the next call).
+    pub fn run_lanes<const LANES: usize>(
+        &self,
+        kin: &[Kinetics<f64>; LANES],
+        room: &mut LaneFactors<LANES>,
+        each: impl FnMut([f64; LANES]),
+    ) {
+        let factors = &mut room.0;
+        factors.clear();
+        factors.extend(
+            self.lengths
+                .iter()
+                .map(|l| std::array::from_fn(|i| l.factors(Rates { k: kin[i].k, ka: kin[i].ka }))),
+        );
+        let state = [State::empty(); LANES];
+        self.walk(&mut Lanes { kin, factors, state, anchor: state, each });
+    }
+
+    /// Room for one `F` per distinct length: `on_stack` when it is long enough, else `on_heap`.
+    fn factors_space<'a, F: Copy>(
+        &self,
+        on_stack: &'a mut [F; ON_STACK],
+        on_heap: &'a mut Vec<F>,
+        unset: F,
+    ) -> &'a mut [F] {
+        if self.lengths.len() <= ON_STACK {
             &mut on_stack[..self.lengths.len()]
         } else {
             on_heap.resize(self.lengths.len(), unset);
-            &mut on_heap
-        };
-        for (f, l) in factors.iter_mut().zip(&self.lengths) {
-            *f = Propagator::new(rates, l.hours).factors(rates, l.infusing, l.absorbing);
+            on_heap
         }
-        let mut state = State::empty();
-        let mut anchor = state;
+    }
+
+    /// Make the recorded moves on `carrier`.
+    #[inline(always)]
+    fn walk(&self, carrier: &mut impl Carrier) {
         for m in &self.moves {
             match *m {
-                Move::Step { length, infused, from_anchor } => {
-                    let f = &factors[length];
-                    let from = if from_anchor { anchor } else { state };
-                    state = advance(from, kin.ka, f.e, infused.map(|x| f.p1 * x), || (f.g, f.ea));
-                }
-                Move::Decay { length } => state.central = state.central * factors[length].e,
-                Move::Infuse { length, infused } => {
-                    let f = &factors[length];
-                    state.central = state.central * f.e + f.p1 * infused;
-                }
-                Move::Dose(input) => input.enter(&mut state, kin.f),
-                Move::Anchor => anchor = state,
-                Move::Read => each(state.central / kin.v),
+                Move::Step { length, infused, from_anchor } => carrier.step(length, infused, from_anchor),
+                Move::Decay { length } => carrier.decay(length),
+                Move::Infuse { length, infused } => carrier.infuse(length, infused),
+                Move::Dose(input) => carrier.dose(input),
+                Move::Anchor => carrier.anchor(),
+                Move::Read => carrier.read(),
             }
         }
+    }
+}
+
+impl Length {
+    /// The factors the walk needs over this length under `rates`.
+    #[inline(always)]
+    fn factors<R: Real>(&self, rates: Rates<R>) -> Factors<R> {
+        Propagator::new(rates, self.hours).factors(rates, self.infusing, self.absorbing)
+    }
+}
+
+/// The lanes' factors of each distinct length, for [`Schedule::run_lanes`]: kept from call to
+/// call, so that a batch of evaluations allocates them once.
+#[derive(Debug, Default)]
+pub(crate) struct LaneFactors<const LANES: usize>(Vec<[Factors<f64>; LANES]>);
+
+/// What the recorded moves act on: one parameter set's state ([`One`]), or several sets'
+/// together ([`Lanes`]). Lengths are numbered as in [`Schedule::lengths`].
+trait Carrier {
+    fn step(&mut self, length: usize, infused: Option<f64>, from_anchor: bool);
+    fn decay(&mut self, length: usize);
+    fn infuse(&mut self, length: usize, infused: f64);
+    fn dose(&mut self, input: Input);
+    fn anchor(&mut self);
+    fn read(&mut self);
+}
+
+/// One parameter set, in any number type.
+struct One<'a, R, E> {
+    kin: Kinetics<R>,
+    factors: &'a [Factors<R>],
+    state: State<R>,
+    anchor: State<R>,
+    each: E,
+}
+
+/// The walker's state update of one lane (see [`advance`]).
+#[inline(always)]
+fn step<R: Real>(from: State<R>, ka: R, f: &Factors<R>, infused: Option<f64>) -> State<R> {
+    advance(from, ka, f.e, infused.map(|x| f.p1 * x), || (f.g, f.ea))
+}
+
+impl<R: Real, E: FnMut(R)> Carrier for One<'_, R, E> {
+    #[inline(always)]
+    fn step(&mut self, length: usize, infused: Option<f64>, from_anchor: bool) {
+        let from = if from_anchor { self.anchor } else { self.state };
+        self.state = step(from, self.kin.ka, &self.factors[length], infused);
+    }
+    #[inline(always)]
+    fn decay(&mut self, length: usize) {
+        self.state.central = self.state.central * self.factors[length].e;
+    }
+    #[inline(always)]
+    fn infuse(&mut self, length: usize, infused: f64) {
+        let f = &self.factors[length];
+        self.state.central = self.state.central * f.e + f.p1 * infused;
+    }
+    #[inline(always)]
+    fn dose(&mut self, input: Input) {
+        input.enter(&mut self.state, self.kin.f);
+    }
+    #[inline(always)]
+    fn anchor(&mut self) {
+        self.anchor = self.state;
+    }
+    #[inline(always)]
+    fn read(&mut self) {
+        (self.each)(self.state.central / self.kin.v);
+    }
+}
+
+/// `LANES` parameter sets in plain numbers, each lane with [`One`]'s arithmetic.
+struct Lanes<'a, const LANES: usize, E> {
+    kin: &'a [Kinetics<f64>; LANES],
+    factors: &'a [[Factors<f64>; LANES]],
+    state: [State<f64>; LANES],
+    anchor: [State<f64>; LANES],
+    each: E,
+}
+
+impl<const LANES: usize, E: FnMut([f64; LANES])> Carrier for Lanes<'_, LANES, E> {
+    #[inline(always)]
+    fn step(&mut self, length: usize, infused: Option<f64>, from_anchor: bool) {
+        let from = if from_anchor { self.anchor } else { self.state };
+        let f = &self.factors[length];
+        self.state = std::array::from_fn(|i| step(from[i], self.kin[i].ka, &f[i], infused));
+    }
+    #[inline(always)]
+    fn decay(&mut self, length: usize) {
+        for (s, f) in self.state.iter_mut().zip(&self.factors[length]) {
+            s.central *= f.e;
+        }
+    }
+    #[inline(always)]
+    fn infuse(&mut self, length: usize, infused: f64) {
+        for (s, f) in self.state.iter_mut().zip(&self.factors[length]) {
+            s.central = s.central * f.e + f.p1 * infused;
+        }
+    }
+    #[inline(always)]
+    fn dose(&mut self, input: Input) {
+        for (s, k) in self.state.iter_mut().zip(self.kin) {
+            input.enter(s, k.f);
+        }
+    }
+    #[inline(always)]
+    fn anchor(&mut self) {
+        self.anchor = self.state;
+    }
+    #[inline(always)]
+    fn read(&mut self) {
+        (self.each)(std::array::from_fn(|i| self.state[i].central / self.kin[i].v));
     }
 }
 
@@ -233,6 +374,34 @@ mod tests {
             prop_assert_eq!(general.len(), recorded.len());
             for (g, r) in general.iter().zip(&recorded) {
                 prop_assert!(g.v.to_bits() == r.v.to_bits() && (0..3).all(|i| g.d[i].to_bits() == r.d[i].to_bits()), "general {g:?}, schedule {r:?}");
+            }
+        }
+
+        /// Lanes walked together against each lane's own walk: bit for bit, with lanes whose
+        /// rates differ (the depot may empty to zero in one lane and not in another).
+        #[test]
+        fn lanes_give_each_lanes_own_values_exactly((kin, doses, times) in case(), scale in log_uniform(0.05, 20.0)) {
+            let events = Events::new(&doses, kin.tlag_h);
+            let schedule = Schedule::new(&events, &times);
+            let lanes: [Kinetics<f64>; 4] = [
+                kin,
+                Kinetics { k: kin.k * scale, ..kin },
+                Kinetics { ka: kin.ka / scale, v: kin.v * 1.7, ..kin },
+                Kinetics { k: kin.k / scale, ka: kin.ka * scale, f: 1.0, ..kin },
+            ];
+            let mut together = Vec::new();
+            let mut room = LaneFactors::default();
+            for _ in 0..2 {
+                together.clear();
+                schedule.run_lanes(&lanes, &mut room, |c| together.push(c));
+            }
+            for (lane, kin) in lanes.iter().enumerate() {
+                let mut alone = Vec::new();
+                schedule.run(*kin, |c| alone.push(c));
+                prop_assert_eq!(alone.len(), together.len());
+                for (a, t) in alone.iter().zip(&together) {
+                    prop_assert!(a.to_bits() == t[lane].to_bits(), "lane {}: alone {a}, together {}", lane, t[lane]);
+                }
             }
         }
     }

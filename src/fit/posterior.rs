@@ -9,6 +9,7 @@
 
 use super::linalg::{MAX, Mat, cholesky, quad_form, spd_inverse};
 use super::objective::Problem;
+use crate::engine::schedule::LaneFactors;
 use rand::SeedableRng;
 use rand::distr::Distribution;
 use rand::rngs::StdRng;
@@ -16,6 +17,10 @@ use statrs::distribution::{ChiSquared, Normal};
 
 /// Degrees of freedom of the t proposal: heavy enough tails to cover a skewed posterior.
 const NU: f64 = 5.0;
+
+/// Draws whose objective is evaluated together ([`Problem::costs_and_parameters`]): the
+/// recorded walk's moves are looked at once for all of them.
+const LANES: usize = 8;
 
 /// Weighted draws of θ from the posterior.
 #[derive(Debug, Clone)]
@@ -80,9 +85,12 @@ impl WeightedDraws {
 ///
 /// Draws' keys spread smoothly around their mean, so they are first dealt, in index order,
 /// into as many buckets as there are keys by their place in mean ± 3 SD (the few beyond go to
-/// the end buckets; a monotone map: no key lands in a bucket below a smaller key's), and each
-/// bucket — one or a few keys — is then sorted on its own by a stable sort. Keys that are not
-/// all finite are sorted as one bucket.
+/// the end buckets; a monotone map: no key lands in a bucket below a smaller key's). Each
+/// bucket then holds one or a few keys, put in order by one insertion pass over the whole
+/// array, which never moves a key past its bucket's start and costs no call or branch per
+/// bucket; the rare crowded bucket (more than [`CROWDED`] keys: heavy tails, or keys not all
+/// finite, which all go to one bucket) is sorted on its own by a stable sort first, so the
+/// pass stays linear.
 fn ascending_order(keys: &[f64]) -> Vec<usize> {
     let n = keys.len();
     let mean = keys.iter().sum::<f64>() / n as f64;
@@ -107,15 +115,29 @@ fn ascending_order(keys: &[f64]) -> Vec<usize> {
         order[next[b]] = i;
         next[b] += 1;
     }
+    let before = |a: usize, b: usize| keys[a].total_cmp(&keys[b]).is_lt();
     let mut start = 0;
     for &end in &next[..n] {
-        if end - start > 1 {
+        if end - start > CROWDED {
             order[start..end].sort_by(|&a, &b| keys[a].total_cmp(&keys[b]));
         }
         start = end;
     }
+    // Stable: a key moves only past larger ones.
+    for i in 1..n {
+        let key = order[i];
+        let mut j = i;
+        while j > 0 && before(key, order[j - 1]) {
+            order[j] = order[j - 1];
+            j -= 1;
+        }
+        order[j] = key;
+    }
     order
 }
+
+/// A bucket with more keys than this is sorted on its own before the insertion pass.
+const CROWDED: usize = 16;
 
 /// A multivariate t proposal.
 struct Proposal {
@@ -172,16 +194,20 @@ pub fn sample(
     let chi = ChiSquared::new(NU).ok()?;
     let rounds = [draws.div_ceil(4).max(200), draws.max(1)];
     let mut last = None;
+    let mut room = LaneFactors::default();
     for (round, &m) in rounds.iter().enumerate() {
         let proposal = Proposal::new(mean, &cov, n)?;
         let theta: Vec<[f64; MAX]> = (0..m).map(|_| proposal.draw(n, &mut rng, &normal, &chi)).collect();
-        let (log_w, parameters): (Vec<f64>, Vec<[f64; MAX]>) = theta
-            .iter()
-            .map(|t| {
-                let (cost, parameters) = problem.cost_and_parameters(&t[..n]);
-                (-0.5 * cost - proposal.ln_density(t, n), parameters)
-            })
-            .unzip();
+        let mut log_w = Vec::with_capacity(m);
+        let mut parameters = Vec::with_capacity(m);
+        for chunk in theta.chunks(LANES) {
+            // The last chunk is filled up with its last draw; the copies' results are dropped.
+            let lanes: [[f64; MAX]; LANES] = std::array::from_fn(|i| chunk[i.min(chunk.len() - 1)]);
+            for (t, (cost, p)) in chunk.iter().zip(problem.costs_and_parameters(&lanes, &mut room)) {
+                log_w.push(-0.5 * cost - proposal.ln_density(t, n));
+                parameters.push(p);
+            }
+        }
         let top = log_w.iter().copied().filter(|x| x.is_finite()).fold(f64::NEG_INFINITY, f64::max);
         let raw: Vec<f64> = log_w.iter().map(|x| if x.is_finite() { (x - top).exp() } else { 0.0 }).collect();
         let total: f64 = raw.iter().sum();
