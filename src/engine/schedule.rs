@@ -146,12 +146,12 @@ impl Schedule {
         each: impl FnMut([f64; LANES]),
     ) {
         let factors = &mut room.0;
-        factors.clear();
-        factors.extend(
-            self.lengths
-                .iter()
-                .map(|l| std::array::from_fn(|i| l.factors(Rates { k: kin[i].k, ka: kin[i].ka }))),
-        );
+        factors.resize(self.lengths.len(), [Factors { e: 0.0, p1: 0.0, g: 0.0, ea: 0.0 }; LANES]);
+        for (lanes, l) in factors.iter_mut().zip(&self.lengths) {
+            for (f, k) in lanes.iter_mut().zip(kin) {
+                *f = l.factors(Rates { k: k.k, ka: k.ka });
+            }
+        }
         let state = [State::empty(); LANES];
         self.walk(&mut Lanes { kin, factors, state, anchor: state, each });
     }

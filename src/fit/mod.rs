@@ -411,33 +411,23 @@ fn from_covariance(theta: &[f64], cov: Option<&Mat>, n: usize, z: f64) -> Estima
 /// Every reported quantity is monotone in ln CL, ln V, ln k = ln CL − ln V or ln ka, so the
 /// draws are sorted once per key and each interval is read off that order.
 fn from_draws(theta: &[f64], draws: &posterior::WeightedDraws, n: usize) -> Estimates {
-    let est = |value: f64, order: &[usize], rising: bool, values: &[f64]| {
-        let quantile = |p| {
-            if rising {
-                draws.quantile_along(order.iter().copied(), p, values)
-            } else {
-                draws.quantile_along(order.iter().rev().copied(), p, values)
-            }
-        };
-        Estimate {
-            value,
-            se: Some(draws.mean_sd_of(values).1),
-            ci95: Some([quantile(0.025), quantile(0.975)]),
-        }
+    let est = |value: f64, values: &[f64]| Estimate {
+        value,
+        se: Some(draws.mean_sd_of(values).1),
+        ci95: Some(draws.interval(values, 0.025, 0.975)),
     };
     // CL, V and ka are the e^θ the sampler's objective computed.
     let parameter = |i: usize| -> Vec<f64> { draws.parameters.iter().map(|p| p[i]).collect() };
     let ln2 = std::f64::consts::LN_2;
-    let by_k = draws.order_by(|t| t[0] - t[1]);
     // The half-life's values from k's, as ln 2 / k: one exponential per draw for both.
     let k: Vec<f64> = draws.theta.iter().map(|t| (t[0] - t[1]).exp()).collect();
     let half_life: Vec<f64> = k.iter().map(|k| ln2 / k).collect();
     Estimates {
-        cl_l_h: est(theta[0].exp(), &draws.order_by(|t| t[0]), true, &parameter(0)),
-        v_l: est(theta[1].exp(), &draws.order_by(|t| t[1]), true, &parameter(1)),
-        k_per_h: est((theta[0] - theta[1]).exp(), &by_k, true, &k),
-        half_life_h: est(ln2 / (theta[0] - theta[1]).exp(), &by_k, false, &half_life),
-        ka_per_h: (n == 3).then(|| est(theta[2].exp(), &draws.order_by(|t| t[2]), true, &parameter(2))),
+        cl_l_h: est(theta[0].exp(), &parameter(0)),
+        v_l: est(theta[1].exp(), &parameter(1)),
+        k_per_h: est((theta[0] - theta[1]).exp(), &k),
+        half_life_h: est(ln2 / (theta[0] - theta[1]).exp(), &half_life),
+        ka_per_h: (n == 3).then(|| est(theta[2].exp(), &parameter(2))),
     }
 }
 

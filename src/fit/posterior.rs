@@ -36,18 +36,86 @@ pub struct WeightedDraws {
 }
 
 impl WeightedDraws {
-    /// The draws' indices in ascending order of `key(θ)`: sorted once, this order serves every
-    /// quantile of every function that rises with the key (read it backwards for one that
-    /// falls), instead of a sort per quantile.
-    pub fn order_by(&self, key: impl Fn(&[f64; MAX]) -> f64) -> Vec<usize> {
-        let keys: Vec<f64> = self.theta.iter().map(key).collect();
-        ascending_order(&keys)
+    /// The weighted `lower`- and `upper`-quantiles of `values` (one per draw, in any order),
+    /// `lower` ≤ ½ < `upper`: each the first value in ascending order at which the cumulative
+    /// weight reaches p ([`crate::stats::weighted_quantile`]). The upper one is found from the
+    /// top, as the smallest value with at most 1 − p of the weight above it: the same value but
+    /// for the rounding of the sums, which now run over the short tail.
+    ///
+    /// Only the tails that hold the quantiles are sorted. Draws' values spread smoothly around
+    /// their mean, so they are dealt into as many buckets as there are values by their place in
+    /// mean ± 3 SD (the few beyond go to the end buckets; a monotone map: no value lands in a
+    /// bucket below a smaller value's), the buckets' weights are added up from each end until
+    /// they pass the tail's weight with room to spare ([`SLACK`]), and only those buckets'
+    /// values are sorted and walked. Values not all finite, or all equal, are all sorted.
+    pub fn interval(&self, values: &[f64], lower: f64, upper: f64) -> [f64; 2] {
+        debug_assert!(lower <= 0.5 && upper > 0.5);
+        let tail = 1.0 - upper;
+        let [low, high] = self.tails(values, [lower, tail]);
+        let found =
+            [walk_up(&low, values, &self.weights, lower), walk_down(&high, values, &self.weights, tail)];
+        if let [Some(a), Some(b)] = found {
+            return [a, b];
+        }
+        // A tail ran out before its quantile: walk everything (not reached in practice; when
+        // rounding leaves the weight short, the far end's value).
+        let all = sorted((0..values.len()).collect(), values);
+        let end = |i: Option<&usize>| i.map_or(f64::NAN, |&i| values[i]);
+        [
+            walk_up(&all, values, &self.weights, lower).unwrap_or_else(|| end(all.last())),
+            walk_down(&all, values, &self.weights, tail).unwrap_or_else(|| end(all.first())),
+        ]
     }
 
-    /// Weighted quantile `p` ([`crate::stats::weighted_quantile`]) of `values` (one per draw)
-    /// that rise along `order` (from [`WeightedDraws::order_by`], reversed for falling values).
-    pub fn quantile_along(&self, order: impl IntoIterator<Item = usize>, p: f64, values: &[f64]) -> f64 {
-        crate::stats::weighted_quantile(order.into_iter().map(|i| (values[i], self.weights[i])), p)
+    /// The indices of the values in the lowest buckets that hold more than `tails[0]` +
+    /// [`SLACK`] of the weight and in the highest that hold more than `tails[1]` + [`SLACK`],
+    /// each in ascending order of value, ties in index order; all of them, twice, when the
+    /// values do not spread.
+    fn tails(&self, values: &[f64], tails: [f64; 2]) -> [Vec<usize>; 2] {
+        let n = values.len();
+        let (mut sum, mut squares) = (0.0, 0.0);
+        for &x in values {
+            sum += x;
+            squares += x * x;
+        }
+        let mean = sum / n as f64;
+        let sd = (squares / n as f64 - mean * mean).max(0.0).sqrt();
+        let (lo, scale) = (mean - 3.0 * sd, n as f64 / (6.0 * sd));
+        if !(lo.is_finite() && scale.is_finite() && values.iter().all(|x| x.is_finite())) {
+            let all = sorted((0..n).collect(), values);
+            return [all.clone(), all];
+        }
+        // (x − lo)·scale never falls as x rises (rounding is monotone), and the cast saturates:
+        // below lo is bucket 0.
+        let last = n - 1;
+        let buckets: Vec<usize> = values.iter().map(|&x| (((x - lo) * scale) as usize).min(last)).collect();
+        let mut mass = vec![0.0; n];
+        for (&b, w) in buckets.iter().zip(&self.weights) {
+            mass[b] += w;
+        }
+        // The first bucket, counted from one end, by which the weight passes the tail's.
+        let edge = |order: &mut dyn Iterator<Item = usize>, tail: f64| {
+            let mut acc = 0.0;
+            for b in order {
+                acc += mass[b];
+                if acc > tail + SLACK {
+                    return Some(b);
+                }
+            }
+            None
+        };
+        let low_edge = edge(&mut (0..n), tails[0]).unwrap_or(last);
+        let high_edge = edge(&mut (0..n).rev(), tails[1]).unwrap_or(0);
+        let (mut low, mut high) = (Vec::new(), Vec::new());
+        for (i, &b) in buckets.iter().enumerate() {
+            if b <= low_edge {
+                low.push(i);
+            }
+            if b >= high_edge {
+                high.push(i);
+            }
+        }
+        [sorted(low, values), sorted(high, values)]
     }
 
     /// Weighted mean and standard deviation of a function of θ.
@@ -80,64 +148,45 @@ impl WeightedDraws {
     }
 }
 
-/// The indices of `keys` in ascending order of `f64::total_cmp`, ties in index order: the
-/// order a stable sort of the indices gives.
-///
-/// Draws' keys spread smoothly around their mean, so they are first dealt, in index order,
-/// into as many buckets as there are keys by their place in mean ± 3 SD (the few beyond go to
-/// the end buckets; a monotone map: no key lands in a bucket below a smaller key's). Each
-/// bucket then holds one or a few keys, put in order by one insertion pass over the whole
-/// array, which never moves a key past its bucket's start and costs no call or branch per
-/// bucket; the rare crowded bucket (more than [`CROWDED`] keys: heavy tails, or keys not all
-/// finite, which all go to one bucket) is sorted on its own by a stable sort first, so the
-/// pass stays linear.
-fn ascending_order(keys: &[f64]) -> Vec<usize> {
-    let n = keys.len();
-    let mean = keys.iter().sum::<f64>() / n as f64;
-    let sd = (keys.iter().map(|x| (x - mean) * (x - mean)).sum::<f64>() / n as f64).sqrt();
-    let (lo, scale) = (mean - 3.0 * sd, n as f64 / (6.0 * sd));
-    // (x − lo)·scale never falls as x rises (rounding is monotone), and the cast saturates: below
-    // lo is bucket 0. With keys not all finite, or all equal, everything is bucket 0.
-    let spread = lo.is_finite() && scale.is_finite() && keys.iter().all(|x| x.is_finite());
-    let (lo, scale) = if spread { (lo, scale) } else { (0.0, 0.0) };
-    let last = n.saturating_sub(1);
-    let buckets: Vec<usize> = keys.iter().map(|&x| (((x - lo) * scale) as usize).min(last)).collect();
-    // Where each bucket starts; advanced as it is filled, it then holds where the bucket ends.
-    let mut next = vec![0usize; n + 1];
-    for &b in &buckets {
-        next[b + 1] += 1;
-    }
-    for b in 1..=n {
-        next[b] += next[b - 1];
-    }
-    let mut order = vec![0usize; n];
-    for (i, &b) in buckets.iter().enumerate() {
-        order[next[b]] = i;
-        next[b] += 1;
-    }
-    let before = |a: usize, b: usize| keys[a].total_cmp(&keys[b]).is_lt();
-    let mut start = 0;
-    for &end in &next[..n] {
-        if end - start > CROWDED {
-            order[start..end].sort_by(|&a, &b| keys[a].total_cmp(&keys[b]));
-        }
-        start = end;
-    }
-    // Stable: a key moves only past larger ones.
-    for i in 1..n {
-        let key = order[i];
-        let mut j = i;
-        while j > 0 && before(key, order[j - 1]) {
-            order[j] = order[j - 1];
-            j -= 1;
-        }
-        order[j] = key;
-    }
-    order
+/// `indices` (ascending) in ascending order of their values by `f64::total_cmp`, ties in index
+/// order.
+fn sorted(mut indices: Vec<usize>, values: &[f64]) -> Vec<usize> {
+    indices.sort_by(|&a, &b| values[a].total_cmp(&values[b]));
+    indices
 }
 
-/// A bucket with more keys than this is sorted on its own before the insertion pass.
-const CROWDED: usize = 16;
+/// Room left above the tail's weight when the buckets are added up: far more than the rounding
+/// of any sum of weights, so the sorted tail always holds the quantile.
+const SLACK: f64 = 1e-9;
+
+/// [`crate::stats::weighted_quantile`] along `order` (ascending), `None` when the weight does
+/// not reach `p`.
+fn walk_up(order: &[usize], values: &[f64], weights: &[f64], p: f64) -> Option<f64> {
+    let mut cumulative = 0.0;
+    order
+        .iter()
+        .find(|&&i| {
+            cumulative += weights[i];
+            cumulative >= p
+        })
+        .map(|&i| values[i])
+}
+
+/// The smallest value along `order` (ascending, walked from its top) with at most `tail` of the
+/// weight above it; `None` when all of `order` holds no more than `tail`, so that a smaller
+/// value outside it may qualify too.
+fn walk_down(order: &[usize], values: &[f64], weights: &[f64], tail: f64) -> Option<f64> {
+    let mut above = 0.0;
+    let mut found = None;
+    for &i in order.iter().rev() {
+        if above > tail {
+            break;
+        }
+        found = Some(values[i]);
+        above += weights[i];
+    }
+    found.filter(|_| above > tail)
+}
 
 /// A multivariate t proposal.
 struct Proposal {
@@ -250,14 +299,24 @@ mod tests {
     use proptest::prelude::*;
     use proptest::test_runner::RngSeed;
 
-    /// The order of a stable sort of the indices by `f64::total_cmp`.
-    fn sorted(keys: &[f64]) -> Vec<usize> {
-        let mut order: Vec<usize> = (0..keys.len()).collect();
-        order.sort_by(|&a, &b| keys[a].total_cmp(&keys[b]));
-        order
+    /// Weighted draws with these weights (θ unused).
+    fn draws(weights: Vec<f64>) -> WeightedDraws {
+        let n = weights.len();
+        WeightedDraws { theta: vec![[0.0; MAX]; n], parameters: vec![[0.0; MAX]; n], weights, ess: 1.0 }
     }
 
-    fn key() -> impl Strategy<Value = f64> {
+    /// One end of [`WeightedDraws::interval`]: the lower for p ≤ ½, else the upper.
+    fn quantile(draws: &WeightedDraws, values: &[f64], p: f64) -> f64 {
+        if p <= 0.5 { draws.interval(values, p, 0.975)[0] } else { draws.interval(values, 0.025, p)[1] }
+    }
+
+    /// The quantile from a full stable sort ([`crate::stats::weighted_quantile`]).
+    fn by_full_sort(values: &[f64], weights: &[f64], p: f64) -> f64 {
+        let order = sorted((0..values.len()).collect(), values);
+        crate::stats::weighted_quantile(order.iter().map(|&i| (values[i], weights[i])), p)
+    }
+
+    fn value() -> impl Strategy<Value = f64> {
         prop_oneof![
             8 => -3.0..3.0,
             // Heavy tails crowd the rest into few buckets; repeated values are ties.
@@ -265,6 +324,10 @@ mod tests {
             1 => prop_oneof![Just(0.0), Just(-0.0), Just(f64::MIN_POSITIVE), Just(-5e-324)],
             1 => prop_oneof![Just(f64::INFINITY), Just(f64::NEG_INFINITY), Just(f64::NAN), Just(-f64::NAN)],
         ]
+    }
+
+    fn same(a: f64, b: f64) -> bool {
+        a.to_bits() == b.to_bits()
     }
 
     proptest! {
@@ -275,23 +338,74 @@ mod tests {
             ..ProptestConfig::default()
         })]
 
+        /// Weights that are multiples of 2⁻²⁰ summing to 1 make every partial sum exact, so the
+        /// walk from the top must give the full sort's value exactly too, at any p (p on a
+        /// partial sum included: ties of the cumulative weight).
         #[test]
-        fn the_bucketed_order_is_the_stable_sorts(
-            keys in prop::collection::vec(key(), 0..300),
+        fn tail_quantiles_are_the_full_sorts_with_exact_sums(
+            pairs in prop::collection::vec((value(), 1u32..5000), 1..300),
             finite in any::<bool>(),
+            at in 0.0..1.0f64,
+            on_a_sum in any::<bool>(),
         ) {
-            let keys: Vec<f64> =
-                if finite { keys.into_iter().filter(|x| x.is_finite()).collect() } else { keys };
-            prop_assert_eq!(ascending_order(&keys), sorted(&keys));
+            let pairs: Vec<(f64, u32)> =
+                if finite { pairs.into_iter().filter(|(x, _)| x.is_finite()).collect() } else { pairs };
+            prop_assume!(!pairs.is_empty());
+            let values: Vec<f64> = pairs.iter().map(|p| p.0).collect();
+            let total: u32 = pairs.iter().map(|p| p.1).sum();
+            // Scale the integer weights to sum to 2²⁰ exactly (the last one takes the rest).
+            let mut units: Vec<u32> = pairs.iter().map(|p| (u64::from(p.1) * (1 << 20) / u64::from(total)) as u32).collect();
+            let short = (1u32 << 20) - units.iter().sum::<u32>();
+            *units.last_mut().expect("non-empty") += short;
+            let weights: Vec<f64> = units.iter().map(|&u| f64::from(u) / f64::from(1u32 << 20)).collect();
+            let draws = draws(weights.clone());
+            let cut = (at * values.len() as f64) as usize;
+            let p = if on_a_sum { units[..cut].iter().sum::<u32>().max(1) as f64 / f64::from(1u32 << 20) } else { at.max(1e-6) };
+            for p in [p, 0.025, 0.975, 0.5] {
+                let (ours, full) = (quantile(&draws, &values, p), by_full_sort(&values, &weights, p));
+                prop_assert!(same(ours, full), "p {}: tail {}, full sort {}", p, ours, full);
+            }
+        }
+
+        /// With any weights, the lower quantiles sum the same weights in the same order as the full
+        /// sort: the same bits.
+        #[test]
+        fn lower_tail_quantiles_are_the_full_sorts(
+            pairs in prop::collection::vec((value(), 1e-6..1.0f64), 1..300),
+            p in 1e-6..=0.5f64,
+        ) {
+            let values: Vec<f64> = pairs.iter().map(|p| p.0).collect();
+            let total: f64 = pairs.iter().map(|p| p.1).sum();
+            let weights: Vec<f64> = pairs.iter().map(|p| p.1 / total).collect();
+            let draws = draws(weights.clone());
+            for p in [p, 0.025] {
+                let (ours, full) = (quantile(&draws, &values, p), by_full_sort(&values, &weights, p));
+                prop_assert!(same(ours, full), "p {}: tail {}, full sort {}", p, ours, full);
+            }
         }
     }
 
     #[test]
-    fn equal_and_nearly_equal_keys_keep_the_index_order() {
-        for keys in [vec![], vec![2.0], vec![1.0; 5], vec![1.0, 1.0 + f64::EPSILON, 1.0, 1.0]] {
-            assert_eq!(ascending_order(&keys), sorted(&keys), "{keys:?}");
+    fn equal_and_nearly_equal_values() {
+        for values in [
+            vec![2.0],
+            vec![1.0; 5],
+            vec![1.0, 1.0 + f64::EPSILON, 1.0, 1.0],
+            vec![5e-324, 0.0, 1e-323, -0.0, 5e-324],
+        ] {
+            // Binary fractions: exact partial sums, so the walk from the top must agree too.
+            let weights = if values.len() == 5 {
+                vec![0.25, 0.25, 0.125, 0.125, 0.25]
+            } else {
+                vec![1.0 / values.len() as f64; values.len()]
+            };
+            let draws = draws(weights.clone());
+            for p in [0.025, 0.2, 0.5, 0.8, 0.975] {
+                assert!(
+                    same(quantile(&draws, &values, p), by_full_sort(&values, &weights, p)),
+                    "{values:?} at {p}"
+                );
+            }
         }
-        let tiny = [5e-324, 0.0, 1e-323, -0.0, 5e-324];
-        assert_eq!(ascending_order(&tiny), sorted(&tiny));
     }
 }
