@@ -73,26 +73,32 @@ impl WeightedDraws {
     /// values do not spread.
     fn tails(&self, values: &[f64], tails: [f64; 2]) -> [Vec<usize>; 2] {
         let n = values.len();
-        let (mut sum, mut squares) = (0.0, 0.0);
+        let (mut sum, mut squares, mut finite) = (0.0, 0.0, true);
         for &x in values {
             sum += x;
             squares += x * x;
+            finite &= x.is_finite();
         }
         let mean = sum / n as f64;
         let sd = (squares / n as f64 - mean * mean).max(0.0).sqrt();
         let (lo, scale) = (mean - 3.0 * sd, n as f64 / (6.0 * sd));
-        if !(lo.is_finite() && scale.is_finite() && values.iter().all(|x| x.is_finite())) {
+        if !(finite && lo.is_finite() && scale.is_finite()) {
             let all = sorted((0..n).collect(), values);
             return [all.clone(), all];
         }
         // (x − lo)·scale never falls as x rises (rounding is monotone), and the cast saturates:
         // below lo is bucket 0.
         let last = n - 1;
-        let buckets: Vec<usize> = values.iter().map(|&x| (((x - lo) * scale) as usize).min(last)).collect();
         let mut mass = vec![0.0; n];
-        for (&b, w) in buckets.iter().zip(&self.weights) {
-            mass[b] += w;
-        }
+        let buckets: Vec<usize> = values
+            .iter()
+            .zip(&self.weights)
+            .map(|(&x, w)| {
+                let b = (((x - lo) * scale) as usize).min(last);
+                mass[b] += w;
+                b
+            })
+            .collect();
         // The first bucket, counted from one end, by which the weight passes the tail's.
         let edge = |order: &mut dyn Iterator<Item = usize>, tail: f64| {
             let mut acc = 0.0;
