@@ -497,19 +497,18 @@ mod tests {
     use crate::engine::Params;
     use crate::plan::candidates::{Durations, grid};
     use crate::plan::targets::parse_target;
+    use crate::sweep::population::ParamRows;
 
     /// The tallies' own verdicts, from the steady state, are those of `judge`, which decides
     /// the per-subject rows: the same sweep counts the same with rows and without.
     #[test]
     fn verdicts_from_the_steady_state_are_those_of_judge() {
-        let rows = (0..700)
-            .map(|i| {
-                let x = f64::from(i);
-                let (cl_l_h, v_l) =
-                    (1.0 + 8.0 * (0.37 * x).sin().abs(), 20.0 + 60.0 * (0.11 * x).cos().abs());
-                (format!("s{i}"), Params { cl_l_h, v_l, ka_per_h: None, f: 1.0, tlag_h: 0.0 })
-            })
-            .collect();
+        let mut rows = ParamRows::default();
+        for i in 0..700 {
+            let x = f64::from(i);
+            let (cl_l_h, v_l) = (1.0 + 8.0 * (0.37 * x).sin().abs(), 20.0 + 60.0 * (0.11 * x).cos().abs());
+            rows.push(&format!("s{i}"), Params { cl_l_h, v_l, ka_per_h: None, f: 1.0, tlag_h: 0.0 });
+        }
         let population = Population::from_params(rows);
         let candidates = grid(
             &[250.0, 500.0, 1000.0, 2000.0],
