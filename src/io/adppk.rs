@@ -362,7 +362,7 @@ pub fn parse_adppk(table: &Table, options: &AdppkOptions) -> Result<Adppk, Vec<I
     let is_dose = |r: &Row| event(r, src, evid).unwrap_or(false);
     let analyte_of = |r: &Row| cols.analyte.as_ref().map_or("", |c| r.text(c)).to_string();
     let analytes: BTreeSet<String> =
-        table.rows.iter().filter(|r| !is_dose(r)).map(analyte_of).filter(|a| !a.is_empty()).collect();
+        table.rows.iter().filter(|r| !is_dose(r)).map(|r| analyte_of(&r)).filter(|a| !a.is_empty()).collect();
     let analytes: Vec<String> = analytes.into_iter().collect();
     let analyte = match (&options.analyte, &analytes[..]) {
         (Some(wanted), _) if analytes.contains(&wanted.value) => Some(wanted.value.clone()),
@@ -405,7 +405,7 @@ pub fn parse_adppk(table: &Table, options: &AdppkOptions) -> Result<Adppk, Vec<I
     // Per subject: its slot in `covariates`, and the line each covariate was first read on.
     let mut cov_slot: HashMap<String, (usize, HashMap<String, u64>)> = HashMap::new();
     let mut study_ids: HashMap<String, String> = HashMap::new();
-    let mut first_line_of: HashMap<&Fields, u64> = HashMap::new();
+    let mut first_line_of: HashMap<Fields, u64> = HashMap::new();
     let mut level_at: HashMap<(String, u64), u64> = HashMap::new();
     let mut units: BTreeSet<String> = BTreeSet::new();
     let (mut not_used, mut other_analyte) = (Vec::new(), Vec::new());
@@ -417,22 +417,22 @@ pub fn parse_adppk(table: &Table, options: &AdppkOptions) -> Result<Adppk, Vec<I
             errors.push(row.error(src, None, format!("this row repeats line {first}")));
             continue;
         }
-        first_line_of.insert(&row.fields, row.line);
+        first_line_of.insert(row.fields, row.line);
         let id = row.text(subject).to_string();
         if id.is_empty() {
             errors.push(row.error(src, Some(subject), "expected a subject identifier, found an empty field"));
             continue;
         }
-        let Some(dose_row) = errors_take(&mut errors, event(row, src, evid)) else { continue };
+        let Some(dose_row) = errors_take(&mut errors, event(&row, src, evid)) else { continue };
         let t = errors_take(&mut errors, row.number(src, time));
-        read_covariates(row, src, &id, &cols, &mut covariates, &mut cov_slot, &mut errors);
+        read_covariates(&row, src, &id, &cols, &mut covariates, &mut cov_slot, &mut errors);
         if let Some(study) = &cols.study
             && !row.text(study).is_empty()
         {
             study_ids.entry(id.clone()).or_insert_with(|| row.text(study).to_string());
         }
         if dose_row {
-            let dose = read_dose(row, src, &cols, &mut errors);
+            let dose = read_dose(&row, src, &cols, &mut errors);
             let (Some(t), Some(dose), true) = (t, dose, errors.len() == before) else { continue };
             expanded += 1;
             if let Err(m) = crate::limits::check_doses(expanded) {
@@ -446,19 +446,19 @@ pub fn parse_adppk(table: &Table, options: &AdppkOptions) -> Result<Adppk, Vec<I
             doses[slot].1.push(Dose { time_h: t, ..dose });
             continue;
         }
-        if analyte.as_ref().is_some_and(|a| *a != analyte_of(row)) {
+        if analyte.as_ref().is_some_and(|a| *a != analyte_of(&row)) {
             other_analyte.push(row.line);
             continue;
         }
         let mdv = match &cols.mdv {
-            Some(c) => errors_take(&mut errors, flag01(row, src, c, "MDV")),
+            Some(c) => errors_take(&mut errors, flag01(&row, src, c, "MDV")),
             None => Some(None),
         };
         if mdv == Some(Some(true)) {
             not_used.push(row.line);
             continue;
         }
-        let level = read_level(row, src, &cols, &mut units, &mut errors);
+        let level = read_level(&row, src, &cols, &mut units, &mut errors);
         let (Some(t), Some((conc_mg_l, lloq_mg_l)), true) = (t, level, errors.len() == before) else {
             continue;
         };

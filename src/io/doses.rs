@@ -132,7 +132,7 @@ pub fn parse_doses(table: &Table) -> Result<DoseFile, Vec<InputError>> {
             ));
         }
         let repeat = match (&every, &count) {
-            (Some(e), Some(c)) => repeat_of(row, src, e, c).map_err(|e| errors.push(e)).ok(),
+            (Some(e), Some(c)) => repeat_of(&row, src, e, c).map_err(|e| errors.push(e)).ok(),
             _ => Some(None),
         };
         let (Some(t), Some(a), Some(d), Some(r), Some(repeat)) = (t, a, d, r, repeat) else {

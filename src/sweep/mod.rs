@@ -28,10 +28,15 @@ use state::{RowsWritten, Setup, Shard, SweepState, Tally};
 use std::io::Write;
 use std::ops::Range;
 
-/// Subject-regimen evaluations per chunk: bounds the memory held between writes (the
-/// per-subject rows when asked for, about 135 bytes per evaluation; otherwise about 56 bytes
-/// per subject and dosing shape).
-const CHUNK_EVALUATIONS: usize = 1 << 16;
+/// Subject-regimen evaluations per chunk without per-subject rows (about 56 bytes held per
+/// subject and dosing shape). Each regimen's sketches take in a chunk's values at once, so their
+/// counters come into the cache once per chunk: larger chunks than with rows pay that less often
+/// (a sweep of 100 regimens took 10–15 % less time than with 1 << 16; 1 << 22 was slower again).
+const CHUNK_EVALUATIONS: usize = 1 << 18;
+
+/// Subject-regimen evaluations per chunk with per-subject rows: bounds the memory held between
+/// writes (the rows, about 135 bytes per evaluation).
+const CHUNK_EVALUATIONS_WITH_ROWS: usize = 1 << 16;
 
 /// The tasks each chunk's subjects are split into: each evaluates its subjects in order and
 /// writes their rows with one CSV writer, and there are enough of them to keep every thread
@@ -459,7 +464,8 @@ impl Sweep<'_> {
             w.row(PER_SUBJECT_HEADER.split(',')).map_err(io_failure)?;
             w.finish().map_err(io_failure)?;
         }
-        let chunk = (CHUNK_EVALUATIONS / regimens.max(1)).max(1) as u64;
+        let evaluations = if rows { CHUNK_EVALUATIONS_WITH_ROWS } else { CHUNK_EVALUATIONS };
+        let chunk = (evaluations / regimens.max(1)).max(1) as u64;
         let mut start = span.start;
         while start < span.end {
             let end = span.end.min(start + chunk);
@@ -497,19 +503,18 @@ mod tests {
     use crate::engine::Params;
     use crate::plan::candidates::{Durations, grid};
     use crate::plan::targets::parse_target;
+    use crate::sweep::population::ParamRows;
 
     /// The tallies' own verdicts, from the steady state, are those of `judge`, which decides
     /// the per-subject rows: the same sweep counts the same with rows and without.
     #[test]
     fn verdicts_from_the_steady_state_are_those_of_judge() {
-        let rows = (0..700)
-            .map(|i| {
-                let x = f64::from(i);
-                let (cl_l_h, v_l) =
-                    (1.0 + 8.0 * (0.37 * x).sin().abs(), 20.0 + 60.0 * (0.11 * x).cos().abs());
-                (format!("s{i}"), Params { cl_l_h, v_l, ka_per_h: None, f: 1.0, tlag_h: 0.0 })
-            })
-            .collect();
+        let mut rows = ParamRows::default();
+        for i in 0..700 {
+            let x = f64::from(i);
+            let (cl_l_h, v_l) = (1.0 + 8.0 * (0.37 * x).sin().abs(), 20.0 + 60.0 * (0.11 * x).cos().abs());
+            rows.push(&format!("s{i}"), Params { cl_l_h, v_l, ka_per_h: None, f: 1.0, tlag_h: 0.0 });
+        }
         let population = Population::from_params(rows);
         let candidates = grid(
             &[250.0, 500.0, 1000.0, 2000.0],

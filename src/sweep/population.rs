@@ -19,6 +19,7 @@ use crate::units::Kind;
 use rand::rngs::StdRng;
 use rand::{Rng, RngExt, SeedableRng};
 use statrs::distribution::{ContinuousCDF, Normal};
+use std::fmt::Write as _;
 
 /// The smallest share of a distribution a truncation range may keep.
 const MIN_KEPT: f64 = 1e-3;
@@ -234,8 +235,40 @@ enum Source {
     Table(ParamRows),
 }
 
-/// Subjects given by their parameters: (subject id, parameters) in order.
-pub type ParamRows = Vec<(String, Params)>;
+/// Subjects given by their parameters, in order: the ids in one text, so that a table of
+/// hundreds of thousands of subjects is read without an allocation per subject.
+#[derive(Debug, Clone, Default)]
+pub struct ParamRows {
+    ids: String,
+    /// Where each id ends in `ids`.
+    ends: Vec<usize>,
+    params: Vec<Params>,
+}
+
+impl ParamRows {
+    /// Add a subject.
+    pub fn push(&mut self, id: &str, params: Params) {
+        self.ids.push_str(id);
+        self.ends.push(self.ids.len());
+        self.params.push(params);
+    }
+
+    /// The number of subjects.
+    pub fn len(&self) -> usize {
+        self.params.len()
+    }
+
+    /// No subjects.
+    pub fn is_empty(&self) -> bool {
+        self.params.is_empty()
+    }
+
+    /// Subject `i` (from 0): its id and parameters.
+    pub fn get(&self, i: usize) -> Option<(&str, Params)> {
+        let start = if i == 0 { 0 } else { self.ends[i - 1] };
+        Some((&self.ids[start..*self.ends.get(i)?], *self.params.get(i)?))
+    }
+}
 
 /// A virtual population.
 #[derive(Debug, Clone)]
@@ -302,7 +335,7 @@ impl Population {
                 let (id, params) = rows.get(index as usize).ok_or_else(|| {
                     format!("subject {} is beyond the table's {} rows", index + 1, rows.len())
                 })?;
-                return Ok(Subject { params: *params, origin: Some(id) });
+                return Ok(Subject { params, origin: Some(id) });
             }
             Source::Model { model, covariates } => (model, covariates),
         };
@@ -387,15 +420,21 @@ pub fn parse_params(
     }
     let subject = table.subject_column().map_err(|e| vec![e])?;
     let converged = table.column("converged");
-    let mut rows = Vec::new();
+    let mut rows = ParamRows::default();
     let mut left_out = Vec::new();
+    // The id of a row without one, `row N`, made in a reused string.
+    let mut numbered = String::new();
     for (n, row) in table.rows.iter().enumerate() {
         let id = match &subject {
-            Some(c) if !row.text(c).is_empty() => row.text(c).to_string(),
-            _ => format!("row {}", n + 1),
+            Some(c) if !row.text(c).is_empty() => row.text(c),
+            _ => {
+                numbered.clear();
+                let _ = write!(numbered, "row {}", n + 1);
+                &numbered
+            }
         };
         if converged.as_ref().is_some_and(|c| row.text(c).eq_ignore_ascii_case("false")) {
-            left_out.push(id);
+            left_out.push(id.to_string());
             continue;
         }
         let mut positive = |c: &Column| match row.number(src, c) {
@@ -415,7 +454,7 @@ pub fn parse_params(
             _ => Some(None),
         };
         if let (Some(cl_l_h), Some(v_l), Some(ka_per_h)) = (cl_l_h, v_l, ka_per_h) {
-            rows.push((id, Params { cl_l_h, v_l, ka_per_h, f, tlag_h }));
+            rows.push(id, Params { cl_l_h, v_l, ka_per_h, f, tlag_h });
         }
     }
     if !errors.is_empty() {

@@ -73,8 +73,8 @@ pub fn population(spec: &Spec, source: &Source, oral: bool) -> Result<VirtualPop
     match source {
         Source::Params { path, f, tlag_h } => {
             let file = text(&path.value);
-            let bytes = std::fs::read(&path.value)
-                .map_err(|e| InputError::in_file(&file, format!("cannot read the file: {e}")))?;
+            // Read once: the fingerprint is of the bytes parsed (a pipe cannot be read twice).
+            let bytes = input::read(&path.value)?;
             if bytes.trim_ascii_start().starts_with(b"{") {
                 return Err(InputError::in_file(
                     &file,
@@ -85,7 +85,7 @@ pub fn population(spec: &Spec, source: &Source, oral: bool) -> Result<VirtualPop
             }
             let (rows, notes) = parse_params(&Table::parse(&file, &bytes)?, oral, *f, *tlag_h)?;
             let described = json!({
-                "params": fingerprint(&path.value)?,
+                "params": sha256_hex(&bytes),
                 "f": full(*f),
                 "tlag_h": full(*tlag_h),
             });

@@ -741,6 +741,7 @@ fn catalog() -> Vec<Bad> {
         bad(&model(&format!("--subjects 10 {grid} --draw weight_kg=normal:70")), "--draw: 'normal' takes 2 parameters"),
         bad("sweep --model plain.toml --subjects 10 --amounts 500 --every 8h --route oral --target auc24=1..", "plain.toml: oral candidates need an [absorption] table"),
         bad(&format!("sweep --params pool.csv {grid}"), "pool.csv: line 1: a parameters file needs a clearance column"),
+        bad(&format!("sweep --params /dev/zero {grid}"), "/dev/zero: this is a device, not a file"),
         bad(&format!("sweep --model model.toml --params pool.csv {grid}"), "cannot be used with"),
     ]
 }
