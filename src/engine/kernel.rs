@@ -64,9 +64,14 @@ fn min_max<R: Real>(a: R, b: R) -> (R, R) {
 
 /// G(t) = (e^(−k t) − e^(−ka t))/(ka − k): the central amount at t per unit of ka·D0.
 pub fn depot_to_central<R: Real>(k: R, ka: R, t: f64) -> R {
+    let (m, _) = min_max(k, ka);
+    depot_to_central_from(k, ka, t, (m * -t).exp())
+}
+
+/// G(t) given `e_min` = e^(−m t), m = min(k, ka).
+fn depot_to_central_from<R: Real>(k: R, ka: R, t: f64, e_min: R) -> R {
     let (m, big) = min_max(k, ka);
-    let delta = big - m;
-    (m * -t).exp() * phi1(delta * t) * t
+    e_min * phi1((big - m) * t) * t
 }
 
 /// H(t) = ∫₀ᵗ G(s) ds: the central-amount integral per unit of ka·D0.
@@ -187,39 +192,37 @@ impl<R: Real> Propagator<R> {
             let h = *self.h.get_or_insert_with(|| depot_to_central_integral(rates.k, rates.ka, t));
             integral += rates.ka * state.depot * h;
         }
-        let (g, ea) = (&mut self.g, &mut self.ea);
-        let next = advance(state, rates.ka, e, infused, || {
-            let g = *g.get_or_insert_with(|| depot_to_central(rates.k, rates.ka, t));
-            (g, *ea.get_or_insert_with(|| (rates.ka * -t).exp()))
-        });
+        let next = advance(state, rates.ka, e, infused, || self.absorption(rates));
         (next, integral)
     }
 
-    /// This step without the integral, under the constant infusion rate `rate` and with drug in
-    /// the depot or not (`depot`), its factors computed now: for a loop that takes it many
-    /// times ([`Walker::glide`](super::Walker::glide)).
-    pub fn prediction(self, rates: Rates<R>, rate: f64, depot: bool) -> Prediction<R> {
-        let factors = self.factors(rates, rate != 0.0, depot);
-        Prediction {
-            factors,
-            infused: (rate != 0.0).then(|| factors.p1 * (rate * self.t)),
-            ka: if depot { rates.ka } else { R::cst(0.0) },
-        }
+    /// G(t) and e^(−ka t), computed when first needed and kept. G's exponential
+    /// e^(−min(k, ka)·t) is e^(−k t) or e^(−ka t), which the step has anyway (k·(−t) is
+    /// −(k·t) exactly), so it is not computed again.
+    fn absorption(&mut self, rates: Rates<R>) -> (R, R) {
+        let (t, e) = (self.t, self.e);
+        let ea = *self.ea.get_or_insert_with(|| (rates.ka * -t).exp());
+        let g = *self.g.get_or_insert_with(|| {
+            let e_min = if rates.k.val() <= rates.ka.val() { e } else { ea };
+            depot_to_central_from(rates.k, rates.ka, t, e_min)
+        });
+        (g, ea)
     }
 
     /// The factors of this step, all computed now: φ1 when an infusion may run over it
     /// (`infusing`), G and e^(−ka t) when the depot may hold drug (`absorbing`); the others
-    /// are left at zero, unused.
+    /// are left at zero, unused. They are kept, as [`Propagator::apply`] keeps those it
+    /// computes, for the next time.
     #[inline(always)]
-    pub fn factors(mut self, rates: Rates<R>, infusing: bool, absorbing: bool) -> Factors<R> {
+    pub fn factors(&mut self, rates: Rates<R>, infusing: bool, absorbing: bool) -> Factors<R> {
         let zero = R::cst(0.0);
-        let mut factors = Factors { e: self.e, p1: zero, g: zero, ea: zero };
+        let (kt, e) = (self.kt, self.e);
+        let mut factors = Factors { e, p1: zero, g: zero, ea: zero };
         if infusing {
-            factors.p1 = *self.p1.get_or_insert_with(|| phi1_from(self.kt, self.e));
+            factors.p1 = *self.p1.get_or_insert_with(|| phi1_from(kt, e));
         }
         if absorbing {
-            factors.g = depot_to_central(rates.k, rates.ka, self.t);
-            factors.ea = (rates.ka * -self.t).exp();
+            (factors.g, factors.ea) = self.absorption(rates);
         }
         factors
     }
@@ -263,22 +266,107 @@ pub fn advance<R: Real>(
     State { central, depot }
 }
 
-/// A step without the integral, its factors ready ([`Propagator::prediction`]); plain
-/// numbers, so that a loop can pick one of two by index without a branch.
+/// Two steps without the integral, under one constant infusion rate and with drug in the depot
+/// or not, their factors ready: for a loop that takes one or the other at every interval
+/// ([`Walker::glide`](super::Walker::glide); a uniform grid's intervals take one of two lengths
+/// in floating point, irregularly).
+///
+/// The steps are placed by one bit of their lengths' binary forms in which the two differ: the
+/// same bit of an interval's length then says which of the two it can be, and one comparison
+/// whether it is. A loop so finds its step by index, without a branch that the irregular
+/// alternation of the lengths would mispredict, nor a choice between two values (which the
+/// compiler turns into such a branch).
 #[derive(Debug, Clone, Copy)]
-pub struct Prediction<R> {
-    factors: Factors<R>,
-    /// R·t·φ1(k t) when an infusion runs.
-    infused: Option<R>,
+pub struct Pair<R> {
+    /// The bit that tells the two lengths apart.
+    bit: u32,
+    /// At each place: the step's length (h), which of the two `steps` given it is, and its
+    /// factors: e^(−k t), R·t·φ1(k t) when an infusion runs, G(t) and e^(−ka t) when the depot
+    /// held drug (else unused zeros).
+    length: [f64; 2],
+    which: [usize; 2],
+    e: [R; 2],
+    infused: [R; 2],
+    g: [R; 2],
+    ea: [R; 2],
     /// ka when the depot held drug (else an unused zero).
     ka: R,
+    infusing: bool,
 }
 
-impl<R: Real> Prediction<R> {
-    /// Advance `state` by the step.
-    pub fn apply(&self, state: State<R>) -> State<R> {
-        let f = &self.factors;
-        advance(state, self.ka, f.e, self.infused, || (f.g, f.ea))
+impl<R: Real> Pair<R> {
+    /// The two `steps` (of different lengths) under the infusion rate `rate`, with drug in the
+    /// depot or not (`depot`).
+    pub fn new(steps: &mut [Propagator<R>; 2], rates: Rates<R>, rate: f64, depot: bool) -> Self {
+        let infusing = rate != 0.0;
+        let bits = [steps[0].t.to_bits(), steps[1].t.to_bits()];
+        debug_assert_ne!(bits[0], bits[1]);
+        let bit = (bits[0] ^ bits[1]).trailing_zeros().min(63);
+        // The step at place 0 is the one whose length has the bit clear.
+        let which = if (bits[0] >> bit) & 1 == 0 { [0, 1] } else { [1, 0] };
+        let f = which.map(|w| steps[w].factors(rates, infusing, depot));
+        let length = which.map(|w| steps[w].t);
+        let infused = |p: usize| if infusing { f[p].p1 * (rate * length[p]) } else { R::cst(0.0) };
+        Pair {
+            bit,
+            length,
+            which,
+            e: [f[0].e, f[1].e],
+            infused: [infused(0), infused(1)],
+            g: [f[0].g, f[1].g],
+            ea: [f[0].ea, f[1].ea],
+            ka: if depot { rates.ka } else { R::cst(0.0) },
+            infusing,
+        }
+    }
+
+    /// The place of the step for an interval of length `dt`, if it is one of the two.
+    #[inline(always)]
+    #[allow(clippy::float_cmp)] // the step of exactly that length, as `Propagator::is_for`
+    pub fn place(&self, dt: f64) -> Option<usize> {
+        let place = ((dt.to_bits() >> self.bit) & 1) as usize;
+        (self.length[place] == dt).then_some(place)
+    }
+
+    /// Which of the two steps given to [`Pair::new`] is at `place`.
+    pub fn which(&self, place: usize) -> usize {
+        self.which[place]
+    }
+
+    /// Whether an infusion runs over the steps.
+    pub fn infusing(&self) -> bool {
+        self.infusing
+    }
+
+    /// Advance `state` by the step at `place`.
+    pub fn apply(&self, state: State<R>, place: usize) -> State<R> {
+        match (self.infusing, state.depot.val() != 0.0) {
+            (false, false) => self.apply_shaped::<false, false>(state, place),
+            (true, false) => self.apply_shaped::<true, false>(state, place),
+            (false, true) => self.apply_shaped::<false, true>(state, place),
+            (true, true) => self.apply_shaped::<true, true>(state, place),
+        }
+    }
+
+    /// [`Pair::apply`] knowing whether an infusion runs (`INFUSING`, as [`Pair::infusing`]
+    /// says) and whether the depot holds drug (`ABSORBING`, as `state.depot` must say): the
+    /// arithmetic of [`advance`] without its tests, so that a loop written for one shape does
+    /// only that shape's arithmetic.
+    #[inline(always)]
+    pub fn apply_shaped<const INFUSING: bool, const ABSORBING: bool>(
+        &self,
+        state: State<R>,
+        place: usize,
+    ) -> State<R> {
+        let mut central = state.central * self.e[place];
+        if INFUSING {
+            central += self.infused[place];
+        }
+        if ABSORBING {
+            central += self.ka * state.depot * self.g[place];
+            return State { central, depot: state.depot * self.ea[place] };
+        }
+        State { central, depot: state.depot }
     }
 }
 

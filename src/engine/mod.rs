@@ -33,7 +33,7 @@ pub(crate) mod strategies {
 
 use crate::dosing::{Dose, Route};
 use crate::error::InputError;
-use kernel::{Propagator, Rates, State};
+use kernel::{Pair, Propagator, Rates, State};
 use scalar::Real;
 use serde::{Deserialize, Serialize};
 
@@ -286,10 +286,27 @@ impl<'a> Clock<'a> {
         self.chained += 1;
         let from_anchor = (self.chained >= REANCHOR_EVERY).then(|| {
             self.chained = 0;
-            to - self.anchor_time
+            self.span_since_anchor(to)
         });
         self.time = to;
         from_anchor
+    }
+
+    /// The span from the last event (or the start) to `to`.
+    fn span_since_anchor(&self, to: f64) -> f64 {
+        to - self.anchor_time
+    }
+
+    /// How many steps can be taken before the state is due to be taken afresh.
+    fn plain_steps(&self) -> usize {
+        (REANCHOR_EVERY - 1 - self.chained) as usize
+    }
+
+    /// The clock after `steps` steps (no more than [`Clock::plain_steps`]) ending at `to`.
+    fn moved_plainly(&mut self, to: f64, steps: usize) {
+        debug_assert!(steps <= self.plain_steps());
+        self.chained += steps as u32;
+        self.time = to;
     }
 
     /// Take the next event: its effect on the infusion rate, and the anchor moves to it.
@@ -396,41 +413,114 @@ impl<'a, R: Real> Walker<'a, R> {
     }
 
     /// Walk on along `times` (ascending, none before the current time) while no event comes
-    /// and each interval has the length of one of the two steps kept, handing each
-    /// concentration to `each`; returns how many times were walked. On a uniform grid this is
-    /// the whole stretch between two events, walked with the arithmetic of [`Walker::run_to`]
-    /// (the same steps, re-anchored as often) but without its event look-up and step choice at
-    /// every point: the steps' factors are made ready once for the stretch. Predictions only
-    /// (no integral).
-    fn glide(&mut self, times: &[f64], each: &mut impl FnMut(R)) -> usize {
+    /// and each interval has the length of one of the two steps kept, writing each
+    /// concentration to the same place in `out`; returns how many times were walked. On a
+    /// uniform grid this is the whole stretch between two events, walked with the arithmetic of
+    /// [`Walker::run_to`] (the same steps, re-anchored as often) but without its event look-up
+    /// and step choice at every point: the two steps' factors are made ready once for the
+    /// stretch ([`Pair`]), and the runs of points between two re-anchorings go through the
+    /// tight loop of [`walk_runs`], two runs at a time. Predictions only (no integral).
+    fn glide(&mut self, times: &[f64], out: &mut [R]) -> usize {
         debug_assert!(!self.integrate);
         let until = self.clock.events.get(self.clock.next).map_or(f64::INFINITY, |e| e.0);
-        // The slot of the step from `time` to `t`, if `t` comes before the next event; chosen
-        // without a branch, as a grid's two lengths alternate irregularly.
-        let slot_for = |steps: &[Propagator<R>; 2], time: f64, t: f64| {
-            let dt = t - time;
-            let fits = steps.map(|s| s.is_for(dt));
-            (t < until && (fits[0] | fits[1])).then_some(usize::from(fits[1]))
-        };
-        if times.first().and_then(|&t| slot_for(&self.steps, self.clock.time, t)).is_none() {
+        let time = self.clock.time;
+        if !times.first().is_some_and(|&t| t < until && self.steps.iter().any(|s| s.is_for(t - time))) {
             return 0;
         }
         let rates = Rates { k: self.kin.k, ka: self.kin.ka };
-        let depot = self.state.depot.val() != 0.0;
         let rate = self.clock.rate();
-        let ready = self.steps.map(|step| step.prediction(rates, rate, depot));
+        let pair = Pair::new(&mut self.steps, rates, rate, self.state.depot.val() != 0.0);
+        let v = self.kin.v;
+        let full = REANCHOR_EVERY as usize - 1;
         let mut walked = 0;
-        for &t in times {
-            let Some(slot) = slot_for(&self.steps, self.clock.time, t) else { break };
-            self.state = match self.clock.move_to(t) {
-                Some(span) => kernel::step(self.anchor, rates, rate, span, false).0,
-                None => ready[slot].apply(self.state),
+        // The state taken afresh where this run ends, if it comes there; computed a run ahead.
+        let mut ahead = self.afresh_at(&pair, times, self.clock.plain_steps(), until, rates, rate);
+        loop {
+            // This run: the points before the next re-anchoring and the next event, from the
+            // current state. Then, if this run reaches it, the point where the state is taken
+            // afresh, and the next run from there, which does not depend on this one: the two
+            // are walked side by side, two chains of steps in flight at once. The states taken
+            // afresh are computed a run ahead, so that their exponentials run beside the walk.
+            let this = self.run_from(times, walked, self.clock.plain_steps(), until);
+            let next = ahead.take().filter(|n| n.at == walked + this.len());
+            let after = next.map_or(times.len(), |n| n.at + 1);
+            let next_run = self.run_from(times, after, full, until);
+            let then = if next_run.len() == full {
+                self.afresh_at(&pair, times, after + full, until, rates, rate)
+            } else {
+                None
             };
-            self.last = slot;
-            each(self.concentration());
+            ahead = then.and_then(|n| self.afresh_at(&pair, times, n.at + 1 + full, until, rates, rate));
+            let (out_this, rest) = out[walked..].split_at_mut(this.len());
+            let mut a = Run::new(self.state, self.clock.time, this, out_this);
+            let (out_at, mut b) = match (next, rest.split_first_mut()) {
+                (Some(n), Some((out_at, rest))) => {
+                    let out_run = &mut rest[..next_run.len()];
+                    (Some(out_at), Some(Run::new(n.state, n.time, next_run, out_run)))
+                }
+                _ => (None, None),
+            };
+            walk_runs(&pair, &mut a, b.as_mut(), v);
+            walked += self.take_run(&pair, &a);
+            let (Some(next), Some(out_at), Some(b)) = (next, out_at, b) else { return walked };
+            if a.walked < this.len() {
+                return walked;
+            }
+            self.take_afresh(&pair, next, out_at);
+            walked += 1 + self.take_run(&pair, &b);
+            let Some(then) = then.filter(|_| b.walked == next_run.len()) else { return walked };
+            self.take_afresh(&pair, then, &mut out[walked]);
             walked += 1;
         }
-        walked
+    }
+
+    /// The times from `from` on, at most `most`, that come before `until`.
+    fn run_from<'t>(&self, times: &'t [f64], from: usize, most: usize, until: f64) -> &'t [f64] {
+        let run = &times[from..times.len().min(from + most)];
+        match run.last() {
+            Some(&t) if t >= until => &run[..run.partition_point(|&t| t < until)],
+            _ => run,
+        }
+    }
+
+    /// The time at `at` and the state there taken afresh from the last event, if it comes
+    /// before `until` after an interval of one of `pair`'s lengths (from the time before it, or
+    /// the clock's); the clock re-anchors there when a run reaches it.
+    fn afresh_at(
+        &self,
+        pair: &Pair<R>,
+        times: &[f64],
+        at: usize,
+        until: f64,
+        rates: Rates<R>,
+        rate: f64,
+    ) -> Option<Afresh<R>> {
+        let time = *times.get(at).filter(|&&t| t < until)?;
+        let before = at.checked_sub(1).map_or(self.clock.time, |i| times[i]);
+        let place = pair.place(time - before)?;
+        let state = kernel::step(self.anchor, rates, rate, self.clock.span_since_anchor(time), false).0;
+        Some(Afresh { at, time, state, place })
+    }
+
+    /// Take the walked part of `run` (the plain steps since the clock's time).
+    fn take_run(&mut self, pair: &Pair<R>, run: &Run<R>) -> usize {
+        if run.walked > 0 {
+            self.state = run.state;
+            self.last = pair.which(run.last);
+            self.clock.moved_plainly(run.time, run.walked);
+        }
+        run.walked
+    }
+
+    /// Take the point `at` (the step there from the clock's time), where the clock re-anchors;
+    /// its concentration goes to `out`.
+    fn take_afresh(&mut self, pair: &Pair<R>, at: Afresh<R>, out: &mut R) {
+        self.state = match self.clock.move_to(at.time) {
+            Some(_) => at.state,
+            None => pair.apply(self.state, at.place),
+        };
+        self.last = pair.which(at.place);
+        *out = self.concentration();
     }
 
     /// Concentration at the current time (mg/L).
@@ -460,6 +550,110 @@ impl<'a, R: Real> Walker<'a, R> {
     }
 }
 
+/// A point of a walk where the clock re-anchors ([`Walker::glide`]): its index among the
+/// times, its time, the state there taken afresh and the place of the step to it.
+#[derive(Debug, Clone, Copy)]
+struct Afresh<R> {
+    at: usize,
+    time: f64,
+    state: State<R>,
+    place: usize,
+}
+
+/// A run of plain steps (no event, no re-anchoring) being walked: the state at `time` after
+/// `walked` of `times`, the place of the last step, each concentration written to `out`.
+struct Run<'a, R> {
+    start: State<R>,
+    start_time: f64,
+    state: State<R>,
+    time: f64,
+    times: &'a [f64],
+    out: &'a mut [R],
+    walked: usize,
+    last: usize,
+}
+
+impl<'a, R: Real> Run<'a, R> {
+    fn new(state: State<R>, time: f64, times: &'a [f64], out: &'a mut [R]) -> Self {
+        Run { start: state, start_time: time, state, time, times, out, walked: 0, last: 0 }
+    }
+
+    /// Walk on alone while each interval has the length of one of `pair`'s steps.
+    #[inline(always)]
+    fn walk(&mut self, pair: &Pair<R>, v: R, step: impl Fn(State<R>, usize) -> State<R>) {
+        let (mut state, mut time, mut walked, mut last) = (self.state, self.time, self.walked, self.last);
+        for (&t, c) in self.times[walked..].iter().zip(&mut self.out[walked..]) {
+            let Some(place) = pair.place(t - time) else { break };
+            state = step(state, place);
+            *c = state.central / v;
+            (time, walked, last) = (t, walked + 1, place);
+        }
+        (self.state, self.time, self.walked, self.last) = (state, time, walked, last);
+    }
+
+    /// Walk again from the start to where the run got, telling the shape at every step: the
+    /// depot held drug at the start but ran out (decayed to zero, which stays zero) on the
+    /// way, so some steps of the absorbing shape had the wrong one.
+    fn walk_again_if_emptied(&mut self, pair: &Pair<R>, v: R) {
+        if self.start.depot.val() != 0.0 && self.state.depot.val() == 0.0 {
+            let walked = self.walked;
+            (self.state, self.time, self.walked) = (self.start, self.start_time, 0);
+            self.times = &self.times[..walked];
+            self.walk(pair, v, |s, p| pair.apply(s, p));
+        }
+    }
+}
+
+/// Walk run `a`, and run `b` (the next, from a state of its own) beside it while both go on,
+/// with `pair`'s steps, written out for the runs' shape ([`Pair::apply_shaped`]: an infusion
+/// running or not, drug in the depot or not), which no step within a run changes. Two chains
+/// of steps are in flight at once, so the walk is not held to the latency of one; `b` stops
+/// where either stops (what lies beyond in `b` counts only if `a` is walked to its end).
+fn walk_runs<R: Real>(pair: &Pair<R>, a: &mut Run<R>, b: Option<&mut Run<R>>, v: R) {
+    let depot = |run: &Run<R>| run.start.depot.val() != 0.0;
+    match (pair.infusing(), depot(a), b.as_ref().map_or(depot(a), |b| depot(b))) {
+        (false, false, false) => walk_shaped(pair, a, b, v, |s, p| pair.apply_shaped::<false, false>(s, p)),
+        (true, false, false) => walk_shaped(pair, a, b, v, |s, p| pair.apply_shaped::<true, false>(s, p)),
+        (false, true, true) => walk_shaped(pair, a, b, v, |s, p| pair.apply_shaped::<false, true>(s, p)),
+        (true, true, true) => walk_shaped(pair, a, b, v, |s, p| pair.apply_shaped::<true, true>(s, p)),
+        _ => walk_shaped(pair, a, b, v, |s, p| pair.apply(s, p)),
+    }
+}
+
+/// [`walk_runs`] with the steps of one shape.
+#[inline(always)]
+fn walk_shaped<R: Real>(
+    pair: &Pair<R>,
+    a: &mut Run<R>,
+    b: Option<&mut Run<R>>,
+    v: R,
+    step: impl Fn(State<R>, usize) -> State<R> + Copy,
+) {
+    let Some(b) = b else {
+        a.walk(pair, v, step);
+        a.walk_again_if_emptied(pair, v);
+        return;
+    };
+    let both = a.times.len().min(b.times.len());
+    let (mut x, mut y) = ((a.state, a.time, a.last), (b.state, b.time, b.last));
+    let mut walked = 0;
+    let outs = a.out[..both].iter_mut().zip(&mut b.out[..both]);
+    for ((&s, &t), (c, d)) in a.times[..both].iter().zip(&b.times[..both]).zip(outs) {
+        let (Some(p), Some(q)) = (pair.place(s - x.1), pair.place(t - y.1)) else { break };
+        (x.0, y.0) = (step(x.0, p), step(y.0, q));
+        (*c, *d) = (x.0.central / v, y.0.central / v);
+        (x.1, x.2, y.1, y.2, walked) = (s, p, t, q, walked + 1);
+    }
+    ((a.state, a.time, a.last), (b.state, b.time, b.last)) = (x, y);
+    (a.walked, b.walked) = (walked, walked);
+    a.walk(pair, v, step);
+    if a.walked == a.times.len() {
+        b.walk(pair, v, step);
+    }
+    a.walk_again_if_emptied(pair, v);
+    b.walk_again_if_emptied(pair, v);
+}
+
 /// Concentrations (mg/L) at `times` (any order) for a dose history.
 ///
 /// The caller validates `params` against `doses` first ([`Params::validate`]).
@@ -483,9 +677,8 @@ pub fn concentrations(params: &Params, doses: &[Dose], times: &[f64]) -> Vec<f64
 /// [`concentrations`] in any number type (used with [`scalar::Dual`] for exact gradients).
 pub(crate) fn concentrations_with<R: Real>(kin: Kinetics<R>, doses: &[Dose], times: &[f64]) -> Vec<R> {
     let events = Events::new(doses, kin.tlag_h);
-    if times.is_sorted_by(|a, b| a <= b) {
-        let mut out = vec![R::cst(0.0); times.len()];
-        predict(kin, &events, times, &mut out);
+    let mut out = vec![R::cst(0.0); times.len()];
+    if predict(kin, &events, times, &mut out) {
         return out;
     }
     let mut order: Vec<usize> = (0..times.len()).collect();
@@ -493,39 +686,30 @@ pub(crate) fn concentrations_with<R: Real>(kin: Kinetics<R>, doses: &[Dose], tim
     let sorted: Vec<f64> = order.iter().map(|&i| times[i]).collect();
     let mut values = vec![R::cst(0.0); times.len()];
     predict(kin, &events, &sorted, &mut values);
-    let mut out = vec![R::cst(0.0); times.len()];
     for (i, v) in order.into_iter().zip(values) {
         out[i] = v;
     }
     out
 }
 
-/// Concentrations at ascending `times` into `out`, for an event list built once and reused
-/// (the fitter evaluates the same history many times).
-pub(crate) fn predict<R: Real>(kin: Kinetics<R>, events: &Events, times: &[f64], out: &mut [R]) {
-    let mut slots = out.iter_mut();
-    predict_each(kin, events, times, |c| {
-        if let Some(slot) = slots.next() {
-            *slot = c;
-        }
-    });
-}
-
-/// The concentration at each of the ascending `times`, handed to `each` in order: an objective
-/// sums its terms as they come, without a vector per evaluation.
-pub(crate) fn predict_each<R: Real>(
-    kin: Kinetics<R>,
-    events: &Events,
-    times: &[f64],
-    mut each: impl FnMut(R),
-) {
+/// Concentrations at `times` into `out` (as long), for an event list built once; `false` (with
+/// `out` unfinished) when the times do not ascend, equal neighbours allowed (a NaN does not
+/// ascend). The walk tells it as it goes: a step of the grid loop has a positive length, and
+/// the other times are compared with the one before.
+pub(crate) fn predict<R: Real>(kin: Kinetics<R>, events: &Events, times: &[f64], out: &mut [R]) -> bool {
+    debug_assert_eq!(times.len(), out.len());
     let mut walker = Walker::new(kin, events, events.walk_start(times)).without_auc();
-    let mut rest = times;
-    while let Some((&t, after)) = rest.split_first() {
+    let mut at = 0;
+    while let Some(&t) = times.get(at) {
+        if at > 0 && times[at - 1].partial_cmp(&t).is_none_or(std::cmp::Ordering::is_gt) {
+            return false;
+        }
         walker.run_to(t);
-        each(walker.concentration());
-        rest = &after[walker.glide(after, &mut each)..];
+        out[at] = walker.concentration();
+        at += 1;
+        at += walker.glide(&times[at..], &mut out[at..]);
     }
+    true
 }
 
 /// Exact AUC (mg·h/L) of the concentration curve from `t0` to `t1` (t0 ≤ t1).
@@ -593,6 +777,22 @@ mod tests {
                     "point {i} (t = {} h): grid walk {got}, fresh walk {fresh} (relative {:e})",
                     grid[i], (got / fresh - 1.0).abs()
                 );
+            }
+        }
+
+        /// The grid loop (two runs walked side by side, each in its shape, the states taken
+        /// afresh computed ahead) against the walker moving to each time in turn with
+        /// [`Walker::run_to`], the step-by-step walk it stands for: the same values bit for bit,
+        /// at every point (depots that run out on the way, infusions and ka = k included).
+        #[test]
+        fn the_grid_loop_gives_the_step_by_step_walks_values_exactly((p, doses, grid) in case()) {
+            let events = Events::new(&doses, p.tlag_h);
+            let mut walker = Walker::new(Kinetics::from(&p), &events, events.walk_start(&grid)).without_auc();
+            let walked = concentrations(&p, &doses, &grid);
+            for (i, (&t, got)) in grid.iter().zip(&walked).enumerate() {
+                walker.run_to(t);
+                let step = walker.concentration();
+                prop_assert!(got.to_bits() == step.to_bits(), "point {i} (t = {t} h): grid loop {got}, step by step {step}");
             }
         }
     }

@@ -10,7 +10,7 @@
 //! then makes the walker's state updates in the walker's order with the walker's arithmetic
 //! ([`Propagator`]'s factors and [`advance`], or what `advance` reduces to where no infusion
 //! runs or the depot is empty): the concentrations are bit for bit those of
-//! [`super::predict_each`].
+//! [`super::predict`].
 
 use super::kernel::{Factors, Propagator, Rates, State, advance};
 use super::scalar::Real;
@@ -63,7 +63,7 @@ pub(crate) struct Schedule {
 
 impl Schedule {
     /// Record the walk through `events` to the ascending `times`, as
-    /// [`super::predict_each`] makes it.
+    /// [`super::predict`] makes it.
     pub fn new(events: &Events, times: &[f64]) -> Self {
         let start = events.walk_start(times);
         let mut clock = Clock::new(events.from(start), start);
@@ -303,7 +303,7 @@ impl<const LANES: usize, E: FnMut([f64; LANES])> Carrier for Lanes<'_, LANES, E>
 mod tests {
     use super::*;
     use crate::dosing::{Dose, Route};
-    use crate::engine::predict_each;
+    use crate::engine::predict;
     use crate::engine::scalar::Dual;
     use proptest::prelude::*;
     use proptest::test_runner::RngSeed;
@@ -361,15 +361,15 @@ mod tests {
         fn the_schedule_gives_the_walkers_values_exactly((kin, doses, times) in case()) {
             let events = Events::new(&doses, kin.tlag_h);
             let schedule = Schedule::new(&events, &times);
-            let (mut general, mut recorded) = (Vec::new(), Vec::new());
-            predict_each(kin, &events, &times, |c| general.push(c));
+            let (mut general, mut recorded) = (vec![0.0; times.len()], Vec::new());
+            prop_assert!(predict(kin, &events, &times, &mut general));
             schedule.run(kin, |c| recorded.push(c));
             prop_assert_eq!(general.len(), times.len());
             for (i, (g, r)) in general.iter().zip(&recorded).enumerate() {
                 prop_assert!(g.to_bits() == r.to_bits(), "time {} h: general {g}, schedule {r}", times[i]);
             }
-            let (mut general, mut recorded) = (Vec::new(), Vec::new());
-            predict_each(dual(&kin), &events, &times, |c| general.push(c));
+            let (mut general, mut recorded) = (vec![Dual::cst(0.0); times.len()], Vec::new());
+            prop_assert!(predict(dual(&kin), &events, &times, &mut general));
             schedule.run(dual(&kin), |c| recorded.push(c));
             prop_assert_eq!(general.len(), recorded.len());
             for (g, r) in general.iter().zip(&recorded) {
