@@ -7,7 +7,7 @@
 set -euo pipefail
 cd "$(dirname "${BASH_SOURCE[0]}")/.."
 
-cargo build --release --examples
+cargo build --release --bins --examples
 echo "load before: $(uptime)"
 
 echo "== fit (scripts/fit_side_by_side.py)"
