@@ -353,8 +353,11 @@ pub fn minimise(problem: &Problem, start: &[f64]) -> Optimum {
             .unwrap_or_else(|e| (point(start), 0, format!("solver error: {e}"))),
     };
     let (mut cost, mut gradient) = problem.cost_and_gradient(&theta[..n]);
-    if max_abs(&gradient[..n]) > 1e-2 {
-        // BFGS stopped far from a stationary point: try the derivative-free solver from there.
+    let mut hessian = problem.hessian(&theta[..n]);
+    if max_abs(&gradient[..n]) > 1e-2 || cholesky(&hessian, n).is_none() {
+        // BFGS stopped far from a stationary point, or where the curvature is not a minimum's
+        // (a small gradient on a flat slope: a least-squares objective weighted by 1/y² can be
+        // tiny everywhere): try the derivative-free solver from there.
         if let Ok((t, i, r)) = nelder_mead(problem, &theta[..n], &spent)
             && problem.cost(&t[..n]) <= cost
         {
@@ -362,11 +365,11 @@ pub fn minimise(problem: &Problem, start: &[f64]) -> Optimum {
             iterations += i;
             reason = r;
             (cost, gradient) = problem.cost_and_gradient(&theta[..n]);
+            hessian = problem.hessian(&theta[..n]);
         }
     }
     // Safeguarded Newton polish with the Hessian at the solver's optimum (near the optimum the
     // curvature hardly changes, so one Hessian serves every step and the Laplace covariance).
-    let mut hessian = problem.hessian(&theta[..n]);
     if let Some(l) = cholesky(&hessian, n) {
         let mut moved = false;
         for _ in 0..4 {

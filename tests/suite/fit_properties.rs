@@ -94,6 +94,29 @@ proptest! {
     }
 }
 
+/// A case the property test above found: two close levels of a slow drug, weighted by 1/y².
+/// The weighted objective is so small everywhere that BFGS's gradient test stopped it on the
+/// flat slope towards k → 0 (CL 0.011 L/h, half-life 11,900 h), where the curvature is not a
+/// minimum's; the derivative-free solver is now tried from such a point too.
+#[test]
+fn a_flat_slope_of_a_weighted_objective_is_not_taken_for_the_optimum() {
+    let (half_life, v, every) = (39.751528276289235, 157.07439491920024, 6.183781696197643);
+    let mut doses = infusions(1000.0, every, 5, 0.0);
+    doses.iter_mut().for_each(|d| d.route = Route::Bolus);
+    let last = doses.last().unwrap().time_h;
+    let times =
+        [last + 0.07770783343470494 * every, last + (0.07770783343470494 + 0.12443806229762748) * every];
+    let cl = std::f64::consts::LN_2 / half_life * v;
+    let truth = Params::iv(cl, v);
+    let s = subject(doses.clone(), levels_of(&truth, &doses, &times, &[1.0, 1.0]));
+    for w in weightings() {
+        let fit = fit_subject(&s, None, &options(Method::Wls, w), 1).unwrap();
+        assert!(fit.converged, "{w:?}: {:?}", fit.warnings);
+        assert!(rel_err(fit.estimates.cl_l_h.value, cl, 0.0) < 1e-7, "{w:?} CL {:?}", fit.estimates);
+        assert!(rel_err(fit.estimates.v_l.value, v, 0.0) < 1e-7, "{w:?} V {:?}", fit.estimates);
+    }
+}
+
 #[test]
 fn two_oral_levels_with_ka_fixed_are_fitted_exactly() {
     // With ka held fixed two oral levels may have more than one exact fit, so only the fit
