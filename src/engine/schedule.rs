@@ -127,7 +127,12 @@ impl Schedule {
         let unset = Factors { e: zero, p1: zero, g: zero, ea: zero };
         let mut on_stack = [unset; ON_STACK];
         let mut on_heap = Vec::new();
-        let factors = self.factors_space(&mut on_stack, &mut on_heap, unset);
+        let factors: &mut [Factors<R>] = if self.lengths.len() <= ON_STACK {
+            &mut on_stack[..self.lengths.len()]
+        } else {
+            on_heap.resize(self.lengths.len(), unset);
+            &mut on_heap
+        };
         for (f, l) in factors.iter_mut().zip(&self.lengths) {
             *f = l.factors(rates);
         }
@@ -154,21 +159,6 @@ impl Schedule {
         }
         let state = [State::empty(); LANES];
         self.walk(&mut Lanes { kin, factors, state, anchor: state, each });
-    }
-
-    /// Room for one `F` per distinct length: `on_stack` when it is long enough, else `on_heap`.
-    fn factors_space<'a, F: Copy>(
-        &self,
-        on_stack: &'a mut [F; ON_STACK],
-        on_heap: &'a mut Vec<F>,
-        unset: F,
-    ) -> &'a mut [F] {
-        if self.lengths.len() <= ON_STACK {
-            &mut on_stack[..self.lengths.len()]
-        } else {
-            on_heap.resize(self.lengths.len(), unset);
-            on_heap
-        }
     }
 
     /// Make the recorded moves on `carrier`.
@@ -226,6 +216,13 @@ fn step<R: Real>(from: State<R>, ka: R, f: &Factors<R>, infused: Option<f64>) ->
     advance(from, ka, f.e, infused.map(|x| f.p1 * x), || (f.g, f.ea))
 }
 
+/// The central amount after a step with an infusion running and the depot empty: what
+/// [`advance`] reduces to there.
+#[inline(always)]
+fn infuse<R: Real>(central: R, f: &Factors<R>, infused: f64) -> R {
+    central * f.e + f.p1 * infused
+}
+
 impl<R: Real, E: FnMut(R)> Carrier for One<'_, R, E> {
     #[inline(always)]
     fn step(&mut self, length: usize, infused: Option<f64>, from_anchor: bool) {
@@ -238,8 +235,7 @@ impl<R: Real, E: FnMut(R)> Carrier for One<'_, R, E> {
     }
     #[inline(always)]
     fn infuse(&mut self, length: usize, infused: f64) {
-        let f = &self.factors[length];
-        self.state.central = self.state.central * f.e + f.p1 * infused;
+        self.state.central = infuse(self.state.central, &self.factors[length], infused);
     }
     #[inline(always)]
     fn dose(&mut self, input: Input) {
@@ -280,7 +276,7 @@ impl<const LANES: usize, E: FnMut([f64; LANES])> Carrier for Lanes<'_, LANES, E>
     #[inline(always)]
     fn infuse(&mut self, length: usize, infused: f64) {
         for (s, f) in self.state.iter_mut().zip(&self.factors[length]) {
-            s.central = s.central * f.e + f.p1 * infused;
+            s.central = infuse(s.central, f, infused);
         }
     }
     #[inline(always)]
