@@ -419,8 +419,9 @@ fn from_draws(theta: &[f64], draws: &posterior::WeightedDraws, n: usize) -> Esti
     // CL, V and ka are the e^θ the sampler's objective computed.
     let parameter = |i: usize| -> Vec<f64> { draws.parameters.iter().map(|p| p[i]).collect() };
     let ln2 = std::f64::consts::LN_2;
-    // The half-life's values from k's, as ln 2 / k: one exponential per draw for both.
-    let k: Vec<f64> = draws.theta.iter().map(|t| (t[0] - t[1]).exp()).collect();
+    // k's values as CL/V from the draws' own CL and V (no exponential per draw), the
+    // half-life's as ln 2 / k.
+    let k: Vec<f64> = draws.parameters.iter().map(|p| p[0] / p[1]).collect();
     let half_life: Vec<f64> = k.iter().map(|k| ln2 / k).collect();
     Estimates {
         cl_l_h: est(theta[0].exp(), &parameter(0)),

@@ -207,9 +207,14 @@ impl Proposal {
     }
 
     /// ln q(θ) up to a constant shared by all draws of this proposal.
+    ///
+    /// ln(1 + Q/ν) is taken as the logarithm of the rounded sum, not by `ln_1p`: a log weight
+    /// needs absolute accuracy, and rounding 1 + Q/ν (Q ≥ 0) moves its logarithm by at most
+    /// 2⁻⁵³, where `ln_1p`'s relative accuracy near 0 buys nothing and costs as much as two
+    /// logarithms.
     fn ln_density(&self, theta: &[f64; MAX], n: usize) -> f64 {
         let d: [f64; MAX] = std::array::from_fn(|i| theta[i] - self.mean[i]);
-        -0.5 * (NU + n as f64) * (quad_form(&self.precision, n, &d) / NU).ln_1p()
+        -0.5 * (NU + n as f64) * (1.0 + quad_form(&self.precision, n, &d) / NU).ln()
     }
 
     fn draw(&self, n: usize, rng: &mut StdRng, normal: &Normal, chi: &ChiSquared) -> [f64; MAX] {
