@@ -60,11 +60,6 @@ pub fn log_det(l: &Mat, n: usize) -> f64 {
     2.0 * (0..n).map(|i| l[i][i].ln()).sum::<f64>()
 }
 
-/// xᵀ·A·x.
-pub fn quad_form(a: &Mat, n: usize, x: &[f64]) -> f64 {
-    (0..n).map(|i| (0..n).map(|j| x[i] * a[i][j] * x[j]).sum::<f64>()).sum()
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
