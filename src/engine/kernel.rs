@@ -280,10 +280,14 @@ pub fn advance<R: Real>(
 pub struct Pair<R> {
     /// The bit that tells the two lengths apart.
     bit: u32,
-    /// At each place: the step's length (h), which of the two `steps` given it is, and its
+    /// At each place: the binary form of the step's length (h), compared as an integer (a length
+    /// is positive, so equal lengths are equal bits; an integer comparison takes one
+    /// instruction and no floating-point port), which of the two `steps` given it is, and its
     /// factors: e^(−k t), R·t·φ1(k t) when an infusion runs, G(t) and e^(−ka t) when the depot
-    /// held drug (else unused zeros).
-    length: [f64; 2],
+    /// held drug (else unused zeros). A place without a step (its length NaN: no second length
+    /// seen yet) holds the other length's bits, which differ from its own place's in the
+    /// telling bit, so that no interval, NaN included, is placed there.
+    length_bits: [u64; 2],
     which: [usize; 2],
     e: [R; 2],
     infused: [R; 2],
@@ -307,9 +311,10 @@ impl<R: Real> Pair<R> {
         let f = which.map(|w| steps[w].factors(rates, infusing, depot));
         let length = which.map(|w| steps[w].t);
         let infused = |p: usize| if infusing { f[p].p1 * (rate * length[p]) } else { R::cst(0.0) };
+        let length_bits = [0, 1].map(|p| if length[p] > 0.0 { length[p] } else { length[1 - p] }.to_bits());
         Pair {
             bit,
-            length,
+            length_bits,
             which,
             e: [f[0].e, f[1].e],
             infused: [infused(0), infused(1)],
@@ -320,12 +325,13 @@ impl<R: Real> Pair<R> {
         }
     }
 
-    /// The place of the step for an interval of length `dt`, if it is one of the two.
+    /// The place of the step for an interval of length `dt`, if it is one of the two (exactly
+    /// that length, as [`Propagator::is_for`]).
     #[inline(always)]
-    #[allow(clippy::float_cmp)] // the step of exactly that length, as `Propagator::is_for`
     pub fn place(&self, dt: f64) -> Option<usize> {
-        let place = ((dt.to_bits() >> self.bit) & 1) as usize;
-        (self.length[place] == dt).then_some(place)
+        let bits = dt.to_bits();
+        let place = ((bits >> self.bit) & 1) as usize;
+        (self.length_bits[place] == bits).then_some(place)
     }
 
     /// Which of the two steps given to [`Pair::new`] is at `place`.
@@ -413,6 +419,26 @@ mod tests {
         // Continuous through ka = k.
         let near = depot_to_central(k, k * (1.0 + 1e-9), t);
         assert!(rel(near, t * (-k * t).exp()) < 1e-8);
+    }
+
+    #[test]
+    fn a_pair_places_exactly_its_lengths_and_nothing_at_a_place_without_a_step() {
+        let rates = Rates { k: 0.1, ka: 1.1 };
+        let (short, long) = (0.05, 0.05f64.next_up());
+        let pair =
+            Pair::new(&mut [Propagator::new(rates, long), Propagator::new(rates, short)], rates, 0.0, true);
+        let (p, q) = (pair.place(short).unwrap(), pair.place(long).unwrap());
+        assert_ne!(p, q);
+        assert_eq!((pair.which(p), pair.which(q)), (1, 0));
+        for dt in [0.05f64.next_down(), 0.05f64.next_up().next_up(), 0.0, -0.0, -short, f64::NAN] {
+            assert_eq!(pair.place(dt), None, "{dt}");
+        }
+        // One length only (the other step not made yet, its length NaN).
+        let pair = Pair::new(&mut [Propagator::new(rates, short), Propagator::none()], rates, 0.0, false);
+        assert_eq!(pair.place(short).map(|p| pair.which(p)), Some(0));
+        for dt in [f64::NAN, -f64::NAN, long, 0.0, -0.0, f64::INFINITY] {
+            assert_eq!(pair.place(dt), None, "{dt}");
+        }
     }
 
     #[test]
