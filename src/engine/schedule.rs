@@ -151,14 +151,15 @@ impl Schedule {
         each: impl FnMut([f64; LANES]),
     ) {
         let factors = &mut room.0;
-        factors.resize(self.lengths.len(), [Factors { e: 0.0, p1: 0.0, g: 0.0, ea: 0.0 }; LANES]);
+        factors.resize(self.lengths.len(), FactorLanes::default());
         for (lanes, l) in factors.iter_mut().zip(&self.lengths) {
-            for (f, k) in lanes.iter_mut().zip(kin) {
-                *f = l.factors(Rates { k: k.k, ka: k.ka });
+            for (i, k) in kin.iter().enumerate() {
+                lanes.set(i, l.factors(Rates { k: k.k, ka: k.ka }));
             }
         }
-        let state = [State::empty(); LANES];
-        self.walk(&mut Lanes { kin, factors, state, anchor: state, each });
+        let zero = [0.0; LANES];
+        let (central, depot) = (zero, zero);
+        self.walk(&mut Lanes { kin, factors, central, depot, anchor: (central, depot), each });
     }
 
     /// Make the recorded moves on `carrier`.
@@ -188,7 +189,36 @@ impl Length {
 /// The lanes' factors of each distinct length, for [`Schedule::run_lanes`]: kept from call to
 /// call, so that a batch of evaluations allocates them once.
 #[derive(Debug, Default)]
-pub(crate) struct LaneFactors<const LANES: usize>(Vec<[Factors<f64>; LANES]>);
+pub(crate) struct LaneFactors<const LANES: usize>(Vec<FactorLanes<LANES>>);
+
+/// One length's [`Factors`] in every lane, each factor's lanes side by side, so that a move
+/// made in every lane is a few packed operations.
+#[derive(Debug, Clone, Copy)]
+struct FactorLanes<const LANES: usize> {
+    e: [f64; LANES],
+    p1: [f64; LANES],
+    g: [f64; LANES],
+    ea: [f64; LANES],
+}
+
+impl<const LANES: usize> Default for FactorLanes<LANES> {
+    fn default() -> Self {
+        let zero = [0.0; LANES];
+        FactorLanes { e: zero, p1: zero, g: zero, ea: zero }
+    }
+}
+
+impl<const LANES: usize> FactorLanes<LANES> {
+    #[inline(always)]
+    fn set(&mut self, lane: usize, f: Factors<f64>) {
+        (self.e[lane], self.p1[lane], self.g[lane], self.ea[lane]) = (f.e, f.p1, f.g, f.ea);
+    }
+
+    #[inline(always)]
+    fn get(&self, lane: usize) -> Factors<f64> {
+        Factors { e: self.e[lane], p1: self.p1[lane], g: self.g[lane], ea: self.ea[lane] }
+    }
+}
 
 /// What the recorded moves act on: one parameter set's state ([`One`]), or several sets'
 /// together ([`Lanes`]). Lengths are numbered as in [`Schedule::lengths`].
@@ -216,11 +246,11 @@ fn step<R: Real>(from: State<R>, ka: R, f: &Factors<R>, infused: Option<f64>) ->
     advance(from, ka, f.e, infused.map(|x| f.p1 * x), || (f.g, f.ea))
 }
 
-/// The central amount after a step with an infusion running and the depot empty: what
-/// [`advance`] reduces to there.
+/// The central amount after a step with an infusion running and the depot empty (decay `e`,
+/// φ1 `p1`): what [`advance`] reduces to there.
 #[inline(always)]
-fn infuse<R: Real>(central: R, f: &Factors<R>, infused: f64) -> R {
-    central * f.e + f.p1 * infused
+fn infuse<R: Real>(central: R, e: R, p1: R, infused: f64) -> R {
+    central * e + p1 * infused
 }
 
 impl<R: Real, E: FnMut(R)> Carrier for One<'_, R, E> {
@@ -235,7 +265,8 @@ impl<R: Real, E: FnMut(R)> Carrier for One<'_, R, E> {
     }
     #[inline(always)]
     fn infuse(&mut self, length: usize, infused: f64) {
-        self.state.central = infuse(self.state.central, &self.factors[length], infused);
+        let f = &self.factors[length];
+        self.state.central = infuse(self.state.central, f.e, f.p1, infused);
     }
     #[inline(always)]
     fn dose(&mut self, input: Input) {
@@ -251,47 +282,57 @@ impl<R: Real, E: FnMut(R)> Carrier for One<'_, R, E> {
     }
 }
 
-/// `LANES` parameter sets in plain numbers, each lane with [`One`]'s arithmetic.
+/// `LANES` parameter sets in plain numbers, each lane with [`One`]'s arithmetic; the lanes'
+/// amounts side by side, as their factors ([`FactorLanes`]).
 struct Lanes<'a, const LANES: usize, E> {
     kin: &'a [Kinetics<f64>; LANES],
-    factors: &'a [[Factors<f64>; LANES]],
-    state: [State<f64>; LANES],
-    anchor: [State<f64>; LANES],
+    factors: &'a [FactorLanes<LANES>],
+    central: [f64; LANES],
+    depot: [f64; LANES],
+    anchor: ([f64; LANES], [f64; LANES]),
     each: E,
 }
 
 impl<const LANES: usize, E: FnMut([f64; LANES])> Carrier for Lanes<'_, LANES, E> {
     #[inline(always)]
     fn step(&mut self, length: usize, infused: Option<f64>, from_anchor: bool) {
-        let from = if from_anchor { self.anchor } else { self.state };
+        let (central, depot) = if from_anchor { self.anchor } else { (self.central, self.depot) };
         let f = &self.factors[length];
-        self.state = std::array::from_fn(|i| step(from[i], self.kin[i].ka, &f[i], infused));
+        for i in 0..LANES {
+            let next =
+                step(State { central: central[i], depot: depot[i] }, self.kin[i].ka, &f.get(i), infused);
+            (self.central[i], self.depot[i]) = (next.central, next.depot);
+        }
     }
     #[inline(always)]
     fn decay(&mut self, length: usize) {
-        for (s, f) in self.state.iter_mut().zip(&self.factors[length]) {
-            s.central *= f.e;
+        let f = &self.factors[length];
+        for i in 0..LANES {
+            self.central[i] *= f.e[i];
         }
     }
     #[inline(always)]
     fn infuse(&mut self, length: usize, infused: f64) {
-        for (s, f) in self.state.iter_mut().zip(&self.factors[length]) {
-            s.central = infuse(s.central, f, infused);
+        let f = &self.factors[length];
+        for i in 0..LANES {
+            self.central[i] = infuse(self.central[i], f.e[i], f.p1[i], infused);
         }
     }
     #[inline(always)]
     fn dose(&mut self, input: Input) {
-        for (s, k) in self.state.iter_mut().zip(self.kin) {
-            input.enter(s, k.f);
+        for i in 0..LANES {
+            let mut s = State { central: self.central[i], depot: self.depot[i] };
+            input.enter(&mut s, self.kin[i].f);
+            (self.central[i], self.depot[i]) = (s.central, s.depot);
         }
     }
     #[inline(always)]
     fn anchor(&mut self) {
-        self.anchor = self.state;
+        self.anchor = (self.central, self.depot);
     }
     #[inline(always)]
     fn read(&mut self) {
-        (self.each)(std::array::from_fn(|i| self.state[i].central / self.kin[i].v));
+        (self.each)(std::array::from_fn(|i| self.central[i] / self.kin[i].v));
     }
 }
 
