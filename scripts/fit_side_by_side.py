@@ -134,13 +134,14 @@ def weighted_quantiles(values, weights, ps):
 
 def sample(subject, mode, hess, rng, draws=2000):
     mean, cov = mode, 2 * np.linalg.inv(hess)
-    for m in (max(-(-draws // 4), 200), draws):
+    # The same rounds as cistern's sampler: a first round of a tenth of the draws (at least
+    # 200) to adapt the proposal, then the draws; ln q from the variates (Q = (nu/chi2) z'z).
+    for m in (max(-(-draws // 10), 200), draws):
         chol = np.linalg.cholesky(cov)
         z = rng.standard_normal((m, 2))
-        scale = np.sqrt(NU / rng.chisquare(NU, m))
-        theta = mean + scale[:, None] * (z @ chol.T)
-        d = theta - mean
-        q = -0.5 * (NU + 2) * np.log1p(np.einsum("ni,ij,nj->n", d, np.linalg.inv(cov), d) / NU)
+        chi2 = rng.chisquare(NU, m)
+        theta = mean + np.sqrt(NU / chi2)[:, None] * (z @ chol.T)
+        q = -0.5 * (NU + 2) * np.log1p(np.einsum("ni,ni->n", z, z) / chi2)
         log_w = -0.5 * objective(theta, subject)[0] - q
         w = np.exp(log_w - log_w.max())
         w /= w.sum()
