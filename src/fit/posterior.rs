@@ -258,8 +258,12 @@ pub fn sample(
     let mut room = LaneFactors::default();
     for (round, &m) in rounds.iter().enumerate() {
         let proposal = Proposal::new(mean, &cov, n)?;
-        let (theta, ln_q): (Vec<[f64; MAX]>, Vec<f64>) =
-            (0..m).map(|_| proposal.draw(n, &mut rng, &normal, &chi)).unzip();
+        let (mut theta, mut ln_q) = (Vec::with_capacity(m), Vec::with_capacity(m));
+        for _ in 0..m {
+            let (t, q) = proposal.draw(n, &mut rng, &normal, &chi);
+            theta.push(t);
+            ln_q.push(q);
+        }
         let mut log_w = Vec::with_capacity(m);
         let mut parameters = Vec::with_capacity(m);
         for (chunk, ln_q) in theta.chunks(LANES).zip(ln_q.chunks(LANES)) {
