@@ -251,16 +251,17 @@ impl Problem {
     /// ([`Schedule::run_lanes`], with `room` for its factors), the concentrations bit for bit
     /// [`Problem::cost`]'s.
     ///
-    /// The values are [`Problem::cost`]'s to rounding, not bit for bit: the quantified levels'
-    /// ln(2π σᵢ²) are taken as the logarithm of their product, one logarithm a point instead
-    /// of one a level (the product's roundings move the sum by about one unit in the last place
-    /// a level, as the separate logarithms' do). A product that leaves the normal range of f64
-    /// (dozens of levels with tiny variances) sends the point to [`Problem::cost`]'s sum.
+    /// The values are [`Problem::cost`]'s to rounding, not bit for bit, and come as a
+    /// [`SplitCost`]: the quantified levels' ln(2π σᵢ²) are taken as the logarithm of their
+    /// product, left to the caller (the product's roundings move the sum by about one unit in
+    /// the last place a level, as the separate logarithms' do). A product that leaves the
+    /// normal range of f64 (dozens of levels with tiny variances) sends the point to
+    /// [`Problem::cost`]'s sum.
     pub(crate) fn costs_and_parameters<const LANES: usize>(
         &self,
         theta: &[[f64; MAX]; LANES],
         room: &mut LaneFactors<LANES>,
-    ) -> [(f64, [f64; MAX]); LANES] {
+    ) -> [(SplitCost, [f64; MAX]); LANES] {
         let parameters: [[f64; MAX]; LANES] = std::array::from_fn(|i| self.parameters(&theta[i][..self.n]));
         let kinetics = parameters.map(|p| self.kinetics(p));
         let mut totals = [0.0; LANES];
@@ -287,9 +288,9 @@ impl Problem {
         std::array::from_fn(|i| {
             let theta = &theta[i][..self.n];
             let cost = if spreads[i].is_normal() {
-                self.with_prior(totals[i] + spreads[i].ln(), theta)
+                SplitCost { sum: self.with_prior(totals[i], theta), spread: spreads[i] }
             } else {
-                self.value_with(theta, parameters[i])
+                SplitCost { sum: self.value_with(theta, parameters[i]), spread: 1.0 }
             };
             (cost, parameters[i])
         })
@@ -366,6 +367,29 @@ impl Problem {
     }
 }
 
+/// An objective value as `sum` + ln `spread` (`spread` a positive normal number), the form in
+/// which [`Problem::costs_and_parameters`] leaves it: a caller that adds a logarithm of its
+/// own takes both with one ([`SplitCost::less_ln_power`]).
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct SplitCost {
+    pub sum: f64,
+    pub spread: f64,
+}
+
+impl SplitCost {
+    /// The objective value.
+    pub fn value(self) -> f64 {
+        self.sum + self.spread.ln()
+    }
+
+    /// The value less `power`·ln `base` (`base` ≥ 1), with one logarithm where
+    /// `spread`/`base`^`power` is a normal number, else with two.
+    pub fn less_ln_power(self, base: f64, power: i32) -> f64 {
+        let spread = self.spread / base.powi(power);
+        if spread.is_normal() { self.sum + spread.ln() } else { self.value() - f64::from(power) * base.ln() }
+    }
+}
+
 /// The residual variance σ² = a² + b²·f² at prediction `f`.
 #[inline(always)]
 fn variance<R: Real>(res: &Residual, f: R) -> R {
@@ -415,7 +439,7 @@ mod tests {
             let mut room = LaneFactors::default();
             let exact = matches!(problem.likelihood, Likelihood::LeastSquares(_));
             for (t, (cost, parameters)) in theta.iter().zip(problem.costs_and_parameters(&theta, &mut room)) {
-                let alone = problem.cost(t);
+                let (cost, alone) = (cost.value(), problem.cost(t));
                 if exact {
                     assert_eq!(cost.to_bits(), alone.to_bits(), "θ {t:?}");
                 } else {
@@ -441,9 +465,25 @@ mod tests {
         let theta: [[f64; MAX]; 8] = std::array::from_fn(|i| [-1.0 + 0.1 * i as f64, 3.0, 0.0]);
         let mut room = LaneFactors::default();
         for (t, (cost, _)) in theta.iter().zip(problem.costs_and_parameters(&theta, &mut room)) {
+            let cost = cost.value();
             assert!(cost.is_finite());
             assert_eq!(cost.to_bits(), problem.cost(t).to_bits(), "θ {t:?}");
         }
+    }
+
+    /// The objective less a power's logarithm, with one logarithm (to rounding) and, where the
+    /// power leaves the range of f64, with two (exactly so).
+    #[test]
+    fn a_split_cost_less_a_powers_logarithm() {
+        let cost = SplitCost { sum: 12.5, spread: 3.7e-4 };
+        for (base, power) in [(1.0, 7), (1.3, 8), (57.0, 7), (1e4, 8)] {
+            let want = cost.value() - f64::from(power) * f64::ln(base);
+            let got = cost.less_ln_power(base, power);
+            assert!((got - want).abs() <= 1e-14 * (1.0 + want.abs()), "{base}^{power}: {got} {want}");
+        }
+        // 1e300^8 overflows (the two-logarithm path); 1^8 = 1 leaves the value itself.
+        assert_eq!(cost.less_ln_power(1e300, 8).to_bits(), (cost.value() - 8.0 * 1e300f64.ln()).to_bits());
+        assert_eq!(cost.less_ln_power(1.0, 8).to_bits(), cost.value().to_bits());
     }
 
     #[test]

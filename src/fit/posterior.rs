@@ -15,8 +15,10 @@ use rand::distr::Distribution;
 use rand::rngs::StdRng;
 use statrs::distribution::{ChiSquared, Normal};
 
-/// Degrees of freedom of the t proposal: heavy enough tails to cover a skewed posterior.
-const NU: f64 = 5.0;
+/// Degrees of freedom of the t proposal: heavy enough tails to cover a skewed posterior. A
+/// whole number, so that the power u^(ν + n) in the density is a few multiplications.
+const DEGREES: i32 = 5;
+const NU: f64 = DEGREES as f64;
 
 /// Draws whose objective is evaluated together ([`Problem::costs_and_parameters`]): the
 /// recorded walk's moves are looked at once for all of them.
@@ -205,14 +207,13 @@ impl Proposal {
         Some(Proposal { mean, chol: cholesky(cov, n)? })
     }
 
-    /// A draw θ = mean + L·z·√(ν/χ²), with ln q(θ) up to a constant shared by all draws of
-    /// this proposal: −(ν + n)/2 · ln(1 + Q/ν), where Q = (θ − mean)ᵀΣ⁻¹(θ − mean) is
-    /// (ν/χ²)·zᵀz exactly (L·Lᵀ = Σ), so taken from the variates themselves.
+    /// A draw θ = mean + L·z·√(ν/χ²), with u = 1 + Q/ν, where Q = (θ − mean)ᵀΣ⁻¹(θ − mean) is
+    /// (ν/χ²)·zᵀz exactly (L·Lᵀ = Σ), so taken from the variates themselves: ln q(θ) is
+    /// −(ν + n)/2 · ln u up to a constant shared by all draws of this proposal.
     ///
-    /// ln(1 + zᵀz/χ²) is the logarithm of the rounded sum, not `ln_1p`: a log weight needs
-    /// absolute accuracy, and rounding 1 + x (x ≥ 0) moves its logarithm by at most 2⁻⁵³,
-    /// where `ln_1p`'s relative accuracy near 0 buys nothing and costs as much as two
-    /// logarithms.
+    /// u is the rounded sum and its logarithm is taken as such (with the objective's, in
+    /// [`sample`]), not by `ln_1p`: a log weight needs absolute accuracy, and rounding 1 + x
+    /// (x ≥ 0) moves its logarithm by at most 2⁻⁵³.
     fn draw(&self, n: usize, rng: &mut StdRng, normal: &Normal, chi: &ChiSquared) -> ([f64; MAX], f64) {
         let mut z = [0.0; MAX];
         for zi in z.iter_mut().take(n) {
@@ -225,7 +226,7 @@ impl Proposal {
             theta[i] += scale * (0..=i).map(|k| self.chol[i][k] * z[k]).sum::<f64>();
         }
         let zz: f64 = z.iter().map(|x| x * x).sum();
-        (theta, -0.5 * (NU + n as f64) * (1.0 + zz / chi2).ln())
+        (theta, 1.0 + zz / chi2)
     }
 }
 
@@ -258,19 +259,20 @@ pub fn sample(
     let mut room = LaneFactors::default();
     for (round, &m) in rounds.iter().enumerate() {
         let proposal = Proposal::new(mean, &cov, n)?;
-        let (mut theta, mut ln_q) = (Vec::with_capacity(m), Vec::with_capacity(m));
+        let (mut theta, mut u) = (Vec::with_capacity(m), Vec::with_capacity(m));
         for _ in 0..m {
-            let (t, q) = proposal.draw(n, &mut rng, &normal, &chi);
+            let (t, ui) = proposal.draw(n, &mut rng, &normal, &chi);
             theta.push(t);
-            ln_q.push(q);
+            u.push(ui);
         }
         let mut log_w = Vec::with_capacity(m);
         let mut parameters = Vec::with_capacity(m);
-        for (chunk, ln_q) in theta.chunks(LANES).zip(ln_q.chunks(LANES)) {
+        for (chunk, u) in theta.chunks(LANES).zip(u.chunks(LANES)) {
             // The last chunk is filled up with its last draw; the copies' results are dropped.
             let lanes: [[f64; MAX]; LANES] = std::array::from_fn(|i| chunk[i.min(chunk.len() - 1)]);
-            for (q, (cost, p)) in ln_q.iter().zip(problem.costs_and_parameters(&lanes, &mut room)) {
-                log_w.push(-0.5 * cost - q);
+            // ln w = −½·objective − ln q = −½·(objective − (ν + n)·ln u): one logarithm a draw.
+            for (&u, (cost, p)) in u.iter().zip(problem.costs_and_parameters(&lanes, &mut room)) {
+                log_w.push(-0.5 * cost.less_ln_power(u, DEGREES + n as i32));
                 parameters.push(p);
             }
         }
