@@ -267,12 +267,12 @@ pub fn sample(
         }
         let mut log_w = Vec::with_capacity(m);
         let mut parameters = Vec::with_capacity(m);
-        for (chunk, u) in theta.chunks(LANES).zip(u.chunks(LANES)) {
+        for (chunk, u_chunk) in theta.chunks(LANES).zip(u.chunks(LANES)) {
             // The last chunk is filled up with its last draw; the copies' results are dropped.
             let lanes: [[f64; MAX]; LANES] = std::array::from_fn(|i| chunk[i.min(chunk.len() - 1)]);
             // ln w = −½·objective − ln q = −½·(objective − (ν + n)·ln u): one logarithm a draw.
-            for (&u, (cost, p)) in u.iter().zip(problem.costs_and_parameters(&lanes, &mut room)) {
-                log_w.push(-0.5 * cost.less_ln_power(u, DEGREES + n as i32));
+            for (&ui, (cost, p)) in u_chunk.iter().zip(problem.costs_and_parameters(&lanes, &mut room)) {
+                log_w.push(-0.5 * cost.less_ln_power(ui, DEGREES + n as i32));
                 parameters.push(p);
             }
         }
